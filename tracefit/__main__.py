@@ -1,0 +1,5 @@
+import sys
+
+from tracefit.cli import main
+
+sys.exit(main())

@@ -1,0 +1,66 @@
+"""Command line: a thin typer layer over the library.
+
+Each command lives in its own module under ``tracefit.cli`` and registers itself on
+:data:`app`. Bad input raises :class:`tracefit.errors.TracefitInputError`, which
+:func:`main` prints as one line on stderr with exit code 2, never a traceback.
+"""
+
+from __future__ import annotations
+
+import sys
+
+import typer
+
+app = typer.Typer(
+    name="tracefit",
+    help="Identify the slip or twin system behind straight bands in micrographs.",
+    no_args_is_help=True,
+    add_completion=False,
+    pretty_exceptions_enable=False,
+)
+
+
+@app.callback()
+def _root() -> None:
+    """tracefit: slip- and twin-trace analysis of micrographs."""
+
+
+def _register() -> None:
+    # Importing a command module registers its command(s) on ``app``.
+    from importlib import import_module
+
+    for name in _COMMAND_MODULES:
+        import_module(f"tracefit.cli.{name}")
+
+
+# One entry per command module; add yours here.
+_COMMAND_MODULES: list[str] = []
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Entry point of the ``tracefit`` console script."""
+    from tracefit.errors import TracefitInputError
+
+    _register()
+    try:
+        code = app(args=argv, standalone_mode=False)
+    except TracefitInputError as exc:
+        print(f"tracefit: error: {exc}", file=sys.stderr)
+        return 2
+    except typer.Exit as exc:  # raised by commands for a chosen exit code
+        return int(exc.exit_code or 0)
+    except typer.Abort:
+        print("tracefit: aborted", file=sys.stderr)
+        return 1
+    except Exception as exc:
+        # Usage errors from the click layer (typer may vendor its own copy of click,
+        # so match by class name rather than by importing click).
+        if any(k.__name__ == "ClickException" for k in type(exc).__mro__):
+            exc.show()
+            return int(getattr(exc, "exit_code", 2) or 2)
+        raise
+    return int(code) if isinstance(code, int) else 0
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())
