@@ -1,0 +1,256 @@
+"""Parse and print Miller (hkl) and Miller-Bravais (hkil) indices as the trade writes them.
+
+Brackets carry the meaning:
+
+==========  =====================  ===========
+bracket     meaning                example
+==========  =====================  ===========
+``( )``     one plane              ``(1-11)``, ``(10-12)``
+``{ }``     family of planes       ``{111}``, ``{10-12}``
+``[ ]``     one direction          ``[11-20]``
+``< >``     family of directions   ``<110>``, ``<-1-123>``
+==========  =====================  ===========
+
+Inside the brackets three styles are accepted:
+
+* compact, one digit per index with ``-`` as the bar: ``(1-11)``, ``<-1-123>``;
+* separated by spaces: ``(1 -1 1)``, ``(1 0 -1 12)`` (needed for two-digit indices);
+* separated by commas: ``(1,-1,1)``.
+
+A Unicode minus (U+2212) and an overbar written as a combining overline or macron after
+the digit (``1̄``) are read as a minus sign too.
+
+Four indices are Miller-Bravais: planes (hkil) need h + k + i = 0, directions [uvtw]
+need u + v + t = 0. With a ``lattice`` given, hexagonal lattices require four indices
+(three only with the opt-in ``hex_three_index=True``, which then means plain Miller
+indices on the hexagonal a1, a2, c cell) and other lattices reject four.
+"""
+
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass
+
+from tracefit.errors import TracefitInputError
+
+__all__ = ["MillerIndex", "parse_index", "format_index", "to_three", "BRACKETS"]
+
+#: opening bracket -> (closing bracket, kind, family)
+BRACKETS = {
+    "(": (")", "plane", False),
+    "{": ("}", "plane", True),
+    "[": ("]", "direction", False),
+    "<": (">", "direction", True),
+}
+_CLOSE = {v[0]: k for k, v in BRACKETS.items()}
+_OPEN_FOR = {(v[1], v[2]): k for k, v in BRACKETS.items()}
+
+_HELP = "write e.g. (111), (1-11), (1 0 -1 2), {111}, [11-20] or <110>"
+_INT = re.compile(r"[+-]?\d+\Z")
+_COMPACT = re.compile(r"(?:-?\d)+\Z")
+_BARS = ("\u0304", "\u0305")  # combining macron, combining overline
+
+
+@dataclass(frozen=True)
+class MillerIndex:
+    """A parsed index.
+
+    Attributes
+    ----------
+    values : tuple of int
+        Three (Miller) or four (Miller-Bravais) integers, exactly as written.
+    kind : {"plane", "direction"}
+        ``()``/``{}`` give planes, ``[]``/``<>`` directions.
+    family : bool
+        True for ``{}`` and ``<>`` (all symmetry equivalents).
+    """
+
+    values: tuple[int, ...]
+    kind: str
+    family: bool = False
+
+    def __str__(self) -> str:
+        return format_index(self.values, self.kind, self.family)
+
+    @property
+    def is_four(self) -> bool:
+        """True for Miller-Bravais (four-index) notation."""
+        return len(self.values) == 4
+
+    def three(self) -> tuple[int, ...]:
+        """The equivalent three-index form: (hkil) -> (hkl), [uvtw] -> [u-t, v-t, w]."""
+        return to_three(self.values, self.kind)
+
+
+def to_three(values, kind: str) -> tuple[int, ...]:
+    """Integer three-index form of a 3- or 4-index plane or direction (unchanged if 3)."""
+    v = tuple(int(x) for x in values)
+    if len(v) == 3:
+        return v
+    if kind == "plane":
+        return (v[0], v[1], v[3])
+    return (v[0] - v[2], v[1] - v[2], v[3])
+
+
+def _normalise_text(text: str) -> str:
+    t = text.strip().replace("\u2212", "-").replace("\u2013", "-")
+    # An overbar after a digit ("1̄") means that digit is negative: move it in front.
+    for bar in _BARS:
+        t = re.sub(r"(\d)" + bar, r"-\1", t)
+    return t
+
+
+def _split_body(body: str, text: str) -> list[int]:
+    body = body.strip()
+    if not body:
+        raise TracefitInputError(f"no indices inside the brackets in {text!r}; {_HELP}")
+    if "," in body or re.search(r"\s", body):
+        tokens = [t for t in re.split(r"[,\s]+", body) if t]
+        if "," in body and any(not t.strip() for t in body.split(",")):
+            raise TracefitInputError(f"empty index between commas in {text!r}; {_HELP}")
+        bad = [t for t in tokens if not _INT.match(t)]
+        if bad:
+            raise TracefitInputError(
+                f"cannot read {bad[0]!r} in {text!r} as one integer index; with spaces or commas "
+                f"each index is written whole, e.g. (1 0 -1 12); {_HELP}"
+            )
+        return [int(t) for t in tokens]
+    if not _COMPACT.match(body):
+        raise TracefitInputError(f"cannot read the indices in {text!r}: only digits and minus signs belong inside; {_HELP}")
+    return [int(m) for m in re.findall(r"-?\d", body)]
+
+
+def parse_index(text, lattice=None, expect: str | None = None, hex_three_index: bool = False) -> MillerIndex:
+    """Read one plane, plane family, direction or direction family.
+
+    Parameters
+    ----------
+    text : str
+        The index as written, e.g. ``"(1-11)"``, ``"{10-12}"``, ``"<-1-123>"``, ``"(1,-1,1)"``.
+    lattice : tracefit.lattice.Lattice, optional
+        When given, the number of indices is checked against it: four for hexagonal
+        lattices, three for all others.
+    expect : {"plane", "direction"}, optional
+        Reject the other kind with a message saying which was expected.
+    hex_three_index : bool
+        Opt-in: accept three-index (hkl)/[UVW] for a hexagonal lattice (plain Miller indices
+        on the a1, a2, c cell). Off by default because a missing i is the usual typing slip.
+
+    Returns
+    -------
+    MillerIndex
+
+    Raises
+    ------
+    TracefitInputError
+        Malformed text, unbalanced brackets, all-zero index, broken h + k + i = 0 or
+        u + v + t = 0, or an index count that does not suit the lattice.
+    """
+    if not isinstance(text, str):
+        raise TracefitInputError(f"an index must be text such as '(111)' or '[11-20]', got {type(text).__name__}")
+    if expect not in (None, "plane", "direction"):
+        raise ValueError(f"expect must be None, 'plane' or 'direction', not {expect!r}")
+    t = _normalise_text(text)
+    if not t:
+        raise TracefitInputError(f"empty index; {_HELP}")
+    opening = t[0]
+    if opening not in BRACKETS:
+        if t[-1] in _CLOSE:
+            raise TracefitInputError(f"unbalanced brackets in {text!r}: it closes with {t[-1]!r} but does not open with {_CLOSE[t[-1]]!r}")
+        raise TracefitInputError(
+            f"{text!r} is not an index: put it in brackets, () for a plane, {{}} a plane family, "
+            f"[] a direction, <> a direction family"
+        )
+    closing, kind, family = BRACKETS[opening]
+    if t[-1] != closing:
+        raise TracefitInputError(f"unbalanced brackets in {text!r}: {opening!r} must close with {closing!r}")
+    body = t[1:-1]
+    if any(c in body for c in "(){}[]<>"):
+        raise TracefitInputError(f"unbalanced or nested brackets in {text!r}; give one index per entry; {_HELP}")
+    values = tuple(_split_body(body, text))
+    if expect is not None and kind != expect:
+        example = "(111) or {111}" if expect == "plane" else "[110] or <110>"
+        raise TracefitInputError(f"expected a {expect} such as {example}, got the {kind} {text.strip()!r}")
+    check_values(values, kind, lattice=lattice, text=text.strip(), hex_three_index=hex_three_index)
+    return MillerIndex(values, kind, family)
+
+
+def check_values(values, kind: str, lattice=None, text: str | None = None, hex_three_index: bool = False) -> None:
+    """Validate integer indices of a plane or direction (count, all-zero, four-index sum rule).
+
+    Raises
+    ------
+    TracefitInputError
+        With a message naming the broken rule.
+    """
+    shown = text if text is not None else format_index(values, kind) if values and all(isinstance(v, int) for v in values) else repr(values)
+    n = len(values)
+    if n not in (3, 4):
+        raise TracefitInputError(
+            f"{shown} has {n} indices; a {kind} takes three (Miller) or, on a hexagonal lattice, four (Miller-Bravais)"
+        )
+    if all(v == 0 for v in values):
+        raise TracefitInputError(f"{shown} is all zero, which is no {kind}; at least one index must be non-zero")
+    if n == 4:
+        a, b, c = values[0], values[1], values[2]
+        s = a + b + c
+        if s != 0:
+            if kind == "plane":
+                raise TracefitInputError(
+                    f"Miller-Bravais plane {shown} breaks h + k + i = 0 (here {_sum_text(a, b, c)}); "
+                    f"the third index must be i = -(h + k) = {-(a + b)}"
+                )
+            raise TracefitInputError(
+                f"Miller-Bravais direction {shown} breaks u + v + t = 0 (here {_sum_text(a, b, c)}); "
+                f"the third index must be t = -(u + v) = {-(a + b)}"
+            )
+    if lattice is not None:
+        hexagonal = bool(getattr(lattice, "is_hexagonal", False))
+        name = getattr(lattice, "name", "this")
+        if hexagonal and n == 3 and not hex_three_index:
+            if kind == "plane":
+                raise TracefitInputError(
+                    f"{shown}: hexagonal planes take four indices (hkil), e.g. (10-12); "
+                    f"for ({values[0]} {values[1]} {values[2]}) write "
+                    f"{format_index((values[0], values[1], -(values[0] + values[1]), values[2]), 'plane')}"
+                )
+            raise TracefitInputError(f"{shown}: hexagonal directions take four indices [uvtw], e.g. [11-20] or [-1-123]")
+        if not hexagonal and n == 4:
+            raise TracefitInputError(
+                f"{shown}: four (Miller-Bravais) indices only apply to hexagonal lattices, and {name} lattice is not one; "
+                f"give three indices"
+            )
+
+
+def _sum_text(a: int, b: int, c: int) -> str:
+    terms = [str(a)] + [f"+ {x}" if x >= 0 else f"- {-x}" for x in (b, c)]
+    return f"{' '.join(terms)} = {a + b + c}"
+
+
+def format_index(values, kind: str = "plane", family: bool = False) -> str:
+    """Print indices in the compact trade form with minus signs for bars.
+
+    Parameters
+    ----------
+    values : sequence of int
+        Three or four integer indices.
+    kind : {"plane", "direction"}
+    family : bool
+        Curly/angle brackets for families.
+
+    Returns
+    -------
+    str
+        E.g. ``"(1-11)"``, ``"{10-12}"``, ``"<11-20>"``; space separated when any index has
+        two or more digits, e.g. ``"(1 0 -1 12)"``.
+    """
+    if kind not in ("plane", "direction"):
+        raise ValueError(f"kind must be 'plane' or 'direction', not {kind!r}")
+    vals = [int(v) for v in values]
+    opening = _OPEN_FOR[(kind, bool(family))]
+    closing = BRACKETS[opening][0]
+    if any(abs(v) > 9 for v in vals):
+        body = " ".join(str(v) for v in vals)
+    else:
+        body = "".join(str(v) for v in vals)
+    return f"{opening}{body}{closing}"

@@ -1,0 +1,330 @@
+"""Proper rotation groups of the Laue classes, and the variants of plane and direction families.
+
+The rotations are built from the lattice's own basis vectors (Cartesian crystal frame of
+:class:`tracefit.lattice.Lattice`), so they follow whatever setting the lattice uses
+(e.g. hexagonal x || a1 or x || a1*). Rotation axes per Laue class:
+
+=========  ===========  ==========================================================
+Laue       rotations    generators (axes as lattice vectors)
+=========  ===========  ==========================================================
+m-3m       432 (24)     4 || c, 4 || a (gives the 3-folds || <111>)
+m-3        23 (12)      2 || c, 2 || a, 3 || a + b + c
+6/mmm      622 (12)     6 || c, 2 || a1
+6/m        6 (6)        6 || c
+-3m        32 (6)       3 || c, 2 || a1 (the "-3m1" choice, 2-folds along a1, a2, a3)
+-3         3 (3)        3 || c
+4/mmm      422 (8)      4 || c, 2 || a
+4/m        4 (4)        4 || c
+mmm        222 (4)      2 || a, 2 || b, 2 || c
+2/m        2 (2)        2 || the unique axis (b when alpha = gamma = 90 deg)
+-1         1 (1)        identity
+=========  ===========  ==========================================================
+
+Only proper rotations are returned: every Laue group is the proper group times
+inversion, and inversion maps a plane or direction onto its own negative, which is the
+same plane (one trace) or, for signed directions, is dealt with by the caller.
+
+Variants are found in integer index space: each rotation R is carried into the
+reciprocal basis (planes, M = B^-1 R B) or the direct basis (directions, M = A^-1 R A),
+checked to be integral, and applied to the integer indices, so variants are exact.
+
+Order of variants (stable, documented): each variant is written with a canonical sign
+(first non-zero index positive) for unsigned results, and the list is sorted in
+descending lexicographic order of the written indices, e.g.
+{111} -> (111), (11-1), (1-11), (1-1-1).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from tracefit.errors import TracefitInputError
+from tracefit.indices import MillerIndex, check_values, parse_index
+
+__all__ = [
+    "proper_rotations",
+    "index_rotations",
+    "plane_variants",
+    "direction_variants",
+    "canonical_sign",
+    "same_family",
+    "GROUP_OF_LAUE",
+]
+
+#: Laue class -> proper rotation group (Hermann-Mauguin symbol)
+GROUP_OF_LAUE = {
+    "m-3m": "432",
+    "m-3": "23",
+    "6/mmm": "622",
+    "6/m": "6",
+    "-3m": "32",
+    "-3": "3",
+    "4/mmm": "422",
+    "4/m": "4",
+    "mmm": "222",
+    "2/m": "2",
+    "-1": "1",
+}
+
+_ORDER = {"432": 24, "23": 12, "622": 12, "6": 6, "32": 6, "3": 3, "422": 8, "4": 4, "222": 4, "2": 2, "1": 1}
+
+
+def _axis_rotation(axis, fold: int) -> np.ndarray:
+    """Active rotation by 360/fold degrees about ``axis`` (Rodrigues)."""
+    k = np.asarray(axis, float)
+    k = k / np.linalg.norm(k)
+    t = 2.0 * math.pi / fold
+    K = np.array([[0, -k[2], k[1]], [k[2], 0, -k[0]], [-k[1], k[0], 0]])
+    R = np.eye(3) + math.sin(t) * K + (1 - math.cos(t)) * (K @ K)
+    R[np.abs(R) < 1e-15] = 0.0
+    return R
+
+
+def _close(generators: list[np.ndarray], order: int) -> np.ndarray:
+    """All products of the generators (breadth first, so the order is deterministic)."""
+    found = [np.eye(3)]
+    keys = {tuple(np.round(found[0], 8).ravel())}
+    frontier = [np.eye(3)]
+    while frontier:
+        nxt = []
+        for g in frontier:
+            for h in generators:
+                p = h @ g
+                key = tuple(np.round(p, 8).ravel() + 0.0)
+                if key not in keys:
+                    keys.add(key)
+                    found.append(p)
+                    nxt.append(p)
+        frontier = nxt
+        if len(found) > order:
+            break
+    if len(found) != order:  # pragma: no cover - a wrong generator set is a programming error
+        raise RuntimeError(f"rotation group closed with {len(found)} elements, expected {order}")
+    return np.array(found)
+
+
+def _unique_axis(lattice) -> int:
+    """Index (0 a, 1 b, 2 c) of the monoclinic unique axis: the one perpendicular to the other two."""
+    right = [abs(x - 90.0) < 1e-6 for x in (lattice.alpha, lattice.beta, lattice.gamma)]
+    # alpha = b^c, beta = a^c, gamma = a^b; b is unique when alpha and gamma are right angles.
+    if right[0] and right[2]:
+        return 1
+    if right[0] and right[1]:
+        return 2
+    if right[1] and right[2]:
+        return 0
+    raise TracefitInputError(
+        f"Laue class 2/m needs a cell with two right angles (unique axis), got alpha, beta, gamma = "
+        f"{lattice.alpha}, {lattice.beta}, {lattice.gamma}"
+    )
+
+
+def proper_rotations(lattice) -> np.ndarray:
+    """Proper rotations of the lattice's Laue class, in its Cartesian crystal frame.
+
+    Parameters
+    ----------
+    lattice : tracefit.lattice.Lattice
+
+    Returns
+    -------
+    ndarray, shape (N, 3, 3)
+        Active rotation matrices, identity first. N = 24 (m-3m), 12 (m-3, 6/mmm), 6 (6/m, -3m),
+        8 (4/mmm), 4 (4/m, mmm), 3 (-3), 2 (2/m), 1 (-1).
+
+    Raises
+    ------
+    TracefitInputError
+        If the cell does not have the symmetry its Laue class claims (the rotations would not
+        map the lattice onto itself).
+    """
+    key = ("proper_rotations", lattice.laue, lattice.hex_setting)
+    cache = getattr(lattice, "_cache", None)
+    if cache is not None and key in cache:
+        return cache[key]
+    A = lattice.direct_matrix
+    a, b, c = A[:, 0], A[:, 1], A[:, 2]
+    group = GROUP_OF_LAUE[lattice.laue]
+    gens = {
+        "432": lambda: [_axis_rotation(c, 4), _axis_rotation(a, 4)],
+        "23": lambda: [_axis_rotation(c, 2), _axis_rotation(a, 2), _axis_rotation(a + b + c, 3)],
+        "622": lambda: [_axis_rotation(c, 6), _axis_rotation(a, 2)],
+        "6": lambda: [_axis_rotation(c, 6)],
+        "32": lambda: [_axis_rotation(c, 3), _axis_rotation(a, 2)],
+        "3": lambda: [_axis_rotation(c, 3)],
+        "422": lambda: [_axis_rotation(c, 4), _axis_rotation(a, 2)],
+        "4": lambda: [_axis_rotation(c, 4)],
+        "222": lambda: [_axis_rotation(a, 2), _axis_rotation(b, 2), _axis_rotation(c, 2)],
+        "2": lambda: [_axis_rotation(A[:, _unique_axis(lattice)], 2)],
+        "1": lambda: [],
+    }[group]()
+    rots = _close(gens, _ORDER[group])
+    # The group must map the lattice onto itself: integral in the direct basis.
+    Ainv = np.linalg.inv(A)
+    M = np.einsum("ij,njk,kl->nil", Ainv, rots, A)
+    if np.max(np.abs(M - np.round(M))) > 1e-6:
+        raise TracefitInputError(
+            f"the cell of lattice {lattice.name!r} (a={lattice.a:g}, b={lattice.b:g}, c={lattice.c:g}, "
+            f"alpha={lattice.alpha:g}, beta={lattice.beta:g}, gamma={lattice.gamma:g}) does not have the symmetry "
+            f"of Laue class {lattice.laue}; give a matching cell or a lower Laue class"
+        )
+    rots.setflags(write=False)
+    if cache is not None:
+        cache[key] = rots
+    return rots
+
+
+def index_rotations(lattice, kind: str) -> np.ndarray:
+    """The proper rotations as integer matrices acting on three-index (hkl) or [uvw].
+
+    Parameters
+    ----------
+    lattice : tracefit.lattice.Lattice
+    kind : {"plane", "direction"}
+        Planes transform with M = B^-1 R B (B: columns a*, b*, c*), directions with
+        M = A^-1 R A (A: columns a, b, c).
+
+    Returns
+    -------
+    ndarray of int, shape (N, 3, 3)
+    """
+    key = ("index_rotations", kind, lattice.laue, lattice.hex_setting)
+    cache = getattr(lattice, "_cache", None)
+    if cache is not None and key in cache:
+        return cache[key]
+    R = proper_rotations(lattice)
+    X = lattice.reciprocal_matrix if kind == "plane" else lattice.direct_matrix
+    M = np.einsum("ij,njk,kl->nil", np.linalg.inv(X), R, X)
+    Mi = np.round(M).astype(int)
+    if np.max(np.abs(M - Mi)) > 1e-6:  # pragma: no cover - proper_rotations already checked this
+        raise TracefitInputError(f"the symmetry of lattice {lattice.name!r} is not integral in its {kind} index basis")
+    Mi.setflags(write=False)
+    if cache is not None:
+        cache[key] = Mi
+    return Mi
+
+
+def canonical_sign(values) -> tuple[int, ...]:
+    """The index with its first non-zero entry made positive (a plane and its negative are one)."""
+    v = tuple(int(x) for x in values)
+    for x in v:
+        if x != 0:
+            return v if x > 0 else tuple(-y for y in v)
+    return v
+
+
+def _as_values(idx, lattice, kind: str) -> tuple[int, ...]:
+    if isinstance(idx, MillerIndex):
+        if idx.kind != kind:
+            raise TracefitInputError(f"expected a {kind}, got the {idx.kind} {idx}")
+        vals = idx.values
+    elif isinstance(idx, str):
+        vals = parse_index(idx, expect=kind).values
+    else:
+        try:
+            arr = np.asarray(idx)
+            if arr.ndim != 1:
+                raise ValueError
+            vals = tuple(int(round(float(x))) for x in arr)
+            if any(abs(float(x) - y) > 1e-9 for x, y in zip(arr, vals)):
+                raise ValueError
+        except (TypeError, ValueError):
+            raise TracefitInputError(f"a {kind} must be 3 or 4 integer indices, got {idx!r}") from None
+    check_values(vals, kind)
+    if len(vals) == 4 and not lattice.is_hexagonal:
+        raise TracefitInputError(
+            f"four (Miller-Bravais) indices only apply to hexagonal lattices, and {lattice.name} is not one; give three"
+        )
+    return vals
+
+
+def _to_three(v, kind):
+    v = np.asarray(v, dtype=np.int64)
+    if v.shape[-1] == 3:
+        return v
+    if kind == "plane":
+        return v[..., [0, 1, 3]]
+    return np.stack([v[..., 0] - v[..., 2], v[..., 1] - v[..., 2], v[..., 3]], axis=-1)
+
+
+def _to_four(v3, kind, template):
+    """Back to four indices, scaled to the same integer size as the original four-index input."""
+    v3 = np.asarray(v3, dtype=np.int64)
+    if kind == "plane":
+        h, k, l = v3[..., 0], v3[..., 1], v3[..., 2]
+        return np.stack([h, k, -(h + k), l], axis=-1)
+    U, V, W = v3[..., 0], v3[..., 1], v3[..., 2]
+    num = np.stack([2 * U - V, 2 * V - U, -(U + V), 3 * W], axis=-1)
+    if np.any(num % 3):  # pragma: no cover - symmetry maps [uvtw] with integer u, v, t onto integers
+        raise RuntimeError("a symmetry variant of a four-index direction is not integral")
+    return num // 3
+
+
+def _variants(lattice, values, kind):
+    M = index_rotations(lattice, kind)
+    v3 = _to_three(values, kind)
+    out = np.einsum("nij,j->ni", M, v3)
+    if len(values) == 4:
+        out = _to_four(out, kind, values)
+    return [tuple(int(x) for x in row) for row in out]
+
+
+def plane_variants(lattice, hkl) -> list[tuple[int, ...]]:
+    """Distinct planes of the family of ``hkl``, a plane and its negative counted once.
+
+    Parameters
+    ----------
+    lattice : tracefit.lattice.Lattice
+    hkl : sequence of int, str or MillerIndex
+        Any member of the family: (hkl), or (hkil) for hexagonal lattices.
+
+    Returns
+    -------
+    list of tuple of int
+        Each plane once, first non-zero index positive, sorted in descending lexicographic
+        order; same number of indices as ``hkl``.
+    """
+    vals = _as_values(hkl, lattice, "plane")
+    found = {canonical_sign(v) for v in _variants(lattice, vals, "plane")}
+    return sorted(found, reverse=True)
+
+
+def direction_variants(lattice, uvw, signed: bool = True) -> list[tuple[int, ...]]:
+    """Distinct directions of the family of ``uvw``.
+
+    Parameters
+    ----------
+    lattice : tracefit.lattice.Lattice
+    uvw : sequence of int, str or MillerIndex
+        [uvw], or [uvtw] for hexagonal lattices.
+    signed : bool
+        True (default): [uvw] and [-u-v-w] are different (a twinning direction keeps its
+        sense); the result is the orbit under the proper rotations plus inversion (the Laue
+        group). False: each +- pair once, first non-zero index positive.
+
+    Returns
+    -------
+    list of tuple of int
+        Sorted in descending lexicographic order.
+    """
+    vals = _as_values(uvw, lattice, "direction")
+    vs = _variants(lattice, vals, "direction")
+    if signed:
+        found = set(vs) | {tuple(-x for x in v) for v in vs}
+    else:
+        found = {canonical_sign(v) for v in vs}
+    return sorted(found, reverse=True)
+
+
+def same_family(lattice, a, b, kind: str = "plane") -> bool:
+    """True when ``a`` and ``b`` belong to the same family (up to sign) under the lattice symmetry."""
+    va = _as_values(a, lattice, kind)
+    vb = _as_values(b, lattice, kind)
+    if len(va) != len(vb):
+        from tracefit.indices import to_three
+
+        va, vb = to_three(va, kind), to_three(vb, kind)
+    members = plane_variants(lattice, va) if kind == "plane" else direction_variants(lattice, va, signed=False)
+    return canonical_sign(vb) in members
