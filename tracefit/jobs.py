@@ -1,0 +1,561 @@
+"""Survey job files: one TOML file that lists many images and how to analyse each.
+
+The format is tracefit's own (documented with a full example in ``docs/job-file.md``)::
+
+    title = "Bracket coupon study"
+
+    [defaults]                 # every [[image]] inherits these unless it says otherwise
+    lattice = "fcc"            # fcc, bcc, hcp, tetragonal
+    modes = ["slip"]           # slip, twin
+    load = { axis = "y", sense = "tension" }   # or just load = "y"
+    pixel_size_um = 0.5
+    frame = { rotation_deg = 0.0 }
+
+    [[image]]
+    name = "coupon-A"
+    file = "coupon_A.png"      # relative to the job file
+    euler_deg = [10.0, 20.0, 30.0]
+
+    [[image]]
+    name = "coupon-B"
+    file = "coupon_B.png"
+    labels = "coupon_B_labels.png"         # grain label image ...
+    orientations = "coupon_B_grains.csv"   # ... plus orientation table
+
+Python's ``tomllib`` gives no source positions, so this module finds the line of every key
+itself (:func:`key_lines`); every validation message names the field and its line.
+"""
+
+from __future__ import annotations
+
+import difflib
+import math
+import re
+import tomllib
+from dataclasses import asdict, dataclass, field
+from pathlib import Path
+from typing import Any
+
+from tracefit.errors import TracefitInputError
+
+__all__ = ["Job", "ImageJob", "load_job", "parse_job", "key_lines", "JOB_FORMAT"]
+
+JOB_FORMAT = 1
+
+MODES = ("slip", "twin")
+LATTICES = ("fcc", "bcc", "hcp", "tetragonal")
+
+# Keys an image may set itself or inherit from [defaults].
+_SHARED_KEYS = {
+    "lattice": "a lattice name: one of " + ", ".join(LATTICES),
+    "c_over_a": "a positive number (hcp or tetragonal only)",
+    "modes": "a list drawn from " + ", ".join(f'"{m}"' for m in MODES),
+    "families": 'a list of family strings such as "{111}<1-10>"',
+    "load": 'the load axis: "x", "0,1,0" or a crystal direction "[001]"; or a table { axis = "[001]", sense = "compression" }',
+    "pixel_size_um": "a positive number of micrometres per pixel",
+    "frame": "a table of frame settings (rotation_deg, ...)",
+    "detect": "a table of band-detection options",
+    "match": "a table of matching options",
+    "mask": "a mask image file name",
+}
+_IMAGE_ONLY_KEYS = {
+    "name": "a short unique name (letters, digits, '-', '_', '.')",
+    "file": "the image file name, relative to the job file",
+    "euler_deg": "three Bunge Euler angles [phi1, Phi, phi2] in degrees",
+    "labels": "a grain label image file name",
+    "orientations": "an orientation table CSV file name",
+    "notes": "free text",
+}
+_TOP_KEYS = {
+    "format": f"the job format number ({JOB_FORMAT})",
+    "title": "a title for the report",
+    "notes": "free text for the report",
+    "defaults": "a table of settings every image inherits",
+    "image": "one [[image]] table per image",
+}
+
+_NAME_RE = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.\-]*$")
+
+
+@dataclass(frozen=True)
+class ImageJob:
+    """One image of a survey, with every setting resolved (defaults applied).
+
+    Paths are absolute. Exactly one orientation source is set: ``euler_deg`` (one
+    orientation for the whole image) or ``labels`` plus ``orientations`` (per grain).
+    """
+
+    name: str
+    file: Path
+    lattice: str
+    c_over_a: float | None = None
+    modes: tuple[str, ...] = ("slip",)
+    families: tuple[str, ...] | None = None
+    load: str | None = None
+    load_sense: str = "tension"
+    pixel_size_um: float | None = None
+    frame: dict = field(default_factory=dict)
+    detect: dict = field(default_factory=dict)
+    match: dict = field(default_factory=dict)
+    mask: Path | None = None
+    euler_deg: tuple[float, float, float] | None = None
+    labels: Path | None = None
+    orientations: Path | None = None
+    notes: str = ""
+    line: int = 0  # line of this image's [[image]] header in the job file
+
+    def settings(self) -> dict:
+        """The analysis settings as plain JSON-ready values (for reports and resume checks)."""
+        d = asdict(self)
+        for k in ("file", "mask", "labels", "orientations"):
+            d[k] = None if d[k] is None else str(d[k])
+        d["modes"] = list(self.modes)
+        d["families"] = None if self.families is None else list(self.families)
+        d["euler_deg"] = None if self.euler_deg is None else list(self.euler_deg)
+        d.pop("line")
+        return d
+
+
+@dataclass(frozen=True)
+class Job:
+    """A parsed, validated survey job."""
+
+    path: Path
+    title: str
+    images: tuple[ImageJob, ...]
+    notes: str = ""
+    defaults: dict = field(default_factory=dict)
+
+    def to_dict(self) -> dict:
+        return {
+            "path": str(self.path),
+            "title": self.title,
+            "notes": self.notes,
+            "defaults": self.defaults,
+            "images": [im.settings() for im in self.images],
+        }
+
+
+# --------------------------------------------------------------------------- key positions
+_BARE = r"[A-Za-z0-9_\-]+"
+_QUOTED = r'"(?:[^"\\]|\\.)*"|\'[^\']*\''
+_KEYPART = rf"(?:{_BARE}|{_QUOTED})"
+_DOTTED = rf"{_KEYPART}(?:\s*\.\s*{_KEYPART})*"
+_KEY_RE = re.compile(rf"^\s*({_DOTTED})\s*=")
+_AOT_RE = re.compile(rf"^\s*\[\[\s*({_DOTTED})\s*\]\]")
+_TABLE_RE = re.compile(rf"^\s*\[\s*({_DOTTED})\s*\]")
+_INLINE_KEY_RE = re.compile(rf"[{{,]\s*({_BARE})\s*=")
+
+
+def _split_dotted(s: str) -> list[str]:
+    parts = re.findall(_KEYPART, s)
+    return [p[1:-1] if p[:1] in "\"'" else p for p in parts]
+
+
+def _scan_rest(text: str, state: dict) -> None:
+    """Advance the lexer state (open multi-line string, bracket depth) over one line's text."""
+    i, n = 0, len(text)
+    while i < n:
+        ml = state["ml"]
+        if ml:
+            j = text.find(ml, i)
+            if j < 0:
+                return
+            state["ml"] = None
+            i = j + 3
+            continue
+        c = text[i]
+        if c == "#":
+            return
+        if text.startswith('"""', i) or text.startswith("'''", i):
+            state["ml"] = text[i : i + 3]
+            i += 3
+            continue
+        if c == '"':
+            j = i + 1
+            while j < n and text[j] != '"':
+                j += 2 if text[j] == "\\" else 1
+            i = j + 1
+            continue
+        if c == "'":
+            j = text.find("'", i + 1)
+            i = n if j < 0 else j + 1
+            continue
+        if c in "[{":
+            state["depth"] += 1
+        elif c in "]}":
+            state["depth"] = max(0, state["depth"] - 1)
+        i += 1
+
+
+def key_lines(text: str) -> dict[tuple, int]:
+    """Line number (1-based) of every table header and key in a TOML text.
+
+    Keys are paths as tuples; arrays of tables contribute their index, so the ``file``
+    key of the second ``[[image]]`` is ``("image", 1, "file")``. Keys of inline tables
+    get the line of their parent key. Lines inside multi-line strings and arrays are
+    skipped. This is a locator for error messages, not a TOML parser.
+    """
+    lines: dict[tuple, int] = {}
+    aot_count: dict[tuple, int] = {}
+    aot_names: set[tuple] = set()
+    current: tuple = ()
+    state = {"ml": None, "depth": 0}
+
+    def resolve(parts: list[str]) -> tuple:
+        out: list = []
+        for p in parts:
+            out.append(p)
+            if tuple(out) in aot_names:
+                out.append(aot_count[tuple(out)] - 1)
+        return tuple(out)
+
+    for no, raw in enumerate(text.splitlines(), start=1):
+        if state["ml"] or state["depth"]:
+            _scan_rest(raw, state)
+            continue
+        m = _AOT_RE.match(raw)
+        if m:
+            parts = _split_dotted(m.group(1))
+            base = resolve(parts[:-1]) + (parts[-1],)
+            aot_names.add(base)
+            aot_count[base] = aot_count.get(base, 0) + 1
+            current = base + (aot_count[base] - 1,)
+            lines.setdefault(base, no)
+            lines[current] = no
+            _scan_rest(raw[m.end() :], state)
+            continue
+        m = _TABLE_RE.match(raw)
+        if m:
+            current = resolve(_split_dotted(m.group(1)))
+            lines[current] = no
+            _scan_rest(raw[m.end() :], state)
+            continue
+        m = _KEY_RE.match(raw)
+        if m:
+            path = current + tuple(_split_dotted(m.group(1)))
+            lines[path] = no
+            rest = raw[m.end() :]
+            if rest.lstrip().startswith("{"):
+                for k in _INLINE_KEY_RE.findall(rest):
+                    lines.setdefault(path + (k,), no)
+            _scan_rest(rest, state)
+            continue
+        _scan_rest(raw, state)
+    return lines
+
+
+# --------------------------------------------------------------------------- validation
+class _Ctx:
+    """Error helper: knows the file name and where each key sits."""
+
+    def __init__(self, path: Path, lines: dict[tuple, int]):
+        self.path = path
+        self.lines = lines
+
+    def line(self, key: tuple) -> int | None:
+        k = tuple(key)
+        while k:
+            if k in self.lines:
+                return self.lines[k]
+            k = k[:-1]
+        return None
+
+    @staticmethod
+    def label(key: tuple) -> str:
+        out = ""
+        for p in key:
+            if isinstance(p, int):
+                out += f"[{p + 1}]"
+            else:
+                out += ("." if out else "") + p
+        return out
+
+    def fail(self, key: tuple, what: str) -> TracefitInputError:
+        ln = self.line(key)
+        where = f"{self.path.name}, line {ln}" if ln else f"{self.path.name}"
+        return TracefitInputError(f"{where}: field '{self.label(key)}' {what}")
+
+
+def _unknown(ctx: _Ctx, key: tuple, allowed: dict) -> TracefitInputError:
+    close = difflib.get_close_matches(str(key[-1]), list(allowed), n=1)
+    hint = f"; did you mean '{close[0]}'?" if close else f"; expected one of {', '.join(sorted(allowed))}"
+    return ctx.fail(key, f"is not a known field{hint}")
+
+
+def _number(ctx, key, v, positive=False) -> float:
+    if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
+        raise ctx.fail(key, f"must be a number, got {v!r}")
+    if positive and v <= 0:
+        raise ctx.fail(key, f"must be a positive number, got {v!r}")
+    return float(v)
+
+
+def _string(ctx, key, v) -> str:
+    if not isinstance(v, str) or not v.strip():
+        raise ctx.fail(key, f"must be a non-empty string, got {v!r}")
+    return v.strip()
+
+
+def _str_list(ctx, key, v) -> tuple[str, ...]:
+    if isinstance(v, str):
+        v = [v]
+    if not isinstance(v, list) or not v or not all(isinstance(x, str) and x.strip() for x in v):
+        raise ctx.fail(key, f"must be a list of strings, got {v!r}")
+    return tuple(x.strip() for x in v)
+
+
+def _table(ctx, key, v) -> dict:
+    if not isinstance(v, dict):
+        raise ctx.fail(key, f"must be a table (e.g. {{ key = value }}), got {v!r}")
+    return dict(v)
+
+
+def _file(ctx, key, v, base: Path) -> Path:
+    s = _string(ctx, key, v)
+    p = Path(s).expanduser()
+    return (p if p.is_absolute() else base / p).resolve()
+
+
+def _check_shared(ctx: _Ctx, key: tuple, name: str, v: Any, base: Path):
+    """Validate one of the keys an image can inherit; return the normalised value."""
+    k = key + (name,)
+    if name == "lattice":
+        s = _string(ctx, k, v).lower()
+        if s not in LATTICES:
+            raise ctx.fail(k, f"must be one of {', '.join(LATTICES)}, got {v!r}")
+        return s
+    if name == "c_over_a":
+        return _number(ctx, k, v, positive=True)
+    if name == "modes":
+        modes = tuple(m.lower() for m in _str_list(ctx, k, v))
+        bad = [m for m in modes if m not in MODES]
+        if bad:
+            raise ctx.fail(k, f"has unknown mode {bad[0]!r}; expected {' and/or '.join(MODES)}")
+        return modes
+    if name == "families":
+        return _str_list(ctx, k, v)
+    if name == "load":
+        if isinstance(v, str):
+            return {"axis": _string(ctx, k, v), "sense": "tension"}
+        t = _table(ctx, k, v)
+        for kk in t:
+            if kk not in ("axis", "sense"):
+                raise _unknown(ctx, k + (kk,), {"axis": 1, "sense": 1})
+        if "axis" not in t:
+            raise ctx.fail(k + ("axis",), 'is missing: give the load axis, e.g. axis = "[001]" or "y"')
+        axis = _string(ctx, k + ("axis",), t["axis"])
+        sense = _string(ctx, k + ("sense",), t.get("sense", "tension")).lower()
+        if sense not in ("tension", "compression"):
+            raise ctx.fail(k + ("sense",), f"must be \"tension\" or \"compression\", got {t.get('sense')!r}")
+        return {"axis": axis, "sense": sense}
+    if name == "pixel_size_um":
+        return _number(ctx, k, v, positive=True)
+    if name in ("frame", "detect", "match"):
+        return _table(ctx, k, v)
+    if name == "mask":
+        return _file(ctx, k, v, base)
+    raise AssertionError(name)  # pragma: no cover
+
+
+def _check_with_geometry(ctx: _Ctx, key_of: dict, im: dict) -> None:
+    """Checks that need the geometry modules: lattice + c/a, load string, frame settings.
+
+    Each check runs only if the module is importable, so the job reader never depends on
+    work that has not landed; the message still names the field and line.
+    """
+    import warnings
+
+    from tracefit.lattice import lattice_preset
+
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")  # e.g. "ideal c/a assumed": repeated at analysis time
+            lattice = lattice_preset(im["lattice"], im.get("c_over_a"))
+    except TracefitInputError as exc:
+        which = "c_over_a" if im.get("c_over_a") is not None else "lattice"
+        raise ctx.fail(key_of[which], str(exc)) from None
+    if im.get("load") is not None:
+        try:
+            from tracefit.traces import parse_load
+        except ImportError:
+            parse_load = None
+        if parse_load is not None:
+            try:
+                parse_load(im["load"]["axis"], lattice, im["load"]["sense"])
+            except TracefitInputError as exc:
+                raise ctx.fail(key_of["load"], str(exc)) from None
+    if im.get("frame"):
+        try:
+            from tracefit.frames import FrameSettings
+        except ImportError:
+            FrameSettings = None
+        if FrameSettings is not None:
+            import dataclasses
+
+            names = {f.name for f in dataclasses.fields(FrameSettings)} if dataclasses.is_dataclass(FrameSettings) else None
+            for fk in im["frame"]:
+                if names is not None and fk not in names:
+                    raise _unknown(ctx, key_of["frame"] + (fk,), dict.fromkeys(names))
+            try:
+                FrameSettings(**im["frame"])
+            except TracefitInputError as exc:
+                raise ctx.fail(key_of["frame"], str(exc)) from None
+            except (TypeError, ValueError) as exc:
+                raise ctx.fail(key_of["frame"], f"is not valid: {exc}") from None
+
+
+def parse_job(text: str, path: str | Path = "job.toml") -> Job:
+    """Parse and validate job-file text; ``path`` sets the name in messages and the base for files.
+
+    Raises
+    ------
+    TracefitInputError
+        For a TOML syntax error or any missing, unknown or wrongly typed field; the
+        message names the field and its line.
+    """
+    path = Path(path)
+    base = path.resolve().parent
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise TracefitInputError(f"{path.name}: not valid TOML: {exc}") from None
+    ctx = _Ctx(path, key_lines(text))
+
+    for k in data:
+        if k not in _TOP_KEYS:
+            raise _unknown(ctx, (k,), _TOP_KEYS)
+    if "format" in data and data["format"] != JOB_FORMAT:
+        raise ctx.fail(("format",), f"must be {JOB_FORMAT} (this tracefit reads job format {JOB_FORMAT}), got {data['format']!r}")
+    title = _string(ctx, ("title",), data["title"]) if "title" in data else path.stem
+    notes = data.get("notes", "")
+    if not isinstance(notes, str):
+        raise ctx.fail(("notes",), "must be a string")
+
+    defaults_raw = data.get("defaults", {})
+    if not isinstance(defaults_raw, dict):
+        raise ctx.fail(("defaults",), "must be a table: write [defaults] on its own line")
+    defaults: dict = {}
+    for k, v in defaults_raw.items():
+        if k not in _SHARED_KEYS:
+            if k in _IMAGE_ONLY_KEYS:
+                raise ctx.fail(("defaults", k), "belongs in an [[image]] table, not in [defaults]")
+            raise _unknown(ctx, ("defaults", k), _SHARED_KEYS)
+        defaults[k] = _check_shared(ctx, ("defaults",), k, v, base)
+
+    images_raw = data.get("image")
+    if images_raw is None:
+        raise TracefitInputError(f"{path.name}: the job lists no images; add one [[image]] table per image (with name and file)")
+    if not isinstance(images_raw, list) or not all(isinstance(x, dict) for x in images_raw):
+        raise ctx.fail(("image",), "must be written as [[image]] tables")
+    if not images_raw:
+        raise ctx.fail(("image",), "lists no images")
+
+    images: list[ImageJob] = []
+    seen: dict[str, int] = {}
+    allowed = {**_SHARED_KEYS, **_IMAGE_ONLY_KEYS}
+    for i, raw in enumerate(images_raw):
+        key = ("image", i)
+        for k in raw:
+            if k not in allowed:
+                raise _unknown(ctx, key + (k,), allowed)
+        for req in ("name", "file"):
+            if req not in raw:
+                raise ctx.fail(key + (req,), f"is missing: every [[image]] needs '{req}' ({allowed[req]})")
+        name = _string(ctx, key + ("name",), raw["name"])
+        if not _NAME_RE.match(name):
+            raise ctx.fail(key + ("name",), f"must use letters, digits, '-', '_' or '.', got {name!r}")
+        if name in seen:
+            raise ctx.fail(key + ("name",), f"repeats the name {name!r} of image {seen[name] + 1}; names must be unique")
+        seen[name] = i
+        im: dict = dict(defaults)
+        key_of = {k: ("defaults", k) for k in defaults}
+        for k, v in raw.items():
+            if k in _SHARED_KEYS:
+                im[k] = _check_shared(ctx, key, k, v, base)
+                key_of[k] = key + (k,)
+        if "lattice" not in im:
+            raise ctx.fail(key + ("lattice",), "is missing: set it in [defaults] or in this [[image]] "
+                           f"({_SHARED_KEYS['lattice']})")
+        if "modes" not in im:
+            im["modes"] = ("slip",)
+        file = _file(ctx, key + ("file",), raw["file"], base)
+
+        has_euler = "euler_deg" in raw
+        has_labels = "labels" in raw or "orientations" in raw
+        if has_euler and has_labels:
+            raise ctx.fail(key + ("euler_deg",), "conflicts with labels/orientations: give one orientation source")
+        euler = None
+        labels = orient = None
+        if has_euler:
+            e = raw["euler_deg"]
+            if not isinstance(e, list) or len(e) != 3:
+                raise ctx.fail(key + ("euler_deg",), f"must be three angles [phi1, Phi, phi2] in degrees, got {e!r}")
+            euler = tuple(_number(ctx, key + ("euler_deg",), x) for x in e)
+        elif has_labels:
+            for need in ("labels", "orientations"):
+                if need not in raw:
+                    other = "orientations" if need == "labels" else "labels"
+                    raise ctx.fail(key + (other,), f"needs '{need}' beside it ({_IMAGE_ONLY_KEYS[need]})")
+            labels = _file(ctx, key + ("labels",), raw["labels"], base)
+            orient = _file(ctx, key + ("orientations",), raw["orientations"], base)
+        else:
+            raise ctx.fail(key, "has no orientation: give euler_deg = [phi1, Phi, phi2], "
+                           "or labels = \"...\" with orientations = \"...\"")
+        inote = raw.get("notes", "")
+        if not isinstance(inote, str):
+            raise ctx.fail(key + ("notes",), "must be a string")
+        _check_with_geometry(ctx, {**key_of, "lattice": key_of.get("lattice", key)}, im)
+        images.append(
+            ImageJob(
+                name=name,
+                file=file,
+                lattice=im["lattice"],
+                c_over_a=im.get("c_over_a"),
+                modes=tuple(im["modes"]),
+                families=im.get("families"),
+                load=im["load"]["axis"] if im.get("load") else None,
+                load_sense=im["load"]["sense"] if im.get("load") else "tension",
+                pixel_size_um=im.get("pixel_size_um"),
+                frame=dict(im.get("frame", {})),
+                detect=dict(im.get("detect", {})),
+                match=dict(im.get("match", {})),
+                mask=im.get("mask"),
+                euler_deg=euler,
+                labels=labels,
+                orientations=orient,
+                notes=inote,
+                line=ctx.line(key) or 0,
+            )
+        )
+    jdefaults = {k: (list(v) if isinstance(v, tuple) else str(v) if isinstance(v, Path) else v) for k, v in defaults.items()}
+    return Job(path=path.resolve(), title=title, images=tuple(images), notes=notes, defaults=jdefaults)
+
+
+def load_job(path: str | Path) -> Job:
+    """Read and validate a survey job file.
+
+    Parameters
+    ----------
+    path : str or Path
+        The TOML job file. Image, label, mask and table paths in it are relative to
+        the job file's folder.
+
+    Returns
+    -------
+    Job
+
+    Raises
+    ------
+    TracefitInputError
+        If the file cannot be read, or a field is missing, unknown or of the wrong type
+        (the message names the field and its line).
+    """
+    p = Path(path)
+    try:
+        text = p.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise TracefitInputError(f"job file {str(p)!r} not found") from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise TracefitInputError(f"cannot read job file {str(p)!r}: {exc}") from None
+    return parse_job(text, p)

@@ -1,0 +1,365 @@
+"""Matplotlib figures for notebooks and reports: labelled overlay, stereogram, rose diagram.
+
+All figures use the Agg backend objects directly (no pyplot state, no display needed), so
+they work in worker processes and on machines without a screen.
+
+Frames: the stereogram's sample frame is the image frame (X right, Y up, Z toward the
+viewer, see ``docs/conventions.md``), so a plane's great circle meets the primitive
+circle at the same angle as its trace in the image.
+"""
+
+from __future__ import annotations
+
+import io
+from pathlib import Path
+
+import numpy as np
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.figure import Figure
+
+__all__ = [
+    "wulff_project",
+    "great_circle",
+    "stereogram",
+    "rose_diagram",
+    "overlay_figure",
+    "family_colors",
+    "plane_label",
+    "figure_png_bytes",
+    "save_figure",
+]
+
+# Colour-blind-safe qualitative palette (Okabe & Ito, "Color Universal Design", 2008).
+_PALETTE = ["#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9", "#F0E442", "#000000"]
+
+
+def family_colors(n: int) -> list[str]:
+    """``n`` distinct colours, cycling through a colour-blind-safe palette."""
+    return [_PALETTE[i % len(_PALETTE)] for i in range(n)]
+
+
+def plane_label(p) -> str:
+    """Printable plane label: strings pass through, index tuples print as ``(1-11)`` / ``(10-12)``."""
+    if p is None:
+        return "?"
+    if isinstance(p, str):
+        return p
+    try:
+        from tracefit.indices import format_index  # geometry module; used when present
+    except ImportError:
+        format_index = None
+    if format_index is not None:
+        try:
+            return str(format_index(tuple(int(x) for x in p), kind="plane"))
+        except Exception:
+            pass
+    return "(" + "".join(str(int(x)) if abs(int(x)) < 10 else f" {int(x)} " for x in p).strip() + ")"
+
+
+def _get(obj, key, default=None):
+    if isinstance(obj, dict):
+        return obj.get(key, default)
+    return getattr(obj, key, default)
+
+
+def _new_figure(size_in=(5.0, 5.0), dpi=100) -> Figure:
+    fig = Figure(figsize=size_in, dpi=dpi)
+    FigureCanvasAgg(fig)
+    return fig
+
+
+# --------------------------------------------------------------------------- projection
+def wulff_project(v) -> np.ndarray:
+    """Equal-angle (Wulff, stereographic) projection of directions onto the surface plane.
+
+    Vectors are first turned into the upper hemisphere (z >= 0; an axis has no sense),
+    then projected from the south pole: (x, y) / (1 + z), so a direction at angle rho
+    from Z lands at radius tan(rho / 2) (1 on the primitive circle).
+
+    Parameters
+    ----------
+    v : array_like, shape (..., 3)
+        Directions in the sample frame (need not be unit length).
+
+    Returns
+    -------
+    ndarray, shape (..., 2)
+        Projected (x, y), dimensionless, inside the unit circle.
+    """
+    v = np.asarray(v, dtype=float)
+    v = v / np.linalg.norm(v, axis=-1, keepdims=True)
+    v = np.where(v[..., 2:3] < 0, -v, v)
+    return v[..., :2] / (1.0 + v[..., 2:3])
+
+
+def great_circle(normal, n_points: int = 181) -> np.ndarray:
+    """Upper-hemisphere half of the great circle of the plane with the given normal.
+
+    The arc runs from one end of the plane's surface trace (direction Z x n, on the
+    primitive circle) through the plane's steepest line to the other end.
+
+    Parameters
+    ----------
+    normal : array_like, shape (3,)
+        Plane normal in the sample frame.
+    n_points : int
+        Points along the arc.
+
+    Returns
+    -------
+    ndarray, shape (n_points, 3)
+        Unit vectors lying in the plane, all with z >= 0.
+    """
+    nrm = np.asarray(normal, dtype=float)
+    nrm = nrm / np.linalg.norm(nrm)
+    a = np.cross([0.0, 0.0, 1.0], nrm)
+    if np.linalg.norm(a) < 1e-9:  # plane parallel to the surface: its circle is the primitive
+        a = np.array([1.0, 0.0, 0.0])
+    a = a / np.linalg.norm(a)
+    b = np.cross(nrm, a)
+    if b[2] < 0:
+        b = -b
+    t = np.linspace(0.0, np.pi, n_points)[:, None]
+    return np.cos(t) * a + np.sin(t) * b
+
+
+def _primitive(ax, radius=1.0):
+    t = np.linspace(0, 2 * np.pi, 361)
+    ax.plot(radius * np.cos(t), radius * np.sin(t), color="black", lw=1.0)
+    ax.plot([-0.03, 0.03], [0, 0], color="black", lw=0.6)
+    ax.plot([0, 0], [-0.03, 0.03], color="black", lw=0.6)
+    for ang, lab, ha, va in ((0, "X (image right)", "left", "center"), (90, "Y (image up)", "center", "bottom")):
+        x, y = np.cos(np.radians(ang)), np.sin(np.radians(ang))
+        ax.annotate(lab, (x * 1.02, y * 1.02), ha=ha, va=va, fontsize=7, color="0.3")
+    ax.set_xlim(-1.35, 1.35)
+    ax.set_ylim(-1.25, 1.25)
+    ax.set_aspect("equal")
+    ax.axis("off")
+
+
+def stereogram(planes, matched=None, observed_deg=None, title=None, ax=None, label_planes=True,
+               matched_colors=None) -> Figure:
+    """Stereographic projection of candidate planes: great-circle traces and matched poles.
+
+    Equal-angle (Wulff) projection, upper hemisphere, sample frame = image frame
+    (X right, Y up, Z toward the viewer).
+
+    Parameters
+    ----------
+    planes : sequence of dict or PredictedTrace
+        Candidates, each with ``normal_sample`` (3,) and ``plane`` (label; a tuple of
+        indices or a string).
+    matched : sequence, optional
+        Planes (labels, as in ``planes``) that matched an observed family; their poles
+        are drawn as filled markers and their great circles in colour.
+    observed_deg : sequence of float, optional
+        Observed band angles (degrees, image frame), drawn as dashed diameters: a matching
+        great circle meets the primitive circle at their ends.
+    title : str, optional
+    ax : matplotlib Axes, optional
+        Draw into this axes instead of a new figure.
+    label_planes : bool
+        Write the indices beside every candidate pole (matched poles are always labelled).
+    matched_colors : sequence of str, optional
+        One colour per entry of ``matched`` (e.g. the overlay's family colours).
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    fig = ax.figure if ax is not None else _new_figure((5.2, 5.0))
+    ax = ax if ax is not None else fig.add_axes([0.02, 0.02, 0.96, 0.90])
+    _primitive(ax)
+    matched_labels = [plane_label(m) for m in (matched or [])]
+    if matched_colors is not None:
+        colors = {}
+        for lab, col in zip(matched_labels, matched_colors):
+            colors.setdefault(lab, col)
+    else:
+        colors = dict(zip(dict.fromkeys(matched_labels), family_colors(len(set(matched_labels)))))
+    drawn = set()
+    for p in planes:
+        n = _get(p, "normal_sample")
+        if n is None:
+            continue
+        n = np.asarray(n, float)
+        lab = plane_label(_get(p, "plane"))
+        xy = wulff_project(great_circle(n))
+        is_m = lab in colors
+        ax.plot(xy[:, 0], xy[:, 1], color=colors.get(lab, "0.65"), lw=1.6 if is_m else 0.7, zorder=3 if is_m else 2)
+        pole = wulff_project(n)
+        if is_m:
+            ax.plot(*pole, marker="o", ms=7, color=colors[lab], mec="black", mew=0.6, zorder=5)
+            if lab not in drawn:
+                ax.annotate(lab, pole, xytext=(5, 5), textcoords="offset points", fontsize=8, color=colors[lab],
+                            fontweight="bold", zorder=6)
+                drawn.add(lab)
+        else:
+            ax.plot(*pole, marker="o", ms=3.5, mfc="white", mec="0.45", mew=0.7, zorder=4)
+            if label_planes:
+                ax.annotate(lab, pole, xytext=(3, -8), textcoords="offset points", fontsize=5.5, color="0.45")
+    for a in observed_deg or []:
+        t = np.radians(a)
+        ax.plot([-np.cos(t), np.cos(t)], [-np.sin(t), np.sin(t)], ls="--", lw=0.9, color="black", alpha=0.6, zorder=1)
+    ax.set_title(title or "Stereogram: equal-angle (Wulff), upper hemisphere, sample = image frame", fontsize=8)
+    handles = [
+        ax.plot([], [], color="0.65", lw=0.7, label="candidate plane (great circle)")[0],
+        ax.plot([], [], ls="none", marker="o", mfc="white", mec="0.45", ms=4, label="candidate pole")[0],
+        ax.plot([], [], ls="none", marker="o", color="#0072B2", mec="black", ms=6, label="matched pole")[0],
+    ]
+    if observed_deg:
+        handles.append(ax.plot([], [], ls="--", color="black", alpha=0.6, label="observed trace")[0])
+    ax.legend(handles=handles, loc="lower left", fontsize=6, frameon=False, bbox_to_anchor=(-0.02, -0.03))
+    return fig
+
+
+def rose_diagram(angles_deg, weights=None, bin_deg: float = 5.0, title=None, ax=None, labels=None) -> Figure:
+    """Axial rose diagram of band angles: 0-180 deg histogram, mirrored onto 180-360.
+
+    Parameters
+    ----------
+    angles_deg : array_like
+        Band angles in degrees (image frame, any range; folded to [0, 180)).
+    weights : array_like, optional
+        One weight per angle (e.g. the number of bands in a family); default 1.
+    bin_deg : float
+        Sector width in degrees; 180 must be a whole multiple of it.
+    labels : sequence of str, optional
+        One label per angle, written at the rim beside its sector.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    from tracefit.angles import fold_axial
+
+    a = np.atleast_1d(fold_axial(np.asarray(angles_deg, float))) if np.size(angles_deg) else np.zeros(0)
+    w = np.ones_like(a) if weights is None else np.asarray(weights, float).reshape(a.shape)
+    nb = int(round(180.0 / bin_deg))
+    if nb < 1 or abs(nb * bin_deg - 180.0) > 1e-9:
+        raise ValueError(f"bin_deg must divide 180, got {bin_deg}")
+    counts, edges = np.histogram(a, bins=nb, range=(0.0, 180.0), weights=w)
+    fig = ax.figure if ax is not None else _new_figure((4.2, 4.2))
+    ax = ax if ax is not None else fig.add_axes([0.1, 0.05, 0.8, 0.78], projection="polar")
+    width = np.radians(bin_deg)
+    for off in (0.0, 180.0):  # axial data: each sector drawn at theta and theta + 180
+        ax.bar(np.radians(edges[:-1] + off), counts, width=width, align="edge", color="#0072B2",
+               edgecolor="white", lw=0.5, alpha=0.85 if off == 0 else 0.45)
+    ax.set_theta_zero_location("E")
+    ax.set_theta_direction(1)  # counterclockwise from image +x, like the image-frame angle
+    ax.set_thetagrids(range(0, 360, 30), fontsize=6)
+    ax.tick_params(axis="y", labelsize=6)
+    if labels is not None:
+        top = counts.max() if counts.size and counts.max() > 0 else 1.0
+        for ang, lab in zip(a, labels):
+            ax.annotate(str(lab), (np.radians(ang), top * 1.08), fontsize=7, ha="center", color="#D55E00")
+    ax.set_title(title or "Band angles (axial, deg ccw from image +x)", fontsize=8, pad=14)
+    return fig
+
+
+def _line_endpoints(line):
+    """(c0, r0, c1, r1) pixel endpoints from a BandLine, a dict or a 4-sequence."""
+    if isinstance(line, (list, tuple, np.ndarray)) and len(line) == 4:
+        return tuple(float(x) for x in line)
+    for names in (("col0", "row0", "col1", "row1"), ("x0", "y0", "x1", "y1"), ("c0", "r0", "c1", "r1")):
+        vals = [_get(line, k) for k in names]
+        if all(v is not None for v in vals):
+            return tuple(float(v) for v in vals)
+    for k in ("endpoints", "endpoints_px", "points"):
+        v = _get(line, k)
+        if v is not None:
+            arr = np.asarray(v, float).ravel()
+            if arr.size == 4:
+                return tuple(arr)
+    raise ValueError(f"cannot read pixel endpoints from {line!r}")
+
+
+def overlay_figure(image, families, labels=None, title=None, ax=None, max_width_in: float = 7.0,
+                   grain_labels=None) -> Figure:
+    """The micrograph with each detected band family drawn and labelled.
+
+    Parameters
+    ----------
+    image : ndarray, shape (H, W) or (H, W, 3)
+        The micrograph (gray or RGB; any numeric range, shown min-max scaled).
+    families : sequence of BandFamily or dict
+        Each with ``lines`` (pixel endpoints (col0, row0, col1, row1) per band) and
+        ``angle_deg``.
+    labels : sequence of str, optional
+        One label per family, e.g. its identified plane ``"(1-11)"``; default the angle.
+    title : str, optional
+    grain_labels : ndarray of int (H, W), optional
+        Grain label image; grain boundaries are drawn and each grain's id is written at
+        its centre.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    img = np.asarray(image, float)
+    h, w = img.shape[:2]
+    if ax is None:
+        fw = max_width_in
+        fig = _new_figure((fw, fw * h / w + 0.45))
+        ax = fig.add_axes([0.0, 0.0, 1.0, (fw * h / w) / (fw * h / w + 0.45)])
+    else:
+        fig = ax.figure
+    lo, hi = np.nanmin(img), np.nanmax(img)
+    disp = (img - lo) / (hi - lo) if hi > lo else np.zeros_like(img)
+    ax.imshow(disp, cmap="gray" if disp.ndim == 2 else None, vmin=0, vmax=1, interpolation="nearest")
+    if grain_labels is not None:
+        lab_img = np.asarray(grain_labels)
+        edge = np.zeros(lab_img.shape, bool)
+        edge[:, 1:] |= lab_img[:, 1:] != lab_img[:, :-1]
+        edge[1:, :] |= lab_img[1:, :] != lab_img[:-1, :]
+        rgba = np.zeros(lab_img.shape + (4,))
+        rgba[edge] = (1.0, 0.85, 0.0, 0.9)
+        ax.imshow(rgba, interpolation="nearest")
+        for gid in np.unique(lab_img):
+            rr, cc = np.nonzero(lab_img == gid)
+            if rr.size > 0.01 * lab_img.size:
+                ax.text(float(np.median(cc)), float(np.median(rr)), f"G{int(gid)}", color="#F0E442", fontsize=10,
+                        ha="center", va="center", fontweight="bold",
+                        bbox=dict(boxstyle="round,pad=0.2", fc="black", ec="none", alpha=0.55))
+    colors = family_colors(len(families))
+    for i, fam in enumerate(families):
+        lab = labels[i] if labels is not None else f"{_get(fam, 'angle_deg', 0.0):.1f} deg"
+        lines = list(_get(fam, "lines", None) or [])
+        best = None
+        for ln in lines:
+            c0, r0, c1, r1 = _line_endpoints(ln)
+            ax.plot([c0, c1], [r0, r1], color=colors[i], lw=1.4, alpha=0.9)
+            length = np.hypot(c1 - c0, r1 - r0)
+            if best is None or length > best[0]:
+                best = (length, c0, r0, c1, r1)
+        if best is not None:
+            _, c0, r0, c1, r1 = best
+            # label near the upper end of the longest band, kept inside the image
+            cx, cy = (c0, r0) if r0 < r1 else (c1, r1)
+            cx = float(np.clip(cx, 0.06 * w, 0.8 * w))
+            cy = float(np.clip(cy, 0.05 * h, 0.92 * h))
+        else:
+            cx, cy = 0.05 * w, (0.06 + 0.07 * i) * h
+        ax.text(cx, cy, f"F{i + 1}: {lab}", color="white", fontsize=8, fontweight="bold",
+                bbox=dict(boxstyle="round,pad=0.25", fc=colors[i], ec="none", alpha=0.9))
+    ax.set_xlim(-0.5, w - 0.5)
+    ax.set_ylim(h - 0.5, -0.5)
+    ax.axis("off")
+    if title:
+        fig.suptitle(title, fontsize=9, y=0.995)
+    return fig
+
+
+# --------------------------------------------------------------------------- output
+def figure_png_bytes(fig: Figure, dpi: int = 100) -> bytes:
+    """PNG bytes of a figure."""
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=dpi)
+    return buf.getvalue()
+
+
+def save_figure(fig: Figure, path, dpi: int = 100) -> Path:
+    """Write a figure as PNG atomically (temporary file in the same folder, then rename)."""
+    from tracefit.atomic import write_bytes
+
+    return write_bytes(path, figure_png_bytes(fig, dpi=dpi))

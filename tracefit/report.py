@@ -1,0 +1,346 @@
+"""The survey report: one self-contained HTML file a failure analyst can hand on.
+
+Everything is inside the file: figures are base64-embedded PNG, the style sheet is inline,
+and there is no JavaScript and no external resource, so the report opens the same on any
+machine, offline, years later. Per image it shows the labelled overlay, one candidate table
+per band family (plane, mode, predicted angle, residual, probability, Schmid factor), the
+stereogram(s), the rose diagram, the settings used and any warnings; at the top the tool
+version, the conventions and the caution of :data:`tracefit.CAUTION`.
+"""
+
+from __future__ import annotations
+
+import base64
+import html
+import json
+import time
+from pathlib import Path
+
+import tracefit
+from tracefit.atomic import write_text
+
+__all__ = ["write_report", "render_report", "CONVENTIONS_SUMMARY"]
+
+CONVENTIONS_SUMMARY = [
+    "Image frame: x to the right, y up the screen; angles in degrees, counterclockwise from +x, "
+    "axial (0 <= angle < 180). Pixel rows run downward.",
+    "Sample frame: X = image right, Y = image up, Z = surface normal toward the viewer.",
+    "Orientations: Bunge Euler angles (phi1, Phi, phi2) in degrees, passive; g maps sample to crystal "
+    "coordinates, v_crystal = g v_sample.",
+    "Trace of a plane with unit normal n on the surface: direction Z x n; inclination arccos(|n_z|) "
+    "(90 deg = upright plane).",
+    "Hexagonal lattices: Miller-Bravais indices (hkil); Cartesian setting x along a1, z along c.",
+    "Frame rotation rho: v_image = Rz(rho) v_data, so predicted trace angles shift by +rho; flips act first.",
+    "Stage tilt alpha about the image x axis: tan(apparent) = tan(true) cos(alpha).",
+    "Schmid factor m = cos(phi) cos(lambda) for the load axis; slip reported as |m|; a twin counts only "
+    "when sheared in its twinning sense.",
+    "Stereograms: equal-angle (Wulff) projection of the upper hemisphere in the sample (= image) frame; "
+    "a plane's great circle meets the rim at its trace angle.",
+    "Probabilities are posterior probabilities over the candidate planes plus 'none of these', given the "
+    "measured angle, its uncertainty and the orientation uncertainty.",
+]
+
+_CSS = """
+body{font-family:system-ui,-apple-system,'Segoe UI',Roboto,Helvetica,Arial,sans-serif;margin:0;color:#1b1b1b;background:#fff;line-height:1.4}
+header{background:#17324d;color:#fff;padding:18px 28px}
+header h1{margin:0 0 4px 0;font-size:22px}
+header p{margin:2px 0;font-size:13px;color:#d7e3ef}
+main{padding:10px 28px 40px 28px;max-width:1280px}
+h2{border-bottom:2px solid #17324d;padding-bottom:3px;margin-top:28px;font-size:19px}
+h3{font-size:15px;margin:16px 0 6px 0}
+.caution{border-left:6px solid #d55e00;background:#fff4ec;padding:10px 14px;margin:16px 0;font-size:14px}
+table{border-collapse:collapse;font-size:12.5px;margin:6px 0 12px 0}
+th,td{border:1px solid #c9d2dc;padding:3px 7px;text-align:left;vertical-align:top}
+th{background:#eef2f6}
+td.num{text-align:right;font-variant-numeric:tabular-nums}
+tr.best td{background:#eaf6ee;font-weight:600}
+.status-ok{color:#0a7a3a;font-weight:600}
+.status-failed{color:#b00020;font-weight:600}
+.verdict-unexplained{color:#b00020}
+.verdict-ambiguous{color:#a15c00}
+.figs{display:flex;flex-wrap:wrap;gap:14px;align-items:flex-start}
+figure{margin:0}
+figure img{max-width:100%;height:auto;border:1px solid #c9d2dc}
+figure.overlay img{max-width:640px}
+figure.stereo img{max-width:420px}
+figure.rose img{max-width:340px}
+figcaption{font-size:11.5px;color:#444;max-width:640px}
+.error{background:#fdecee;border:1px solid #f1b0b9;padding:8px 12px;font-family:ui-monospace,monospace;font-size:12.5px;white-space:pre-wrap}
+.notes{font-size:12px;color:#444}
+section.image{border-top:1px solid #dde3e9;margin-top:22px}
+code{font-family:ui-monospace,monospace;font-size:12px}
+footer{border-top:1px solid #c9d2dc;margin-top:30px;padding-top:10px;font-size:12px;color:#444}
+nav ul{columns:2;font-size:13px}
+"""
+
+
+def _e(x) -> str:
+    return html.escape("" if x is None else str(x), quote=True)
+
+
+def _num(x, nd=2) -> str:
+    if x is None or x == "":
+        return ""
+    try:
+        return f"{float(x):.{nd}f}"
+    except (TypeError, ValueError):
+        return _e(x)
+
+
+def _plane(p) -> str:
+    from tracefit.plots import plane_label
+
+    return plane_label(tuple(p)) if p is not None else ""
+
+
+def _direction(d) -> str:
+    from tracefit.survey import plane_label_direction
+
+    return plane_label_direction(d) if d else ""
+
+
+def _img_tag(path: Path, alt: str, cls: str) -> str:
+    try:
+        data = path.read_bytes()
+    except OSError:
+        return f'<p class="error">figure {_e(path.name)} is missing</p>'
+    b64 = base64.b64encode(data).decode("ascii")
+    return f'<img class="{cls}" alt="{_e(alt)}" src="data:image/png;base64,{b64}">'
+
+
+def _settings_rows(s: dict) -> str:
+    rows = []
+    orient = ("Bunge Euler (deg): " + ", ".join(_num(x, 2) for x in s["euler_deg"])) if s.get("euler_deg") else (
+        f"label image {Path(s['labels']).name} + table {Path(s['orientations']).name}" if s.get("labels") else "")
+    items = [
+        ("image file", Path(s["file"]).name if s.get("file") else ""),
+        ("lattice", s.get("lattice", "") + (f", c/a = {s['c_over_a']:g}" if s.get("c_over_a") else "")),
+        ("modes", ", ".join(s.get("modes") or [])),
+        ("families", ", ".join(s.get("families") or []) or "all built-in"),
+        ("orientation", orient),
+        ("load", f"{s['load']} ({s.get('load_sense', 'tension')})" if s.get("load") else "none given"),
+        ("pixel size", f"{s['pixel_size_um']:g} um" if s.get("pixel_size_um") else "not given"),
+        ("frame", ", ".join(f"{k} = {v}" for k, v in (s.get("frame") or {}).items()) or "defaults (no rotation, no flips, no tilt)"),
+        ("detection options", ", ".join(f"{k} = {v}" for k, v in (s.get("detect") or {}).items()) or "defaults"),
+        ("matching options", ", ".join(f"{k} = {v}" for k, v in (s.get("match") or {}).items()) or "defaults"),
+        ("mask", Path(s["mask"]).name if s.get("mask") else "none"),
+    ]
+    for k, v in items:
+        rows.append(f"<tr><th>{_e(k)}</th><td>{_e(v)}</td></tr>")
+    return "".join(rows)
+
+
+def _verdict(ident: dict) -> str:
+    from tracefit.survey import family_label
+
+    if not ident or ident.get("unexplained") or not ident.get("candidates"):
+        return '<span class="verdict-unexplained">unexplained by the candidates</span>'
+    lab = _e(family_label(ident))
+    if ident.get("ambiguous"):
+        return f'<span class="verdict-ambiguous">{lab}</span>'
+    return f"<strong>{lab}</strong>"
+
+
+def _candidate_table(rec: dict, fam: dict) -> str:
+    ident = fam.get("identification") or {}
+    cands = ident.get("candidates") or []
+    fid = f"F{fam.get('index', '?')}"
+    head = (
+        "<tr><th>#</th><th>plane</th><th>family</th><th>mode</th><th>predicted (deg)</th>"
+        "<th>residual (deg)</th><th>probability</th><th>inclination (deg)</th><th>best system</th>"
+        "<th>Schmid factor</th></tr>"
+    )
+    body = []
+    for r, c in enumerate(cands, start=1):
+        bs = c.get("best_system") or {}
+        cls = ' class="best"' if r == 1 and not ident.get("unexplained") else ""
+        body.append(
+            f"<tr{cls}><td class=\"num\">{r}</td><td>{_e(_plane(c.get('plane')))}</td><td>{_e(c.get('family'))}</td>"
+            f"<td>{_e(c.get('mode'))}</td><td class=\"num\">{_num(c.get('predicted_deg'))}</td>"
+            f"<td class=\"num\">{_num(c.get('residual_deg'))}</td><td class=\"num\">{_num(c.get('probability'), 3)}</td>"
+            f"<td class=\"num\">{_num(c.get('inclination_deg'), 1)}</td><td>{_e(_direction(bs.get('direction')))}</td>"
+            f"<td class=\"num\">{_num(bs.get('schmid_factor'), 3)}</td></tr>"
+        )
+    grain = "" if fam.get("grain") is None else f" in grain {_e(fam['grain'])}"
+    spacing = f", mean spacing {_num(fam['spacing_um'], 2)} um" if fam.get("spacing_um") else (
+        f", mean spacing {_num(fam['spacing_px'], 1)} px" if fam.get("spacing_px") else "")
+    cap = (
+        f"<h3>Family {fid}{grain}: bands at {_num(fam.get('angle_deg'))} deg "
+        f"(&plusmn; {_num(fam.get('angle_sigma_deg'))}), {_e(fam.get('n_bands'))} bands{spacing} "
+        f"&rarr; {_verdict(ident)}</h3>"
+    )
+    pn = ident.get("p_none")
+    extra = f'<p class="notes">Probability that none of the candidates made this family: {_num(pn, 3)}.</p>' if pn is not None else ""
+    hints = "".join(f"<li>{_e(h)}</li>" for h in (ident.get("separation") or []) + (ident.get("notes") or []))
+    if hints:
+        extra += f'<ul class="notes">{hints}</ul>'
+    if not cands:
+        table = (f'<table class="candidates" data-image="{_e(rec["name"])}" data-family="{fid}" data-rows="0">'
+                 f"<thead>{head}</thead><tbody></tbody></table>"
+                 '<p class="notes">No candidate above the reporting threshold.</p>')
+    else:
+        table = (f'<table class="candidates" data-image="{_e(rec["name"])}" data-family="{fid}" data-rows="{len(cands)}">'
+                 f"<thead>{head}</thead><tbody>{''.join(body)}</tbody></table>")
+    return cap + table + extra
+
+
+def _image_section(rec: dict, img_dir: Path) -> str:
+    name = rec["name"]
+    out = [f'<section class="image" id="image-{_e(name)}">', f"<h2>Image {_e(name)}</h2>"]
+    status = rec.get("status")
+    out.append(f'<p>Status: <span class="status-{_e(status)}">{_e(status)}</span>'
+               + (f" &middot; analysed in {_num(rec.get('elapsed_s'), 1)} s" if rec.get("elapsed_s") is not None else "")
+               + (f" &middot; job file line {_e(rec.get('line'))}" if rec.get("line") else "") + "</p>")
+    if rec.get("settings", {}).get("notes"):
+        out.append(f'<p class="notes">{_e(rec["settings"]["notes"])}</p>')
+    out.append(f'<table class="settings" data-image="{_e(name)}">{_settings_rows(rec.get("settings") or {})}</table>')
+    if status != "ok":
+        out.append(f'<div class="error">This image was not analysed: {_e(rec.get("error"))}</div>')
+        out.append("</section>")
+        return "".join(out)
+    if rec.get("warnings"):
+        out.append('<ul class="notes">' + "".join(f"<li>warning: {_e(w)}</li>" for w in rec["warnings"]) + "</ul>")
+    figs = rec.get("figures") or {}
+    fams = rec.get("families") or []
+    out.append('<div class="figs">')
+    if figs.get("overlay"):
+        out.append('<figure class="overlay">' + _img_tag(img_dir / figs["overlay"], f"{name}: overlay", "overlay")
+                   + f"<figcaption>Detected band families drawn on the micrograph, each labelled with its identified "
+                   f"plane (F1 ... F{len(fams)}; G = grain).</figcaption></figure>")
+    if figs.get("rose"):
+        out.append('<figure class="rose">' + _img_tag(img_dir / figs["rose"], f"{name}: rose diagram", "rose")
+                   + "<figcaption>Rose diagram of band angles (axial: 0-180 deg mirrored), weighted by the number of "
+                   "bands.</figcaption></figure>")
+    out.append("</div>")
+    # summary table of the families
+    rows = []
+    for fam in fams:
+        ident = fam.get("identification") or {}
+        cands = ident.get("candidates") or []
+        b = cands[0] if cands else {}
+        rows.append(
+            f"<tr><td>F{_e(fam.get('index'))}</td><td>{_e('' if fam.get('grain') is None else fam['grain'])}</td>"
+            f"<td class=\"num\">{_num(fam.get('angle_deg'))}</td><td class=\"num\">{_e(fam.get('n_bands'))}</td>"
+            f"<td>{_verdict(ident)}</td><td class=\"num\">{_num(b.get('probability'), 3)}</td>"
+            f"<td class=\"num\">{_num(b.get('residual_deg'))}</td></tr>"
+        )
+    out.append(f'<h3>Families found: {len(fams)}</h3>')
+    out.append(f'<table class="families" data-image="{_e(name)}" data-rows="{len(fams)}"><thead><tr><th>family</th>'
+               "<th>grain</th><th>angle (deg)</th><th>bands</th><th>identified as</th><th>probability</th>"
+               f"<th>residual (deg)</th></tr></thead><tbody>{''.join(rows)}</tbody></table>")
+    for fam in fams:
+        out.append(_candidate_table(rec, fam))
+    st = figs.get("stereograms") or []
+    if st:
+        out.append('<div class="figs">')
+        for k, s in enumerate(st):
+            gr = (rec.get("grains") or [{}] * len(st))[k] if k < len(rec.get("grains") or []) else {}
+            gtxt = f" of grain {gr['grain']}" if gr.get("grain") is not None else ""
+            eul = (" (Bunge Euler " + ", ".join(_num(x, 1) for x in gr["euler_deg"]) + " deg)") if gr.get("euler_deg") else ""
+            out.append('<figure class="stereo">' + _img_tag(img_dir / s, f"{name}: stereogram {k + 1}", "stereo")
+                       + f"<figcaption>Stereogram{_e(gtxt)}{_e(eul)}: every candidate plane as its great circle "
+                       "(grey) and pole; matched planes in colour with filled poles; observed band traces dashed. "
+                       "Equal-angle (Wulff) projection, upper hemisphere, sample frame = image frame.</figcaption></figure>")
+        out.append("</div>")
+    out.append("</section>")
+    return "".join(out)
+
+
+def _as_payload(result) -> dict:
+    if hasattr(result, "to_dict") and hasattr(result, "records"):
+        return result.to_dict()
+    if isinstance(result, dict):
+        return result
+    if isinstance(result, list):
+        return {"images": result, "job": {}}
+    raise TypeError("write_report takes a SurveyResult, its to_dict(), or a list of image records")
+
+
+def render_report(result, img_dir, generated_utc: str | None = None) -> str:
+    """The report HTML as a string (see :func:`write_report`)."""
+    d = _as_payload(result)
+    img_dir = Path(img_dir)
+    job = d.get("job") or {}
+    images = d.get("images") or []
+    title = job.get("title") or "tracefit survey"
+    when = generated_utc or time.strftime("%Y-%m-%d %H:%M UTC", time.gmtime())
+    n_ok = sum(r.get("status") == "ok" for r in images)
+    n_fail = len(images) - n_ok
+    caution = tracefit.CAUTION
+    parts = [
+        "<!DOCTYPE html>",
+        '<html lang="en"><head><meta charset="utf-8">',
+        '<meta name="viewport" content="width=device-width, initial-scale=1">',
+        # no scripts and no external resources at all (a data: favicon stops a request for /favicon.ico)
+        "<meta http-equiv=\"Content-Security-Policy\" content=\"default-src 'none'; img-src data:; style-src 'unsafe-inline'\">",
+        '<link rel="icon" href="data:,">',
+        f"<title>{_e(title)}: tracefit report</title><style>{_CSS}</style></head><body>",
+        f"<header><h1>{_e(title)}</h1><p>Slip and twin trace survey &middot; tracefit {_e(tracefit.__version__)} "
+        f"&middot; generated {_e(when)}</p>"
+        + (f"<p>Job file: <code>{_e(Path(job['path']).name)}</code></p>" if job.get("path") else "")
+        + "</header><main>",
+        f'<div class="caution" id="caution"><strong>Caution.</strong> {_e(caution)}</div>',
+    ]
+    if job.get("notes"):
+        parts.append(f"<p>{_e(job['notes'])}</p>")
+    # summary
+    srows = []
+    for r in images:
+        fams = r.get("families") or []
+        n_id = sum(1 for f in fams if (f.get("identification") or {}).get("candidates")
+                   and not f["identification"].get("unexplained") and not f["identification"].get("ambiguous"))
+        n_amb = sum(1 for f in fams if (f.get("identification") or {}).get("ambiguous"))
+        n_un = len(fams) - n_id - n_amb
+        planes = ", ".join(dict.fromkeys(
+            _plane(f["identification"]["candidates"][0]["plane"]) for f in fams
+            if (f.get("identification") or {}).get("candidates") and not f["identification"].get("unexplained")))
+        st = r.get("status")
+        srows.append(
+            f'<tr><td><a href="#image-{_e(r["name"])}">{_e(r["name"])}</a></td><td class="status-{_e(st)}">{_e(st)}</td>'
+            f"<td>{_e((r.get('settings') or {}).get('lattice', ''))}</td>"
+            f"<td class=\"num\">{len(fams) if st == 'ok' else ''}</td><td class=\"num\">{n_id if st == 'ok' else ''}</td>"
+            f"<td class=\"num\">{n_amb if st == 'ok' else ''}</td><td class=\"num\">{n_un if st == 'ok' else ''}</td>"
+            f"<td>{_e(planes) if st == 'ok' else _e(r.get('error'))}</td></tr>"
+        )
+    parts.append(f"<h2>Summary</h2><p>{len(images)} image(s): {n_ok} analysed, {n_fail} failed.</p>")
+    parts.append('<table class="summary" data-rows="%d"><thead><tr><th>image</th><th>status</th><th>lattice</th>'
+                 "<th>families</th><th>identified</th><th>ambiguous</th><th>unexplained</th>"
+                 "<th>planes / error</th></tr></thead><tbody>%s</tbody></table>" % (len(images), "".join(srows)))
+    for r in images:
+        parts.append(_image_section(r, img_dir))
+    # settings and conventions
+    parts.append("<h2>Settings and conventions</h2>")
+    if job.get("defaults"):
+        parts.append("<h3>Job defaults</h3><table class=\"defaults\">" + "".join(
+            f"<tr><th>{_e(k)}</th><td><code>{_e(json.dumps(v))}</code></td></tr>" for k, v in job["defaults"].items())
+            + "</table>")
+    parts.append("<h3>Conventions</h3><ul>" + "".join(f"<li>{_e(c)}</li>" for c in CONVENTIONS_SUMMARY) + "</ul>")
+    parts.append(
+        f"<footer><p><strong>Caution.</strong> {_e(caution)}</p><p>Made with tracefit {_e(tracefit.__version__)}. "
+        "Each image's full record (detection, every candidate, settings, input fingerprint) is in "
+        "<code>results.json</code> beside this report; one row per family in <code>results.csv</code>.</p>"
+        "</footer></main></body></html>"
+    )
+    return "\n".join(parts)
+
+
+def write_report(result, path, img_dir=None) -> Path:
+    """Write the self-contained HTML report.
+
+    Parameters
+    ----------
+    result : SurveyResult, dict or list of dict
+        A :class:`tracefit.survey.SurveyResult`, its ``to_dict()`` (the content of
+        ``results.json``), or a list of per-image records.
+    path : str or Path
+        Output HTML file (written atomically).
+    img_dir : str or Path, optional
+        Folder of the figure PNGs named in the records; default ``images/`` beside ``path``.
+
+    Returns
+    -------
+    Path
+    """
+    path = Path(path)
+    img_dir = Path(img_dir) if img_dir is not None else path.parent / "images"
+    return write_text(path, render_report(result, img_dir))

@@ -1,0 +1,613 @@
+"""Surveys: run every image of a job, in parallel, without ever losing finished work.
+
+Output folder layout (all files written atomically: temporary file, then rename)::
+
+    OUT/
+      report.html              self-contained report (tracefit.report)
+      results.csv              one row per band family (failed images: one row, status "failed")
+      results.json             job, settings, every image's full record
+      images/NAME.json         per-image record; written last, so it marks the image done
+      images/NAME.overlay.png  micrograph with each family labelled by its identified plane
+      images/NAME.stereo-K.png stereogram of grain K's candidate planes (K = 1, 2, ...)
+      images/NAME.rose.png     rose diagram of the band angles
+
+A bad image (unreadable file, no orientation, a detector error) is recorded with its
+error and skipped; the rest go on. ``resume=True`` reuses every finished image whose
+inputs and settings are unchanged (same fingerprint) and redoes the rest.
+"""
+
+from __future__ import annotations
+
+import csv
+import hashlib
+import io
+import json
+import os
+import sys
+import time
+import traceback
+import warnings
+from concurrent.futures import ProcessPoolExecutor, as_completed
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Callable
+
+import numpy as np
+
+import tracefit
+from tracefit.atomic import write_text
+from tracefit.errors import TracefitInputError
+from tracefit.jobs import ImageJob, Job
+
+__all__ = [
+    "SurveyResult",
+    "ImageAnalysis",
+    "run_survey",
+    "analyse_image",
+    "process_image",
+    "image_fingerprint",
+    "CSV_COLUMNS",
+    "EXIT_OK",
+    "EXIT_SOME_FAILED",
+    "EXIT_BAD_JOB",
+]
+
+EXIT_OK, EXIT_SOME_FAILED, EXIT_BAD_JOB = 0, 1, 2
+
+CSV_COLUMNS = [
+    "image", "status", "grain", "family", "angle_deg", "angle_sigma_deg", "n_bands", "spacing_um",
+    "strength", "verdict", "plane", "plane_family", "mode", "predicted_deg", "residual_deg",
+    "probability", "schmid_factor", "direction", "second_plane", "second_probability", "p_none", "error",
+]
+
+
+# --------------------------------------------------------------------------- analysis of one image
+@dataclass
+class ImageAnalysis:
+    """What the science of one image produced, before figures and files.
+
+    Attributes
+    ----------
+    image : ndarray (H, W)
+        The micrograph as read (float gray), for the overlay.
+    families : list of dict
+        Detected families in detection order, each with ``angle_deg``, ``angle_sigma_deg``,
+        ``n_bands``, ``spacing_px``, ``spacing_um``, ``strength``, ``grain`` and ``lines``
+        (pixel endpoints ``[col0, row0, col1, row1]``).
+    identifications : list of dict
+        ``FamilyIdentification.to_dict()`` per family, same order as ``families``.
+    grains : list of dict
+        One per orientation: ``grain`` (id or None), ``euler_deg``, ``predicted`` (list of
+        ``PredictedTrace.to_dict()`` with ``normal_image``: the normal in the image frame).
+    warnings : list of str
+    labels : ndarray or None
+        Grain label image, for drawing grain boundaries.
+    """
+
+    image: np.ndarray
+    families: list
+    identifications: list
+    grains: list
+    warnings: list = field(default_factory=list)
+    labels: np.ndarray | None = None
+
+
+def _jsonable(x):
+    if isinstance(x, dict):
+        return {str(k): _jsonable(v) for k, v in x.items()}
+    if isinstance(x, (list, tuple)):
+        return [_jsonable(v) for v in x]
+    if isinstance(x, np.ndarray):
+        return _jsonable(x.tolist())
+    if isinstance(x, (np.integer,)):
+        return int(x)
+    if isinstance(x, (np.floating, float)):
+        v = float(x)
+        return v if np.isfinite(v) else None
+    if isinstance(x, (np.bool_,)):
+        return bool(x)
+    if isinstance(x, Path):
+        return str(x)
+    return x
+
+
+def _family_dict(f, grain, pixel_size_um) -> dict:
+    """A detected BandFamily as plain data."""
+    lines = []
+    for ln in getattr(f, "lines", None) or []:
+        from tracefit.plots import _line_endpoints
+
+        lines.append([round(v, 2) for v in _line_endpoints(ln)])
+    sp_px = getattr(f, "spacing_px", None)
+    sp_um = getattr(f, "spacing_um", None)
+    if sp_um is None and sp_px is not None and pixel_size_um:
+        sp_um = float(sp_px) * float(pixel_size_um)
+    return _jsonable({
+        "grain": grain,
+        "angle_deg": float(f.angle_deg),
+        "angle_sigma_deg": getattr(f, "angle_sigma_deg", None),
+        "n_bands": getattr(f, "n_bands", None),
+        "spacing_px": sp_px,
+        "spacing_um": sp_um,
+        "strength": getattr(f, "strength", None),
+        "lines": lines,
+    })
+
+
+def _predicted_dicts(lattice, g, systems, frame, load) -> list[dict]:
+    """Predicted traces of every candidate plane, with the plane normal in the image frame."""
+    from tracefit.frames import data_to_image_matrix
+    from tracefit.traces import predict_traces
+
+    M = data_to_image_matrix(frame)
+    out = []
+    for t in predict_traces(lattice, g, systems, frame, load):
+        d = t.to_dict() if hasattr(t, "to_dict") else dict(t)
+        n = np.asarray(d.get("normal_sample"), float).reshape(-1)[:3]
+        d["normal_image"] = (M @ n).tolist()
+        out.append(_jsonable(d))
+    return out
+
+
+def analyse_image(im: ImageJob) -> ImageAnalysis:
+    """Detect the band families of one image and identify their planes.
+
+    Uses the detector (:mod:`tracefit.image.detect`), the candidate catalogue
+    (:mod:`tracefit.systems`) and the matcher (:mod:`tracefit.matching`) with the
+    image's settings from the job. Per-grain images (label image + orientation table)
+    are analysed grain by grain.
+
+    Raises
+    ------
+    TracefitInputError
+        For a missing or unreadable file, or inconsistent settings.
+    """
+    from tracefit.frames import FrameSettings
+    from tracefit.image.detect import detect_bands
+    from tracefit.image.io import read_image, read_mask
+    from tracefit.lattice import lattice_preset
+    from tracefit.matching import identify_families, observed_from_detection
+    from tracefit.orientation import from_euler
+    from tracefit.systems import catalogue
+    from tracefit.traces import parse_load
+
+    caught: list[str] = []
+    with warnings.catch_warnings(record=True) as wlist:
+        warnings.simplefilter("always")
+        if not im.file.is_file():
+            raise TracefitInputError(f"image file {str(im.file)!r} not found")
+        image, notes = read_image(im.file)
+        image = np.asarray(image, float)
+        mask = read_mask(im.mask, image.shape) if im.mask is not None else None
+        lattice = lattice_preset(im.lattice, im.c_over_a)
+        systems = catalogue(lattice, modes=list(im.modes), families=list(im.families) if im.families else None)
+        if not systems:
+            raise TracefitInputError(f"no candidate systems for lattice {im.lattice} with modes {', '.join(im.modes)}")
+        frame = FrameSettings(**im.frame)
+        load = parse_load(im.load, lattice, im.load_sense) if im.load else None
+
+        labels = None
+        grain_list = []  # (grain id, g, region mask or None, euler)
+        if im.euler_deg is not None:
+            grain_list.append((None, from_euler(np.asarray(im.euler_deg, float)), None, list(im.euler_deg)))
+        else:
+            from tracefit.grains import read_label_image, read_orientation_table
+
+            labels = read_label_image(im.labels)
+            if labels.shape != image.shape[:2]:
+                raise TracefitInputError(
+                    f"label image {im.labels.name} is {labels.shape[1]}x{labels.shape[0]} px but the image is "
+                    f"{image.shape[1]}x{image.shape[0]} px; they must match")
+            table = read_orientation_table(im.orientations)
+            for gid in sorted(int(x) for x in np.unique(labels)):
+                if gid not in table:
+                    continue  # background or a grain without orientation: not analysed
+                row = table[gid]
+                region = labels == gid
+                if mask is not None:
+                    region &= mask
+                grain_list.append((gid, np.asarray(row.g, float), region, None if row.euler_deg is None else list(row.euler_deg)))
+            if not grain_list:
+                raise TracefitInputError(
+                    f"no grain id of label image {im.labels.name} appears in orientation table {im.orientations.name}")
+
+        families, idents, grains = [], [], []
+        det_kw = dict(im.detect)
+        match_kw = dict(im.match)
+        for gid, g, region, euler in grain_list:
+            reg = mask if region is None else region
+            det = detect_bands(image, reg, im.pixel_size_um, **det_kw)
+            fams = list(getattr(det, "families", det))
+            observed = observed_from_detection(fams, grain=gid)
+            res = identify_families(observed, lattice, g, systems, frame=frame, load=load, grain=gid, **match_kw)
+            for f, r in zip(fams, res):
+                families.append(_family_dict(f, gid, im.pixel_size_um))
+                idents.append(_jsonable(r.to_dict()))
+            grains.append({
+                "grain": gid,
+                "euler_deg": euler,
+                "n_pixels": None if region is None else int(region.sum()),
+                "predicted": _predicted_dicts(lattice, g, systems, frame, load),
+            })
+    for w in wlist:
+        caught.append(str(w.message))
+    return ImageAnalysis(image=image, families=families, identifications=idents, grains=grains,
+                         warnings=list(dict.fromkeys(caught)), labels=labels)
+
+
+# --------------------------------------------------------------------------- figures and record
+def family_label(ident: dict | None) -> str:
+    """Short verdict label for a family: its identified plane and mode, or why not."""
+    from tracefit.plots import plane_label
+
+    if not ident:
+        return "not identified"
+    cands = ident.get("candidates") or []
+    if ident.get("unexplained") or not cands:
+        return "unexplained"
+    best = cands[0]
+    lab = f"{plane_label(tuple(best['plane']))} {best.get('mode', '')}".strip()
+    if ident.get("ambiguous"):
+        seen = [plane_label(tuple(best["plane"]))]
+        for c in cands[1:]:
+            p = plane_label(tuple(c["plane"]))
+            if p not in seen:
+                seen.append(p)
+                break
+        lab = " or ".join(seen) + " (ambiguous)"
+    return lab
+
+
+def _draw_figures(im: ImageJob, a: ImageAnalysis, img_dir: Path) -> dict:
+    from tracefit import plots
+
+    figs = {}
+    labels = []
+    for fam, ident in zip(a.families, a.identifications):
+        lab = family_label(ident)
+        if fam.get("grain") is not None:
+            lab = f"G{fam['grain']} {lab}"
+        labels.append(lab)
+    fig = plots.overlay_figure(a.image, a.families, labels=labels, title=im.name, grain_labels=a.labels)
+    figs["overlay"] = plots.save_figure(fig, img_dir / f"{im.name}.overlay.png", dpi=90).name
+    angles = [f["angle_deg"] for f in a.families]
+    weights = [f.get("n_bands") or 1 for f in a.families]
+    fig = plots.rose_diagram(angles, weights=weights, labels=[f"F{i + 1}" for i in range(len(angles))])
+    figs["rose"] = plots.save_figure(fig, img_dir / f"{im.name}.rose.png", dpi=90).name
+    figs["stereograms"] = []
+    for k, gr in enumerate(a.grains, start=1):
+        matched, observed, mcolors = [], [], []
+        palette = plots.family_colors(len(a.families))
+        for i, (fam, ident) in enumerate(zip(a.families, a.identifications)):
+            if fam.get("grain") != gr.get("grain"):
+                continue
+            observed.append(fam["angle_deg"])
+            c = ident.get("candidates") or []
+            if c and not ident.get("unexplained"):
+                matched.append(tuple(c[0]["plane"]))
+                mcolors.append(palette[i])
+        planes = [{"plane": tuple(p["plane"]), "normal_sample": p["normal_image"]} for p in gr["predicted"]]
+        title = "Wulff net (equal angle), upper hemisphere, sample frame = image frame"
+        if gr.get("grain") is not None:
+            title = f"Grain {gr['grain']}: " + title
+        fig = plots.stereogram(planes, matched=matched, observed_deg=observed, title=title, matched_colors=mcolors)
+        figs["stereograms"].append(plots.save_figure(fig, img_dir / f"{im.name}.stereo-{k}.png", dpi=90).name)
+    return figs
+
+
+def _file_digest(p: Path | None) -> str | None:
+    if p is None:
+        return None
+    try:
+        h = hashlib.sha256()
+        with open(p, "rb") as f:
+            for chunk in iter(lambda: f.read(1 << 20), b""):
+                h.update(chunk)
+        return h.hexdigest()
+    except OSError:
+        return "missing"
+
+
+def image_fingerprint(im: ImageJob) -> str:
+    """Hash of an image's input files, its settings and the tracefit version (resume key)."""
+    d = {
+        "settings": im.settings(),
+        "files": {k: _file_digest(getattr(im, k)) for k in ("file", "mask", "labels", "orientations")},
+        "version": tracefit.__version__,
+    }
+    return hashlib.sha256(json.dumps(d, sort_keys=True, default=str).encode()).hexdigest()
+
+
+def process_image(im: ImageJob, out_dir, analyse: Callable[[ImageJob], ImageAnalysis] | None = None) -> dict:
+    """Analyse one image, draw its figures and write its record; never raises for a bad image.
+
+    Returns
+    -------
+    dict
+        The record written to ``OUT/images/NAME.json``: ``status`` is ``"ok"`` or
+        ``"failed"`` (with ``error``).
+    """
+    analyse = analyse or analyse_image
+    out_dir = Path(out_dir)
+    img_dir = out_dir / "images"
+    img_dir.mkdir(parents=True, exist_ok=True)
+    t0 = time.perf_counter()
+    rec = {
+        "name": im.name,
+        "file": str(im.file),
+        "line": im.line,
+        "status": "ok",
+        "error": None,
+        "fingerprint": image_fingerprint(im),
+        "tracefit_version": tracefit.__version__,
+        "settings": _jsonable(im.settings()),
+        "started_utc": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
+    }
+    try:
+        a = analyse(im)
+        rec.update({
+            "image_shape": list(np.asarray(a.image).shape[:2]),
+            "families": [dict(f, index=i + 1, identification=ident)
+                         for i, (f, ident) in enumerate(zip(a.families, a.identifications))],
+            "grains": _jsonable(a.grains),
+            "warnings": list(a.warnings),
+        })
+        rec["figures"] = _draw_figures(im, a, img_dir)
+    except TracefitInputError as exc:
+        rec.update(status="failed", error=str(exc))
+    except MemoryError:
+        rec.update(status="failed", error="out of memory while analysing this image")
+    except Exception as exc:  # a bug or a broken file must not stop the survey
+        tb = traceback.extract_tb(exc.__traceback__)
+        where = f" (in {Path(tb[-1].filename).name}:{tb[-1].lineno})" if tb else ""
+        rec.update(status="failed", error=f"{type(exc).__name__}: {exc}{where}")
+    rec["elapsed_s"] = round(time.perf_counter() - t0, 3)
+    rec = _jsonable(rec)
+    write_text(img_dir / f"{im.name}.json", json.dumps(rec, indent=1))
+    return rec
+
+
+def _worker(args):
+    im, out_dir, analyse = args
+    import matplotlib
+
+    matplotlib.use("Agg", force=True)
+    return process_image(im, out_dir, analyse)
+
+
+# --------------------------------------------------------------------------- the survey
+@dataclass
+class SurveyResult:
+    """Outcome of :func:`run_survey`.
+
+    Attributes
+    ----------
+    job : Job
+    out_dir : Path
+    records : list of dict
+        One per image, in job order (see :func:`process_image`).
+    reused : list of str
+        Names of images taken over from an earlier run (``resume``).
+    csv_path, json_path, report_path : Path
+    """
+
+    job: Job
+    out_dir: Path
+    records: list
+    reused: list = field(default_factory=list)
+    csv_path: Path | None = None
+    json_path: Path | None = None
+    report_path: Path | None = None
+
+    @property
+    def n_failed(self) -> int:
+        return sum(r["status"] != "ok" for r in self.records)
+
+    @property
+    def n_ok(self) -> int:
+        return sum(r["status"] == "ok" for r in self.records)
+
+    @property
+    def exit_code(self) -> int:
+        """0 when every image succeeded, 1 when some failed."""
+        return EXIT_OK if self.n_failed == 0 else EXIT_SOME_FAILED
+
+    def to_dict(self) -> dict:
+        return {
+            "tracefit_version": tracefit.__version__,
+            "caution": tracefit.CAUTION,
+            "job": self.job.to_dict(),
+            "out_dir": str(self.out_dir),
+            "n_images": len(self.records),
+            "n_ok": self.n_ok,
+            "n_failed": self.n_failed,
+            "reused": list(self.reused),
+            "images": self.records,
+        }
+
+
+class _Progress:
+    """A plain progress bar on stderr (redrawn in place on a terminal, one line per image otherwise)."""
+
+    def __init__(self, total: int, enabled: bool, stream=None):
+        self.total, self.done, self.enabled = total, 0, enabled
+        self.stream = stream or sys.stderr
+        self.tty = hasattr(self.stream, "isatty") and self.stream.isatty()
+        self.t0 = time.perf_counter()
+
+    def step(self, name: str, status: str) -> None:
+        self.done += 1
+        if not self.enabled:
+            return
+        width = 24
+        filled = int(round(width * self.done / max(self.total, 1)))
+        bar = "#" * filled + "-" * (width - filled)
+        el = time.perf_counter() - self.t0
+        msg = f"survey [{bar}] {self.done}/{self.total} {el:5.1f}s  {name}: {status}"
+        if self.tty:
+            self.stream.write("\r\033[K" + msg + ("\n" if self.done == self.total else ""))
+        else:
+            self.stream.write(msg + "\n")
+        self.stream.flush()
+
+
+def _previous(out_dir: Path, im: ImageJob) -> dict | None:
+    p = out_dir / "images" / f"{im.name}.json"
+    try:
+        rec = json.loads(p.read_text(encoding="utf-8"))
+    except (OSError, ValueError):
+        return None
+    if rec.get("status") != "ok" or rec.get("fingerprint") != image_fingerprint(im):
+        return None
+    figs = rec.get("figures") or {}
+    names = [figs.get("overlay"), figs.get("rose"), *(figs.get("stereograms") or [])]
+    if not all(n and (out_dir / "images" / n).is_file() for n in names):
+        return None
+    return rec
+
+
+def run_survey(job: Job, out_dir, workers: int | None = None, resume: bool = False, progress: bool = True,
+               analyse: Callable[[ImageJob], ImageAnalysis] | None = None, report: bool = True) -> SurveyResult:
+    """Run every image of a job and write the output folder.
+
+    Parameters
+    ----------
+    job : Job
+        From :func:`tracefit.jobs.load_job`.
+    out_dir : str or Path
+        Output folder (created). See the module docstring for its layout.
+    workers : int, optional
+        Worker processes; default all cores. 1 runs in this process.
+    resume : bool
+        Reuse finished images of an earlier run into the same folder whose inputs and
+        settings are unchanged; redo failed, missing and changed ones. Without it every
+        image is redone.
+    progress : bool
+        Show a progress bar on stderr.
+    analyse : callable, optional
+        Replacement for :func:`analyse_image` (``ImageJob -> ImageAnalysis``), e.g. for
+        tests; must be picklable (a module-level function) when ``workers > 1``.
+    report : bool
+        Write ``report.html`` as well.
+
+    Returns
+    -------
+    SurveyResult
+        ``exit_code`` is 0 when every image succeeded and 1 when some failed.
+    """
+    out_dir = Path(out_dir)
+    (out_dir / "images").mkdir(parents=True, exist_ok=True)
+    n_workers = int(workers) if workers else (os.cpu_count() or 1)
+    if n_workers < 1:
+        raise TracefitInputError(f"--workers must be at least 1, got {workers}")
+    records: dict[str, dict] = {}
+    reused = []
+    todo = []
+    for im in job.images:
+        prev = _previous(out_dir, im) if resume else None
+        if prev is not None:
+            records[im.name] = prev
+            reused.append(im.name)
+        else:
+            todo.append(im)
+    bar = _Progress(len(job.images), progress)
+    for name in reused:
+        bar.step(name, "done earlier (resumed)")
+
+    n_workers = min(n_workers, max(len(todo), 1))
+    if n_workers == 1:
+        for im in todo:
+            rec = process_image(im, out_dir, analyse)
+            records[im.name] = rec
+            bar.step(im.name, rec["status"] if rec["status"] == "ok" else "FAILED")
+    elif todo:
+        with ProcessPoolExecutor(max_workers=n_workers) as pool:
+            futs = {pool.submit(_worker, (im, out_dir, analyse)): im for im in todo}
+            try:
+                for fut in as_completed(futs):
+                    im = futs[fut]
+                    try:
+                        rec = fut.result()
+                    except Exception as exc:  # the worker process itself died
+                        rec = {"name": im.name, "file": str(im.file), "line": im.line, "status": "failed",
+                               "error": f"worker process failed: {type(exc).__name__}: {exc}",
+                               "fingerprint": image_fingerprint(im), "settings": _jsonable(im.settings()),
+                               "tracefit_version": tracefit.__version__}
+                        write_text(out_dir / "images" / f"{im.name}.json", json.dumps(rec, indent=1))
+                    records[im.name] = rec
+                    bar.step(im.name, rec["status"] if rec["status"] == "ok" else "FAILED")
+            except KeyboardInterrupt:
+                pool.shutdown(wait=False, cancel_futures=True)
+                raise
+    ordered = [records[im.name] for im in job.images]
+    result = SurveyResult(job=job, out_dir=out_dir, records=ordered, reused=reused)
+    result.csv_path = write_results_csv(ordered, out_dir / "results.csv")
+    result.json_path = write_text(out_dir / "results.json", json.dumps(_jsonable(result.to_dict()), indent=1))
+    if report:
+        from tracefit.report import write_report
+
+        result.report_path = write_report(result, out_dir / "report.html")
+    return result
+
+
+def csv_rows(records: list[dict]) -> list[dict]:
+    """Results table rows: one per family; a failed image gives one row with its error."""
+    from tracefit.plots import plane_label
+
+    rows = []
+    for rec in records:
+        if rec.get("status") != "ok":
+            rows.append({"image": rec["name"], "status": "failed", "error": rec.get("error")})
+            continue
+        for fam in rec.get("families") or []:
+            ident = fam.get("identification") or {}
+            cands = ident.get("candidates") or []
+            best = cands[0] if cands else {}
+            second = next((c for c in cands[1:] if c.get("plane") != best.get("plane")), {})
+            bs = best.get("best_system") or {}
+            verdict = "unexplained" if ident.get("unexplained") or not cands else (
+                "ambiguous" if ident.get("ambiguous") else "identified")
+            rows.append({
+                "image": rec["name"],
+                "status": "ok",
+                "grain": "" if fam.get("grain") is None else fam["grain"],
+                "family": f"F{fam.get('index', len(rows) + 1)}",
+                "angle_deg": fam.get("angle_deg"),
+                "angle_sigma_deg": fam.get("angle_sigma_deg"),
+                "n_bands": fam.get("n_bands"),
+                "spacing_um": fam.get("spacing_um"),
+                "strength": fam.get("strength"),
+                "verdict": verdict,
+                "plane": plane_label(tuple(best["plane"])) if best else "",
+                "plane_family": best.get("family", ""),
+                "mode": best.get("mode", ""),
+                "predicted_deg": best.get("predicted_deg"),
+                "residual_deg": best.get("residual_deg"),
+                "probability": best.get("probability"),
+                "schmid_factor": bs.get("schmid_factor"),
+                "direction": "" if not bs.get("direction") else plane_label_direction(bs["direction"]),
+                "second_plane": plane_label(tuple(second["plane"])) if second else "",
+                "second_probability": second.get("probability") if second else "",
+                "p_none": ident.get("p_none"),
+                "error": "",
+            })
+    return rows
+
+
+def plane_label_direction(d) -> str:
+    try:
+        from tracefit.indices import format_index
+
+        return format_index(tuple(int(x) for x in d), kind="direction")
+    except Exception:
+        return "[" + " ".join(str(x) for x in d) + "]"
+
+
+def write_results_csv(records: list[dict], path) -> Path:
+    """Write the one-row-per-family results CSV atomically."""
+    buf = io.StringIO()
+    w = csv.DictWriter(buf, fieldnames=CSV_COLUMNS, extrasaction="ignore", lineterminator="\n")
+    w.writeheader()
+    for row in csv_rows(records):
+        w.writerow({k: ("" if row.get(k) is None else row.get(k, "")) for k in CSV_COLUMNS})
+    return write_text(path, buf.getvalue())
