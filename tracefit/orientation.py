@@ -424,7 +424,7 @@ def parse_vector(text: str, what: str = "vector") -> np.ndarray:
     if t[:1] in "+-" and t[1:] in _AXES:
         sign, t = (-1.0 if t[0] == "-" else 1.0), t[1:]
     if t in _AXES:
-        return sign * np.array(_AXES[t])
+        return sign * np.array(_AXES[t]) + 0.0
     return _floats(text, 3, what, "'x', '-z' or '1,0,0'")
 
 

@@ -17,7 +17,6 @@ activation stress).
 from __future__ import annotations
 
 import math
-import re
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -234,7 +233,7 @@ def parse_load(text: str, lattice=None, sense: str = "tension") -> LoadAxis:
     if t.startswith("[") or t.startswith("<"):
         if lattice is None:
             raise TracefitInputError(f"the crystal-direction load {t} needs a lattice")
-        idx = _parse_direction(t)
+        idx = _parse_direction(t, lattice)
         v = np.asarray(lattice.direction_vector(idx), float)
         return LoadAxis(tuple(float(x) for x in v), "crystal", sense, t, tuple(idx))
     try:
@@ -250,27 +249,13 @@ def parse_load(text: str, lattice=None, sense: str = "tension") -> LoadAxis:
     return LoadAxis(tuple(float(x) for x in v / n), "sample", sense, t)
 
 
-def _parse_direction(t: str) -> tuple:
-    try:
-        from tracefit.indices import parse_index  # the project's one index reader
-    except ImportError:  # pragma: no cover - only while indices.py is being written
-        parse_index = None
-    if parse_index is not None:
-        try:
-            idx = parse_index(t)
-        except TracefitInputError:
-            raise
-        except Exception as exc:  # noqa: BLE001 - turn any parser failure into input error
-            raise TracefitInputError(f"cannot read crystal direction {t!r}: {exc}") from None
-        vals = getattr(idx, "indices", idx)
-        return tuple(_num(x) for x in vals)
-    body = t.strip()[1:-1] if t.strip()[-1:] in "]>" else None
-    if body is None:
-        raise TracefitInputError(f"cannot read crystal direction {t!r}; expected e.g. [110] or [1 -1 0]")
-    toks = re.split(r"[,\s]+", body.strip()) if re.search(r"[,\s]", body.strip()) else re.findall(r"[-+]?\d", body)
-    if not toks or "".join(toks).replace("-", "").replace("+", "") == "" or not all(re.fullmatch(r"[-+]?\d+", x) for x in toks):
-        raise TracefitInputError(f"cannot read crystal direction {t!r}; expected e.g. [110] or [1 -1 0]")
-    return tuple(int(x) for x in toks)
+def _parse_direction(t: str, lattice) -> tuple:
+    from tracefit.indices import parse_index  # the project's one index reader
+
+    idx = parse_index(t, lattice, expect="direction")
+    if idx.family:
+        raise TracefitInputError(f"a load axis is one direction, not a family: write [110] rather than {t}")
+    return tuple(int(x) for x in idx.values)
 
 
 def schmid_factor(load_crystal, n, d) -> np.ndarray:

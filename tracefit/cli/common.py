@@ -1,0 +1,297 @@
+"""Option parsing shared by the commands: lattice and systems, orientation, frame, load, output.
+
+Commands declare their options with the ``Annotated`` aliases below (so every command spells
+them the same) and turn them into library objects with the ``build_*`` functions. Everything
+here raises :class:`tracefit.errors.TracefitInputError` on bad input.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import json
+import re
+import sys
+import warnings
+from pathlib import Path
+from typing import Annotated, Optional
+
+import numpy as np
+import typer
+
+from tracefit.errors import TracefitInputError
+
+__all__ = [
+    "LatticeOpt",
+    "CoverAOpt",
+    "HexSettingOpt",
+    "SystemsFileOpt",
+    "ModesOpt",
+    "FamiliesOpt",
+    "EulerOpt",
+    "QuaternionOpt",
+    "MatrixOpt",
+    "AxisAngleOpt",
+    "AlignOpt",
+    "FrameRotationOpt",
+    "FlipXOpt",
+    "FlipYOpt",
+    "TiltOpt",
+    "TiltAxisOpt",
+    "LoadOpt",
+    "CompressionOpt",
+    "JsonOpt",
+    "build_lattice",
+    "build_systems",
+    "build_orientation",
+    "build_frame",
+    "build_load",
+    "parse_modes",
+    "parse_align",
+    "lattice_dict",
+    "cli_warnings",
+    "print_json",
+]
+
+# ------------------------------------------------------------------ option aliases
+LatticeOpt = Annotated[
+    Optional[str], typer.Option("--lattice", "-l", help="Lattice: fcc, bcc, hcp or tetragonal (or give --systems-file).")
+]
+CoverAOpt = Annotated[Optional[float], typer.Option("--c-over-a", help="c/a ratio for hcp (default ideal 1.633, with a warning) or tetragonal.")]
+HexSettingOpt = Annotated[
+    str, typer.Option("--hex-setting", help="Hexagonal Cartesian setting: x_a1 (x along a1, default) or x_a1star (x along a1*).")
+]
+SystemsFileOpt = Annotated[
+    Optional[Path], typer.Option("--systems-file", help="TOML file with a lattice and/or slip and twin systems (docs/systems-file.md).")
+]
+ModesOpt = Annotated[str, typer.Option("--modes", help="Deformation modes to include: slip, twin or slip,twin.")]
+FamiliesOpt = Annotated[
+    Optional[str], typer.Option("--families", help="Only these families, comma separated, e.g. '{111}<110>' or 'basal,prismatic'.")
+]
+EulerOpt = Annotated[Optional[str], typer.Option("--euler", "-e", help="Bunge Euler angles phi1,Phi,phi2 in degrees.")]
+QuaternionOpt = Annotated[Optional[str], typer.Option("--quaternion", help="Orientation quaternion q0,q1,q2,q3 (scalar first, Rowenhorst P=+1).")]
+MatrixOpt = Annotated[
+    Optional[str], typer.Option("--matrix", help="Orientation matrix g (sample -> crystal), nine numbers row by row.")
+]
+AxisAngleOpt = Annotated[
+    Optional[str],
+    typer.Option("--axis-angle", help="Axis-angle pair of g: x,y,z,angle_deg (Rowenhorst P=+1: Euler 30,0,0 = 0,0,-1,30)."),
+]
+AlignOpt = Annotated[
+    Optional[str], typer.Option("--align", help="Two crystal directions along two sample axes, e.g. '[001]:z,[100]:x'.")
+]
+FrameRotationOpt = Annotated[
+    float, typer.Option("--frame-rotation", help="Rotation rho (deg, ccw) from the orientation data's frame to the image; traces shift by +rho.")
+]
+FlipXOpt = Annotated[bool, typer.Option("--flip-x", help="The data's x axis points left in the image (applied as 180 deg about y).")]
+FlipYOpt = Annotated[bool, typer.Option("--flip-y", help="The data's y axis points down in the image (applied as 180 deg about x).")]
+TiltOpt = Annotated[float, typer.Option("--tilt", help="Stage tilt in degrees (|tilt| < 90); traces are foreshortened.")]
+TiltAxisOpt = Annotated[str, typer.Option("--tilt-axis", help="Tilt axis: x (image horizontal) or y (image vertical).")]
+LoadOpt = Annotated[
+    Optional[str],
+    typer.Option("--load", help="Load axis: x, y, z (sample, also -x), a sample vector 1,0,0 or a crystal direction [110] / [11-20]."),
+]
+CompressionOpt = Annotated[bool, typer.Option("--compression", help="The load is compressive (default tension).")]
+JsonOpt = Annotated[bool, typer.Option("--json", help="Print one JSON object to stdout instead of a table.")]
+
+
+# ------------------------------------------------------------------ builders
+def build_lattice(lattice: str | None, c_over_a: float | None = None, hex_setting: str = "x_a1", systems_file: Path | None = None):
+    """The lattice, and the systems file's systems if a file was given.
+
+    Returns
+    -------
+    (Lattice, list of DeformationSystem or None)
+    """
+    from tracefit.lattice import lattice_preset
+
+    base = None
+    if lattice is not None:
+        base = lattice_preset(lattice, c_over_a, hex_setting=hex_setting)
+    elif c_over_a is not None and systems_file is None:
+        raise TracefitInputError("--c-over-a needs --lattice (e.g. --lattice hcp --c-over-a 1.624)")
+    if systems_file is None:
+        if base is None:
+            raise TracefitInputError("no lattice given; use --lattice fcc|bcc|hcp|tetragonal or --systems-file FILE")
+        return base, None
+    from tracefit.systems import load_systems_file
+
+    file_lattice, systems = load_systems_file(systems_file, lattice=base)
+    if file_lattice is not None and base is not None:
+        raise TracefitInputError(f"{systems_file} defines its own [lattice]; drop --lattice/--c-over-a or remove the table from the file")
+    lat = file_lattice or base
+    if file_lattice is not None and hex_setting != "x_a1":
+        lat = lat.with_setting(hex_setting)
+    return lat, systems
+
+
+def parse_modes(text: str | None) -> tuple[str, ...]:
+    """``"slip,twin"`` -> ("slip", "twin")."""
+    if text is None or not text.strip():
+        return ("slip", "twin")
+    modes = tuple(m.strip().lower() for m in re.split(r"[,\s]+", text.strip()) if m.strip())
+    bad = [m for m in modes if m not in ("slip", "twin")]
+    if bad:
+        raise TracefitInputError(f"unknown mode {bad[0]!r} in --modes; expected slip, twin or slip,twin")
+    return modes
+
+
+def _split_families(text: str | None):
+    if text is None or not text.strip():
+        return None
+    # Commas inside brackets belong to an index, e.g. {1,1,1}: split only outside brackets.
+    parts, depth, cur = [], 0, ""
+    for ch in text:
+        if ch in "({[<":
+            depth += 1
+        elif ch in ")}]>":
+            depth -= 1
+        if ch == "," and depth == 0:
+            parts.append(cur)
+            cur = ""
+        else:
+            cur += ch
+    parts.append(cur)
+    return [p.strip() for p in parts if p.strip()]
+
+
+def build_systems(lattice, file_systems=None, modes: str | None = None, families: str | None = None):
+    """Systems to use: the file's (if any) else the built-in catalogue, filtered by modes and families."""
+    from tracefit.systems import catalogue, filter_systems
+
+    m = parse_modes(modes)
+    fams = _split_families(families)
+    if file_systems is not None:
+        systems = filter_systems(file_systems, lattice, m, fams)
+    else:
+        systems = catalogue(lattice, m, fams)
+    if not systems:
+        raise TracefitInputError(f"no {' or '.join(m)} systems left for {lattice.name} with these filters")
+    return systems
+
+
+_ALIGN = re.compile(r"\s*([\[<][^\]>]*[\]>])\s*:\s*([+-]?[xyzXYZ])\s*")
+
+
+def parse_align(text: str, lattice):
+    """``"[001]:z,[100]:x"`` -> orientation g (first pair exact, second sets the turn)."""
+    from tracefit.indices import parse_index
+    from tracefit.orientation import from_two_directions
+
+    t = text.strip()
+    pairs = []
+    pos = 0
+    while pos < len(t):
+        m = _ALIGN.match(t, pos)
+        if not m:
+            break
+        pairs.append((m.group(1), m.group(2).lower()))
+        pos = m.end()
+        if pos < len(t) and t[pos] in ",;":
+            pos += 1
+    if len(pairs) != 2 or pos != len(t):
+        raise TracefitInputError(
+            f"cannot read --align {text!r}; expected two crystal directions on sample axes, e.g. '[001]:z,[100]:x' "
+            "(hexagonal: '[0001]:z,[2-1-10]:x')"
+        )
+    (d1, a1), (d2, a2) = pairs
+    i1 = parse_index(d1, lattice, expect="direction")
+    i2 = parse_index(d2, lattice, expect="direction")
+    for i, d in ((i1, d1), (i2, d2)):
+        if i.family:
+            raise TracefitInputError(f"--align needs single directions in square brackets, not the family {d}")
+    return from_two_directions(lattice, i1.values, a1, i2.values, a2)
+
+
+def build_orientation(lattice, euler=None, quaternion=None, matrix=None, axis_angle=None, align=None):
+    """Orientation matrix g from exactly one of the orientation options, and a description dict."""
+    from tracefit import orientation as ori
+
+    given = {k: v for k, v in (("--euler", euler), ("--quaternion", quaternion), ("--matrix", matrix), ("--axis-angle", axis_angle), ("--align", align)) if v is not None}
+    if len(given) != 1:
+        what = "none" if not given else ", ".join(given)
+        raise TracefitInputError(f"give exactly one orientation: --euler, --quaternion, --matrix, --axis-angle or --align (got {what})")
+    if euler is not None:
+        g = ori.from_euler(ori.parse_euler(euler))
+    elif quaternion is not None:
+        g = ori.from_quaternion(ori.parse_quaternion(quaternion))
+    elif matrix is not None:
+        g = ori.from_matrix(ori.parse_matrix(matrix))
+    elif axis_angle is not None:
+        axis, ang = ori.parse_axis_angle(axis_angle)
+        g = ori.from_axis_angle(axis, ang)
+    else:
+        g = parse_align(align, lattice)
+    desc = {
+        "input": {k.lstrip("-").replace("-", "_"): v for k, v in given.items()},
+        "euler_deg": [float(x) for x in ori.to_euler(g)],
+        "quaternion": [float(x) for x in ori.to_quaternion(g)],
+        "matrix": g.tolist(),
+    }
+    return g, desc
+
+
+def build_frame(rotation: float = 0.0, flip_x: bool = False, flip_y: bool = False, tilt: float = 0.0, tilt_axis: str = "x"):
+    from tracefit.frames import FrameSettings
+
+    return FrameSettings(rotation_deg=float(rotation), flip_x=bool(flip_x), flip_y=bool(flip_y), tilt_deg=float(tilt), tilt_axis=tilt_axis)
+
+
+def build_load(text: str | None, lattice, compression: bool = False):
+    if text is None:
+        if compression:
+            raise TracefitInputError("--compression needs --load (the load axis)")
+        return None
+    from tracefit.traces import parse_load
+
+    return parse_load(text, lattice, "compression" if compression else "tension")
+
+
+def lattice_dict(lattice) -> dict:
+    d = {
+        "name": lattice.name,
+        "a": lattice.a,
+        "b": lattice.b,
+        "c": lattice.c,
+        "alpha": lattice.alpha,
+        "beta": lattice.beta,
+        "gamma": lattice.gamma,
+        "laue": lattice.laue,
+    }
+    if lattice.is_hexagonal:
+        d["c_over_a"] = lattice.c_over_a
+        d["hex_setting"] = lattice.hex_setting
+    return d
+
+
+# ------------------------------------------------------------------ output
+@contextlib.contextmanager
+def cli_warnings():
+    """Collect Python warnings and print each as one ``tracefit: warning:`` line on stderr."""
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        try:
+            yield
+        finally:
+            seen = set()
+            for w in caught:
+                msg = " ".join(str(w.message).split())
+                if msg not in seen:
+                    seen.add(msg)
+                    print(f"tracefit: warning: {msg}", file=sys.stderr)
+
+
+def _jsonable(o):
+    if isinstance(o, np.ndarray):
+        return o.tolist()
+    if isinstance(o, (np.floating, np.integer)):
+        return o.item()
+    if isinstance(o, np.bool_):
+        return bool(o)
+    if isinstance(o, Path):
+        return str(o)
+    raise TypeError(f"not JSON serialisable: {type(o).__name__}")
+
+
+def print_json(obj) -> None:
+    """The command's one JSON object on stdout."""
+    sys.stdout.write(json.dumps(obj, default=_jsonable, allow_nan=False) + "\n")

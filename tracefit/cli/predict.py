@@ -1,0 +1,122 @@
+"""``tracefit predict``: the surface traces a given orientation should show."""
+
+from __future__ import annotations
+
+import typer
+
+from tracefit.cli import app
+from tracefit.cli.common import (
+    AlignOpt,
+    AxisAngleOpt,
+    CompressionOpt,
+    CoverAOpt,
+    EulerOpt,
+    FamiliesOpt,
+    FlipXOpt,
+    FlipYOpt,
+    FrameRotationOpt,
+    HexSettingOpt,
+    JsonOpt,
+    LatticeOpt,
+    LoadOpt,
+    MatrixOpt,
+    ModesOpt,
+    QuaternionOpt,
+    SystemsFileOpt,
+    TiltAxisOpt,
+    TiltOpt,
+    build_frame,
+    build_lattice,
+    build_load,
+    build_orientation,
+    build_systems,
+    cli_warnings,
+    lattice_dict,
+    print_json,
+)
+
+
+@app.command("predict")
+def predict(
+    lattice: LatticeOpt = None,
+    euler: EulerOpt = None,
+    quaternion: QuaternionOpt = None,
+    matrix: MatrixOpt = None,
+    axis_angle: AxisAngleOpt = None,
+    align: AlignOpt = None,
+    c_over_a: CoverAOpt = None,
+    hex_setting: HexSettingOpt = "x_a1",
+    systems_file: SystemsFileOpt = None,
+    modes: ModesOpt = "slip,twin",
+    families: FamiliesOpt = None,
+    load: LoadOpt = None,
+    compression: CompressionOpt = False,
+    frame_rotation: FrameRotationOpt = 0.0,
+    flip_x: FlipXOpt = False,
+    flip_y: FlipYOpt = False,
+    tilt: TiltOpt = 0.0,
+    tilt_axis: TiltAxisOpt = "x",
+    near_surface: float = typer.Option(5.0, "--near-surface", help="Planes inclined less than this (deg) to the surface leave no usable trace."),
+    json_out: JsonOpt = False,
+) -> None:
+    """Predicted trace angles (image frame, degrees ccw from the image's x axis) for one orientation."""
+    from tracefit.traces import predict_traces
+
+    with cli_warnings():
+        lat, file_systems = build_lattice(lattice, c_over_a, hex_setting, systems_file)
+        g, ori = build_orientation(lat, euler, quaternion, matrix, axis_angle, align)
+        frame = build_frame(frame_rotation, flip_x, flip_y, tilt, tilt_axis)
+        systems = build_systems(lat, file_systems, modes, families)
+        ld = build_load(load, lat, compression)
+        traces = predict_traces(lat, g, systems, frame=frame, load=ld, near_surface_deg=near_surface)
+    if json_out:
+        print_json(
+            {
+                "lattice": lattice_dict(lat),
+                "orientation": ori,
+                "frame": frame.to_dict(),
+                "load": ld.to_dict() if ld is not None else None,
+                "traces": [t.to_dict() for t in traces],
+            }
+        )
+        return
+    _print_table(lat, ori, frame, ld, traces, near_surface)
+
+
+def _print_table(lat, ori, frame, ld, traces, near_surface) -> None:
+    from tracefit.indices import format_index
+
+    e = ori["euler_deg"]
+    head = f"{lat.name}, Bunge Euler ({e[0]:.2f}, {e[1]:.2f}, {e[2]:.2f}) deg"
+    if lat.is_hexagonal:
+        head += f", c/a {lat.c_over_a:.4g}"
+    parts = []
+    if frame.rotation_deg:
+        parts.append(f"frame rotation {frame.rotation_deg:g} deg")
+    if frame.flip_x or frame.flip_y:
+        parts.append("flipped " + "+".join(a for a, f in (("x", frame.flip_x), ("y", frame.flip_y)) if f))
+    if frame.tilt_deg:
+        parts.append(f"tilt {frame.tilt_deg:g} deg about image {frame.tilt_axis}")
+    if ld is not None:
+        parts.append(f"{ld.sense} along {ld.label}")
+    typer.echo(head + ("; " + ", ".join(parts) if parts else ""))
+    typer.echo("angles in the image frame, degrees counterclockwise from the image x axis (right)")
+    with_m = ld is not None
+    cols = f"{'angle':>7}  {'incl':>5}  {'plane':<12} {'family':<10} {'modes':<10}"
+    cols += f" {'best m':>7}  best system" if with_m else "  systems"
+    typer.echo(cols)
+    for t in traces:
+        plane = format_index(t.plane, "plane")
+        row = f"{t.angle_deg:7.2f}  {t.inclination_deg:5.1f}  {plane:<12} {t.family:<10} {','.join(t.modes):<10}"
+        if with_m:
+            best = t.systems[0]
+            row += f" {best.schmid_factor:7.3f}  {format_index(best.direction, 'direction')} {best.mode}"
+        else:
+            row += "  " + " ".join(format_index(s.direction, "direction") for s in t.systems)
+        if t.near_surface:
+            row += "  (near the surface plane: no usable trace)"
+        typer.echo(row)
+    if frame.tilt_deg:
+        typer.echo("angle = apparent angle under tilt; --json also gives true_angle_deg")
+    if with_m:
+        typer.echo("m: Schmid factor; slip |m|, twins signed (<= 0: this load cannot form the twin)")
