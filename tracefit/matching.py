@@ -38,7 +38,7 @@ from dataclasses import dataclass, field
 from typing import Any, Iterable, Sequence
 
 import numpy as np
-from scipy.special import i0e, logsumexp
+from scipy.special import i0e
 
 from tracefit.angles import axial_difference, fold_axial
 from tracefit.errors import TracefitInputError
@@ -249,6 +249,17 @@ def _r(x, nd: int = 4):
 
 
 # ----------------------------------------------------------------------------- the numbers
+def logsumexp(a, axis=None, keepdims=False):
+    """log(sum(exp(a))) along an axis; plain numpy (scipy's version is slow for small arrays)."""
+    a = np.asarray(a, float)
+    m = np.max(a, axis=axis, keepdims=True)
+    m = np.where(np.isfinite(m), m, 0.0)
+    out = np.log(np.sum(np.exp(a - m), axis=axis, keepdims=True)) + m
+    if not keepdims:
+        out = np.squeeze(out, axis=axis) if axis is not None else out.reshape(())
+    return out if out.ndim else float(out)
+
+
 def predicted_trace_sigma(inclination_deg, orientation_sigma_deg: float, slope=1.0):
     """Spread (deg) of a predicted trace angle from orientation uncertainty.
 

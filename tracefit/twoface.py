@@ -1,0 +1,279 @@
+"""Plane normals from traces on two faces of known relative geometry (two-surface analysis).
+
+The trace of one plane on two non-parallel faces gives two lines of the plane, so its
+normal is their cross product n = t1 x t2 (the classic two-surface trace analysis;
+common practice, no source).
+
+Geometry (our convention). Face 1 is the main surface: sample frame X right, Y up,
+Z toward the viewer (the image frame of face 1). Face 2 shares an edge with face 1:
+
+* ``edge_angle_deg`` (phi): direction of the common edge in face 1's image, e = (cos phi, sin phi, 0);
+* face 2 lies on the right-hand side of e as seen on face 1 (for phi = 0: the front face
+  below face 1's bottom edge), and ``dihedral_deg`` is the interior angle between the two
+  faces (90 for the edge of a block);
+* face 2's outward normal is face 1's normal turned about e by 180 - dihedral; face 2's image
+  has x2 = e and y2 = n2 x e (for a block: x2 = X, y2 = Z, looking at the front face with
+  face 1 at the top).
+
+Angles on face 2 are read in face 2's own image frame (axial, ccw from x2).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+from scipy.spatial.transform import Rotation
+
+from tracefit.errors import TracefitInputError
+
+__all__ = ["FaceGeometry", "TwoFacePlane", "PlaneMatch", "plane_from_two_traces", "index_two_face",
+           "interplanar_pairs", "trace_on_face"]
+
+
+@dataclass(frozen=True)
+class FaceGeometry:
+    """Relative geometry of face 2 with respect to face 1 (see module doc)."""
+
+    edge_angle_deg: float = 0.0
+    dihedral_deg: float = 90.0
+
+    def __post_init__(self):
+        for k in ("edge_angle_deg", "dihedral_deg"):
+            v = getattr(self, k)
+            if not (isinstance(v, (int, float)) and math.isfinite(v)):
+                raise TracefitInputError(f"face geometry {k} must be a finite number of degrees, got {v!r}")
+        if not (5.0 <= self.dihedral_deg <= 175.0):
+            raise TracefitInputError(f"the dihedral angle between the faces must be 5-175 deg, got {self.dihedral_deg:g}")
+
+    def basis(self):
+        """(e, y2, n2): face 2's x axis, y axis and outward normal, in face 1's sample frame."""
+        phi = math.radians(self.edge_angle_deg)
+        e = np.array([math.cos(phi), math.sin(phi), 0.0])
+        # Turn face 1's normal about e by 180 - dihedral: for phi = 0 and 90 deg this gives -Y.
+        n2 = Rotation.from_rotvec(e * math.radians(180.0 - self.dihedral_deg)).apply([0.0, 0.0, 1.0])
+        y2 = np.cross(n2, e)
+        return e, y2, n2
+
+
+def _t1(theta1):
+    t = math.radians(theta1)
+    return np.array([math.cos(t), math.sin(t), 0.0])
+
+
+def _t2(theta2, geom):
+    e, y2, _ = geom.basis()
+    t = math.radians(theta2)
+    return math.cos(t) * e + math.sin(t) * y2
+
+
+def trace_on_face(normal_sample, geom: FaceGeometry | None = None):
+    """Trace angles (deg) of a plane with this sample-frame normal on face 1 and on face 2."""
+    geom = geom or FaceGeometry()
+    n = np.asarray(normal_sample, float)
+    n = n / np.linalg.norm(n)
+    e, y2, n2 = geom.basis()
+    t1 = np.cross([0.0, 0.0, 1.0], n)
+    t2 = np.cross(n2, n)
+    a1 = math.degrees(math.atan2(t1[1], t1[0])) % 180.0
+    a2 = math.degrees(math.atan2(t2 @ y2, t2 @ e)) % 180.0
+    return a1, a2
+
+
+@dataclass
+class PlaneMatch:
+    """A candidate plane's distance to a two-face normal."""
+
+    plane: tuple
+    family: str
+    mode: str
+    angle_deg: float
+    probability: float
+
+    def to_dict(self):
+        return {"plane": list(self.plane), "family": self.family, "mode": self.mode,
+                "angle_deg": round(float(self.angle_deg), 3), "probability": round(float(self.probability), 6)}
+
+
+@dataclass
+class TwoFacePlane:
+    """The plane normal from one pair of traces, and its indexing."""
+
+    face1_deg: float
+    face2_deg: float
+    normal_sample: np.ndarray
+    sigma_deg: float
+    inclination_deg: float
+    normal_crystal: np.ndarray | None = None
+    matches: list = field(default_factory=list)
+    p_none: float | None = None
+    unexplained: bool | None = None
+    notes: list = field(default_factory=list)
+
+    def to_dict(self):
+        d = {
+            "face1_deg": round(self.face1_deg, 4),
+            "face2_deg": round(self.face2_deg, 4),
+            "normal_sample": [round(float(x), 6) for x in self.normal_sample],
+            "sigma_deg": round(float(self.sigma_deg), 4),
+            "inclination_deg": round(float(self.inclination_deg), 4),
+            "normal_crystal": None if self.normal_crystal is None else [round(float(x), 6) for x in self.normal_crystal],
+            "candidates": [m.to_dict() for m in self.matches],
+            "p_none": None if self.p_none is None else round(float(self.p_none), 6),
+            "unexplained": self.unexplained,
+            "notes": list(self.notes),
+        }
+        return d
+
+
+def plane_from_two_traces(face1_deg: float, face2_deg: float, geom: FaceGeometry | None = None,
+                          sigma1_deg: float = 0.5, sigma2_deg: float = 0.5):
+    """Unit plane normal (face 1 sample frame) from its traces on two faces.
+
+    Parameters
+    ----------
+    face1_deg, face2_deg : float
+        Trace angles on face 1 and face 2, each in its own image frame, degrees.
+    geom : FaceGeometry
+    sigma1_deg, sigma2_deg : float
+        One-sigma uncertainty of the two angles, degrees.
+
+    Returns
+    -------
+    normal : ndarray (3,)
+        Unit normal, sense chosen with n_z >= 0.
+    sigma_deg : float
+        One-sigma angular uncertainty of the normal (RMS of the two first-order cones), degrees.
+    """
+    geom = geom or FaceGeometry()
+    t1, t2 = _t1(face1_deg), _t2(face2_deg, geom)
+    n = np.cross(t1, t2)
+    s = float(np.linalg.norm(n))
+    if s < math.sin(math.radians(2.0)):
+        raise TracefitInputError(
+            "the two traces are (nearly) parallel to the common edge, so they do not fix the plane; "
+            "a plane whose trace runs along the edge needs a third face"
+        )
+    n = n / s
+    if n[2] < 0:
+        n = -n
+    devs = []
+    for k, (sg, f) in enumerate(((sigma1_deg, lambda a: np.cross(_t1(a), t2)), (sigma2_deg, lambda a: np.cross(t1, _t2(a, geom))))):
+        base = face1_deg if k == 0 else face2_deg
+        m = f(base + 0.1)
+        m = m / np.linalg.norm(m)
+        ang = math.degrees(math.acos(min(1.0, abs(float(m @ n))))) / 0.1
+        devs.append(ang * sg)
+    sigma = math.sqrt(devs[0] ** 2 + devs[1] ** 2)
+    return n, sigma
+
+
+def index_two_face(pairs, geom: FaceGeometry | None = None, lattice=None, g=None, systems=None,
+                   frame=None, orientation_sigma_deg: float = 1.0, p_none: float = 0.05,
+                   sigma_deg: float = 0.5, threshold: float = 0.01) -> list[TwoFacePlane]:
+    """Plane normals from trace pairs, indexed against the candidate planes of a known orientation.
+
+    Parameters
+    ----------
+    pairs : sequence of (face1_deg, face2_deg) or (face1_deg, face2_deg, sigma_deg)
+    geom : FaceGeometry
+    lattice, g, systems : optional
+        With an orientation ``g`` (sample -> crystal) and candidate ``systems``, each normal is
+        compared with every candidate plane: likelihood exp(-a^2 / 2 s^2) / (2 pi s^2) over the
+        angle a between normals (s^2 = sigma_normal^2 + sigma_orient^2), "none of these" uniform
+        1 / (2 pi) on the half sphere with prior ``p_none``.
+    frame : FrameSettings, optional
+        Data -> image frame of face 1 (the normal is turned back into the data frame).
+
+    Returns
+    -------
+    list of TwoFacePlane
+    """
+    from tracefit.matching import candidate_set
+
+    geom = geom or FaceGeometry()
+    out = []
+    cands = None
+    if g is not None and systems is not None:
+        cands = systems if hasattr(systems, "plane_ids") else candidate_set(systems)
+    for p in pairs:
+        p = tuple(p)
+        if len(p) not in (2, 3):
+            raise TracefitInputError(f"a two-face trace pair needs (face1_deg, face2_deg[, sigma_deg]), got {p!r}")
+        s_in = float(p[2]) if len(p) == 3 else sigma_deg
+        n, sig = plane_from_two_traces(float(p[0]), float(p[1]), geom, s_in, s_in)
+        incl = math.degrees(math.acos(min(1.0, abs(n[2]))))
+        tp = TwoFacePlane(float(p[0]) % 180.0, float(p[1]) % 180.0, n, sig, incl)
+        if cands is not None:
+            from tracefit.frames import data_to_image_matrix
+
+            n_data = data_to_image_matrix(frame).T @ n
+            nc = np.asarray(g, float) @ n_data
+            tp.normal_crystal = nc
+            cosang = np.clip(np.abs(cands.normals @ nc), 0.0, 1.0)
+            ang = np.degrees(np.arccos(cosang))
+            s2 = math.radians(math.hypot(sig, orientation_sigma_deg)) ** 2
+            lik = np.exp(-np.radians(ang) ** 2 / (2 * s2)) / (2 * math.pi * s2)
+            npl = int(cands.plane_ids.max()) + 1
+            counts = np.bincount(cands.plane_ids, minlength=npl)
+            prior = (1 - p_none) / npl / counts[cands.plane_ids]
+            w = prior * lik
+            wn = p_none / (2 * math.pi)
+            Z = w.sum() + wn
+            post = w / Z
+            tp.p_none = float(wn / Z)
+            tp.unexplained = tp.p_none >= 0.5
+            order = np.argsort(-post)
+            for c in order:
+                if post[c] < threshold and tp.matches:
+                    break
+                tp.matches.append(PlaneMatch(cands.planes[c], cands.families[c], cands.modes[c], float(ang[c]), float(post[c])))
+            if tp.unexplained:
+                tp.notes.append("no candidate plane lies near this normal: check the face geometry, the orientation and the modes")
+        out.append(tp)
+    return out
+
+
+def interplanar_pairs(normals_sample, lattice, families, tol_deg: float = 2.0, max_index: int = 3):
+    """Without an orientation: which pairs of plane families have the measured interplanar angle.
+
+    The angle between two measured normals does not depend on the orientation, so it can be
+    compared with the angles between members of candidate families.
+
+    Parameters
+    ----------
+    normals_sample : array (2, 3)
+        Two unit normals (any frame, the same for both).
+    lattice : Lattice
+    families : sequence of plane indices, e.g. [(1, 1, 1), (1, 1, 0)]
+        Representative of each family (variants are generated with the lattice symmetry).
+    tol_deg : float
+
+    Returns
+    -------
+    measured_deg : float
+    list of (family_a, family_b, plane_a, plane_b, angle_deg), closest first, within tol.
+    """
+    from tracefit.symmetry import plane_variants
+
+    a, b = (np.asarray(v, float) / np.linalg.norm(v) for v in normals_sample)
+    meas = math.degrees(math.acos(min(1.0, abs(float(a @ b)))))
+    rows = []
+    fams = [tuple(f) for f in families]
+    for i, fa in enumerate(fams):
+        for fb in fams[i:]:
+            na = lattice.plane_normal(fa)
+            best = None
+            for vb in plane_variants(lattice, fb):
+                nb = lattice.plane_normal(vb)
+                ang = math.degrees(math.acos(min(1.0, abs(float(na @ nb)))))
+                if ang < 1e-6:
+                    continue
+                d = abs(ang - meas)
+                if d <= tol_deg and (best is None or d < best[-1]):
+                    best = (fa, fb, tuple(fa), tuple(vb), ang, d)
+            if best:
+                rows.append(best[:5])
+    rows.sort(key=lambda r: abs(r[4] - meas))
+    return meas, rows
