@@ -252,7 +252,10 @@ def parse_load(text: str, lattice=None, sense: str = "tension") -> LoadAxis:
 def _parse_direction(t: str, lattice) -> tuple:
     from tracefit.indices import parse_index  # the project's one index reader
 
-    idx = parse_index(t, lattice, expect="direction")
+    try:
+        idx = parse_index(t, lattice, expect="direction")
+    except TracefitInputError as exc:
+        raise TracefitInputError(f"cannot read the load axis {t!r} as a crystal direction: {exc}") from None
     if idx.family:
         raise TracefitInputError(f"a load axis is one direction, not a family: write [110] rather than {t}")
     return tuple(int(x) for x in idx.values)

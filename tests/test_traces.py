@@ -1,0 +1,296 @@
+"""Predicted traces, inclinations, Schmid factors and resolved shear.
+
+* Worked vectors: specification tests from ../shared/conventions.md (computed there with an
+  independent implementation that agrees with orix).
+* Schmid factors of fcc {111}<110> slip: the standard textbook values for tension along [001],
+  [011] and [111] (e.g. Hosford, Mechanical Behavior of Materials, chapter on slip; Dieter,
+  Mechanical Metallurgy, chapter on plastic deformation of single crystals; values from memory):
+  max |m| = 1/sqrt(6) = 0.408 on 8 systems, 0.408 on 4 systems, 2/(3 sqrt 6) = 0.272 on 6 systems.
+"""
+
+import math
+from types import SimpleNamespace
+
+import numpy as np
+import pytest
+from hypothesis import given, settings, strategies as st
+from scipy.spatial.transform import Rotation as SciRot
+
+from tracefit.angles import axial_difference
+from tracefit.errors import TracefitInputError
+from tracefit.frames import FrameSettings
+from tracefit.lattice import lattice_preset
+from tracefit.orientation import crystal_to_sample, from_euler
+from tracefit.systems import catalogue
+from tracefit.traces import (
+    parse_load,
+    plane_normals_in_image,
+    predict_traces,
+    predicted_trace_table,
+    resolved_shear,
+    schmid_factor,
+    system_schmid_factors,
+    trace_angles,
+)
+
+# (lattice, c/a, Euler, plane, trace deg, inclination deg) -- ../shared/conventions.md (spec)
+WORKED = [
+    ("fcc", None, (0, 0, 0), (1, 1, 1), 135.000, 54.736),
+    ("fcc", None, (0, 0, 0), (1, -1, 1), 45.000, 54.736),
+    ("fcc", None, (30, 0, 0), (1, 1, 1), 165.000, 54.736),
+    ("fcc", None, (0, 45, 0), (1, 1, 1), 90.000, 35.264),
+    ("fcc", None, (0, 45, 0), (1, -1, 1), 35.264, 90.000),
+    ("fcc", None, (90, 90, 0), (1, 1, 1), 135.000, 54.736),
+    ("bcc", None, (10, 20, 30), (1, 1, 0), 174.085, 70.709),
+    ("bcc", None, (10, 20, 30), (1, 2, 3), 17.128, 16.772),
+    ("hcp", 1.633, (0, 90, 0), (0, 0, 0, 1), 0.000, 90.000),
+    ("hcp", 1.633, (0, 90, 0), (1, 0, -1, 0), 90.000, 60.000),
+    ("hcp", 1.587, (0, 90, 0), (1, 0, -1, 2), 38.432, 70.258),
+    ("hcp", 1.587, (40, 60, 10), (1, 0, -1, 2), 90.844, 41.865),
+    ("hcp", 1.587, (40, 60, 10), (0, 1, -1, 0), 59.425, 31.475),
+]
+
+
+@pytest.mark.parametrize("lat, ca, euler, plane, trace, incl", WORKED)
+def test_worked_vectors(lat, ca, euler, plane, trace, incl):
+    # Specification test (../shared/conventions.md, "Worked vectors").
+    lattice = lattice_preset(lat, ca)
+    t = predicted_trace_table(lattice, from_euler(euler), [plane], indices=True)
+    assert abs(axial_difference(float(t.angle_deg[0]), trace)) < 6e-4
+    assert float(t.inclination_deg[0]) == pytest.approx(incl, abs=6e-4)
+
+
+@pytest.mark.parametrize("lat, ca, euler, plane, trace, incl", [w for w in WORKED if w[0] == "hcp"])
+def test_worked_vectors_through_predict_traces(lat, ca, euler, plane, trace, incl):
+    # Same spec, through the grouped per-orientation path and the built-in catalogue.
+    lattice = lattice_preset(lat, ca)
+    n_target = lattice.plane_normal(plane)
+    fake = SimpleNamespace(mode="slip", family="{x}", name="probe", plane=plane, direction=(0, 0, 0, 1), normal=n_target, dir_unit=n_target)
+    (tr,) = predict_traces(lattice, from_euler(euler), [fake])
+    assert abs(axial_difference(tr.angle_deg, trace)) < 6e-4
+    assert tr.inclination_deg == pytest.approx(incl, abs=6e-4)
+
+
+def test_trace_lies_in_plane_and_surface():
+    # The trace direction (cos a, sin a, 0) is in the surface and in the plane: t . n = 0.
+    lat = lattice_preset("hcp", 1.624)
+    g = from_euler(SciRot.random(500, random_state=11).as_euler("ZXZ", degrees=True))
+    hkil = np.array([[1, 0, -1, 2], [1, 1, -2, 2], [1, 0, -1, 1], [0, 1, -1, 0], [1, -2, 1, 3]])
+    tab = predicted_trace_table(lat, g, hkil, indices=True)
+    n_s = crystal_to_sample(g, lat.plane_normal(hkil))
+    a = np.radians(tab.angle_deg)
+    dots = np.cos(a) * n_s[..., 0] + np.sin(a) * n_s[..., 1]
+    ok = tab.inclination_deg > 1.0  # the trace of a near-surface plane is ill-defined
+    assert np.abs(dots[ok]).max() < 1e-9
+    # dihedral angle between plane and surface = angle between their normals (written independently)
+    np.testing.assert_allclose(tab.inclination_deg, np.degrees(np.arctan2(np.hypot(n_s[..., 0], n_s[..., 1]), np.abs(n_s[..., 2]))), atol=1e-9)
+    assert tab.angle_deg.shape == (500, 5)
+
+
+def test_basal_inclination_equals_Phi():
+    # The c axis makes angle Phi with Z (Bunge): the basal plane is inclined by Phi (common practice, no source).
+    lat = lattice_preset("hcp", 1.587)
+    e = np.column_stack([np.linspace(0, 300, 7), np.linspace(0, 90, 7), np.linspace(10, 200, 7)])
+    tab = predicted_trace_table(lat, from_euler(e), [(0, 0, 0, 1)], indices=True)
+    np.testing.assert_allclose(tab.inclination_deg[:, 0], e[:, 1], atol=1e-9)
+
+
+def test_trace_angles_plane_and_negative():
+    n = np.array([[0.3, 0.4, 0.5], [-0.3, -0.4, -0.5]])
+    a, i = trace_angles(n)
+    assert a[0] == pytest.approx(a[1]) and i[0] == pytest.approx(i[1])
+    assert a[0] == pytest.approx((math.degrees(math.atan2(0.4, 0.3)) + 90) % 180)
+
+
+def test_plane_normals_in_image_shapes():
+    g = from_euler(np.zeros((4, 3)))
+    n = np.eye(3)
+    assert plane_normals_in_image(g, n).shape == (4, 3, 3)
+    assert plane_normals_in_image(g[0], n).shape == (3, 3)
+    np.testing.assert_allclose(plane_normals_in_image(g[0], n, FrameSettings(rotation_deg=90)), [[0, 1, 0], [-1, 0, 0], [0, 0, 1]], atol=1e-15)
+
+
+# ------------------------------------------------------------------ Schmid factors
+@pytest.fixture(scope="module")
+def fcc():
+    lat = lattice_preset("fcc")
+    return lat, catalogue(lat, modes=["slip"])
+
+
+@pytest.mark.parametrize("axis, m_max, count", [("[001]", 1 / math.sqrt(6), 8), ("[011]", 1 / math.sqrt(6), 4), ("[111]", 2 / (3 * math.sqrt(6)), 6)])
+def test_fcc_schmid_textbook(fcc, axis, m_max, count):
+    # Hosford / Dieter (see module docstring): 0.408 (8), 0.408 (4), 0.272 (6).
+    lat, slip = fcc
+    m = system_schmid_factors(parse_load(axis, lat), None, slip)
+    assert len(slip) == 12
+    assert m.max() == pytest.approx(m_max, abs=1e-12)
+    assert round(m_max, 3) == {"[001]": 0.408, "[011]": 0.408, "[111]": 0.272}[axis]
+    assert int(np.sum(np.isclose(m, m.max(), atol=1e-9))) == count
+    assert np.all(m >= 0)  # slip is reported as |m|
+
+
+def test_fcc_schmid_through_sample_axis(fcc):
+    # Same values when the load is the sample z axis and the crystal is turned so [011] || z.
+    lat, slip = fcc
+    g = from_euler([0, 45, 0])  # crystal [0 -1 1]/sqrt2 ... lies along sample Z for Phi = 45
+    l_c = g @ [0, 0, 1]
+    np.testing.assert_allclose(np.abs(l_c), [0, 1 / math.sqrt(2), 1 / math.sqrt(2)], atol=1e-12)
+    m = system_schmid_factors(parse_load("z", lat), g, slip)
+    assert m.max() == pytest.approx(0.40825, abs=1e-5)
+    assert int(np.sum(np.isclose(m, m.max()))) == 4
+
+
+def test_schmid_maximum_half_at_45_degrees():
+    # m = cos(phi) cos(lambda) = 0.5 at phi = lambda = 45 deg (common practice, no source).
+    n = np.array([0.0, 0.0, 1.0])
+    d = np.array([1.0, 0.0, 0.0])
+    l = np.array([1.0, 0.0, 1.0]) / math.sqrt(2)
+    assert schmid_factor(l, n, d) == pytest.approx(0.5)
+    assert schmid_factor(-l, n, d) == pytest.approx(0.5)  # tension along l or -l is the same load
+    assert schmid_factor([1.0, 0.0, -1.0], n, d) == pytest.approx(-0.5)
+
+
+@settings(max_examples=200, deadline=None)
+@given(st.lists(st.floats(-1, 1, allow_nan=False), min_size=9, max_size=9))
+def test_schmid_never_above_half(v):
+    a = np.array(v[:3]); b = np.array(v[3:6]); l = np.array(v[6:])
+    if min(np.linalg.norm(a), np.linalg.norm(b), np.linalg.norm(l)) < 1e-3:
+        return
+    n = a / np.linalg.norm(a)
+    d = b - (b @ n) * n  # a slip direction lies in its plane
+    if np.linalg.norm(d) < 1e-3:
+        return
+    assert abs(schmid_factor(l, n, d)) <= 0.5 + 1e-12
+
+
+def test_schmid_vectorised_shapes():
+    l = np.array([[0, 0, 1], [1, 0, 0]], float)
+    n = np.eye(3)
+    d = np.roll(np.eye(3), 1, axis=0)
+    assert schmid_factor(l, n, d).shape == (2, 3)
+    assert schmid_factor(l[0], n, d).shape == (3,)
+
+
+def test_twin_sense_counts_only_one_way():
+    # Twinning is polar: it forms only when (l.n)(l.d) > 0 in tension, reversed in compression.
+    lat = lattice_preset("fcc")
+    twin = SimpleNamespace(mode="twin", normal=np.array([0, 0, 1.0]), dir_unit=np.array([1.0, 0, 0]))
+    slip = SimpleNamespace(mode="slip", normal=np.array([0, 0, 1.0]), dir_unit=np.array([1.0, 0, 0]))
+    plus = (1, 0, 1)
+    minus = (1, 0, -1)
+    for axis, sense, m_twin in ((plus, "tension", 0.5), (plus, "compression", -0.5), (minus, "tension", -0.5), (minus, "compression", 0.5)):
+        load = parse_load(",".join(map(str, axis)), lat, sense)
+        m = system_schmid_factors(load, np.eye(3), [twin, slip])
+        assert m[0] == pytest.approx(m_twin)
+        assert m[1] == pytest.approx(0.5)
+
+
+def test_fcc_twin_tension_compression_asymmetry():
+    # fcc {111}<112> twinning under [001]: m = 0.471 in compression, only 0.236 in tension;
+    # under [111] tension 0.314 (from memory; widely quoted for the tension/compression
+    # asymmetry of fcc twinning, e.g. Karaman et al., Acta Mater. 2000).
+    lat = lattice_preset("fcc")
+    tw = catalogue(lat, modes=["twin"])
+    m_t = system_schmid_factors(parse_load("[001]", lat, "tension"), None, tw)
+    m_c = system_schmid_factors(parse_load("[001]", lat, "compression"), None, tw)
+    m_111 = system_schmid_factors(parse_load("[111]", lat, "tension"), None, tw)
+    assert m_c.max() == pytest.approx(2 * math.sqrt(2) / 6, abs=1e-9)  # 0.471
+    assert m_t.max() == pytest.approx(math.sqrt(2) / 6, abs=1e-9)  # 0.236
+    assert m_111.max() == pytest.approx(0.3143, abs=1e-4)
+
+
+def test_hcp_extension_twin_under_c_axis_tension():
+    # {10-12} twins in Mg (c/a 1.624 < sqrt 3) extend the c axis: c-axis tension favours all six,
+    # c-axis compression none (common practice, no source).
+    lat = lattice_preset("hcp", 1.624)
+    tw = catalogue(lat, modes=["twin"], families=["{10-12}"])
+    assert len(tw) == 6
+    assert np.all(system_schmid_factors(parse_load("[0001]", lat), None, tw) > 0.45)
+    assert np.all(system_schmid_factors(parse_load("[0001]", lat, "compression"), None, tw) < 0)
+
+
+def test_resolved_shear_matches_schmid_under_uniaxial_stress():
+    # tau = n . sigma . d in the sample frame equals sigma * (l.n)(l.d) for sigma l l^T.
+    lat = lattice_preset("bcc")
+    sys_ = catalogue(lat, modes=["slip"])
+    n = np.array([s.normal for s in sys_])
+    d = np.array([s.dir_unit for s in sys_])
+    g = from_euler([20, 35, 50])
+    l_s = np.array([0.2, -0.5, 0.84])
+    l_s /= np.linalg.norm(l_s)
+    sigma = 150.0 * np.outer(l_s, l_s)
+    tau = resolved_shear(sigma, g, n, d)
+    np.testing.assert_allclose(tau, 150.0 * schmid_factor(g @ l_s, n, d), atol=1e-10)
+    voigt = [sigma[0, 0], sigma[1, 1], sigma[2, 2], sigma[1, 2], sigma[0, 2], sigma[0, 1]]
+    np.testing.assert_allclose(resolved_shear(voigt, g, n, d), tau, atol=1e-12)
+    with pytest.raises(TracefitInputError, match="symmetric"):
+        resolved_shear(np.array([[0, 1, 0], [0, 0, 0], [0, 0, 0.0]]), g, n, d)
+
+
+# ------------------------------------------------------------------ grouping and results
+def test_fcc_groups_into_four_traces():
+    lat = lattice_preset("fcc")
+    tr = predict_traces(lat, from_euler([10, 20, 30]), catalogue(lat))
+    assert len(tr) == 4
+    for t in tr:
+        assert t.modes == ["slip", "twin"]
+        assert len(t.systems) == 6 and t.family == "{111}"
+        assert t.systems[0].schmid_factor is None
+    assert [t.angle_deg for t in tr] == sorted(t.angle_deg for t in tr)
+    # matches the vectorised table
+    tab = predicted_trace_table(lat, from_euler([10, 20, 30]), [t.plane for t in tr], indices=True)
+    np.testing.assert_allclose(tab.angle_deg, [t.angle_deg for t in tr], atol=1e-12)
+
+
+def test_plane_and_negative_are_one_trace_slip_and_twin_merge():
+    lat = lattice_preset("hcp", 1.624)
+    n = lat.plane_normal((1, 0, -1, 2))
+    mk = lambda mode, plane, nn, d: SimpleNamespace(mode=mode, family="{10-12}", name=f"{mode} probe", plane=plane, direction=d, normal=nn, dir_unit=np.array([1.0, 0, 0]))  # noqa: E731
+    systems = [mk("twin", (1, 0, -1, 2), n, (-1, 0, 1, 1)), mk("slip", (-1, 0, 1, -2), -n, (1, -2, 1, 0))]
+    (t,) = predict_traces(lat, from_euler([5, 50, 80]), systems)
+    assert t.modes == ["slip", "twin"] and len(t.systems) == 2
+    d = t.to_dict()
+    assert d["plane"] == [1, 0, -1, 2] and d["modes"] == ["slip", "twin"]
+    assert set(d) >= {"plane", "family", "modes", "angle_deg", "inclination_deg", "systems"}
+    assert "schmid_factor" not in d["systems"][0]
+
+
+def test_predict_with_load_sorted_by_schmid_and_activation_stress():
+    lat = lattice_preset("fcc")
+    tr = predict_traces(lat, from_euler([0, 0, 0]), catalogue(lat, modes=["slip"]), load="[123]", crss={"{111}": 10.0})
+    best = [t.best_schmid for t in tr]
+    assert best == sorted(best, reverse=True)
+    s = tr[0].systems[0]
+    assert s.activation_stress == pytest.approx(10.0 / s.schmid_factor)
+    # The [123] single-slip orientation: primary system (11-1)[011]-type, m = 0.467 (from memory).
+    assert s.schmid_factor == pytest.approx(0.4666, abs=1e-4)
+    d = tr[0].to_dict()
+    assert d["systems"][0]["schmid_factor"] == pytest.approx(s.schmid_factor)
+
+
+def test_near_surface_flag():
+    lat = lattice_preset("fcc")
+    fake = SimpleNamespace(mode="slip", family="{001}", name="probe", plane=(0, 0, 1), direction=(1, 0, 0), normal=np.array([0, 0, 1.0]), dir_unit=np.array([1.0, 0, 0]))
+    (t,) = predict_traces(lat, from_euler([0, 3, 0]), [fake])
+    assert t.near_surface and t.inclination_deg == pytest.approx(3.0)
+    (t,) = predict_traces(lat, from_euler([0, 3, 0]), [fake], near_surface_deg=2.0)
+    assert not t.near_surface
+
+
+@pytest.mark.parametrize("text", ["garbage", "", "[12", "<110>", "0,0,0", "x,y"])
+def test_parse_load_rejects(text):
+    with pytest.raises(TracefitInputError):
+        parse_load(text, lattice_preset("fcc"))
+
+
+def test_parse_load_accepts():
+    lat = lattice_preset("hcp", 1.624)
+    assert parse_load("-x").vector == (-1.0, 0.0, 0.0)
+    assert parse_load("1,1,0").frame == "sample"
+    ld = parse_load("[11-20]", lat, "compression")
+    assert ld.frame == "crystal" and ld.sense == "compression"
+    np.testing.assert_allclose(ld.vector, lat.direction_vector((1, 1, -2, 0)))
+    with pytest.raises(TracefitInputError):
+        parse_load("[110]", lat)  # hexagonal needs four indices
+    with pytest.raises(TracefitInputError):
+        parse_load("z", lat, "shear")
