@@ -651,6 +651,7 @@ def identify_grains(
     families=None,
     report_threshold: float = DEFAULT_REPORT_THRESHOLD,
     ambiguity_ratio: float = DEFAULT_AMBIGUITY_RATIO,
+    grain_sigma_deg: dict | None = None,
 ) -> list[FamilyIdentification]:
     """Identify families of many grains at once.
 
@@ -660,6 +661,8 @@ def identify_grains(
         Each with ``grain`` set to a key of ``orientations``.
     orientations : dict grain -> ndarray (3, 3)
         Orientation of each grain (v_crystal = g v_sample).
+    grain_sigma_deg : dict grain -> float, optional
+        Per-grain orientation uncertainty overriding ``orientation_sigma_deg``.
     (others as :func:`identify_families`)
 
     Returns
@@ -679,8 +682,9 @@ def identify_grains(
         ang, incl, slope = predict_candidates(cands, G, frame)
         for j, k in enumerate(keys):
             idx = by_grain[k]
+            osig = orientation_sigma_deg if not grain_sigma_deg else grain_sigma_deg.get(k, orientation_sigma_deg)
             res = _identify_one([obs[i] for i in idx], cands, G[j], ang[j], incl[j], slope[j], load,
-                                orientation_sigma_deg, frame_sigma_deg, p_none, schmid_weight,
+                                osig, frame_sigma_deg, p_none, schmid_weight,
                                 allow_shared_planes, report_threshold, ambiguity_ratio)
             for i, r in zip(idx, res):
                 out[i] = r

@@ -1,0 +1,244 @@
+"""``tracefit identify``: which slip or twin system made each band family in a micrograph."""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+from typing import Optional
+
+import typer
+
+from tracefit.cli import app
+from tracefit.cli.common import (
+    AlignOpt,
+    AxisAngleOpt,
+    CompressionOpt,
+    CoverAOpt,
+    EulerOpt,
+    FamiliesOpt,
+    FlipXOpt,
+    FlipYOpt,
+    FrameRotationOpt,
+    HexSettingOpt,
+    JsonOpt,
+    LatticeOpt,
+    LoadOpt,
+    MatrixOpt,
+    ModesOpt,
+    QuaternionOpt,
+    SystemsFileOpt,
+    TiltAxisOpt,
+    TiltOpt,
+    build_frame,
+    build_lattice,
+    build_load,
+    build_orientation,
+    build_systems,
+    cli_warnings,
+    lattice_dict,
+    print_json,
+)
+from tracefit.errors import TracefitInputError
+
+
+def observed_from_image(image_path: Path, grains_path: Path | None = None, orientations=None,
+                        pixel_size_um: float | None = None, min_grain_px: int = 2500):
+    """Detect band families in an image (per grain with a label image) -> (observed, image, labels, notes)."""
+    from tracefit.image import detect_bands, detect_grains, read_image
+    from tracefit.matching import observed_from_detection
+
+    img, notes = read_image(image_path)
+    if grains_path is None:
+        res = detect_bands(img, pixel_size_um=pixel_size_um)
+        return observed_from_detection(res), img, None, list(notes) + list(getattr(res, "notes", []))
+    from tracefit.grains import read_label_image
+
+    labels = read_label_image(grains_path)
+    if labels.shape != img.shape[:2]:
+        raise TracefitInputError(
+            f"the grain label image is {labels.shape[1]}x{labels.shape[0]} px but the micrograph is "
+            f"{img.shape[1]}x{img.shape[0]} px; they must match pixel for pixel"
+        )
+    ids = sorted(int(k) for k in orientations) if orientations is not None else None
+    present = set(int(x) for x in set(labels.ravel().tolist()))
+    ids = [k for k in ids if k in present] if ids is not None else None
+    if ids is not None and not ids:
+        raise TracefitInputError("no grain id of the orientation table occurs in the grain label image")
+    res = detect_grains(img, labels, pixel_size_um=pixel_size_um, min_pixels=min_grain_px, grains=ids)
+    obs = []
+    for gid in sorted(res):
+        obs.extend(observed_from_detection(res[gid], grain=int(gid)))
+    missing = sorted(present - set(int(k) for k in (orientations or {})))
+    if missing:
+        notes = list(notes) + [f"{len(missing)} grain id(s) of the label image have no orientation and were skipped"]
+    return obs, img, labels, list(notes)
+
+
+@app.command("identify")
+def identify(
+    image: Optional[Path] = typer.Argument(None, help="Micrograph (PNG/TIFF/JPEG/BMP)."),
+    lattice: LatticeOpt = None,
+    c_over_a: CoverAOpt = None,
+    hex_setting: HexSettingOpt = "x_a1",
+    systems_file: SystemsFileOpt = None,
+    euler: EulerOpt = None,
+    quaternion: QuaternionOpt = None,
+    matrix: MatrixOpt = None,
+    axis_angle: AxisAngleOpt = None,
+    align: AlignOpt = None,
+    grains: Optional[Path] = typer.Option(None, "--grains", help="Grain label image (integer ids, same size as IMAGE)."),
+    orientations: Optional[Path] = typer.Option(
+        None, "--orientations", help="Grain orientation CSV: grain,phi1,Phi,phi2 (docs/orientation-table.md)."
+    ),
+    modes: ModesOpt = "slip,twin",
+    families: FamiliesOpt = None,
+    load: LoadOpt = None,
+    compression: CompressionOpt = False,
+    orientation_sigma: float = typer.Option(1.0, "--orientation-sigma", help="Orientation uncertainty per sample axis, degrees."),
+    frame_sigma: float = typer.Option(0.5, "--frame-sigma", help="Uncertainty of the frame rotation, degrees."),
+    frame_rotation: FrameRotationOpt = 0.0,
+    flip_x: FlipXOpt = False,
+    flip_y: FlipYOpt = False,
+    tilt: TiltOpt = 0.0,
+    tilt_axis: TiltAxisOpt = "x",
+    p_none: float = typer.Option(0.05, "--p-none", help="Prior probability that a family matches no candidate (scratch, wrong data)."),
+    schmid_weight: float = typer.Option(
+        0.0, "--schmid-weight", help="Weight planes by Schmid factor^k under --load (0 = off, 1 = mild)."
+    ),
+    allow_shared_planes: bool = typer.Option(False, "--allow-shared-planes", help="Let two families of one grain take the same plane."),
+    pixel_size: Optional[float] = typer.Option(None, "--pixel-size", help="Pixel size in micrometres (for band spacings)."),
+    min_grain_px: int = typer.Option(2500, "--min-grain-px", help="Grains with fewer pixels are skipped."),
+    overlay: Optional[Path] = typer.Option(None, "--overlay", help="Write the image with observed and identified traces (PNG)."),
+    json_out: JsonOpt = False,
+) -> None:
+    """Identify the slip or twin system behind each band family, with probabilities.
+
+    Every family gets its candidate planes (most probable first), a probability that no
+    candidate explains it (scratch, wrong orientation, wrong frame), and a plain statement
+    when several planes fit equally well.
+    """
+    from tracefit.matching import identifications_to_json, identify_families, identify_grains
+
+    with cli_warnings():
+        lat, file_systems = build_lattice(lattice, c_over_a, hex_setting, systems_file)
+        systems = build_systems(lat, file_systems, modes, families)
+        frame = build_frame(frame_rotation, flip_x, flip_y, tilt, tilt_axis)
+        ld = build_load(load, lat, compression)
+        if orientation_sigma < 0 or frame_sigma < 0:
+            raise TracefitInputError("--orientation-sigma and --frame-sigma must be >= 0 degrees")
+        per_grain = grains is not None or orientations is not None
+        one = any(v is not None for v in (euler, quaternion, matrix, axis_angle, align))
+        if per_grain and one:
+            raise TracefitInputError("give either one orientation (--euler ...) or --grains with --orientations, not both")
+        if per_grain and (grains is None or orientations is None):
+            raise TracefitInputError("--grains and --orientations go together: a label image and its orientation table")
+        if not per_grain and not one:
+            raise TracefitInputError("no orientation: give --euler phi1,Phi,phi2 (or --quaternion, --matrix, --axis-angle, --align), "
+                                     "or --grains LABELS --orientations TABLE.csv")
+        if image is None:
+            raise TracefitInputError("no image given: tracefit identify IMAGE --lattice ... ")
+        common = dict(frame=frame, load=ld, orientation_sigma_deg=orientation_sigma, frame_sigma_deg=frame_sigma,
+                      p_none=p_none, schmid_weight=schmid_weight, allow_shared_planes=allow_shared_planes)
+        extra = {}
+        if per_grain:
+            from tracefit.grains import read_orientation_table
+
+            table = read_orientation_table(orientations)
+            obs, img, labels, notes = observed_from_image(image, grains, table, pixel_size, min_grain_px)
+            ori_map = {k: v.g for k, v in table.items()}
+            sig_map = {k: v.sigma_deg for k, v in table.items() if v.sigma_deg is not None}
+            results = identify_grains(obs, lat, ori_map, systems, grain_sigma_deg=sig_map or None, **common)
+            extra["grains"] = {"n_table": len(table), "n_with_families": len({o.grain for o in obs})}
+        else:
+            g, ori = build_orientation(lat, euler, quaternion, matrix, axis_angle, align)
+            obs, img, labels, notes = observed_from_image(image, None, None, pixel_size, min_grain_px)
+            results = identify_families(obs, lat, g, systems, **common)
+            extra["orientation"] = ori
+            ori_map = {None: g}
+        if overlay is not None:
+            _write_overlay(overlay, img, results, labels)
+    if json_out:
+        d = identifications_to_json(results)
+        d.update({"lattice": lattice_dict(lat), "frame": frame.to_dict(),
+                  "load": ld.to_dict() if ld is not None else None, "notes": notes,
+                  "settings": {"orientation_sigma_deg": orientation_sigma, "frame_sigma_deg": frame_sigma,
+                               "p_none": p_none, "schmid_weight": schmid_weight,
+                               "allow_shared_planes": allow_shared_planes}})
+        d.update(extra)
+        print_json(d)
+        return
+    _print_text(results, lat, ld)
+
+
+def _print_text(results, lat, ld) -> None:
+    from tracefit.indices import format_index
+
+    if not results:
+        typer.echo("no band families detected")
+        return
+    typer.echo(f"{len(results)} band famil{'y' if len(results) == 1 else 'ies'}; angles in degrees ccw from the image x axis")
+    for r in results:
+        where = f"grain {r.grain}, " if r.grain is not None else ""
+        head = f"{where}family at {r.angle_deg:.2f} +- {r.angle_sigma_deg:.2f} deg"
+        if r.unexplained:
+            head += f": UNEXPLAINED (p_none {r.p_none:.2f})"
+        elif r.ambiguous:
+            head += ": AMBIGUOUS"
+        typer.echo(head)
+        for c in r.candidates:
+            bs = ""
+            if c.best_system is not None and c.best_system.schmid_factor is not None:
+                bs = f"  best {format_index(c.best_system.direction, 'direction')} m={c.best_system.schmid_factor:.3f}"
+            typer.echo(
+                f"   p={c.probability:5.3f}  {format_index(c.plane, 'plane'):<12} {c.family:<8} {c.mode:<4} "
+                f"predicted {c.predicted_deg:7.2f} (resid {c.residual_deg:+5.2f}, sigma {c.sigma_deg:4.2f}, incl {c.inclination_deg:4.1f}){bs}"
+            )
+        for h in r.separation:
+            typer.echo(f"   - {h}")
+        for n in r.notes:
+            typer.echo(f"   note: {n}")
+
+
+def _write_overlay(path: Path, img, results, labels) -> None:
+    """Observed families (solid) and each one's best predicted trace (dashed) drawn through its grain centre."""
+    import cv2
+    import numpy as np
+
+    from tracefit.angles import angle_to_pixel_direction
+
+    a = np.asarray(img, float)
+    lo, hi = np.percentile(a, 1), np.percentile(a, 99)
+    g8 = np.clip((a - lo) / max(hi - lo, 1e-9) * 255, 0, 255).astype(np.uint8)
+    out = cv2.cvtColor(g8, cv2.COLOR_GRAY2BGR) if g8.ndim == 2 else g8[..., :3].copy()
+    h, w = out.shape[:2]
+    L = 0.2 * min(h, w)
+    for r in results:
+        if labels is not None and r.grain is not None:
+            rr, cc = np.nonzero(labels == r.grain)
+            if len(rr) == 0:
+                continue
+            c0, r0 = float(cc.mean()), float(rr.mean())
+        else:
+            c0, r0 = w / 2.0, h / 2.0
+        colour = (0, 0, 255) if r.unexplained else ((0, 200, 255) if r.ambiguous else (0, 200, 0))
+        dc, dr = angle_to_pixel_direction(r.angle_deg)
+        p0 = (int(round(c0 - L * dc)), int(round(r0 - L * dr)))
+        p1 = (int(round(c0 + L * dc)), int(round(r0 + L * dr)))
+        cv2.line(out, p0, p1, colour, 2, cv2.LINE_AA)
+        b = r.best
+        if b is not None and not r.unexplained:
+            dc, dr = angle_to_pixel_direction(b.predicted_deg)
+            for t in np.arange(-1.0, 1.0, 0.1):
+                q0 = (int(round(c0 + L * t * dc)), int(round(r0 + L * t * dr)))
+                q1 = (int(round(c0 + L * (t + 0.05) * dc)), int(round(r0 + L * (t + 0.05) * dr)))
+                cv2.line(out, q0, q1, (255, 128, 0), 1, cv2.LINE_AA)
+            label = "(" + " ".join(str(int(x)) for x in b.plane) + ")"
+        else:
+            label = "?"
+        cv2.putText(out, label, p1, cv2.FONT_HERSHEY_SIMPLEX, 0.4, colour, 1, cv2.LINE_AA)
+    path = Path(path)
+    if path.suffix.lower() not in (".png", ".tif", ".tiff", ".jpg", ".jpeg", ".bmp"):
+        raise TracefitInputError(f"--overlay needs an image file name (.png, .tif, .jpg), got {str(path)!r}")
+    if not cv2.imwrite(str(path), out):
+        raise TracefitInputError(f"could not write the overlay {str(path)!r} (does the folder exist?)")
+    print(f"overlay written to {path}", file=sys.stderr)
