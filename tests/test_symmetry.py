@@ -1,6 +1,5 @@
 """Laue-class rotations and family variants (tracefit.symmetry) against outside references."""
 
-import itertools
 import math
 
 import numpy as np

@@ -41,7 +41,7 @@ import math
 import numpy as np
 
 from tracefit.errors import TracefitInputError
-from tracefit.indices import MillerIndex, check_values, parse_index
+from tracefit.indices import MillerIndex, check_values, parse_index, to_three
 
 __all__ = [
     "proper_rotations",
@@ -249,8 +249,8 @@ def _to_three(v, kind):
     return np.stack([v[..., 0] - v[..., 2], v[..., 1] - v[..., 2], v[..., 3]], axis=-1)
 
 
-def _to_four(v3, kind, template):
-    """Back to four indices, scaled to the same integer size as the original four-index input."""
+def _to_four(v3, kind):
+    """Three-index integer plane or direction back to four indices (directions: [UVW] -> [uvtw])."""
     v3 = np.asarray(v3, dtype=np.int64)
     if kind == "plane":
         h, k, l = v3[..., 0], v3[..., 1], v3[..., 2]
@@ -267,7 +267,7 @@ def _variants(lattice, values, kind):
     v3 = _to_three(values, kind)
     out = np.einsum("nij,j->ni", M, v3)
     if len(values) == 4:
-        out = _to_four(out, kind, values)
+        out = _to_four(out, kind)
     return [tuple(int(x) for x in row) for row in out]
 
 
@@ -323,8 +323,6 @@ def same_family(lattice, a, b, kind: str = "plane") -> bool:
     va = _as_values(a, lattice, kind)
     vb = _as_values(b, lattice, kind)
     if len(va) != len(vb):
-        from tracefit.indices import to_three
-
         va, vb = to_three(va, kind), to_three(vb, kind)
     members = plane_variants(lattice, va) if kind == "plane" else direction_variants(lattice, va, signed=False)
     return canonical_sign(vb) in members

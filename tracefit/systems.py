@@ -39,9 +39,16 @@ from pathlib import Path
 import numpy as np
 
 from tracefit.errors import TracefitInputError
-from tracefit.indices import MillerIndex, check_values, format_index, parse_index, to_three
+from tracefit.indices import MillerIndex, format_index, parse_index, to_three
 from tracefit.lattice import Lattice, lattice_preset
-from tracefit.symmetry import canonical_sign, direction_variants, index_rotations, plane_variants
+from tracefit.symmetry import (
+    _to_four,
+    canonical_sign,
+    direction_variants,
+    index_rotations,
+    plane_variants,
+    proper_rotations,
+)
 
 __all__ = [
     "DeformationSystem",
@@ -161,7 +168,7 @@ _HEX_SHEAR = {
 }
 
 
-def _family_key(text: str, lattice_hex: bool | None = None) -> tuple[int, ...]:
+def _family_key(text: str) -> tuple[int, ...]:
     label = text.strip()
     m = re.match(r"^([({][^)}]*[)}])", label)
     if not m:
@@ -187,12 +194,12 @@ def twin_shear(family: str, c_over_a: float | None = None) -> float:
     float
         Shear magnitude s >= 0 (dimensionless).
     """
-    key = _family_key(family)
-    if key in ((1, 1, 1), (1, 1, 2)):
+    key = canonical_sign(_family_key(family))
+    if len(key) == 3 and (key in plane_variants(_CUBIC_REF, (1, 1, 1)) or key in plane_variants(_CUBIC_REF, (1, 1, 2))):
         return 1.0 / math.sqrt(2.0)
     fam = None
     for proto in _HEX_SHEAR:
-        if key in plane_variants(_HEX_REF, proto) or canonical_sign(key) in plane_variants(_HEX_REF, proto):
+        if len(key) == 4 and key in plane_variants(_HEX_REF, proto):
             fam = proto
     if fam is None:
         raise TracefitInputError(
@@ -204,7 +211,9 @@ def twin_shear(family: str, c_over_a: float | None = None) -> float:
     return float(_HEX_SHEAR[fam](float(c_over_a)))
 
 
+# Reference cells for recognising family labels (index symmetry does not depend on c/a).
 _HEX_REF = Lattice(1.0, 1.0, 1.6, 90.0, 90.0, 120.0, name="hexagonal-reference")
+_CUBIC_REF = Lattice(1.0, 1.0, 1.0, name="cubic-reference")
 
 
 # --------------------------------------------------------------------------- built-in tables
@@ -244,8 +253,8 @@ _HCP_SLIP = [
     _SlipSpec("pyramidal-ca-1", "pyramidal <c+a> 1st order", (1, 0, -1, 1), (1, 1, -2, 3), "{10-11}", "<11-23>"),
     _SlipSpec("pyramidal-ca-2", "pyramidal <c+a> 2nd order", (1, 1, -2, 2), (1, 1, -2, 3), "{11-22}", "<11-23>"),
 ]
-# K1, eta1, eta2 after Yoo 1981 Table I (from memory of the table; each entry is checked on
-# import-free use by _twin_prototype: eta1 in K1, eta2 in the plane of shear, |s| = closed form).
+# K1, eta1, eta2 after Yoo 1981 Table I (indices from memory of the table). Each use is checked
+# in _builtin/_signed_shear: eta1 in K1, eta2 in the plane of shear, |s| equal to the closed form.
 _HCP_TWIN = [
     _TwinSpec("twin-10-12", "{10-12}<10-11> twin", (1, 0, -1, 2), (-1, 0, 1, 1), (1, 0, -1, 1), "{10-12}", "<10-11>"),
     _TwinSpec("twin-11-21", "{11-21}<11-26> twin", (1, 1, -2, 1), (-1, -1, 2, 6), (1, 1, -2, 0), "{11-21}", "<11-26>"),
@@ -294,7 +303,8 @@ def _unit_vectors(lattice, plane, direction, where: str):
     return n, d
 
 
-def _zone(plane, direction, kind_plane="plane") -> int:
+def _zone(plane, direction) -> int:
+    """Zone-law sum h u + k v + l w in three-index form (0 when the direction lies in the plane)."""
     return int(np.dot(to_three(plane, "plane"), to_three(direction, "direction")))
 
 
@@ -379,15 +389,13 @@ def expand_twin(lattice, plane, direction, name: str | None = None, shear: float
     p3 = np.array(to_three(plane, "plane"))
     d3 = np.array(to_three(direction, "direction"))
     seen = {}
-    from tracefit.symmetry import _to_four  # local: the same integer back-conversion
-
     for A, B in zip(Mp, Md):
         p = A @ p3
         d = B @ d3
         if len(plane) == 4:
-            p = _to_four(p, "plane", plane)
+            p = _to_four(p, "plane")
         if len(direction) == 4:
-            d = _to_four(d, "direction", direction)
+            d = _to_four(d, "direction")
         p = tuple(int(x) for x in p)
         d = tuple(int(x) for x in d)
         cp = canonical_sign(p)
@@ -577,7 +585,7 @@ def catalogue(lattice, modes=MODES, families=None) -> list[DeformationSystem]:
 
 # --------------------------------------------------------------------------- systems files
 _LATTICE_KEYS = {"preset", "name", "a", "b", "c", "alpha", "beta", "gamma", "c_over_a", "laue", "hex_setting"}
-_SYSTEM_KEYS = {"mode", "plane", "direction", "name", "shear", "expand"}
+_SYSTEM_KEYS = {"mode", "plane", "direction", "name", "shear", "expand", "eta2"}
 _TOP_KEYS = {"format", "version", "lattice", "system", "description"}
 
 
@@ -666,6 +674,11 @@ def load_systems_file(path, lattice: Lattice | None = None) -> tuple[Lattice | N
     if version != 1:
         raise TracefitInputError(f"{p}: this tracefit reads systems-file version 1, the file says {version!r}")
     file_lattice = _read_lattice(data["lattice"], p) if "lattice" in data else None
+    if file_lattice is not None:
+        try:
+            proper_rotations(file_lattice)  # the cell must have the symmetry of its Laue class
+        except TracefitInputError as exc:
+            raise TracefitInputError(f"{p}: [lattice]: {exc}") from None
     lat = file_lattice or lattice
     if lat is None:
         raise TracefitInputError(f"{p}: no [lattice] table, and no lattice was given; add [lattice] (see docs/systems-file.md)")
@@ -680,6 +693,28 @@ def load_systems_file(path, lattice: Lattice | None = None) -> tuple[Lattice | N
         where = f"{p}: system {i + 1}{line}" + (f" ({label})" if isinstance(label, str) else "")
         out.extend(_read_entry(e, lat, where, str(p)))
     return file_lattice, out
+
+
+def _sense_from_eta2(lat, pl: MillerIndex, di: MillerIndex, eta2_text, shear):
+    """Twinning sense and shear from K1, eta1 and eta2 (see the module docstring)."""
+    if not isinstance(eta2_text, str):
+        raise TracefitInputError(f"eta2 must be text in index brackets, e.g. \"[101]\", got {eta2_text!r}")
+    e2 = parse_index(eta2_text, lattice=lat, expect="direction")
+    if e2.family:
+        raise TracefitInputError(f"eta2 must be one direction in [], the one in the plane of shear of {pl}{di}, got {e2}")
+    try:
+        s = _signed_shear(lat, pl.values, di.values, e2.values)
+    except RuntimeError:
+        raise TracefitInputError(
+            f"eta2 {e2} does not lie in the plane of shear of {pl}{di} (the plane holding eta1 and the K1 normal), "
+            "or lies in K1; give the eta2 variant that does"
+        ) from None
+    if abs(s) < 1e-9:
+        raise TracefitInputError(f"{pl}{di} with eta2 {e2} has no shear; check the indices")
+    if shear is not None and not math.isclose(shear, abs(s), rel_tol=0.01):
+        raise TracefitInputError(f"shear = {shear:g} disagrees with the {abs(s):.4g} that K1, eta1 and eta2 give for this lattice")
+    d = di.values if s > 0 else tuple(-x for x in di.values)
+    return MillerIndex(d, "direction", False), abs(s)
 
 
 def _read_entry(e, lat, where, source) -> list[DeformationSystem]:
@@ -705,6 +740,8 @@ def _read_entry(e, lat, where, source) -> list[DeformationSystem]:
     if expand is not None and not isinstance(expand, bool):
         raise TracefitInputError(f"{where}: expand must be true or false")
     shear = e.get("shear")
+    if "eta2" in e and mode != "twin":
+        raise TracefitInputError(f"{where}: eta2 applies to twins only")
     if shear is not None:
         if mode != "twin":
             raise TracefitInputError(f"{where}: shear applies to twins only")
@@ -727,7 +764,8 @@ def _read_entry(e, lat, where, source) -> list[DeformationSystem]:
         raise TracefitInputError(f"{where}: families ({{}} and <>) always expand; write () and [] for one system")
     try:
         if mode == "slip":
-            if _zone(pl.values, di.values) != 0:
+            # Families pair every plane with every direction lying in it; single indices must fit.
+            if not family and _zone(pl.values, di.values) != 0:
                 raise TracefitInputError(
                     f"direction {di} does not lie in plane {pl} (h u + k v + l w = {_zone(pl.values, di.values)}, must be 0)"
                 )
@@ -746,6 +784,8 @@ def _read_entry(e, lat, where, source) -> list[DeformationSystem]:
             raise TracefitInputError(
                 f"direction {di} does not lie in plane {pl} (h u + k v + l w = {_zone(pl.values, di.values)}, must be 0)"
             )
+        if "eta2" in e:
+            di, shear = _sense_from_eta2(lat, pl, di, e["eta2"], shear)
         if expand:
             return expand_twin(lat, pl.values, di.values, name, shear, source=source)
         p, d = pl.values, di.values
