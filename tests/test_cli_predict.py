@@ -167,3 +167,13 @@ def test_bad_input_one_line_exit_2(run_cli, args, needle):
     assert len(lines) == 1, err
     assert lines[0].startswith("tracefit: error:") and needle.lower() in lines[0].lower()
     assert "Traceback" not in err
+
+
+def test_predict_crss_activation_stress(run_cli):
+    # sigma = CRSS / m for the best system; identity orientation, z = [001]: m = 1/sqrt(6) (textbook).
+    code, out, err = run_cli("predict", "-l", "fcc", "-e", "0,0,0", "--load", "z", "--modes", "slip", "--crss", "{111}=10", "--json")
+    assert code == 0, err
+    s = json.loads(out)["traces"][0]["systems"][0]
+    assert s["activation_stress"] == pytest.approx(10.0 * math.sqrt(6), rel=1e-9)
+    code, out, err = run_cli("predict", "-l", "fcc", "-e", "0,0,0", "--crss", "{111}=10")
+    assert code == 2 and "--load" in err

@@ -294,3 +294,20 @@ def test_parse_load_accepts():
         parse_load("[110]", lat)  # hexagonal needs four indices
     with pytest.raises(TracefitInputError):
         parse_load("z", lat, "shear")
+
+
+def test_hex_setting_x_a1star_is_a_phi2_shift():
+    # x along a1* is the x_a1 basis turned by -30 deg about c (lattice.py), so the same physical
+    # orientation has phi2 larger by 30 deg in the x_a1star setting (derived from the definitions).
+    lat = lattice_preset("hcp", 1.587)
+    star = lat.with_setting("x_a1star")
+    e = SciRot.random(200, random_state=5).as_euler("ZXZ", degrees=True)
+    e_star = e + [0.0, 0.0, 30.0]
+    hkil = np.array([[1, 0, -1, 2], [0, 1, -1, 0], [1, 1, -2, 2], [0, 0, 0, 1]])
+    a = predicted_trace_table(lat, from_euler(e), hkil, indices=True)
+    b = predicted_trace_table(star, from_euler(e_star), hkil, indices=True)
+    assert np.abs(axial_difference(a.angle_deg, b.angle_deg))[a.inclination_deg > 1].max() < 1e-9
+    np.testing.assert_allclose(a.inclination_deg, b.inclination_deg, atol=1e-9)
+    # and mixing the settings up does move traces
+    c = predicted_trace_table(star, from_euler(e), hkil, indices=True)
+    assert np.abs(axial_difference(a.angle_deg, c.angle_deg)).max() > 5.0

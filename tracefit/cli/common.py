@@ -39,6 +39,7 @@ __all__ = [
     "TiltAxisOpt",
     "LoadOpt",
     "CompressionOpt",
+    "CrssOpt",
     "JsonOpt",
     "build_lattice",
     "build_systems",
@@ -46,6 +47,7 @@ __all__ = [
     "build_frame",
     "build_load",
     "parse_modes",
+    "parse_crss",
     "parse_align",
     "lattice_dict",
     "cli_warnings",
@@ -91,6 +93,10 @@ LoadOpt = Annotated[
     typer.Option("--load", help="Load axis: x, y, z (sample, also -x), a sample vector 1,0,0 or a crystal direction [110] / [11-20]."),
 ]
 CompressionOpt = Annotated[bool, typer.Option("--compression", help="The load is compressive (default tension).")]
+CrssOpt = Annotated[
+    Optional[str],
+    typer.Option("--crss", help="Critical resolved shear stresses per family, e.g. '{111}=10' or 'basal <a>=0.5,{10-12}=2' (gives activation stresses with --load)."),
+]
 JsonOpt = Annotated[bool, typer.Option("--json", help="Print one JSON object to stdout instead of a table.")]
 
 
@@ -234,6 +240,29 @@ def build_frame(rotation: float = 0.0, flip_x: bool = False, flip_y: bool = Fals
     from tracefit.frames import FrameSettings
 
     return FrameSettings(rotation_deg=float(rotation), flip_x=bool(flip_x), flip_y=bool(flip_y), tilt_deg=float(tilt), tilt_axis=tilt_axis)
+
+
+def parse_crss(text: str | None, systems=None) -> dict | None:
+    """``"{111}=10,basal <a>=0.5"`` -> {"{111}": 10.0, "basal <a>": 0.5}; keys must name a family, system name or mode."""
+    if text is None or not text.strip():
+        return None
+    out = {}
+    for part in _split_families(text):
+        key, sep, val = part.rpartition("=")
+        key = key.strip()
+        try:
+            v = float(val)
+        except ValueError:
+            v = None
+        if not sep or not key or v is None or not np.isfinite(v) or v <= 0:
+            raise TracefitInputError(f"cannot read --crss entry {part!r}; expected family=positive number, e.g. '{{111}}=10'")
+        out[key] = v
+    if systems is not None:
+        known = {k for s in systems for k in (s.family, s.name, s.mode)}
+        unknown = [k for k in out if k not in known]
+        if unknown:
+            raise TracefitInputError(f"--crss names {unknown[0]!r}, which matches no family here; use one of {', '.join(sorted({s.family for s in systems}))}")
+    return out
 
 
 def build_load(text: str | None, lattice, compression: bool = False):

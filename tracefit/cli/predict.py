@@ -10,6 +10,7 @@ from tracefit.cli.common import (
     AxisAngleOpt,
     CompressionOpt,
     CoverAOpt,
+    CrssOpt,
     EulerOpt,
     FamiliesOpt,
     FlipXOpt,
@@ -32,6 +33,7 @@ from tracefit.cli.common import (
     build_systems,
     cli_warnings,
     lattice_dict,
+    parse_crss,
     print_json,
 )
 
@@ -51,6 +53,7 @@ def predict(
     families: FamiliesOpt = None,
     load: LoadOpt = None,
     compression: CompressionOpt = False,
+    crss: CrssOpt = None,
     frame_rotation: FrameRotationOpt = 0.0,
     flip_x: FlipXOpt = False,
     flip_y: FlipYOpt = False,
@@ -68,7 +71,12 @@ def predict(
         frame = build_frame(frame_rotation, flip_x, flip_y, tilt, tilt_axis)
         systems = build_systems(lat, file_systems, modes, families)
         ld = build_load(load, lat, compression)
-        traces = predict_traces(lat, g, systems, frame=frame, load=ld, near_surface_deg=near_surface)
+        crss_map = parse_crss(crss, systems)
+        if crss_map and ld is None:
+            from tracefit.errors import TracefitInputError
+
+            raise TracefitInputError("--crss gives activation stresses only with a load; add --load (e.g. --load z)")
+        traces = predict_traces(lat, g, systems, frame=frame, load=ld, crss=crss_map, near_surface_deg=near_surface)
     if json_out:
         print_json(
             {
@@ -103,7 +111,10 @@ def _print_table(lat, ori, frame, ld, traces, near_surface) -> None:
     typer.echo("angles in the image frame, degrees counterclockwise from the image x axis (right)")
     with_m = ld is not None
     cols = f"{'angle':>7}  {'incl':>5}  {'plane':<12} {'family':<10} {'modes':<10}"
+    with_sigma = with_m and any(s.activation_stress is not None for t in traces for s in t.systems)
     cols += f" {'best m':>7}  best system" if with_m else "  systems"
+    if with_sigma:
+        cols += "  (activation stress)"
     typer.echo(cols)
     for t in traces:
         plane = format_index(t.plane, "plane")
@@ -111,6 +122,8 @@ def _print_table(lat, ori, frame, ld, traces, near_surface) -> None:
         if with_m:
             best = t.systems[0]
             row += f" {best.schmid_factor:7.3f}  {format_index(best.direction, 'direction')} {best.mode}"
+            if with_sigma and best.activation_stress is not None:
+                row += f"  ({best.activation_stress:.4g})"
         else:
             row += "  " + " ".join(format_index(s.direction, "direction") for s in t.systems)
         if t.near_surface:

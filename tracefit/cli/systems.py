@@ -49,8 +49,7 @@ def systems_command(
 ) -> None:
     """The slip and twin systems of a lattice; with --load, Schmid factors, best first.
 
-    A crystal-direction load ([110]) needs no orientation; a sample-axis load (x, 1,0,0) needs one
-    (--euler and friends).
+    A crystal-direction load ([110]) needs no orientation; a sample-axis load (x, 1,0,0) needs one (--euler, --align, ...).
     """
     from tracefit.traces import system_schmid_factors
 
