@@ -1,0 +1,757 @@
+"""Detect families of parallel straight bands (slip or twin traces) in a micrograph.
+
+Pipeline (one concern per step):
+
+1. Exclude an instrument data bar (:mod:`tracefit.image.databar`) and any user mask.
+2. Work on a reduced copy (at most ``working_size`` px on a side): flatten the
+   background and enhance oriented ridges with a multi-scale Hessian
+   (:mod:`tracefit.image.ridges`), dark and bright bands apart.
+3. Straight-line Hough transform (scikit-image ``hough_line``, 0.5 deg bins) per
+   orientation sector, each on the ridge pixels whose local orientation fits that
+   sector; votes are normalised by the chord length through the analysed region.
+4. Families: the axial angles of the Hough lines are clustered; a family needs
+   ``min_bands`` parallel bands.
+5. Sub-bin refinement: the family angle is refined with a projection (Radon) profile
+   of the ridge pixels in a narrow angular window, then every band is fitted at full
+   resolution on a strip sampled along it (sub-pixel band centres, robust straight-line
+   fit). The family angle is the weighted mean of its bands, with a standard
+   uncertainty from their fit errors and scatter.
+
+Angles are image-frame, axial, degrees ccw from +x (:mod:`tracefit.angles`); pixel
+coordinates are (column, row), rows down.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import cv2
+import numpy as np
+from scipy import ndimage
+from skimage.transform import hough_line
+
+from tracefit.angles import angle_to_pixel_direction, axial_difference, fold_axial, pixel_direction_angle, pixel_endpoints_angle
+from tracefit.errors import TracefitInputError
+from tracefit.image.databar import find_databar
+from tracefit.image.ridges import RidgePixels, flatten_background, ridge_pixels
+
+__all__ = ["BandLine", "BandFamily", "DetectionResult", "detect_bands", "detect_grains"]
+
+
+# --------------------------------------------------------------------------- results
+
+
+@dataclass
+class BandLine:
+    """One detected band: its fitted centre line between two pixel endpoints.
+
+    Attributes
+    ----------
+    col0, row0, col1, row1 : float
+        Endpoints in pixels (column right, row down) of the part where the band was seen.
+    angle_deg : float
+        Image-frame axial angle of this band's fitted line, degrees.
+    angle_sigma_deg : float
+        Standard uncertainty of that angle, degrees.
+    snr : float
+        Median band contrast-to-noise ratio along the line.
+    """
+
+    col0: float
+    row0: float
+    col1: float
+    row1: float
+    angle_deg: float
+    angle_sigma_deg: float = float("nan")
+    snr: float = float("nan")
+
+    @property
+    def length_px(self) -> float:
+        return float(math.hypot(self.col1 - self.col0, self.row1 - self.row0))
+
+    def to_dict(self) -> dict:
+        return {
+            "col0": round(self.col0, 2), "row0": round(self.row0, 2),
+            "col1": round(self.col1, 2), "row1": round(self.row1, 2),
+            "angle_deg": round(self.angle_deg, 4),
+        }
+
+
+@dataclass
+class BandFamily:
+    """A family of parallel bands.
+
+    Attributes
+    ----------
+    angle_deg : float
+        Image-frame axial angle, degrees, 0 <= angle < 180, ccw from +x.
+    angle_sigma_deg : float
+        Standard uncertainty of the angle, degrees.
+    n_bands : int
+        Number of bands fitted.
+    spacing_px : float
+        Mean perpendicular distance between neighbouring bands, pixels (nan if < 2 bands).
+    spacing_sigma_px : float
+        Standard deviation of those distances, pixels.
+    spacing_um : float or None
+        ``spacing_px`` times the pixel size, micrometres, when the pixel size is known.
+    strength : float
+        Sum over bands of (seen length / image diagonal) x band contrast-to-noise ratio.
+    polarity : str
+        "dark" or "bright" bands.
+    lines : list of BandLine
+    """
+
+    angle_deg: float
+    angle_sigma_deg: float
+    n_bands: int
+    spacing_px: float
+    spacing_sigma_px: float
+    spacing_um: float | None
+    strength: float
+    polarity: str = "dark"
+    lines: list[BandLine] = field(default_factory=list)
+
+    def to_dict(self, with_lines: bool = False) -> dict:
+        d = {
+            "angle_deg": round(float(self.angle_deg), 4),
+            "angle_sigma_deg": round(float(self.angle_sigma_deg), 4),
+            "n_bands": int(self.n_bands),
+            "spacing_px": _num(self.spacing_px, 3),
+            "spacing_um": None if self.spacing_um is None or not math.isfinite(self.spacing_um) else round(float(self.spacing_um), 4),
+            "strength": round(float(self.strength), 3),
+        }
+        if with_lines:
+            d["spacing_sigma_px"] = _num(self.spacing_sigma_px, 3)
+            d["polarity"] = self.polarity
+            d["lines"] = [ln.to_dict() for ln in self.lines]
+        return d
+
+
+def _num(x, nd):
+    return None if x is None or not math.isfinite(x) else round(float(x), nd)
+
+
+@dataclass
+class DetectionResult:
+    """Result of :func:`detect_bands` for one image (or one grain of it).
+
+    Attributes
+    ----------
+    path : str or None
+        Source file, when known.
+    width, height : int
+        Image size, pixels.
+    excluded : list of dict
+        Regions left out: ``{"kind": "databar" | "mask", "bbox": [c0, r0, c1, r1], "note": str}``.
+    families : list of BandFamily
+        Strongest first; empty when no bands were found.
+    notes : list of str
+        What was done and found, for the user.
+    pixel_size_um : float or None
+    grain : int or None
+        Grain id when the detection ran on one grain of a label image.
+    """
+
+    path: str | None
+    width: int
+    height: int
+    excluded: list[dict] = field(default_factory=list)
+    families: list[BandFamily] = field(default_factory=list)
+    notes: list[str] = field(default_factory=list)
+    pixel_size_um: float | None = None
+    grain: int | None = None
+
+    def to_dict(self, with_lines: bool = False) -> dict:
+        """The JSON object of ``tracefit detect --json`` (band lines only if ``with_lines``)."""
+        return {
+            "image": {"path": self.path, "width": int(self.width), "height": int(self.height), "excluded": list(self.excluded)},
+            "families": [f.to_dict(with_lines=with_lines) for f in self.families],
+        }
+
+
+# --------------------------------------------------------------------------- helpers
+
+_THETA_STEP_DEG = 0.5
+_SECTOR_DEG = 15.0
+_SECTOR_TOL_DEG = 7.0
+
+
+def _hough_theta():
+    """skimage hough_line angles (normal angle, radians, [-90, 90) deg) and their line angles."""
+    theta = np.deg2rad(np.arange(-90.0, 90.0, _THETA_STEP_DEG))
+    # the line direction is perpendicular to the normal (cos t, sin t) in (col, row)
+    alpha = pixel_direction_angle(-np.sin(theta), np.cos(theta))
+    return theta, np.asarray(alpha)
+
+
+def _chord_lengths(mask_w, theta):
+    """Length (px) of every Hough chord (rho, theta) through the analysed region."""
+    h, w = mask_w.shape
+    diag = int(np.ceil(np.hypot(h, w)))
+    q = max(1, int(np.ceil(max(h, w) / 256)))
+    small = cv2.resize(mask_w.astype(np.float32), (max(2, w // q), max(2, h // q)), interpolation=cv2.INTER_AREA) > 0.5
+    acc_s, _, dists_s = hough_line(small, theta=theta)
+    rho = np.arange(-diag, diag + 1, dtype=np.float64)
+    idx = np.clip(np.rint(rho / q - dists_s[0]).astype(int), 0, len(dists_s) - 1)
+    return acc_s[idx].astype(np.float32) * q, rho
+
+
+def _line_candidates(rp: RidgePixels, mask_w, theta, alpha, chord, v_min, c_min):
+    """Hough peaks per orientation sector: arrays (alpha_deg, theta, rho, votes, coverage)."""
+    h, w = rp.shape
+    out = []
+    if len(rp) == 0:
+        return np.zeros((0, 5))
+    n_sec = int(round(180.0 / _SECTOR_DEG))
+    sector_of_theta = np.floor(fold_axial(alpha + _SECTOR_DEG / 2) / _SECTOR_DEG).astype(int) % n_sec
+    canvas = np.zeros((h, w), np.uint8)
+    ci, ri = rp.col.astype(np.intp), rp.row.astype(np.intp)
+    for k in range(n_sec):
+        centre = k * _SECTOR_DEG
+        sel_t = np.nonzero(sector_of_theta == k)[0]
+        near = np.abs(axial_difference(rp.angle_deg, centre)) <= _SECTOR_DEG / 2 + _SECTOR_TOL_DEG
+        if near.sum() < v_min or len(sel_t) == 0:
+            continue
+        canvas[ri[near], ci[near]] = 1
+        acc, _, dists = hough_line(canvas, theta=theta[sel_t])
+        canvas[ri[near], ci[near]] = 0
+        acc = acc.astype(np.float32)
+        acc3 = acc.copy()
+        acc3[1:] += acc[:-1]
+        acc3[:-1] += acc[1:]
+        ln = chord[:, sel_t]
+        cov = acc3 / np.maximum(ln, 0.25 * min(h, w))
+        peak = acc3 == ndimage.maximum_filter(acc3, size=(7, 5), mode="constant")
+        ok = peak & (acc3 >= v_min) & (cov >= c_min)
+        ii, jj = np.nonzero(ok)
+        for i, j in zip(ii, jj):
+            out.append((alpha[sel_t[j]], theta[sel_t[j]], dists[i], acc3[i, j], cov[i, j]))
+    return np.array(out, float).reshape(-1, 5)
+
+
+def _cluster_angles(alpha, votes, tol_deg=1.5):
+    """Greedy axial clustering: strongest line first, members within ``tol_deg``."""
+    order = np.argsort(-votes)
+    label = np.full(len(alpha), -1)
+    groups = []
+    for i in order:
+        if label[i] >= 0:
+            continue
+        members = np.nonzero((label < 0) & (np.abs(axial_difference(alpha, alpha[i])) <= tol_deg))[0]
+        label[members] = len(groups)
+        groups.append(members)
+    return groups
+
+
+def _normal(alpha_deg):
+    dc, dr = angle_to_pixel_direction(alpha_deg)
+    return np.array([dc, dr]), np.array([-dr, dc])
+
+
+def _radon_refine(x, y, wgt, alpha0, half=1.0, step=0.05, bin_px=0.5):
+    """Angle maximising the sharpness (sum of squares) of the projection profile."""
+
+    def score(a):
+        _, n = _normal(a)
+        s = x * n[0] + y * n[1]
+        idx = np.floor((s - s.min()) / bin_px).astype(np.intp)
+        hist = np.bincount(idx, weights=wgt)
+        return float(np.dot(hist, hist))
+
+    best = alpha0
+    for hw, st in ((half, step), (3 * step, step / 5)):
+        grid = best + np.arange(-hw, hw + st / 2, st)
+        sc = np.array([score(a) for a in grid])
+        k = int(np.argmax(sc))
+        best = float(grid[k])
+        if 0 < k < len(grid) - 1:
+            den = sc[k - 1] - 2 * sc[k] + sc[k + 1]
+            if den < 0:
+                best += float(0.5 * st * (sc[k - 1] - sc[k + 1]) / den)
+    return float(fold_axial(best))
+
+
+def _clip_to_box(p, d, w, h):
+    """Segment of the line p + t d inside [0, w-1] x [0, h-1]; (t0, t1) or None."""
+    t_lo, t_hi = -np.inf, np.inf
+    for pp, dd, hi in ((p[0], d[0], w - 1.0), (p[1], d[1], h - 1.0)):
+        if abs(dd) < 1e-12:
+            if pp < 0 or pp > hi:
+                return None
+            continue
+        a, b = (0.0 - pp) / dd, (hi - pp) / dd
+        if a > b:
+            a, b = b, a
+        t_lo, t_hi = max(t_lo, a), min(t_hi, b)
+    if t_hi - t_lo < 2:
+        return None
+    return t_lo, t_hi
+
+
+def _fit_band(img, valid, p, d, half_width, polarity, max_samples=6000):
+    """Fit one band's centre line at full resolution on a strip sampled along it.
+
+    Returns a dict (point, direction, angle, sigma, endpoints, snr, seen length) or None.
+    """
+    h, w = img.shape
+    n = np.array([-d[1], d[0]])
+    seg = _clip_to_box(p, d, w, h)
+    if seg is None:
+        return None
+    t0, t1 = seg
+    length = t1 - t0
+    if length < 20:
+        return None
+    nt = int(min(max_samples, math.ceil(length) + 1))
+    t = np.linspace(t0, t1, nt).astype(np.float32)
+    hw = int(half_width)
+    u = np.arange(-hw, hw + 1, dtype=np.float32)
+    mapx = (p[0] + t[:, None] * d[0] + u[None, :] * n[0]).astype(np.float32)
+    mapy = (p[1] + t[:, None] * d[1] + u[None, :] * n[1]).astype(np.float32)
+    strip = cv2.remap(img, mapx, mapy, cv2.INTER_LINEAR, borderMode=cv2.BORDER_REPLICATE)
+    inside = (mapx.min(1) >= 0) & (mapx.max(1) <= w - 1) & (mapy.min(1) >= 0) & (mapy.max(1) <= h - 1)
+    if valid is not None:
+        vm = cv2.remap(valid, mapx, mapy, cv2.INTER_NEAREST, borderMode=cv2.BORDER_CONSTANT, borderValue=0)
+        inside &= vm.min(1) > 0
+    q = polarity * (strip - np.median(strip, axis=1, keepdims=True))
+    step = float(t[1] - t[0]) if nt > 1 else 1.0
+    q = cv2.GaussianBlur(q, (0, 0), sigmaX=0.8, sigmaY=max(0.5, 2.0 / step))
+    noise = 1.4826 * float(np.median(np.abs(q - np.median(q)))) + 1e-12
+    k = np.argmax(q[:, 1:-1], axis=1) + 1
+    rows = np.arange(nt)
+    qm, q0, qp = q[rows, k - 1], q[rows, k], q[rows, k + 1]
+    den = qm - 2 * q0 + qp
+    frac = np.where(den < 0, 0.5 * (qm - qp) / np.where(den < 0, den, -1.0), 0.0)
+    upk = u[k] + np.clip(frac, -0.5, 0.5)
+    snr = q0 / noise
+    good = inside & (snr >= 3.0) & (k >= 2) & (k <= 2 * hw - 2)
+    if good.sum() < max(12, 0.08 * nt):
+        return None
+    tg, ug, wg = t[good].astype(np.float64), upk[good].astype(np.float64), np.minimum(snr[good], 30.0).astype(np.float64) ** 2
+    keep = np.ones(len(tg), bool)
+    for _ in range(4):
+        if keep.sum() < 10:
+            return None
+        a_, b_ = _wfit(tg[keep], ug[keep], wg[keep])
+        res = ug - (a_ + b_ * tg)
+        mad = 1.4826 * float(np.median(np.abs(res[keep])))
+        new = np.abs(res) <= max(3.0 * mad, 0.35)
+        if np.array_equal(new, keep):
+            break
+        keep = new
+    if keep.sum() < max(10, 0.06 * nt):
+        return None
+    a_, b_ = _wfit(tg[keep], ug[keep], wg[keep])
+    res = ug[keep] - (a_ + b_ * tg[keep])
+    tk = tg[keep]
+    # samples are correlated over about the along-band smoothing length
+    corr = max(1.0, 2.5 * 2.0 / step)
+    s_res = float(np.sqrt(np.average(res**2, weights=wg[keep])))
+    sxx = float(np.sum((tk - tk.mean()) ** 2))
+    sig_b = s_res * math.sqrt(corr) / math.sqrt(max(sxx, 1e-9))
+    d_new = d + b_ * n
+    d_new = d_new / np.hypot(*d_new)
+    p_new = p + a_ * n
+    # endpoints of the seen part (projected on the new line)
+    pa = p_new + (tk.min() * (d + b_ * n)) @ np.eye(2)
+    pb = p_new + (tk.max() * (d + b_ * n)) @ np.eye(2)
+    return {
+        "point": p_new,
+        "direction": d_new,
+        "angle": float(pixel_direction_angle(d_new[0], d_new[1])),
+        "sigma": math.degrees(math.atan(sig_b)) / (1.0 + b_ * b_) + 1e-4,
+        "ends": (pa, pb),
+        "snr": float(np.median(snr[good][keep])),
+        "seen": float(tk.max() - tk.min()),
+        "rms": s_res,
+        "n": int(keep.sum()),
+    }
+
+
+def _wfit(t, u, w):
+    sw = w.sum()
+    tm, um = (w * t).sum() / sw, (w * u).sum() / sw
+    stt = (w * (t - tm) ** 2).sum()
+    b = (w * (t - tm) * (u - um)).sum() / max(stt, 1e-12)
+    return um - b * tm, b
+
+
+# --------------------------------------------------------------------------- main entry
+
+
+def _prepare(image, mask, labels, grain):
+    img = np.asarray(image)
+    if img.ndim == 3 and img.shape[2] in (3, 4):
+        from tracefit.image.io import to_gray
+
+        img = to_gray(img)
+    if img.ndim != 2:
+        raise TracefitInputError(f"image has shape {img.shape}; expected a 2-D grey image (or RGB(A))")
+    if min(img.shape) < 16:
+        raise TracefitInputError(f"image is {img.shape[1]} x {img.shape[0]} pixels; expected at least 16 x 16")
+    img = img.astype(np.float32, copy=False)
+    if not np.isfinite(img[:: max(1, img.shape[0] // 512), :: max(1, img.shape[1] // 512)]).all() or not np.isfinite(img).all():
+        raise TracefitInputError("image contains NaN or infinite values; expected finite grey levels")
+    lo, hi = float(img.min()), float(img.max())
+    if hi - lo <= 0:
+        raise TracefitInputError(f"image is constant (every pixel = {lo:g}); expected a micrograph with contrast")
+    m = None
+    if mask is not None:
+        m = np.asarray(mask)
+        if m.shape != img.shape:
+            raise TracefitInputError(
+                f"mask is {m.shape[-1]} x {m.shape[0]} pixels but the image is {img.shape[1]} x {img.shape[0]}; expected the same size"
+            )
+        m = m.astype(bool)
+    if labels is not None:
+        lab = np.asarray(labels)
+        if lab.shape != img.shape:
+            raise TracefitInputError(
+                f"label image is {lab.shape[-1]} x {lab.shape[0]} pixels but the image is {img.shape[1]} x {img.shape[0]}; expected the same size"
+            )
+        if grain is not None:
+            g = lab == grain
+            if not g.any():
+                raise TracefitInputError(f"grain id {grain} does not occur in the label image")
+            m = g if m is None else (m & g)
+    return img, m
+
+
+def detect_bands(
+    image,
+    mask=None,
+    pixel_size_um: float | None = None,
+    labels=None,
+    grain: int | None = None,
+    *,
+    path: str | None = None,
+    find_bar: bool = True,
+    min_bands: int = 3,
+    max_families: int = 8,
+    working_size: int = 2048,
+    scales=(1.0, 1.7, 2.8, 4.5),
+    min_coverage: float = 0.3,
+    notes: list[str] | None = None,
+) -> DetectionResult:
+    """Detect families of parallel straight bands.
+
+    Parameters
+    ----------
+    image : ndarray, (H, W) or (H, W, 3|4)
+        Grey (any units) or RGB(A) image.
+    mask : ndarray of bool, optional
+        Pixels to analyse (True), same size as the image.
+    pixel_size_um : float, optional
+        Pixel size, micrometres per pixel; gives spacings in um.
+    labels : ndarray of int, optional
+        Grain label image of the image's size; with ``grain`` only that grain's pixels
+        are analysed (see :func:`detect_grains` to run every grain).
+    grain : int, optional
+        Grain id in ``labels``.
+    path : str, optional
+        Source file name, carried into the result.
+    find_bar : bool
+        Look for an instrument data bar and exclude it.
+    min_bands : int
+        Fewest parallel bands that make a family (isolated scratches do not).
+    max_families : int
+        Most families reported.
+    working_size : int
+        Longest side of the reduced copy used for ridge enhancement and Hough, px.
+    scales : sequence of float
+        Hessian scales at working resolution, px.
+    min_coverage : float
+        Least fraction of a Hough chord that must lie on ridge pixels.
+    notes : list of str, optional
+        Notes to start the result with (e.g. from :func:`tracefit.image.io.read_image`).
+
+    Returns
+    -------
+    DetectionResult
+        Families strongest first; an empty list (with a note) when there are no bands.
+
+    Raises
+    ------
+    TracefitInputError
+        Not a 2-D image, constant or non-finite image, mask / labels of the wrong size.
+    """
+    img, m = _prepare(image, mask, labels, grain)
+    h, w = img.shape
+    res = DetectionResult(path=path, width=w, height=h, notes=list(notes or []), pixel_size_um=pixel_size_um, grain=grain)
+    if pixel_size_um is not None and not (pixel_size_um > 0 and math.isfinite(pixel_size_um)):
+        raise TracefitInputError(f"pixel size {pixel_size_um!r} um; expected a positive number")
+    if find_bar:
+        bars = find_databar(img)
+        for b in bars:
+            res.excluded.append(b)
+            res.notes.append(b["note"])
+            c0, r0, c1, r1 = b["bbox"]
+            if m is None:
+                m = np.ones((h, w), bool)
+            m[r0:r1, c0:c1] = False
+    if m is not None:
+        if not m.any():
+            res.notes.append("no pixels left to analyse after masking; no bands reported")
+            return res
+        if mask is not None:
+            res.excluded.append({"kind": "mask", "bbox": [0, 0, w, h], "note": f"user mask keeps {100 * m.mean():.1f} % of the pixels"})
+
+    # ---- reduced working copy
+    f = max(1, int(math.ceil(max(h, w) / working_size)))
+    if f > 1:
+        wk = cv2.resize(img, (w // f, h // f), interpolation=cv2.INTER_AREA)
+        mw = None if m is None else cv2.resize(m.astype(np.uint8) * 255, (w // f, h // f), interpolation=cv2.INTER_AREA) >= 250
+        res.notes.append(f"bands located on a {w // f} x {h // f} copy (1/{f}), fitted at full resolution")
+    else:
+        wk, mw = img, m
+    hw_, ww_ = wk.shape
+    bg_sigma = max(24.0, min(hw_, ww_) / 12.0)
+    flat = flatten_background(wk, mw, bg_sigma)
+    erode_r = int(math.ceil(2.5 * max(scales))) + 1
+    if mw is not None:
+        ker = cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (2 * erode_r + 1, 2 * erode_r + 1))
+        mw_in = cv2.erode(mw.astype(np.uint8), ker, borderType=cv2.BORDER_CONSTANT, borderValue=1) > 0
+    else:
+        mw_in = np.ones((hw_, ww_), bool)
+    if mw_in.sum() < 400:
+        res.notes.append("analysed region too small for band detection; no bands reported")
+        return res
+    dark, bright = ridge_pixels(flat, mw_in, scales=scales)
+    del flat
+
+    theta, alpha = _hough_theta()
+    chord, _ = _chord_lengths(mw_in, theta)
+    v_min = max(20.0, 0.06 * min(hw_, ww_))
+
+    # ---- candidate families per polarity
+    cands = []
+    for rp in (dark, bright):
+        lines = _line_candidates(rp, mw_in, theta, alpha, chord, v_min, min_coverage)
+        if len(lines) == 0:
+            continue
+        for grp in _cluster_angles(lines[:, 0], lines[:, 3]):
+            if len(grp) < min_bands:
+                continue
+            cands.append((rp, lines[grp]))
+    # strongest candidates first; opposite-polarity echoes (the gaps between bands) are
+    # resolved after fitting, where they fail the sharpness test
+    cands.sort(key=lambda c: -c[1][:, 3].sum())
+    kept = cands
+    valid_full = None
+    if m is not None:
+        valid_full = m.astype(np.uint8)
+    fams = []
+    diag_w = math.hypot(hw_, ww_)
+    for rp, ln in kept[: 4 * max_families]:
+        fam = _build_family(img, valid_full, rp, ln, f, pixel_size_um, min_bands, diag_w)
+        if fam is not None:
+            fams.append(fam)
+    # families that collapsed onto the same angle after refinement
+    fams.sort(key=lambda fm: -fm.strength)
+    final: list[BandFamily] = []
+    for fm in fams:
+        if any(abs(axial_difference(fm.angle_deg, g.angle_deg)) < 2.0 for g in final):
+            continue
+        final.append(fm)
+    res.families = final[:max_families]
+    if not res.families:
+        res.notes.append("no band families found")
+    else:
+        res.notes.append(
+            f"{len(res.families)} band famil{'y' if len(res.families) == 1 else 'ies'} found: "
+            + ", ".join(f"{fm.angle_deg:.2f} deg ({fm.n_bands} bands)" for fm in res.families)
+        )
+    return res
+
+
+def _vote_mean_angle(lines):
+    from tracefit.angles import axial_mean
+
+    return float(axial_mean(lines[:, 0], lines[:, 3]))
+
+
+def _build_family(img, valid_full, rp: RidgePixels, lines, f, pixel_size_um, min_bands, diag_w, max_rms=1.0):
+    """Refine one candidate family; None when it does not hold up as >= min_bands bands."""
+    a0 = _vote_mean_angle(lines)
+    near = np.abs(axial_difference(rp.angle_deg, a0)) <= 8.0
+    if near.sum() < 50:
+        return None
+    x, y, wt = rp.col[near].astype(np.float64), rp.row[near].astype(np.float64), rp.strength[near].astype(np.float64)
+    a1 = _radon_refine(x, y, wt, a0)
+    d, n = _normal(a1)
+    cx, cy = float(np.average(x, weights=wt)), float(np.average(y, weights=wt))
+    # profile across the bands at the refined angle, to centre the Hough lines
+    s_pix = x * n[0] + y * n[1]
+    s0 = s_pix.min()
+    prof = np.bincount(np.floor((s_pix - s0) / 0.5).astype(np.intp), weights=wt)
+    prof = ndimage.gaussian_filter1d(prof, 1.0)
+    pos = []
+    for a_l, th, rho, votes, cov in lines:
+        nt = np.array([math.cos(th), math.sin(th)])
+        dt = np.array([-math.sin(th), math.cos(th)])
+        p = rho * nt
+        p = p + ((np.array([cx, cy]) - p) @ dt) * dt
+        s = float(p @ n)
+        i = int((s - s0) / 0.5)
+        lo, hi = max(0, i - 4), min(len(prof), i + 5)
+        if hi > lo:
+            s = s0 + 0.5 * (lo + int(np.argmax(prof[lo:hi])) + 0.5)
+        pos.append((s, votes))
+    pos.sort()
+    sig_med = float(np.median(rp.sigma[near]))
+    merge = max(2.5, 2.0 * sig_med)
+    uniq: list[list[float]] = []
+    for s, v in pos:
+        if uniq and s - uniq[-1][0] < merge:
+            if v > uniq[-1][1]:
+                uniq[-1] = [s, v]
+            continue
+        uniq.append([s, v])
+    if len(uniq) < min_bands:
+        return None
+    ss = np.array([u_[0] for u_ in uniq])
+    gaps = np.diff(ss)
+    spacing_w = float(np.median(gaps)) if len(gaps) else 50.0
+    # ---- full-resolution fits
+    sig_full = sig_med * f
+    half = int(max(4, min(math.ceil(3.5 * sig_full + 2), math.floor(0.45 * spacing_w * f))))
+    cen = np.array([cx, cy]) @ d
+    fits = []
+    order = np.argsort([-u_[1] for u_ in uniq])
+    tried = 0
+    for s in ss[order]:
+        tried += 1
+        if tried == 8 and sum(ft["rms"] <= max_rms for ft in fits) < 3:
+            return None  # the strongest lines are not sharp bands: not a family
+        pw = s * n + cen * d  # working coordinates
+        pf = (pw + 0.5) * f - 0.5
+        fit = _fit_band(img, valid_full, pf, d, half, rp.polarity)
+        if fit is not None:
+            fit2 = _fit_band(img, valid_full, fit["point"], fit["direction"], half, rp.polarity)
+            fit = fit2 or fit
+        if fit is not None:
+            fits.append(fit)
+    # a broad plateau (the gap between bands of another polarity) gives a wandering
+    # centre; a band gives a sharp one
+    fits = [ft for ft in fits if ft["rms"] <= max_rms]
+    # Hough lines that converged onto the same band: keep the best fit
+    fits.sort(key=lambda z: float(z["point"] @ n))
+    dedup = []
+    for ft in fits:
+        if dedup and abs(float((ft["point"] - dedup[-1]["point"]) @ n)) < max(2.0, 1.2 * sig_full):
+            if ft["n"] * ft["snr"] > dedup[-1]["n"] * dedup[-1]["snr"]:
+                dedup[-1] = ft
+            continue
+        dedup.append(ft)
+    fits = dedup
+    if len(fits) < min_bands:
+        return None
+    ang = np.array([ft["angle"] for ft in fits])
+    sig = np.array([ft["sigma"] for ft in fits])
+    ref = float(np.median(ang)) if np.ptp(ang) < 90 else a1
+    dev = np.asarray(axial_difference(ang, ref))
+    spread = 1.4826 * float(np.median(np.abs(dev)))
+    ok = np.abs(dev) <= np.maximum(4.0 * np.hypot(sig, spread), 0.05)
+    if ok.sum() < min_bands:
+        return None
+    fits = [ft for ft, o in zip(fits, ok) if o]
+    dev, sig = dev[ok], sig[ok]
+    wgt = 1.0 / sig**2
+    mean_dev = float(np.sum(wgt * dev) / np.sum(wgt))
+    angle = float(fold_axial(ref + mean_dev))
+    nb = len(fits)
+    chi2 = float(np.sum(wgt * (dev - mean_dev) ** 2)) / max(nb - 1, 1)
+    angle_sigma = math.sqrt(1.0 / float(np.sum(wgt))) * math.sqrt(max(1.0, chi2))
+    d_f, n_f = _normal(angle)
+    offs = np.sort(np.array([ft["point"] @ n_f for ft in fits]))
+    gaps = np.diff(offs)
+    spacing = float(np.mean(gaps)) if len(gaps) else float("nan")
+    spacing_sd = float(np.std(gaps, ddof=1)) if len(gaps) > 1 else float("nan")
+    diag_full = diag_w * f
+    strength = float(sum(ft["seen"] / diag_full * ft["snr"] for ft in fits))
+    band_lines = []
+    for ft in sorted(fits, key=lambda z: z["point"] @ n_f):
+        pa, pb = ft["ends"]
+        band_lines.append(BandLine(float(pa[0]), float(pa[1]), float(pb[0]), float(pb[1]), ft["angle"], ft["sigma"], ft["snr"]))
+    return BandFamily(
+        angle_deg=angle,
+        angle_sigma_deg=angle_sigma,
+        n_bands=nb,
+        spacing_px=spacing,
+        spacing_sigma_px=spacing_sd,
+        spacing_um=None if pixel_size_um is None or not math.isfinite(spacing) else spacing * pixel_size_um,
+        strength=strength,
+        polarity="dark" if rp.polarity < 0 else "bright",
+        lines=band_lines,
+    )
+
+
+def detect_grains(image, labels, mask=None, pixel_size_um: float | None = None, *, path: str | None = None,
+                  min_pixels: int = 2500, grains=None, **kwargs) -> dict[int, DetectionResult]:
+    """Run :func:`detect_bands` on every grain of a label image, each on its own pixels.
+
+    Parameters
+    ----------
+    image : ndarray, (H, W)
+    labels : ndarray of int, (H, W)
+        Grain ids; every id is a grain (pass ``grains`` to choose some).
+    mask : ndarray of bool, optional
+        Pixels to analyse, combined with each grain.
+    pixel_size_um : float, optional
+    min_pixels : int
+        Grains with fewer analysable pixels are skipped (with a note in their result).
+    grains : iterable of int, optional
+        Grain ids to analyse (default: all).
+    **kwargs
+        Passed to :func:`detect_bands`.
+
+    Returns
+    -------
+    dict of int -> DetectionResult
+        Band lines are in the coordinates of the whole image.
+    """
+    img, m = _prepare(image, mask, labels, None)
+    lab = np.asarray(labels)
+    h, w = img.shape
+    bars = find_databar(img) if kwargs.pop("find_bar", True) else []
+    base = np.ones((h, w), bool) if m is None else m.copy()
+    for b in bars:
+        c0, r0, c1, r1 = b["bbox"]
+        base[r0:r1, c0:c1] = False
+    ids = [int(g) for g in (np.unique(lab) if grains is None else grains)]
+    out: dict[int, DetectionResult] = {}
+    objs = ndimage.find_objects(lab.astype(np.int64) + 1) if lab.min() >= -1 else None
+    for gid in ids:
+        if objs is not None and 0 <= gid + 1 <= len(objs) and objs[gid] is not None:
+            sl = objs[gid]
+        else:
+            rr, cc = np.nonzero(lab == gid)
+            if len(rr) == 0:
+                raise TracefitInputError(f"grain id {gid} does not occur in the label image")
+            sl = (slice(rr.min(), rr.max() + 1), slice(cc.min(), cc.max() + 1))
+        r0, r1 = max(0, sl[0].start - 8), min(h, sl[0].stop + 8)
+        c0, c1 = max(0, sl[1].start - 8), min(w, sl[1].stop + 8)
+        gm = (lab[r0:r1, c0:c1] == gid) & base[r0:r1, c0:c1]
+        res_g = DetectionResult(path=path, width=w, height=h, excluded=list(bars), pixel_size_um=pixel_size_um, grain=gid)
+        if gm.sum() < min_pixels or min(gm.shape) < 16:
+            res_g.notes.append(f"grain {gid}: {int(gm.sum())} pixels, too few to analyse (< {min_pixels})")
+            out[gid] = res_g
+            continue
+        crop = img[r0:r1, c0:c1]
+        if float(crop[gm].max() - crop[gm].min()) <= 0:
+            res_g.notes.append(f"grain {gid}: constant grey level, no bands")
+            out[gid] = res_g
+            continue
+        r = detect_bands(crop, mask=gm, pixel_size_um=pixel_size_um, find_bar=False, **kwargs)
+        for fam in r.families:
+            for ln in fam.lines:
+                ln.col0 += c0
+                ln.col1 += c0
+                ln.row0 += r0
+                ln.row1 += r0
+        res_g.families = r.families
+        res_g.notes.extend(f"grain {gid}: {t}" for t in r.notes)
+        out[gid] = res_g
+    return out

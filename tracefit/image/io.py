@@ -1,0 +1,196 @@
+"""Read micrographs (PNG, TIFF, JPEG, BMP) into a float32 grey array.
+
+:func:`read_image` accepts 8- and 16-bit, grayscale, RGB and RGBA files, and multi-page
+TIFF (first page, with a note). 16-bit samples are kept at full precision (float32
+holds every integer up to 2**24 exactly); colour becomes luminance with the Rec. 601
+luma weights (0.299 R + 0.587 G + 0.114 B; common practice, ITU-R BT.601). Every bad
+input raises :class:`tracefit.errors.TracefitInputError` with what was wrong.
+"""
+
+from __future__ import annotations
+
+import os
+from pathlib import Path
+
+import cv2
+import numpy as np
+
+from tracefit.errors import TracefitInputError
+
+__all__ = ["read_image", "read_mask", "to_gray", "IMAGE_SUFFIXES"]
+
+IMAGE_SUFFIXES = (".png", ".tif", ".tiff", ".jpg", ".jpeg", ".bmp")
+_LUMA = np.array([0.299, 0.587, 0.114], np.float32)  # R, G, B (ITU-R BT.601)
+
+
+def _kind_from_magic(head: bytes) -> str | None:
+    if head.startswith(b"\x89PNG\r\n\x1a\n"):
+        return "png"
+    if head[:4] in (b"II*\x00", b"MM\x00*", b"II+\x00", b"MM\x00+"):
+        return "tiff"
+    if head.startswith(b"\xff\xd8\xff"):
+        return "jpeg"
+    if head.startswith(b"BM"):
+        return "bmp"
+    return None
+
+
+def _check_complete(data: bytes, kind: str, path: str) -> None:
+    """Raise when the file is visibly truncated (decoders often return a partial image)."""
+    if kind == "png":
+        if b"IEND" not in data[-16:]:
+            raise TracefitInputError(f"{path}: the PNG file is truncated (no IEND chunk); expected a complete PNG image")
+    elif kind == "jpeg":
+        if not data.rstrip(b"\x00").endswith(b"\xff\xd9"):
+            raise TracefitInputError(f"{path}: the JPEG file is truncated (no end-of-image marker); expected a complete JPEG image")
+    elif kind == "bmp":
+        if len(data) >= 6:
+            declared = int.from_bytes(data[2:6], "little")
+            if declared and len(data) < declared:
+                raise TracefitInputError(
+                    f"{path}: the BMP file is truncated ({len(data)} of {declared} bytes); expected a complete BMP image"
+                )
+
+
+def to_gray(arr: np.ndarray, notes: list[str] | None = None, channels_last: bool = True) -> np.ndarray:
+    """Convert a decoded image array (gray, RGB or RGBA, channels last, RGB order) to float32 grey.
+
+    Parameters
+    ----------
+    arr : ndarray
+        (H, W), (H, W, 1), (H, W, 3) or (H, W, 4); any integer or float dtype.
+    notes : list of str, optional
+        Conversion notes are appended here.
+
+    Returns
+    -------
+    ndarray of float32, (H, W)
+        Grey values in the input's units (0..255 for 8-bit, 0..65535 for 16-bit).
+    """
+    notes = notes if notes is not None else []
+    a = np.asarray(arr)
+    if a.ndim == 3 and a.shape[2] == 1:
+        a = a[..., 0]
+    if a.ndim == 2:
+        return a.astype(np.float32, copy=False)
+    if a.ndim != 3 or a.shape[2] not in (3, 4):
+        raise TracefitInputError(f"unsupported image layout {a.shape}; expected grey, RGB or RGBA")
+    if a.shape[2] == 4:
+        notes.append("alpha channel ignored")
+    rgb = a[..., :3]
+    if np.array_equal(rgb[..., 0], rgb[..., 1]) and np.array_equal(rgb[..., 1], rgb[..., 2]):
+        notes.append("RGB image with equal channels read as grey")
+        return rgb[..., 0].astype(np.float32)
+    notes.append("RGB converted to luminance (0.299 R + 0.587 G + 0.114 B)")
+    out = np.zeros(a.shape[:2], np.float32)
+    for k in range(3):  # channel by channel: no full-size float64 temporaries
+        out += rgb[..., k].astype(np.float32) * _LUMA[k]
+    return out
+
+
+def _read_tiff(path: str, notes: list[str]) -> np.ndarray:
+    import tifffile
+
+    try:
+        with tifffile.TiffFile(path) as tf:
+            n_pages = len(tf.pages)
+            if n_pages == 0:
+                raise TracefitInputError(f"{path}: the TIFF file has no pages; expected at least one image")
+            page = tf.pages[0]
+            arr = page.asarray()
+            samples = getattr(page, "samplesperpixel", 1)
+            planar = getattr(page, "planarconfig", None)
+    except TracefitInputError:
+        raise
+    except Exception as exc:  # tifffile raises many kinds for damaged files
+        raise TracefitInputError(f"{path}: cannot read the TIFF file ({exc}); expected a complete TIFF image") from None
+    if n_pages > 1:
+        notes.append(f"multi-page TIFF with {n_pages} pages: the first page was used")
+    if arr.ndim == 3 and samples in (3, 4) and arr.shape[0] == samples and arr.shape[-1] != samples:
+        arr = np.moveaxis(arr, 0, -1)  # planar (separate) RGB
+    elif planar is not None and arr.ndim == 3 and arr.shape[-1] not in (1, 3, 4):
+        raise TracefitInputError(f"{path}: the first TIFF page has shape {arr.shape}; expected a 2-D grey or RGB(A) image")
+    return arr
+
+
+def read_image(path) -> tuple[np.ndarray, list[str]]:
+    """Read a micrograph as a float32 grey array.
+
+    Parameters
+    ----------
+    path : str or Path
+        PNG, TIFF (8/16-bit, multi-page: first page), JPEG or BMP file; grey, RGB or RGBA.
+
+    Returns
+    -------
+    gray : ndarray of float32, (H, W)
+        Grey values in the file's units (0..255 for 8-bit, 0..65535 for 16-bit).
+    notes : list of str
+        What was done on the way (bit depth, colour conversion, pages used).
+
+    Raises
+    ------
+    TracefitInputError
+        Missing file, empty file, not an image, truncated file, zero-size or
+        non-finite image.
+    """
+    p = str(path)
+    if not os.path.exists(p):
+        raise TracefitInputError(f"{p}: no such file; expected the path of a PNG, TIFF, JPEG or BMP image")
+    if os.path.isdir(p):
+        raise TracefitInputError(f"{p}: is a directory; expected an image file")
+    size = os.path.getsize(p)
+    if size == 0:
+        raise TracefitInputError(f"{p}: the file is empty (0 bytes); expected a PNG, TIFF, JPEG or BMP image")
+    with open(p, "rb") as fh:
+        data = fh.read()
+    kind = _kind_from_magic(data[:16])
+    if kind is None:
+        raise TracefitInputError(
+            f"{p}: not a recognised image (suffix {Path(p).suffix or 'none'}); expected a PNG, TIFF, JPEG or BMP file"
+        )
+    notes: list[str] = []
+    if kind == "tiff":
+        del data
+        arr = _read_tiff(p, notes)
+    else:
+        _check_complete(data, kind, p)
+        buf = np.frombuffer(data, np.uint8)
+        arr = cv2.imdecode(buf, cv2.IMREAD_UNCHANGED)
+        del buf, data
+        if arr is None:
+            raise TracefitInputError(f"{p}: the {kind.upper()} file could not be decoded (damaged?); expected a valid image")
+        if arr.ndim == 3 and arr.shape[2] >= 3:  # OpenCV decodes to BGR(A)
+            arr = arr[..., [2, 1, 0] + ([3] if arr.shape[2] == 4 else [])]
+    if arr.size == 0 or min(arr.shape[:2]) == 0:
+        raise TracefitInputError(f"{p}: the image has zero size {arr.shape}; expected at least 16 x 16 pixels")
+    if arr.dtype == np.bool_:
+        arr = arr.astype(np.uint8)
+    if arr.dtype.kind in "ui":
+        notes.insert(0, f"{arr.dtype.itemsize * 8}-bit {kind.upper()}")
+    else:
+        notes.insert(0, f"floating-point {kind.upper()}")
+    gray = to_gray(arr, notes)
+    del arr
+    if gray.ndim != 2 or min(gray.shape) < 16:
+        raise TracefitInputError(f"{p}: the image is {gray.shape[1]} x {gray.shape[0]} pixels; expected at least 16 x 16")
+    if not np.isfinite(gray).all():
+        raise TracefitInputError(f"{p}: the image contains NaN or infinite values; expected finite grey levels")
+    return gray, notes
+
+
+def read_mask(path, shape: tuple[int, int]) -> np.ndarray:
+    """Read a binary mask image (non-zero = analyse) that must match ``shape`` (rows, cols).
+
+    Raises
+    ------
+    TracefitInputError
+        Unreadable file, or a size different from the image's.
+    """
+    m, _ = read_image(path)
+    if m.shape != tuple(shape):
+        raise TracefitInputError(
+            f"{path}: the mask is {m.shape[1]} x {m.shape[0]} pixels but the image is {shape[1]} x {shape[0]}; "
+            "expected a mask of the same size"
+        )
+    return m > 0
