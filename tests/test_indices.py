@@ -119,13 +119,13 @@ def valid_index(draw):
 
 
 @given(valid_index())
-@settings(max_examples=300, deadline=None)
+@settings(max_examples=150, deadline=None)
 def test_parse_of_format_is_identity(idx):
     assert parse_index(format_index(idx.values, idx.kind, idx.family)) == idx
 
 
 @given(st.text(alphabet="(){}[]<>-+,. 0123456789abx\u0304\u2212", max_size=14) | st.text(max_size=10))
-@settings(max_examples=400, deadline=None)
+@settings(max_examples=200, deadline=None)
 def test_garbage_only_ever_raises_the_input_error(text):
     try:
         got = parse_index(text)
@@ -135,7 +135,7 @@ def test_garbage_only_ever_raises_the_input_error(text):
 
 
 @given(st.tuples(small, small, small).filter(any))
-@settings(max_examples=200, deadline=None)
+@settings(max_examples=100, deadline=None)
 def test_miller_bravais_round_trips(v):
     # Plane (hkl) -> (h k -(h+k) l) -> (hkl); the normal is the same either way (reciprocal basis).
     four = miller_to_miller_bravais(v, "plane")

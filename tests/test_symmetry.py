@@ -138,7 +138,7 @@ hkl = st.tuples(st.integers(-4, 4), st.integers(-4, 4), st.integers(-4, 4)).filt
 
 
 @given(hkl, hkl, st.floats(1.45, 1.95), st.sampled_from(["x_a1", "x_a1star"]))
-@settings(max_examples=150, deadline=None)
+@settings(max_examples=80, deadline=None)
 def test_hexagonal_angles_match_the_handbook_formula_in_both_settings(p, q, coa, setting):
     lat = Lattice(1, 1, coa, 90, 90, 120, hex_setting=setting)
     four = lambda v: (v[0], v[1], -(v[0] + v[1]), v[2])  # noqa: E731
@@ -245,7 +245,7 @@ LATTICES = [
 
 
 @given(st.sampled_from(range(len(LATTICES))), st.tuples(*[st.integers(-3, 3)] * 3).filter(any))
-@settings(max_examples=150, deadline=None)
+@settings(max_examples=80, deadline=None)
 def test_variants_are_closed_under_the_group(li, v):
     lat = LATTICES[li]
     idx = (v[0], v[1], -(v[0] + v[1]), v[2]) if lat.is_hexagonal else v

@@ -29,6 +29,7 @@ contract c at the c/a of the usual metals.
 
 from __future__ import annotations
 
+import functools
 import math
 import re
 import tomllib
@@ -410,7 +411,15 @@ def expand_twin(lattice, plane, direction, name: str | None = None, shear: float
 
 
 def _builtin(lattice) -> list[tuple[str, str, list[DeformationSystem]]]:
-    """(key, mode, systems) per built-in system family."""
+    """(key, mode, systems) per built-in system family (cached per lattice; systems are immutable)."""
+    kind = _builtin_kind(lattice)
+    if not kind:
+        raise TracefitInputError(_no_builtins_message(lattice))
+    return [(k, m, list(g)) for k, m, g in _builtin_cached(lattice)]
+
+
+@functools.lru_cache(maxsize=64)
+def _builtin_cached(lattice) -> tuple:
     kind = _builtin_kind(lattice)
     out = []
     if kind == "fcc":
@@ -437,7 +446,7 @@ def _builtin(lattice) -> list[tuple[str, str, list[DeformationSystem]]]:
             (t.key, "twin", expand_twin(lattice, t.k1, direction, t.name, mag, plane_family=t.plane_family,
                                          direction_family=t.direction_family))
         )
-    return out
+    return tuple((k, m, tuple(g)) for k, m, g in out)
 
 
 def _norm_label(text: str) -> str:
