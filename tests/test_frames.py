@@ -118,7 +118,7 @@ def test_tilt_applies_after_frame_rotation(table_inputs):
     assert np.abs(axial_difference(t.true_angle_deg, ref)).max() > 1.0  # tilt did change something
 
 
-@pytest.mark.parametrize("kw", [{"tilt_deg": 90.0}, {"tilt_deg": -95.0}, {"tilt_axis": "z"}, {"rotation_deg": float("nan")}])
+@pytest.mark.parametrize("kw", [{"tilt_deg": 90.0}, {"tilt_deg": -95.0}, {"tilt_axis": "z"}, {"rotation_deg": float("nan")}, {"rotation_deg": "ten"}, {"flip_x": "yes"}])
 def test_frame_settings_reject(kw):
     with pytest.raises(TracefitInputError):
         FrameSettings(**kw)

@@ -64,8 +64,13 @@ class FrameSettings:
     def __post_init__(self):
         for k in ("rotation_deg", "tilt_deg"):
             v = getattr(self, k)
-            if not isinstance(v, (int, float, np.floating, np.integer)) or not math.isfinite(v):
+            if isinstance(v, (bool, np.bool_)) or not isinstance(v, (int, float, np.floating, np.integer)) or not math.isfinite(v):
                 raise TracefitInputError(f"frame {k.replace('_deg', '')} must be a finite number of degrees, got {v!r}")
+        for k in ("flip_x", "flip_y"):
+            v = getattr(self, k)
+            if not isinstance(v, (bool, np.bool_)):
+                raise TracefitInputError(f"frame {k} must be true or false, got {v!r}")
+            object.__setattr__(self, k, bool(v))
         if not abs(self.tilt_deg) < 90.0:
             raise TracefitInputError(f"stage tilt must lie strictly between -90 and 90 deg, got {self.tilt_deg:g}")
         axis = str(self.tilt_axis).strip().lower()
