@@ -290,7 +290,7 @@ def overlay_figure(image, families, labels=None, title=None, ax=None, max_width_
     title : str, optional
     grain_labels : ndarray of int (H, W), optional
         Grain label image; grain boundaries are drawn and each grain's id is written at
-        its centre.
+        its centre (negative ids: not a grain, not labelled).
 
     Returns
     -------
@@ -316,6 +316,8 @@ def overlay_figure(image, families, labels=None, title=None, ax=None, max_width_
         rgba[edge] = (1.0, 0.85, 0.0, 0.9)
         ax.imshow(rgba, interpolation="nearest")
         for gid in np.unique(lab_img):
+            if gid < 0:  # not a grain (background, data bar)
+                continue
             rr, cc = np.nonzero(lab_img == gid)
             if rr.size > 0.01 * lab_img.size:
                 ax.text(float(np.median(cc)), float(np.median(rr)), f"G{int(gid)}", color="#F0E442", fontsize=10,
@@ -334,10 +336,10 @@ def overlay_figure(image, families, labels=None, title=None, ax=None, max_width_
                 best = (length, c0, r0, c1, r1)
         if best is not None:
             _, c0, r0, c1, r1 = best
-            # label near the upper end of the longest band, kept inside the image
-            cx, cy = (c0, r0) if r0 < r1 else (c1, r1)
-            cx = float(np.clip(cx, 0.06 * w, 0.8 * w))
-            cy = float(np.clip(cy, 0.05 * h, 0.92 * h))
+            # label a third of the way along the longest band: inside its grain, off the grain label
+            cx, cy = c0 + 0.3 * (c1 - c0), r0 + 0.3 * (r1 - r0)
+            cx = float(np.clip(cx, 0.02 * w, 0.72 * w))
+            cy = float(np.clip(cy, 0.04 * h, 0.9 * h))
         else:
             cx, cy = 0.05 * w, (0.06 + 0.07 * i) * h
         ax.text(cx, cy, f"F{i + 1}: {lab}", color="white", fontsize=8, fontweight="bold",

@@ -200,6 +200,9 @@ def _image_section(rec: dict, img_dir: Path) -> str:
         return "".join(out)
     if rec.get("warnings"):
         out.append('<ul class="notes">' + "".join(f"<li>warning: {_e(w)}</li>" for w in rec["warnings"]) + "</ul>")
+    if rec.get("notes"):
+        out.append('<details class="notes"><summary>Reading and detection notes</summary><ul>'
+                   + "".join(f"<li>{_e(n)}</li>" for n in rec["notes"]) + "</ul></details>")
     figs = rec.get("figures") or {}
     fams = rec.get("families") or []
     out.append('<div class="figs">')

@@ -82,6 +82,8 @@ class ImageAnalysis:
     warnings : list of str
     labels : ndarray or None
         Grain label image, for drawing grain boundaries.
+    notes : list of str
+        What reading and detection did on the way (bit depth, data bar excluded, ...).
     """
 
     image: np.ndarray
@@ -90,6 +92,7 @@ class ImageAnalysis:
     grains: list
     warnings: list = field(default_factory=list)
     labels: np.ndarray | None = None
+    notes: list = field(default_factory=list)
 
 
 def _jsonable(x):
@@ -163,7 +166,7 @@ def analyse_image(im: ImageJob) -> ImageAnalysis:
         For a missing or unreadable file, or inconsistent settings.
     """
     from tracefit.frames import FrameSettings
-    from tracefit.image.detect import detect_bands
+    from tracefit.image.detect import detect_bands, detect_grains
     from tracefit.image.io import read_image, read_mask
     from tracefit.lattice import lattice_preset
     from tracefit.matching import identify_families, observed_from_detection
@@ -214,9 +217,15 @@ def analyse_image(im: ImageJob) -> ImageAnalysis:
         families, idents, grains = [], [], []
         det_kw = dict(im.detect)
         match_kw = dict(im.match)
+        det_notes: list[str] = []
+        if labels is None:
+            dets = {None: detect_bands(image, mask, im.pixel_size_um, path=str(im.file), **det_kw)}
+        else:
+            dets = detect_grains(image, labels, mask, im.pixel_size_um, path=str(im.file),
+                                 grains=[gid for gid, *_ in grain_list], **det_kw)
         for gid, g, region, euler in grain_list:
-            reg = mask if region is None else region
-            det = detect_bands(image, reg, im.pixel_size_um, **det_kw)
+            det = dets[gid]
+            det_notes.extend(getattr(det, "notes", []) or [])
             fams = list(getattr(det, "families", det))
             observed = observed_from_detection(fams, grain=gid)
             res = identify_families(observed, lattice, g, systems, frame=frame, load=load, grain=gid, **match_kw)
@@ -231,8 +240,11 @@ def analyse_image(im: ImageJob) -> ImageAnalysis:
             })
     for w in wlist:
         caught.append(str(w.message))
+    if labels is not None:  # only the analysed grains get a label on the overlay
+        labels = np.where(np.isin(labels, [gid for gid, *_ in grain_list]), labels, -1)
     return ImageAnalysis(image=image, families=families, identifications=idents, grains=grains,
-                         warnings=list(dict.fromkeys(caught)), labels=labels)
+                         warnings=list(dict.fromkeys(caught)), labels=labels,
+                         notes=list(dict.fromkeys(list(notes) + det_notes)))
 
 
 # --------------------------------------------------------------------------- figures and record
@@ -351,6 +363,7 @@ def process_image(im: ImageJob, out_dir, analyse: Callable[[ImageJob], ImageAnal
                          for i, (f, ident) in enumerate(zip(a.families, a.identifications))],
             "grains": _jsonable(a.grains),
             "warnings": list(a.warnings),
+            "notes": list(getattr(a, "notes", []) or []),
         })
         rec["figures"] = _draw_figures(im, a, img_dir)
     except TracefitInputError as exc:

@@ -1,0 +1,197 @@
+"""Regenerate tracefit's bundled demo: a fictional bracket coupon study.
+
+Scenario (invented): Harrow Lane Instruments, a fictional maker of sensor mounts, pulled
+three coupons from a prototype bracket after a proof test and polished one face of each:
+
+* coupon A: an FCC (copper-like) single crystal loaded in tension along the image's
+  vertical axis, showing two slip-line families;
+* coupon B: a BCC (ferritic) grain pair, with a grain label image and an orientation
+  table, one slip family per grain;
+* coupon C: an HCP (titanium-like, c/a = 1.587) alloy loaded in compression along the
+  image's horizontal axis, showing {10-12} twins.
+
+The band angles are not typed in: each is the predicted trace of the chosen plane for the
+coupon's orientation (:func:`tracefit.traces.predict_traces`), so the demo truth agrees with
+the geometry by construction. The images are drawn by :func:`tracefit.synthetic.render_micrograph`.
+
+Run from the repository root::
+
+    python demo_images/make_demo.py
+
+It writes the demo into ``tracefit/data/demo/`` (bundled in the package, used by
+``tracefit demo``) and copies it to ``demo_images/``. ``truth.json`` records what was drawn.
+"""
+
+from __future__ import annotations
+
+import json
+import shutil
+import sys
+from pathlib import Path
+
+import cv2
+import numpy as np
+
+from tracefit.angles import axial_difference
+from tracefit.grains import write_orientation_table
+from tracefit.lattice import lattice_preset
+from tracefit.orientation import from_euler
+from tracefit.synthetic import BandFamilySpec, render_micrograph
+from tracefit.systems import catalogue
+from tracefit.traces import parse_load, predict_traces
+
+ROOT = Path(__file__).resolve().parent.parent
+PACKAGE_DEMO = ROOT / "tracefit" / "data" / "demo"
+COPY_DEMO = ROOT / "demo_images"
+SHAPE = (384, 512)  # rows, columns: small on purpose (the demo must run in seconds)
+PIXEL_UM = 0.5
+
+# Orientations picked so that each drawn plane has a high Schmid factor (or twin drive) under
+# the coupon's load and its trace stands clear of every other candidate's trace.
+COUPONS = [
+    {
+        "name": "coupon-A",
+        "file": "coupon_A.png",
+        "lattice": "fcc", "c_over_a": None, "modes": ["slip"], "families": None,
+        "load": ("y", "tension"),
+        "grains": {None: {"euler": (263.0, 50.0, 135.0), "planes": [(1, 1, -1), (1, 1, 1)]}},
+        "style": dict(spacing_px=34.0, width_px=2.6, contrast=-0.32),
+        "notes": "Single crystal, tension along the image vertical (sample Y); two slip-line families.",
+        "render": dict(illumination=0.25, noise_sigma=0.025, blur_sigma=0.7, n_scratches=0, seed=11),
+    },
+    {
+        "name": "coupon-B",
+        "file": "coupon_B.png",
+        "labels": "coupon_B_labels.png",
+        "orientations": "coupon_B_grains.csv",
+        "lattice": "bcc", "c_over_a": None, "modes": ["slip"], "families": ["{110}<111>", "{112}<111>"],
+        "load": ("y", "tension"),
+        "grains": {
+            1: {"euler": (116.0, 83.0, 328.0), "planes": [(1, 1, 0)]},
+            2: {"euler": (320.0, 31.0, 17.0), "planes": [(0, 1, -1)]},
+        },
+        "style": dict(spacing_px=32.0, width_px=2.4, contrast=-0.3),
+        "notes": "Ferritic grain pair; grain ids from the label image, orientations from the table.",
+        "render": dict(illumination=0.2, noise_sigma=0.025, blur_sigma=0.7, seed=12),
+    },
+    {
+        "name": "coupon-C",
+        "file": "coupon_C.png",
+        "lattice": "hcp", "c_over_a": 1.587, "modes": ["twin"], "families": ["{10-12}", "{11-21}"],
+        "load": ("x", "compression"),
+        "grains": {None: {"euler": (250.0, 22.0, 84.0), "planes": [(1, 0, -1, -2)]}},
+        "style": dict(spacing_px=46.0, width_px=6.0, contrast=-0.28, spacing_jitter=0.3),
+        "notes": "Titanium-like alloy, compression along the image horizontal (sample X); {10-12} twins.",
+        "render": dict(illumination=0.25, noise_sigma=0.025, blur_sigma=0.8, seed=13),
+    },
+]
+
+
+def _trace(lattice, systems, euler, load, plane):
+    g = from_euler(np.asarray(euler, float))
+    traces = predict_traces(lattice, g, systems, None, load)
+    key = tuple(int(x) for x in plane)
+    neg = tuple(-x for x in key)
+    hit = [t for t in traces if tuple(int(x) for x in t.plane) in (key, neg)]
+    if not hit:
+        raise SystemExit(f"plane {plane} is not among the candidates")
+    t = hit[0]
+    others = [o for o in traces if o is not t]
+    clear = min(abs(axial_difference(t.angle_deg, o.angle_deg)) for o in others) if others else 180.0
+    return t, clear
+
+
+def _two_grain_labels(shape):
+    h, w = shape
+    rows, cols = np.mgrid[0:h, 0:w]
+    # a slanted boundary from (0.42 w, top) to (0.62 w, bottom)
+    x_b = 0.42 * w + (0.20 * w) * rows / (h - 1)
+    return np.where(cols < x_b, 1, 2).astype(np.uint8)
+
+
+def _job_toml(coupons) -> str:
+    out = [
+        "# tracefit survey job: the bundled demo (a fictional scenario).",
+        "# Harrow Lane Instruments (fictional): bracket coupon study after a proof test.",
+        "# Regenerate the images with: python demo_images/make_demo.py",
+        "format = 1",
+        'title = "Harrow Lane Instruments: bracket coupon study (fictional demo)"',
+        'notes = "Three polished coupons from a prototype bracket (an invented scenario). Synthetic micrographs '
+        'drawn by tracefit.synthetic from the predicted traces of known planes."',
+        "",
+        "[defaults]",
+        f"pixel_size_um = {PIXEL_UM}",
+        "frame = { rotation_deg = 0.0 }",
+        "",
+    ]
+    for c in coupons:
+        out.append("[[image]]")
+        out.append(f'name = "{c["name"]}"')
+        out.append(f'file = "{c["file"]}"')
+        out.append(f'notes = "{c["notes"]}"')
+        out.append(f'lattice = "{c["lattice"]}"')
+        if c["c_over_a"]:
+            out.append(f"c_over_a = {c['c_over_a']}")
+        out.append("modes = [" + ", ".join(f'"{m}"' for m in c["modes"]) + "]")
+        if c["families"]:
+            out.append("families = [" + ", ".join(f'"{f}"' for f in c["families"]) + "]")
+        out.append(f'load = {{ axis = "{c["load"][0]}", sense = "{c["load"][1]}" }}')
+        if "labels" in c:
+            out.append(f'labels = "{c["labels"]}"')
+            out.append(f'orientations = "{c["orientations"]}"')
+        else:
+            e = c["grains"][None]["euler"]
+            out.append(f"euler_deg = [{e[0]}, {e[1]}, {e[2]}]")
+        out.append("")
+    return "\n".join(out)
+
+
+def main(argv=None) -> int:
+    PACKAGE_DEMO.mkdir(parents=True, exist_ok=True)
+    truth = {"scenario": "Harrow Lane Instruments (fictional): bracket coupon study", "images": {}}
+    for c in COUPONS:
+        lattice = lattice_preset(c["lattice"], c["c_over_a"])
+        systems = catalogue(lattice, c["modes"], c["families"])
+        load = parse_load(c["load"][0], lattice, c["load"][1])
+        grain_specs = {}
+        tgrains = []
+        for gid, gdef in c["grains"].items():
+            specs = []
+            for plane in gdef["planes"]:
+                t, clear = _trace(lattice, systems, gdef["euler"], load, plane)
+                if clear < 8.0:
+                    raise SystemExit(f"{c['name']}: plane {plane} trace is only {clear:.1f} deg from another candidate")
+                specs.append(BandFamilySpec(angle_deg=float(t.angle_deg), **c["style"]))
+                tgrains.append({"grain": gid, "euler_deg": list(gdef["euler"]), "plane": list(plane),
+                                "angle_deg": round(float(t.angle_deg), 3),
+                                "schmid_factor": None if t.best_schmid is None else round(float(t.best_schmid), 3),
+                                "clearance_deg": round(float(clear), 2)})
+                print(f"{c['name']} grain {gid}: plane {plane} trace {t.angle_deg:.2f} deg, "
+                      f"m = {t.best_schmid}, clear of others by {clear:.1f} deg")
+            grain_specs[gid] = specs
+        kw = dict(c["render"])
+        if "labels" in c:
+            lab = _two_grain_labels(SHAPE)
+            img, _ = render_micrograph(SHAPE, labels=lab.astype(np.int32), grain_families={k: v for k, v in grain_specs.items()},
+                                       databar=28, pixel_size_um=PIXEL_UM, **kw)
+            lab_out = lab.copy()
+            lab_out[img.shape[0] - 28:, :] = 0  # the data bar belongs to no grain
+            cv2.imwrite(str(PACKAGE_DEMO / c["labels"]), lab_out)
+            write_orientation_table(PACKAGE_DEMO / c["orientations"],
+                                    {gid: gdef["euler"] for gid, gdef in c["grains"].items()}, phase="bcc")
+        else:
+            img, _ = render_micrograph(SHAPE, families=grain_specs[None], databar=28, pixel_size_um=PIXEL_UM, **kw)
+        cv2.imwrite(str(PACKAGE_DEMO / c["file"]), img, [cv2.IMWRITE_PNG_COMPRESSION, 9])
+        truth["images"][c["name"]] = tgrains
+    (PACKAGE_DEMO / "job.toml").write_text(_job_toml(COUPONS), encoding="utf-8")
+    (PACKAGE_DEMO / "truth.json").write_text(json.dumps(truth, indent=1) + "\n", encoding="utf-8")
+    for p in sorted(PACKAGE_DEMO.iterdir()):
+        if p.is_file():
+            shutil.copy2(p, COPY_DEMO / p.name)
+    total = sum(p.stat().st_size for p in PACKAGE_DEMO.iterdir() if p.is_file())
+    print(f"wrote {PACKAGE_DEMO} and {COPY_DEMO} ({total / 1e6:.2f} MB each)")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

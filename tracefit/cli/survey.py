@@ -1,0 +1,76 @@
+"""``tracefit survey JOB.toml``: run every image of a job file, write results and the report."""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Annotated, Optional
+
+import typer
+
+from tracefit.cli import app
+
+OutOpt = Annotated[Optional[Path], typer.Option("--out", "-o", help="Output folder (default: out/<job file name>).")]
+WorkersOpt = Annotated[
+    Optional[int], typer.Option("--workers", "-w", min=1, help="Worker processes (default: all cores; 1 = no subprocesses).")
+]
+ResumeOpt = Annotated[bool, typer.Option("--resume", help="Keep finished images of an earlier run into the same folder; redo the rest.")]
+QuietOpt = Annotated[bool, typer.Option("--quiet", "-q", help="No progress bar.")]
+JsonOpt = Annotated[bool, typer.Option("--json", help="Print one JSON summary object to stdout.")]
+
+
+def summary_dict(result) -> dict:
+    """The ``--json`` summary of a survey (the full record is in results.json)."""
+    return {
+        "out_dir": str(result.out_dir),
+        "report": str(result.report_path),
+        "results_csv": str(result.csv_path),
+        "results_json": str(result.json_path),
+        "n_images": len(result.records),
+        "n_ok": result.n_ok,
+        "n_failed": result.n_failed,
+        "resumed": list(result.reused),
+        "failed": [{"image": r["name"], "error": r.get("error")} for r in result.records if r["status"] != "ok"],
+        "exit_code": result.exit_code,
+    }
+
+
+def print_summary(result, json_out: bool) -> None:
+    import sys
+
+    if json_out:
+        from tracefit.cli.common import print_json
+
+        print_json(summary_dict(result))
+        return
+    for r in result.records:
+        if r["status"] != "ok":
+            print(f"tracefit: image {r['name']} failed: {r.get('error')}", file=sys.stderr)
+    n = len(result.records)
+    print(f"{result.n_ok} of {n} image(s) analysed" + (f", {result.n_failed} failed" if result.n_failed else "")
+          + (f" ({len(result.reused)} resumed)" if result.reused else ""))
+    print(f"results: {result.csv_path}")
+    print(f"report:  {result.report_path}")
+
+
+@app.command("survey")
+def survey(
+    job: Annotated[Path, typer.Argument(help="Job file (TOML) listing the images and their settings; see docs/job-file.md.")],
+    out: OutOpt = None,
+    workers: WorkersOpt = None,
+    resume: ResumeOpt = False,
+    quiet: QuietOpt = False,
+    json_out: JsonOpt = False,
+) -> None:
+    """Run every image of a job file in parallel; write results CSV/JSON, overlays and an HTML report.
+
+    Exit code 0 when every image succeeded, 1 when some failed (they are reported and
+    skipped), 2 for a bad job file.
+    """
+    from tracefit.jobs import load_job
+    from tracefit.survey import run_survey
+
+    j = load_job(job)
+    out_dir = out if out is not None else Path("out") / job.stem
+    result = run_survey(j, out_dir, workers=workers, resume=resume, progress=not quiet)
+    print_summary(result, json_out)
+    raise typer.Exit(result.exit_code)
