@@ -27,7 +27,6 @@ from dataclasses import dataclass, field
 from typing import Sequence
 
 import numpy as np
-from scipy.optimize import minimize
 from scipy.spatial.transform import Rotation
 
 from tracefit.angles import axial_difference
@@ -136,20 +135,42 @@ def _constraint_family(lattice, direction, axis, n_steps):
     return np.array(out), d
 
 
-def _refine(scorer, g0, sigmas, penalty=None):
-    g = g0
-    for s in sigmas:
-        def f(x, g=g, s=s):
-            gg = g @ Rotation.from_rotvec(x).as_matrix().T
-            v = -scorer.score(gg[None], s)[0]
-            if penalty is not None:
-                v += penalty(gg)
-            return v
+_AXES = np.vstack([np.eye(3), -np.eye(3)])
 
-        res = minimize(f, np.zeros(3), method="Nelder-Mead",
-                       options={"xatol": 1e-5, "fatol": 1e-6, "initial_simplex": np.vstack([np.zeros(3), np.eye(3) * math.radians(max(s, 0.3))]), "maxiter": 200})
-        g = g @ Rotation.from_rotvec(res.x).as_matrix().T
-    return g
+
+def _refine_batch(scorer, G, sigmas, penalty=None):
+    """Pattern search on all seeds at once: try +-step turns about the 3 sample axes, halve on failure.
+
+    ``penalty`` maps (N, 3, 3) orientations to (N,) penalties (added to -log evidence).
+    """
+    G = np.array(G, float)
+    n = len(G)
+
+    def cost(GG, s):
+        c = -scorer.score(GG, s)
+        if penalty is not None:
+            c = c + penalty(GG)
+        return c
+
+    for s in sigmas:
+        step = np.full(n, math.radians(max(2.0 * s, 0.5)))
+        cur = cost(G, s)
+        for _ in range(200):
+            active = step > math.radians(0.002)
+            if not active.any():
+                break
+            idx = np.flatnonzero(active)
+            # neighbours: g R(delta)^T for the 6 axis directions
+            rot = Rotation.from_rotvec((_AXES[None, :, :] * step[idx, None, None]).reshape(-1, 3)).as_matrix()
+            trial = np.einsum("kij,klj->kil", np.repeat(G[idx], 6, axis=0), rot)
+            tc = cost(trial, s).reshape(len(idx), 6)
+            j = np.argmin(tc, axis=1)
+            better = tc[np.arange(len(idx)), j] < cur[idx] - 1e-9
+            win = idx[better]
+            G[win] = trial.reshape(len(idx), 6, 3, 3)[better, j[better]]
+            cur[win] = tc[better, j[better]]
+            step[idx[~better]] *= 0.5
+    return G
 
 
 def search_orientations(
@@ -213,12 +234,15 @@ def search_orientations(
         G, dvec = _constraint_family(lattice, known_direction, axis, 1440)
         ahat = axis / np.linalg.norm(axis)
 
-        def dev(g):
-            v = g.T @ dvec  # known crystal direction in sample coordinates
-            return math.degrees(math.acos(min(1.0, abs(float(v @ ahat)))))
+        def devs(GG):
+            v = np.einsum("nij,i->nj", GG, dvec)  # known crystal direction in sample coordinates (g^T d)
+            return np.degrees(np.arccos(np.clip(np.abs(v @ ahat) / np.linalg.norm(v, axis=1), 0.0, 1.0)))
 
-        def penalty(g):
-            return 0.5 * (dev(g) / direction_tol_deg) ** 2
+        def dev(g):
+            return float(devs(np.asarray(g)[None])[0])
+
+        def penalty(GG):
+            return 0.5 * (devs(GG) / direction_tol_deg) ** 2
     else:
         G = Rotation.random(n_samples, random_state=seed).as_matrix().transpose(0, 2, 1)
         dev = None
@@ -238,11 +262,9 @@ def search_orientations(
                 continue
         seeds.append(int(i))
     stages = [2.0, 0.8, 0.0]
-    refined = []
-    for i in seeds:
-        g = _refine(sc, G[i], stages, penalty)
-        val = float(sc.score(g[None], 0.0)[0]) - (penalty(g) if penalty else 0.0)
-        refined.append((val, g))
+    Gr = _refine_batch(sc, G[seeds], stages, penalty)
+    vals = sc.score(Gr, 0.0) - (penalty(Gr) if penalty else 0.0)
+    refined = [(float(v), g) for v, g in zip(vals, Gr)]
     refined.sort(key=lambda t: -t[0])
     # merge up to symmetry and the 180-degree turn about the surface normal
     distinct = []
@@ -283,7 +305,7 @@ def search_orientations(
             f"{free}-parameter family and the listed orientations are samples along it; add a family, a known "
             "direction, or a second surface"
         )
-    if known_direction is None:
+    if known_direction is None or any(dev(c.g @ rz180) < 3.0 * direction_tol_deg for c in out):
         notes.append("each solution is indistinguishable from the same orientation turned 180 deg about the surface normal (partner_euler_deg)")
     if len(keep) > 1 and not free:
         notes.append(f"{len(keep)} distinct orientations explain the families about equally well (log evidence within 6)")
