@@ -389,3 +389,38 @@ def test_missing_file_and_bad_lattice(tmp_path):
         load_systems_file(_write(tmp_path, HEAD))
     with pytest.raises(TracefitInputError, match="unknown top-level key"):
         load_systems_file(_write(tmp_path, HEAD + "[[systems]]\nmode = 'slip'\n"))
+
+
+# ------------------------------------------------------------------ twinning asymmetry
+def _max_twin_and_slip(lattice, axis):
+    l = np.asarray(axis, float) / np.linalg.norm(axis)
+    twin = [float((l @ s.normal) * (l @ s.dir_unit)) for s in catalogue(lattice, modes="twin")]
+    slip = [abs(float((l @ s.normal) * (l @ s.dir_unit))) for s in catalogue(lattice, modes="slip")]
+    return max(twin), -min(twin), max(slip)
+
+
+def test_fcc_twinning_tension_compression_asymmetry():
+    # Karaman et al. 2000, Acta Mater. 48, 1345 (fcc single crystals; values from memory):
+    # [111] tension favours twinning, m_twin 0.314 > m_slip 0.272; [001] twinning in compression
+    # (0.471 > 0.408) but not in tension (0.236).
+    t, c, s = _max_twin_and_slip(FCC, (1, 1, 1))
+    assert (round(t, 3), round(s, 3)) == (0.314, 0.272)
+    t, c, s = _max_twin_and_slip(FCC, (0, 0, 1))
+    assert (round(t, 3), round(c, 3), round(s, 3)) == (0.236, 0.471, 0.408)
+
+
+def test_bcc_twinning_asymmetry_is_reversed():
+    # bcc twinning runs opposite to fcc (twinning vs anti-twinning sense, Christian & Mahajan 1995):
+    # [001] tension 0.471, compression 0.236; [111] compression 0.314, tension 0.157 (from memory).
+    t, c, _ = _max_twin_and_slip(BCC, (0, 0, 1))
+    assert (round(t, 3), round(c, 3)) == (0.471, 0.236)
+    t, c, _ = _max_twin_and_slip(BCC, (1, 1, 1))
+    assert (round(t, 3), round(c, 3)) == (0.157, 0.314)
+
+
+def test_zero_shear_twin_is_left_out_with_a_warning():
+    # At c/a = sqrt3 the {10-12} shear (gamma^2 - 3)/(sqrt3 gamma) vanishes (Yoo 1981).
+    with pytest.warns(UserWarning, match="no shear"):
+        systems = catalogue(Lattice(1, 1, math.sqrt(3), 90, 90, 120, name="hcp"), modes="twin")
+    assert "{10-12}<10-11> twin" not in {s.name for s in systems}
+    assert len(systems) == 18

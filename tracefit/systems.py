@@ -415,13 +415,16 @@ def _builtin(lattice) -> list[tuple[str, str, list[DeformationSystem]]]:
     kind = _builtin_kind(lattice)
     if not kind:
         raise TracefitInputError(_no_builtins_message(lattice))
-    return [(k, m, list(g)) for k, m, g in _builtin_cached(lattice)]
+    groups, omitted = _builtin_cached(lattice)
+    for name in omitted:  # warned on every call, not only when first cached
+        warnings.warn(f"{name} has no shear at c/a = {lattice.c_over_a:.4f} and is left out", stacklevel=3)
+    return [(k, m, list(g)) for k, m, g in groups]
 
 
 @functools.lru_cache(maxsize=64)
 def _builtin_cached(lattice) -> tuple:
     kind = _builtin_kind(lattice)
-    out = []
+    out, omitted = [], []
     if kind == "fcc":
         slips, twins = _FCC_SLIP, _FCC_TWIN
     elif kind == "bcc":
@@ -439,14 +442,14 @@ def _builtin_cached(lattice) -> tuple:
         if not math.isclose(abs(s), mag, rel_tol=1e-9, abs_tol=1e-12):  # pragma: no cover - table check
             raise RuntimeError(f"{t.name}: geometric shear {abs(s)} differs from the closed form {mag}")
         if mag < 1e-6:
-            warnings.warn(f"{t.name} has no shear at c/a = {lattice.c_over_a:.4f} and is left out", stacklevel=3)
+            omitted.append(t.name)
             continue
         direction = t.eta1 if s > 0 else tuple(-x for x in t.eta1)
         out.append(
             (t.key, "twin", expand_twin(lattice, t.k1, direction, t.name, mag, plane_family=t.plane_family,
                                          direction_family=t.direction_family))
         )
-    return tuple((k, m, tuple(g)) for k, m, g in out)
+    return tuple((k, m, tuple(g)) for k, m, g in out), tuple(omitted)
 
 
 def _norm_label(text: str) -> str:
