@@ -85,7 +85,7 @@ def test_index_rotations_are_integral_and_agree_with_cartesian(laue):
 
 
 # Cullity & Stock, Elements of X-Ray Diffraction, 3rd ed., appendix table of interplanar angles
-# in cubic crystals (values in degrees, to 0.1; the rows we carry were noted from the table).
+# in cubic crystals (degrees, to 0.1; rows written down from memory of the table, a subset).
 CULLITY_CUBIC = {
     ((1, 0, 0), (1, 0, 0)): [0.0, 90.0],
     ((1, 0, 0), (1, 1, 0)): [45.0, 90.0],
@@ -154,8 +154,9 @@ def test_hexagonal_angles_match_the_handbook_formula_in_both_settings(p, q, coa,
 def test_basal_to_10m12_angle_closed_form(metal, c_over_a):
     # Closed form: the (10-1l) normal is a* + l c* with |a*| = 2/(sqrt3 a), |c*| = 1/c, so the
     # angle to (0001) obeys tan(theta) = (2/sqrt3)(c/a)/l; for l = 2, tan(theta) = (c/a)/sqrt3.
-    # (From the hexagonal reciprocal metric; the same angle enters the {10-12} geometry in
-    # Yoo 1981, Metall. Trans. A 12, 409, and Partridge 1967, Metall. Rev. 12, 169.)
+    # (Derived from the hexagonal reciprocal metric; it is the hexagonal interplanar-angle formula
+    # of Cullity & Stock's appendix for (0001)^(10-1l), and the same angle sets the {10-12} twin
+    # geometry in Yoo 1981, Metall. Trans. A 12, 409 -- citations from memory.)
     expected = math.degrees(math.atan((2 / math.sqrt(3)) * c_over_a / 2))
     for setting in ("x_a1", "x_a1star"):
         lat = lattice_preset("hcp", c_over_a, hex_setting=setting)

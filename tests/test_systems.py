@@ -145,8 +145,8 @@ def test_cubic_twin_shear_makes_the_mirror_lattice(lattice, kind, points):
         assert not _is_lattice(bad, kind)
 
 
-# Yoo 1981, Metall. Trans. A 12, 409, Table I: K1, eta1, eta2 of the hcp twins (as an
-# independent table here; the sense of eta1 is left open, the test finds it).
+# Yoo 1981, Metall. Trans. A 12, 409, Table I: K1 and eta2 of the hcp twins (indices from memory
+# of the table, written out again here; the sense of eta1 is left open, the test checks it).
 YOO_TWINS = {
     "{10-12}<10-11> twin": ((1, 0, -1, 2), (1, 0, -1, 1)),
     "{11-21}<11-26> twin": ((1, 1, -2, 1), (1, 1, -2, 0)),
