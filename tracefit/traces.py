@@ -96,9 +96,9 @@ def plane_normals_in_image(g, normals_crystal, frame: FrameSettings | None = Non
     if g.shape[-2:] != (3, 3) or n.shape[-1] != 3:
         raise TracefitInputError(f"need g of shape (N, 3, 3) and normals of shape (M, 3), got {g.shape} and {n.shape}")
     M = data_to_image_matrix(frame)
-    # n_s[j] = sum_i g[i, j] n_c[i]; then n_img = M n_s.  One einsum: (M g^T)_{kj}... written out.
-    Mg = np.einsum("kj,...ij->...ki", M, g)  # (M g^T)
-    return np.einsum("...ki,mi->...mk", Mg, n)
+    # n_img = M g^T n_c; in row-vector form n_img = n_c (M g^T)^T = n_c g M^T (matmul is
+    # several times faster than einsum here, and this sits in the matcher's inner loop).
+    return n @ (g @ M.T)
 
 
 @dataclass
