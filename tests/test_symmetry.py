@@ -64,6 +64,26 @@ def test_proper_rotations_match_orix(lattice, orix_group):
 def test_cell_without_the_claimed_symmetry_is_refused():
     with pytest.raises(TracefitInputError, match="does not have the symmetry"):
         proper_rotations(Lattice(1, 1, 1.2, laue="m-3m"))
+    with pytest.raises(TracefitInputError, match="hexagonal axes"):
+        proper_rotations(Lattice(1, 1, 1, 80, 80, 80, laue="-3m"))  # rhombohedral axes
+
+
+@given(
+    st.sampled_from(["m-3m", "m-3", "6/mmm", "6/m", "-3m", "-3", "4/mmm", "4/m", "mmm", "2/m", "-1"]),
+    st.sampled_from([1.0, 1.3]), st.sampled_from([1.0, 0.7]),
+    st.sampled_from([90.0, 120.0, 104.0]), st.sampled_from([90.0, 75.0]),
+)
+@settings(max_examples=60, deadline=None)
+def test_any_cell_and_class_gives_a_group_or_the_input_error(laue, b, c, gamma, beta):
+    try:
+        lat = Lattice(1.0, b, c, 90.0, beta, gamma, laue=laue)
+        R = proper_rotations(lat)
+    except TracefitInputError:
+        return
+    # a group of proper rotations that maps the lattice onto itself
+    np.testing.assert_allclose(np.linalg.det(R), 1.0)
+    M = np.einsum("ij,njk,kl->nil", np.linalg.inv(lat.direct_matrix), R, lat.direct_matrix)
+    np.testing.assert_allclose(M, np.round(M), atol=1e-6)
 
 
 @pytest.mark.parametrize("laue", ["m-3m", "6/mmm", "-3m", "4/mmm", "mmm", "2/m"])

@@ -100,8 +100,8 @@ def _close(generators: list[np.ndarray], order: int) -> np.ndarray:
         frontier = nxt
         if len(found) > order:
             break
-    if len(found) != order:  # pragma: no cover - a wrong generator set is a programming error
-        raise RuntimeError(f"rotation group closed with {len(found)} elements, expected {order}")
+    if len(found) != order:
+        return None  # the axes, taken from the cell, do not form the group: wrong cell for the class
     return np.array(found)
 
 
@@ -163,12 +163,13 @@ def proper_rotations(lattice) -> np.ndarray:
     rots = _close(gens, _ORDER[group])
     # The group must map the lattice onto itself: integral in the direct basis.
     Ainv = np.linalg.inv(A)
-    M = np.einsum("ij,njk,kl->nil", Ainv, rots, A)
-    if np.max(np.abs(M - np.round(M))) > 1e-6:
+    M = None if rots is None else np.einsum("ij,njk,kl->nil", Ainv, rots, A)
+    if M is None or np.max(np.abs(M - np.round(M))) > 1e-6:
         raise TracefitInputError(
             f"the cell of lattice {lattice.name!r} (a={lattice.a:g}, b={lattice.b:g}, c={lattice.c:g}, "
             f"alpha={lattice.alpha:g}, beta={lattice.beta:g}, gamma={lattice.gamma:g}) does not have the symmetry "
             f"of Laue class {lattice.laue}; give a matching cell or a lower Laue class"
+            + ("; trigonal cells go on hexagonal axes (a = b, gamma = 120 deg)" if lattice.laue in ("-3m", "-3") else "")
         )
     rots.setflags(write=False)
     if cache is not None:
