@@ -177,3 +177,22 @@ def test_predict_crss_activation_stress(run_cli):
     assert s["activation_stress"] == pytest.approx(10.0 * math.sqrt(6), rel=1e-9)
     code, out, err = run_cli("predict", "-l", "fcc", "-e", "0,0,0", "--crss", "{111}=10")
     assert code == 2 and "--load" in err
+
+
+def test_predict_with_systems_file(run_cli):
+    # docs/examples/tin_systems.toml: beta-tin, tetragonal. Identity orientation: (001) lies in the
+    # surface (inclination 0, flagged); (100) stands upright with its trace along y (90 deg) --
+    # direct consequences of the trace definition (docs/conventions.md, section 7).
+    from pathlib import Path
+
+    f = Path(__file__).resolve().parents[1] / "docs" / "examples" / "tin_systems.toml"
+    code, out, err = run_cli("predict", "--systems-file", str(f), "--euler", "0,0,0", "--json")
+    assert code == 0, err
+    data, traces = _traces_by_plane(out)
+    assert data["lattice"]["name"] == "beta-tin"
+    t001 = _find(traces, (0, 0, 1))
+    assert t001["near_surface"] and t001["inclination_deg"] == pytest.approx(0.0, abs=1e-9)
+    t100 = _find(traces, (1, 0, 0))
+    assert t100["angle_deg"] == pytest.approx(90.0) and t100["inclination_deg"] == pytest.approx(90.0)
+    code, out, err = run_cli("predict", "--systems-file", str(f), "--lattice", "fcc", "--euler", "0,0,0")
+    assert code == 2 and "[lattice]" in err

@@ -113,8 +113,10 @@ def build_lattice(lattice: str | None, c_over_a: float | None = None, hex_settin
     base = None
     if lattice is not None:
         base = lattice_preset(lattice, c_over_a, hex_setting=hex_setting)
-    elif c_over_a is not None and systems_file is None:
-        raise TracefitInputError("--c-over-a needs --lattice (e.g. --lattice hcp --c-over-a 1.624)")
+    elif c_over_a is not None:
+        raise TracefitInputError(
+            "--c-over-a needs --lattice (e.g. --lattice hcp --c-over-a 1.624); a systems file's [lattice] table carries its own c/a"
+        )
     if systems_file is None:
         if base is None:
             raise TracefitInputError("no lattice given; use --lattice fcc|bcc|hcp|tetragonal or --systems-file FILE")
