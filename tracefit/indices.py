@@ -183,7 +183,12 @@ def check_values(values, kind: str, lattice=None, text: str | None = None, hex_t
     TracefitInputError
         With a message naming the broken rule.
     """
-    shown = text if text is not None else format_index(values, kind) if values and all(isinstance(v, int) for v in values) else repr(values)
+    if text is not None:
+        shown = text
+    elif values and all(isinstance(v, int) for v in values):
+        shown = format_index(values, kind)
+    else:
+        shown = repr(tuple(values))
     n = len(values)
     if n not in (3, 4):
         raise TracefitInputError(
