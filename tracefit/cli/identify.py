@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import sys
 from pathlib import Path
-from typing import Optional
+from typing import List, Optional
 
 import typer
 
@@ -76,7 +76,7 @@ def observed_from_image(image_path: Path, grains_path: Path | None = None, orien
 
 @app.command("identify")
 def identify(
-    image: Optional[Path] = typer.Argument(None, help="Micrograph (PNG/TIFF/JPEG/BMP)."),
+    image: Optional[Path] = typer.Argument(None, help="Micrograph (PNG/TIFF/JPEG/BMP); optional with --angle/--crack/--measured."),
     lattice: LatticeOpt = None,
     c_over_a: CoverAOpt = None,
     hex_setting: HexSettingOpt = "x_a1",
@@ -109,15 +109,28 @@ def identify(
     pixel_size: Optional[float] = typer.Option(None, "--pixel-size", help="Pixel size in micrometres (for band spacings)."),
     min_grain_px: int = typer.Option(2500, "--min-grain-px", help="Grains with fewer pixels are skipped."),
     overlay: Optional[Path] = typer.Option(None, "--overlay", help="Write the image with observed and identified traces (PNG)."),
+    angle: Optional[List[str]] = typer.Option(
+        None, "--angle", help="A hand-measured trace angle, deg ccw from image x: 37.5, 37.5+-0.5 or 37.5:0.5 (repeatable)."
+    ),
+    crack: Optional[List[str]] = typer.Option(
+        None, "--crack", help="A measured crack trace angle, as --angle; reports the planes it is consistent with (repeatable)."
+    ),
+    measured: Optional[Path] = typer.Option(
+        None, "--measured", help="CSV of hand-measured lines: angles or pixel endpoints (docs/measured-traces.md)."
+    ),
+    crack_k_sigma: float = typer.Option(2.0, "--crack-k-sigma", help="A crack is consistent with a plane within this many sigma."),
     json_out: JsonOpt = False,
 ) -> None:
     """Identify the slip or twin system behind each band family, with probabilities.
 
     Every family gets its candidate planes (most probable first), a probability that no
     candidate explains it (scratch, wrong orientation, wrong frame), and a plain statement
-    when several planes fit equally well.
+    when several planes fit equally well. Without IMAGE, hand-measured traces (--angle,
+    --crack, --measured) are identified the same way; cracks get the planes they are
+    consistent with.
     """
-    from tracefit.matching import identifications_to_json, identify_families, identify_grains
+    from tracefit.matching import identifications_to_json
+    from tracefit.measured import MEASURED_CONVENTION, identify_observed, is_crack, parse_angle_option, read_measured_csv
 
     with cli_warnings():
         lat, file_systems = build_lattice(lattice, c_over_a, hex_setting, systems_file)
@@ -126,17 +139,30 @@ def identify(
         ld = build_load(load, lat, compression)
         if orientation_sigma < 0 or frame_sigma < 0:
             raise TracefitInputError("--orientation-sigma and --frame-sigma must be >= 0 degrees")
+        m_notes: list = []
+        m_obs = [parse_angle_option(t, notes=m_notes) for t in (angle or [])]
+        m_obs += [parse_angle_option(t, label="crack", notes=m_notes, option="--crack") for t in (crack or [])]
+        if measured is not None:
+            m_obs += read_measured_csv(measured, notes=m_notes)
+        for n in m_notes:
+            print(f"tracefit: note: {n}", file=sys.stderr)
+        if image is None and grains is not None:
+            raise TracefitInputError("--grains is the label image of IMAGE; without IMAGE the grain ids come from the "
+                                     "measured CSV's grain column (give --orientations only)")
         per_grain = grains is not None or orientations is not None
         one = any(v is not None for v in (euler, quaternion, matrix, axis_angle, align))
         if per_grain and one:
             raise TracefitInputError("give either one orientation (--euler ...) or --grains with --orientations, not both")
-        if per_grain and (grains is None or orientations is None):
+        if per_grain and image is not None and (grains is None or orientations is None):
             raise TracefitInputError("--grains and --orientations go together: a label image and its orientation table")
         if not per_grain and not one:
             raise TracefitInputError("no orientation: give --euler phi1,Phi,phi2 (or --quaternion, --matrix, --axis-angle, --align), "
                                      "or --grains LABELS --orientations TABLE.csv")
-        if image is None:
-            raise TracefitInputError("no image given: tracefit identify IMAGE --lattice ... ")
+        if image is None and not m_obs:
+            raise TracefitInputError("no image and no measured traces: give IMAGE, or --angle A[+-S], --crack A[+-S] "
+                                     "or --measured FILE.csv")
+        if image is None and overlay is not None:
+            raise TracefitInputError("--overlay draws on IMAGE; without an image use tracefit predict --canvas WxH --out OUT.png")
         common = dict(frame=frame, load=ld, orientation_sigma_deg=orientation_sigma, frame_sigma_deg=frame_sigma,
                       p_none=p_none, schmid_weight=schmid_weight, allow_shared_planes=allow_shared_planes)
         extra = {}
@@ -144,17 +170,34 @@ def identify(
             from tracefit.grains import read_orientation_table
 
             table = read_orientation_table(orientations)
-            obs, img, labels, notes = observed_from_image(image, grains, table, pixel_size, min_grain_px)
+            obs, img, labels, notes = (observed_from_image(image, grains, table, pixel_size, min_grain_px)
+                                       if image is not None else ([], None, None, []))
+            if m_obs and any(o.grain is None for o in m_obs):
+                raise TracefitInputError("with --orientations every measured trace needs a grain id (the CSV's grain column); "
+                                         "--angle and --crack give none")
+            obs = obs + m_obs
             ori_map = {k: v.g for k, v in table.items()}
             sig_map = {k: v.sigma_deg for k, v in table.items() if v.sigma_deg is not None}
-            results = identify_grains(obs, lat, ori_map, systems, grain_sigma_deg=sig_map or None, **common)
+            results = identify_observed(obs, lat, systems, orientations=ori_map, grain_sigma_deg=sig_map or None,
+                                        crack_k_sigma=crack_k_sigma, **common)
             extra["grains"] = {"n_table": len(table), "n_with_families": len({o.grain for o in obs})}
         else:
             g, ori = build_orientation(lat, euler, quaternion, matrix, axis_angle, align)
-            obs, img, labels, notes = observed_from_image(image, None, None, pixel_size, min_grain_px)
-            results = identify_families(obs, lat, g, systems, **common)
+            obs, img, labels, notes = (observed_from_image(image, None, None, pixel_size, min_grain_px)
+                                       if image is not None else ([], None, None, []))
+            obs = obs + m_obs
+            results = identify_observed(obs, lat, systems, g=g, crack_k_sigma=crack_k_sigma, **common)
             extra["orientation"] = ori
             ori_map = {None: g}
+        notes = list(notes) + m_notes
+        if m_obs:
+            extra["measured"] = {"convention": MEASURED_CONVENTION, "n_families": len(m_obs),
+                                 "n_cracks": sum(is_crack(o) for o in m_obs),
+                                 "file": str(measured) if measured is not None else None}
+        if any(is_crack(o) for o in m_obs):
+            from tracefit import CAUTION
+
+            extra["caution"] = CAUTION
         if overlay is not None:
             _write_overlay(overlay, img, results, labels)
     if json_out:
@@ -168,6 +211,10 @@ def identify(
         print_json(d)
         return
     _print_text(results, lat, ld)
+    if "measured" in extra:
+        typer.echo(f"measured traces read as: {MEASURED_CONVENTION}")
+    if "caution" in extra:
+        typer.echo(extra["caution"])
 
 
 def _print_text(results, lat, ld) -> None:
@@ -176,10 +223,14 @@ def _print_text(results, lat, ld) -> None:
     if not results:
         typer.echo("no band families detected")
         return
-    typer.echo(f"{len(results)} band famil{'y' if len(results) == 1 else 'ies'}; angles in degrees ccw from the image x axis")
+    nc = sum(getattr(r, "consistent_planes", None) is not None for r in results)
+    cr = f" ({nc} crack{'' if nc == 1 else 's'})" if nc else ""
+    typer.echo(f"{len(results)} band famil{'y' if len(results) == 1 else 'ies'}{cr}; angles in degrees ccw from the image x axis")
     for r in results:
         where = f"grain {r.grain}, " if r.grain is not None else ""
-        head = f"{where}family at {r.angle_deg:.2f} +- {r.angle_sigma_deg:.2f} deg"
+        what = "crack" if getattr(r, "consistent_planes", None) is not None else "family"
+        src = f" [measured{', ' + r.label if r.label and r.label != 'crack' else ''}]" if r.source == "measured" else ""
+        head = f"{where}{what} at {r.angle_deg:.2f} +- {r.angle_sigma_deg:.2f} deg{src}"
         if r.unexplained:
             head += f": UNEXPLAINED (p_none {r.p_none:.2f})"
         elif r.ambiguous:
@@ -193,6 +244,17 @@ def _print_text(results, lat, ld) -> None:
                 f"   p={c.probability:5.3f}  {format_index(c.plane, 'plane'):<12} {c.family:<8} {c.mode:<4} "
                 f"predicted {c.predicted_deg:7.2f} (resid {c.residual_deg:+5.2f}, sigma {c.sigma_deg:4.2f}, incl {c.inclination_deg:4.1f}){bs}"
             )
+        if what == "crack":
+            k = r.k_sigma
+
+            def _pl(q):
+                flag = ", near surface" if q.near_surface else ""
+                return f"{format_index(q.plane, 'plane')} {'/'.join(q.modes)} (resid {q.residual_deg:+.2f}, {k:g} sigma {k * q.sigma_deg:.2f}{flag})"
+
+            cons = "; ".join(_pl(q) for q in r.consistent_planes) or "none"
+            typer.echo(f"   crack consistent within {k:g} sigma with: {cons}")
+            inc = ", ".join(format_index(q.plane, "plane") for q in r.inconsistent_planes) or "none"
+            typer.echo(f"   not consistent with: {inc}")
         for h in r.separation:
             typer.echo(f"   - {h}")
         for n in r.notes:
