@@ -141,7 +141,8 @@ def predicted_trace_table(
     g_many : array_like, shape (N, 3, 3) or (3, 3)
         Orientations.
     normals : array_like, shape (M, 3)
-        Cartesian crystal-frame plane normals (e.g. ``DeformationSystem.normal``), or with
+        Cartesian crystal-frame plane normals (e.g. ``DeformationSystem.normal``; normalised
+        here), or with
         ``indices=True`` plane indices (M, 3) / (M, 4).
     frame : FrameSettings
     near_surface_deg : float
@@ -156,6 +157,8 @@ def predicted_trace_table(
     n = np.atleast_2d(np.asarray(normals, float))
     if indices:
         n = lattice.plane_normal(n)
+    else:
+        n = _unit_rows(n, "plane normal")
     n_img = plane_normals_in_image(g_many, n, frame)
     true, incl = trace_angles(n_img)
     app = apparent_angle(true, frame) if frame.tilt_deg else true
