@@ -2,6 +2,10 @@
 
 from __future__ import annotations
 
+import sys
+from pathlib import Path
+from typing import Optional
+
 import typer
 
 from tracefit.cli import app
@@ -36,6 +40,7 @@ from tracefit.cli.common import (
     parse_crss,
     print_json,
 )
+from tracefit.errors import TracefitInputError
 
 
 @app.command("predict")
@@ -60,11 +65,38 @@ def predict(
     tilt: TiltOpt = 0.0,
     tilt_axis: TiltAxisOpt = "x",
     near_surface: float = typer.Option(5.0, "--near-surface", help="Planes inclined less than this (deg) to the surface leave no usable trace."),
+    overlay: Optional[Path] = typer.Option(None, "--overlay", help="Draw the predicted traces on this picture (needs --out)."),
+    canvas: Optional[str] = typer.Option(None, "--canvas", help="Draw on a blank canvas of WIDTHxHEIGHT pixels instead (needs --out)."),
+    out: Optional[Path] = typer.Option(None, "--out", help="Drawing to write (PNG)."),
+    orientation_sigma: float = typer.Option(1.0, "--orientation-sigma", help="Orientation uncertainty per sample axis, degrees (wedge width)."),
+    wedge_k_sigma: float = typer.Option(2.0, "--wedge-k-sigma", help="Wedge half-width in sigmas of the predicted trace angle."),
+    grains: Optional[Path] = typer.Option(None, "--grains", help="Grain label image of the --overlay picture: traces through each grain's centroid."),
+    orientations: Optional[Path] = typer.Option(None, "--orientations", help="Grain orientation CSV (grain,phi1,Phi,phi2), with --grains."),
     json_out: JsonOpt = False,
 ) -> None:
-    """Predicted trace angles (image frame, degrees ccw from the image's x axis) for one orientation."""
+    """Predicted trace angles (image frame, degrees ccw from the image's x axis) for one orientation.
+
+    With --overlay IMAGE (or --canvas WxH) and --out OUT.png, also draws every predicted
+    trace through the picture's centre (or each grain's centroid with --grains and
+    --orientations), labelled with its plane, with a wedge of +- k sigma from the
+    orientation uncertainty.
+    """
     from tracefit.traces import predict_traces
 
+    if (overlay is not None or canvas is not None) != (out is not None):
+        raise TracefitInputError("drawing needs a picture or canvas and a file: --overlay IMAGE --out OUT.png "
+                                 "or --canvas WIDTHxHEIGHT --out OUT.png")
+    if overlay is not None and canvas is not None:
+        raise TracefitInputError("give --overlay IMAGE or --canvas WIDTHxHEIGHT, not both")
+    if (grains is None) != (orientations is None) or (grains is not None and overlay is None):
+        raise TracefitInputError("--grains and --orientations go together, with --overlay IMAGE: the picture's label image and its orientation table")
+    if not (orientation_sigma >= 0):
+        raise TracefitInputError("--orientation-sigma must be >= 0 degrees")
+    if grains is not None:
+        _predict_grains(lattice, c_over_a, hex_setting, systems_file, modes, families, load, compression, crss,
+                        frame_rotation, flip_x, flip_y, tilt, tilt_axis, near_surface, overlay, grains, orientations,
+                        out, orientation_sigma, wedge_k_sigma, json_out)
+        return
     with cli_warnings():
         lat, file_systems = build_lattice(lattice, c_over_a, hex_setting, systems_file)
         g, ori = build_orientation(lat, euler, quaternion, matrix, axis_angle, align)
@@ -73,10 +105,10 @@ def predict(
         ld = build_load(load, lat, compression)
         crss_map = parse_crss(crss, systems)
         if crss_map and ld is None:
-            from tracefit.errors import TracefitInputError
-
             raise TracefitInputError("--crss gives activation stresses only with a load; add --load (e.g. --load z)")
         traces = predict_traces(lat, g, systems, frame=frame, load=ld, crss=crss_map, near_surface_deg=near_surface)
+        if out is not None:
+            _draw(traces, overlay, canvas, out, orientation_sigma, frame, wedge_k_sigma)
     if json_out:
         print_json(
             {
@@ -89,6 +121,55 @@ def predict(
         )
         return
     _print_table(lat, ori, frame, ld, traces, near_surface)
+
+
+def _draw(traces, overlay, canvas, out, orientation_sigma, frame, k, labels=None) -> None:
+    from tracefit.overlay import draw_predicted, parse_canvas_size, write_overlay
+
+    img, size = None, None
+    if overlay is not None:
+        from tracefit.image import read_image
+
+        img, _ = read_image(overlay)
+    else:
+        size = parse_canvas_size(canvas)
+    rgb = draw_predicted(traces, image=img, canvas_size=size, orientation_sigma_deg=orientation_sigma, frame=frame,
+                         k_sigma=k, labels=labels)
+    write_overlay(out, rgb)
+    print(f"predicted-trace drawing written to {out}", file=sys.stderr)
+
+
+def _predict_grains(lattice, c_over_a, hex_setting, systems_file, modes, families, load, compression, crss,
+                    frame_rotation, flip_x, flip_y, tilt, tilt_axis, near_surface, overlay, grains, orientations,
+                    out, orientation_sigma, k, json_out) -> None:
+    """Per-grain prediction for the drawing: each grain's traces through its centroid."""
+    from tracefit.grains import read_label_image, read_orientation_table
+    from tracefit.orientation import to_euler
+    from tracefit.traces import predict_traces
+
+    with cli_warnings():
+        lat, file_systems = build_lattice(lattice, c_over_a, hex_setting, systems_file)
+        frame = build_frame(frame_rotation, flip_x, flip_y, tilt, tilt_axis)
+        systems = build_systems(lat, file_systems, modes, families)
+        ld = build_load(load, lat, compression)
+        crss_map = parse_crss(crss, systems)
+        table = read_orientation_table(orientations)
+        labels = read_label_image(grains)
+        present = set(int(x) for x in set(labels.ravel().tolist()))
+        ids = [k_ for k_ in sorted(table) if k_ in present]
+        if not ids:
+            raise TracefitInputError("no grain id of the orientation table occurs in the grain label image")
+        per = {gid: predict_traces(lat, table[gid].g, systems, frame=frame, load=ld, crss=crss_map, near_surface_deg=near_surface)
+               for gid in ids}
+        _draw(per, overlay, None, out, orientation_sigma, frame, k, labels=labels)
+    if json_out:
+        print_json({"lattice": lattice_dict(lat), "frame": frame.to_dict(), "load": ld.to_dict() if ld is not None else None,
+                    "grains": {str(gid): {"euler_deg": [float(x) for x in to_euler(table[gid].g)],
+                                          "traces": [t.to_dict() for t in per[gid]]} for gid in ids}})
+        return
+    for gid in ids:
+        typer.echo(f"grain {gid}")
+        _print_table(lat, {"euler_deg": [float(x) for x in to_euler(table[gid].g)]}, frame, ld, per[gid], near_surface)
 
 
 def _print_table(lat, ori, frame, ld, traces, near_surface) -> None:
