@@ -33,7 +33,7 @@ from dataclasses import dataclass
 
 from tracefit.errors import TracefitInputError
 
-__all__ = ["MillerIndex", "parse_index", "format_index", "to_three", "BRACKETS"]
+__all__ = ["MillerIndex", "parse_index", "format_index", "check_values", "to_three", "BRACKETS"]
 
 #: opening bracket -> (closing bracket, kind, family)
 BRACKETS = {
