@@ -108,32 +108,32 @@ def test_bad_image_is_recorded_and_the_rest_go_on(tmp_path, call_log):
 
 def test_all_good_gives_exit_code_zero(tmp_path):
     job = parse_job(JOB.replace("EULER3", "1, 2, 3").replace('name = "bad-two"', 'name = "two"'), tmp_path / "j.toml")
-    res = run_survey(job, tmp_path / "out", workers=1, progress=False, analyse=fake_analyse)
+    res = run_survey(job, tmp_path / "out", workers=1, progress=False, analyse=fake_analyse, figures=False)
     assert res.exit_code == 0 and res.n_ok == 3
 
 
 def test_resume_skips_finished_images_and_redoes_failed_and_changed(tmp_path, call_log):
     out = tmp_path / "out"
-    run_survey(_job(tmp_path), out, workers=1, progress=False, analyse=fake_analyse)
+    run_survey(_job(tmp_path), out, workers=1, progress=False, analyse=fake_analyse, figures=False)
     assert len(call_log()) == 3
     stamp = {n: (out / "images" / f"{n}.json").stat().st_mtime_ns for n in ("one", "three")}
 
-    res = run_survey(_job(tmp_path), out, workers=1, progress=False, analyse=fake_analyse, resume=True)
+    res = run_survey(_job(tmp_path), out, workers=1, progress=False, analyse=fake_analyse, figures=False, resume=True)
     assert call_log()[3:] == ["bad-two"]  # only the failed image ran again
     assert sorted(res.reused) == ["one", "three"]
     assert {n: (out / "images" / f"{n}.json").stat().st_mtime_ns for n in ("one", "three")} == stamp
     assert res.exit_code == 1  # the bad image still fails
 
     # a changed setting changes the fingerprint: that image is redone, the other kept
-    res = run_survey(_job(tmp_path, "40, 20, 30"), out, workers=1, progress=False, analyse=fake_analyse, resume=True)
+    res = run_survey(_job(tmp_path, "40, 20, 30"), out, workers=1, progress=False, analyse=fake_analyse, figures=False, resume=True)
     assert sorted(call_log()[4:]) == ["bad-two", "three"]
     assert res.reused == ["one"]
 
 
 def test_without_resume_everything_is_redone(tmp_path, call_log):
     out = tmp_path / "out"
-    run_survey(_job(tmp_path), out, workers=1, progress=False, analyse=fake_analyse)
-    run_survey(_job(tmp_path), out, workers=1, progress=False, analyse=fake_analyse)
+    run_survey(_job(tmp_path), out, workers=1, progress=False, analyse=fake_analyse, figures=False)
+    run_survey(_job(tmp_path), out, workers=1, progress=False, analyse=fake_analyse, figures=False)
     assert len(call_log()) == 6
 
 
@@ -174,16 +174,16 @@ def test_interrupted_survey_keeps_finished_images(tmp_path, call_log, monkeypatc
         return fake_analyse(im)
 
     with pytest.raises(KeyboardInterrupt):
-        run_survey(job, out, workers=1, progress=False, analyse=interrupting)
+        run_survey(job, out, workers=1, progress=False, analyse=interrupting, figures=False)
     assert (out / "images" / "one.json").is_file() and not (out / "images" / "two.json").exists()
     monkeypatch.setenv("RESUMED", "1")
-    res = run_survey(job, out, workers=1, progress=False, analyse=interrupting, resume=True)
+    res = run_survey(job, out, workers=1, progress=False, analyse=interrupting, figures=False, resume=True)
     assert call_log() == ["one", "two", "three"]
     assert res.reused == ["one"] and res.exit_code == 0
 
 
 def test_results_csv_has_one_row_per_family(tmp_path):
-    res = run_survey(_job(tmp_path), tmp_path / "out", workers=1, progress=False, analyse=fake_analyse)
+    res = run_survey(_job(tmp_path), tmp_path / "out", workers=1, progress=False, analyse=fake_analyse, figures=False)
     with open(res.csv_path, newline="", encoding="utf-8") as f:
         rows = list(csv.DictReader(f))
     assert list(rows[0].keys()) == CSV_COLUMNS
@@ -205,7 +205,7 @@ def test_results_csv_has_one_row_per_family(tmp_path):
 def test_fake_families_are_identified_as_their_planes(tmp_path):
     # Sanity of the fixture itself: for Euler (0, 0, 0) fcc, the (111) trace is at 135 deg and
     # (1-11) at 45 deg (worked vectors of shared/conventions.md, checked there against orix).
-    res = run_survey(_job(tmp_path), tmp_path / "out", workers=1, progress=False, analyse=fake_analyse)
+    res = run_survey(_job(tmp_path), tmp_path / "out", workers=1, progress=False, analyse=fake_analyse, figures=False)
     fams = res.records[0]["families"]
     got = {round(f["angle_deg"]) % 180: f["identification"]["candidates"][0] for f in fams}
     assert set(got) <= {45, 135}
@@ -215,4 +215,4 @@ def test_fake_families_are_identified_as_their_planes(tmp_path):
 
 def test_workers_must_be_positive(tmp_path):
     with pytest.raises(TracefitInputError, match="workers"):
-        run_survey(_job(tmp_path), tmp_path / "out", workers=-1, progress=False, analyse=fake_analyse)
+        run_survey(_job(tmp_path), tmp_path / "out", workers=-1, progress=False, analyse=fake_analyse, figures=False)

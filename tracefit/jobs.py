@@ -374,7 +374,7 @@ def _check_with_geometry(ctx: _Ctx, key_of: dict, im: dict) -> None:
             lattice = lattice_preset(im["lattice"], im.get("c_over_a"))
     except TracefitInputError as exc:
         which = "c_over_a" if im.get("c_over_a") is not None else "lattice"
-        raise ctx.fail(key_of[which], str(exc)) from None
+        raise ctx.fail(key_of[which], f"is not valid: {exc}") from None
     if im.get("load") is not None:
         try:
             from tracefit.traces import parse_load
@@ -384,7 +384,7 @@ def _check_with_geometry(ctx: _Ctx, key_of: dict, im: dict) -> None:
             try:
                 parse_load(im["load"]["axis"], lattice, im["load"]["sense"])
             except TracefitInputError as exc:
-                raise ctx.fail(key_of["load"], str(exc)) from None
+                raise ctx.fail(key_of["load"], f"is not valid: {exc}") from None
     if im.get("frame"):
         try:
             from tracefit.frames import FrameSettings
@@ -400,7 +400,7 @@ def _check_with_geometry(ctx: _Ctx, key_of: dict, im: dict) -> None:
             try:
                 FrameSettings(**im["frame"])
             except TracefitInputError as exc:
-                raise ctx.fail(key_of["frame"], str(exc)) from None
+                raise ctx.fail(key_of["frame"], f"is not valid: {exc}") from None
             except (TypeError, ValueError) as exc:
                 raise ctx.fail(key_of["frame"], f"is not valid: {exc}") from None
 

@@ -330,8 +330,12 @@ def image_fingerprint(im: ImageJob) -> str:
     return hashlib.sha256(json.dumps(d, sort_keys=True, default=str).encode()).hexdigest()
 
 
-def process_image(im: ImageJob, out_dir, analyse: Callable[[ImageJob], ImageAnalysis] | None = None) -> dict:
+def process_image(im: ImageJob, out_dir, analyse: Callable[[ImageJob], ImageAnalysis] | None = None,
+                  figures: bool = True) -> dict:
     """Analyse one image, draw its figures and write its record; never raises for a bad image.
+
+    ``figures=False`` skips the overlay, stereogram and rose PNGs (faster; the report then
+    shows tables only).
 
     Returns
     -------
@@ -365,7 +369,7 @@ def process_image(im: ImageJob, out_dir, analyse: Callable[[ImageJob], ImageAnal
             "warnings": list(a.warnings),
             "notes": list(getattr(a, "notes", []) or []),
         })
-        rec["figures"] = _draw_figures(im, a, img_dir)
+        rec["figures"] = _draw_figures(im, a, img_dir) if figures else {}
     except TracefitInputError as exc:
         rec.update(status="failed", error=str(exc))
     except MemoryError:
@@ -381,11 +385,8 @@ def process_image(im: ImageJob, out_dir, analyse: Callable[[ImageJob], ImageAnal
 
 
 def _worker(args):
-    im, out_dir, analyse = args
-    import matplotlib
-
-    matplotlib.use("Agg", force=True)
-    return process_image(im, out_dir, analyse)
+    im, out_dir, analyse, figures = args
+    return process_image(im, out_dir, analyse, figures)
 
 
 # --------------------------------------------------------------------------- the survey
@@ -464,7 +465,7 @@ class _Progress:
         self.stream.flush()
 
 
-def _previous(out_dir: Path, im: ImageJob) -> dict | None:
+def _previous(out_dir: Path, im: ImageJob, figures: bool) -> dict | None:
     p = out_dir / "images" / f"{im.name}.json"
     try:
         rec = json.loads(p.read_text(encoding="utf-8"))
@@ -473,6 +474,8 @@ def _previous(out_dir: Path, im: ImageJob) -> dict | None:
     if rec.get("status") != "ok" or rec.get("fingerprint") != image_fingerprint(im):
         return None
     figs = rec.get("figures") or {}
+    if not figs and not figures:
+        return rec
     names = [figs.get("overlay"), figs.get("rose"), *(figs.get("stereograms") or [])]
     if not all(n and (out_dir / "images" / n).is_file() for n in names):
         return None
@@ -480,7 +483,8 @@ def _previous(out_dir: Path, im: ImageJob) -> dict | None:
 
 
 def run_survey(job: Job, out_dir, workers: int | None = None, resume: bool = False, progress: bool = True,
-               analyse: Callable[[ImageJob], ImageAnalysis] | None = None, report: bool = True) -> SurveyResult:
+               analyse: Callable[[ImageJob], ImageAnalysis] | None = None, report: bool = True,
+               figures: bool = True) -> SurveyResult:
     """Run every image of a job and write the output folder.
 
     Parameters
@@ -502,6 +506,9 @@ def run_survey(job: Job, out_dir, workers: int | None = None, resume: bool = Fal
         tests; must be picklable (a module-level function) when ``workers > 1``.
     report : bool
         Write ``report.html`` as well.
+    figures : bool
+        Draw the overlay, stereogram and rose PNGs of each image (default); without them
+        the run is faster and the report holds tables only.
 
     Returns
     -------
@@ -517,7 +524,7 @@ def run_survey(job: Job, out_dir, workers: int | None = None, resume: bool = Fal
     reused = []
     todo = []
     for im in job.images:
-        prev = _previous(out_dir, im) if resume else None
+        prev = _previous(out_dir, im, figures) if resume else None
         if prev is not None:
             records[im.name] = prev
             reused.append(im.name)
@@ -530,12 +537,12 @@ def run_survey(job: Job, out_dir, workers: int | None = None, resume: bool = Fal
     n_workers = min(n_workers, max(len(todo), 1))
     if n_workers == 1:
         for im in todo:
-            rec = process_image(im, out_dir, analyse)
+            rec = process_image(im, out_dir, analyse, figures)
             records[im.name] = rec
             bar.step(im.name, rec["status"] if rec["status"] == "ok" else "FAILED")
     elif todo:
         with ProcessPoolExecutor(max_workers=n_workers) as pool:
-            futs = {pool.submit(_worker, (im, out_dir, analyse)): im for im in todo}
+            futs = {pool.submit(_worker, (im, out_dir, analyse, figures)): im for im in todo}
             try:
                 for fut in as_completed(futs):
                     im = futs[fut]

@@ -1,0 +1,102 @@
+"""The bundled demo, end to end: ``tracefit demo`` finds the planes the images were drawn from.
+
+The demo images were drawn by tracefit.synthetic at the traces that tracefit.traces predicts for
+known planes (demo_images/make_demo.py); ``truth.json`` records them. The check here reads the
+results CSV that the real survey (detector + matcher) wrote and compares it with that truth.
+The predicted angles themselves rest on the conventions' worked vectors, which are checked
+against orix and scipy in the geometry tests.
+"""
+
+from __future__ import annotations
+
+import csv
+import json
+import re
+from pathlib import Path
+
+import pytest
+
+from tracefit.demo import demo_dir, demo_job_path
+from tracefit.indices import format_index
+from tracefit.jobs import load_job
+
+
+@pytest.fixture(scope="module")
+def demo_run(tmp_path_factory):
+    import io
+    from contextlib import redirect_stderr, redirect_stdout
+
+    from tracefit.cli import main
+
+    out = tmp_path_factory.mktemp("demo") / "out"
+    so, se = io.StringIO(), io.StringIO()
+    with redirect_stdout(so), redirect_stderr(se):
+        code = main(["demo", "--out", str(out), "--workers", "2"])
+    return code, so.getvalue(), se.getvalue(), out
+
+
+def test_demo_files_are_bundled_and_small():
+    d = demo_dir()
+    job = load_job(demo_job_path())
+    assert len(job.images) == 3
+    for im in job.images:
+        assert im.file.is_file() and im.file.parent == d
+        if im.labels is not None:
+            assert im.labels.is_file() and im.orientations.is_file()
+    assert sum(p.stat().st_size for p in d.iterdir()) < 3_000_000
+    # the top-level demo_images/ copy, when present (source tree), holds the same files
+    top = Path(__file__).resolve().parent.parent / "demo_images"
+    if top.is_dir():
+        for p in d.iterdir():
+            assert (top / p.name).read_bytes() == p.read_bytes(), p.name
+
+
+def test_demo_command_runs_and_says_where_the_report_is(demo_run):
+    code, out, err, folder = demo_run
+    assert code == 0, err
+    m = re.search(r"^report:\s+(.+)$", out, re.M)
+    assert m and Path(m.group(1).strip()) == folder / "report.html"
+    assert (folder / "report.html").stat().st_size > 10_000
+    assert "demo check: 5 of 5" in out
+    assert "survey [" in err  # the progress bar went to stderr, not stdout
+    assert "survey [" not in out
+
+
+def test_demo_identifies_the_planes_it_was_drawn_from(demo_run):
+    code, out, err, folder = demo_run
+    truth = json.loads((demo_dir() / "truth.json").read_text(encoding="utf-8"))
+    with open(folder / "results.csv", newline="", encoding="utf-8") as f:
+        rows = list(csv.DictReader(f))
+    assert {r["status"] for r in rows} == {"ok"}
+    for image, drawn in truth["images"].items():
+        mine = [r for r in rows if r["image"] == image]
+        assert len(mine) == len(drawn), (image, mine)
+        for d in drawn:
+            grain = "" if d["grain"] is None else str(d["grain"])
+            hits = [r for r in mine if r["grain"] == grain and abs(float(r["angle_deg"]) - d["angle_deg"]) < 1.0]
+            assert len(hits) == 1, (image, d)
+            plane = tuple(d["plane"])
+            assert hits[0]["plane"] in (format_index(plane, "plane"), format_index([-x for x in plane], "plane"))
+            assert hits[0]["verdict"] == "identified"
+            assert float(hits[0]["probability"]) > 0.9
+
+
+def test_demo_report_in_the_browser(demo_run, tmp_path):
+    from test_report_browser import CHROMIUM, _PAGE_STATE, Browser
+
+    if CHROMIUM is None:
+        pytest.skip("chromium is not installed (apt-get install chromium); .ci/run installs it")
+    code, out, err, folder = demo_run
+    b = Browser(tmp_path / "profile")
+    try:
+        session = b.open((folder / "report.html").resolve().as_uri())
+        state = json.loads(b.evaluate(session, _PAGE_STATE))
+        assert b.errors(session) == []
+    finally:
+        b.close()
+    # 3 images: overlay + rose each, one stereogram per grain (1 + 2 + 1)
+    assert len(state["images"]) == 10
+    assert all(i["complete"] and i["w"] > 0 for i in state["images"])
+    assert [(t["image"], t["family"]) for t in state["candidates"]] == [
+        ("coupon-A", "F1"), ("coupon-A", "F2"), ("coupon-B", "F1"), ("coupon-B", "F2"), ("coupon-C", "F1")]
+    assert all(t["rows"] >= 1 for t in state["candidates"])
