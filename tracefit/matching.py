@@ -331,6 +331,7 @@ class CandidateSet:
     normals: np.ndarray
     plane_ids: np.ndarray
     systems: list
+    _flat: object = field(default=None, repr=False, compare=False)
 
     def __len__(self):
         return len(self.planes)
@@ -426,6 +427,19 @@ def _is_stress(load) -> bool:
     return load is not None and not hasattr(load, "in_crystal")
 
 
+def _flat_systems(cands: CandidateSet):
+    """All systems of the candidate groups in one list, with their group index (cached)."""
+    if getattr(cands, "_flat", None) is None:
+        flat, grp = [], []
+        for k, ss in enumerate(cands.systems):
+            flat.extend(ss)
+            grp.extend([k] * len(ss))
+        normals = np.array([s.normal for s in flat], float)
+        dirs = np.array([s.dir_unit for s in flat], float)
+        cands._flat = (flat, np.array(grp), normals, dirs)
+    return cands._flat
+
+
 def _load_values(load, cands: CandidateSet, g):
     """Per candidate group: its systems ranked under the load, and the best drive (m or tau, >= 0).
 
@@ -433,33 +447,39 @@ def _load_values(load, cands: CandidateSet, g):
     tensor in sample coordinates, (3, 3) or Voigt (6,) (resolved shear). Slip counts either
     way (|m|); a twin only in its twinning sense (m > 0 in the load's sense).
     """
-    from tracefit.traces import resolved_shear, system_schmid_factors
+    from tracefit.traces import resolved_shear, schmid_factor
 
+    flat, grp, normals, dirs = _flat_systems(cands)
+    twin_g = np.array([m == "twin" for m in cands.modes])
+    twin = twin_g[grp]
+    dir_idx = [tuple(int(round(x)) for x in s.direction) for s in flat]
+    names = [getattr(s, "name", None) for s in flat]
+    if load is None:
+        vals = None
+    elif _is_stress(load):
+        tau = np.atleast_1d(resolved_shear(load, g, normals, dirs))
+        vals = np.where(twin, tau, np.abs(tau))
+    else:
+        m = np.atleast_1d(schmid_factor(load.in_crystal(g), normals, dirs))
+        vals = np.where(twin, load.sign * m, np.abs(m))
+    stress = _is_stress(load)
     out_sys, best_drive = [], []
-    for k, ss in enumerate(cands.systems):
-        twin = cands.modes[k] == "twin"
-        dirs = [tuple(int(round(x)) for x in s.direction) for s in ss]
-        names = [getattr(s, "name", None) for s in ss]
-        if load is None:
-            out_sys.append([SystemChoice(d, None, None, nm, True) for d, nm in zip(dirs, names)])
+    for k in range(len(cands)):
+        idx = np.flatnonzero(grp == k)
+        if vals is None:
+            out_sys.append([SystemChoice(dir_idx[i], None, None, names[i], True) for i in idx])
             best_drive.append(None)
             continue
-        if _is_stress(load):
-            n = np.array([s.normal for s in ss], float)
-            d = np.array([s.dir_unit for s in ss], float)
-            tau = np.atleast_1d(resolved_shear(load, g, n, d))
-            drive = tau if twin else np.abs(tau)
-            choices = [SystemChoice(dd, None, float(v), nm, bool(v > 0) if twin else True)
-                       for dd, v, nm in zip(dirs, drive, names)]
-        else:
-            m = np.atleast_1d(system_schmid_factors(load, g, ss))
-            choices = [SystemChoice(dd, float(v), None, nm, bool(v > 0) if twin else True)
-                       for dd, v, nm in zip(dirs, m, names)]
-        key = (lambda c: c.resolved_shear) if _is_stress(load) else (lambda c: c.schmid_factor)
-        choices.sort(key=lambda c: (not c.active_sense, -key(c)))
+        v = vals[idx]
+        order = idx[np.argsort(-v, kind="stable")]
+        choices = []
+        for i in order:
+            x = float(vals[i])
+            active = bool(x > 0) if twin_g[k] else True
+            choices.append(SystemChoice(dir_idx[i], None if stress else x, x if stress else None, names[i], active))
         top = choices[0]
         out_sys.append(choices)
-        best_drive.append(max(key(top), 0.0) if top.active_sense else 0.0)
+        best_drive.append(max(float(vals[order[0]]), 0.0) if top.active_sense else 0.0)
     return out_sys, best_drive
 
 
@@ -505,13 +525,18 @@ def joint_marginals(logw: np.ndarray, plane_ids: np.ndarray, allow_shared: bool 
     P = K - 1
     npl = int(plane_ids.max()) + 1 if P else 0
     # Collapse candidates to planes for the exclusion, keep within-plane split afterwards.
-    plane_lw = np.full((F, npl + 1), -np.inf)
-    for p in range(npl):
-        sel = np.flatnonzero(plane_ids == p)
-        plane_lw[:, p] = logsumexp(logw[:, sel], axis=1)
-    plane_lw[:, npl] = logw[:, P]
+    onehot = np.zeros((P, npl))
+    onehot[np.arange(P), plane_ids] = 1.0
+    mrow = logw.max(axis=1, keepdims=True)
+    e = np.exp(logw[:, :P] - mrow)
+    psum = e @ onehot  # (F, npl)
+    with np.errstate(divide="ignore"):
+        plane_lw = np.concatenate([np.log(psum) + mrow, logw[:, P:]], axis=1)
     # Prune to the planes that matter for any family (speed), keep "none".
-    keep = np.unique(np.concatenate([np.argsort(-plane_lw[f, :npl])[:12] for f in range(F)]))
+    # (planes more than e^-14 below a family's best hypothesis cannot change any marginal noticeably)
+    row_max = plane_lw.max(axis=1, keepdims=True)
+    rel = plane_lw[:, :npl] >= row_max - 14.0
+    keep = np.unique(np.concatenate([np.argsort(-plane_lw[f, :npl])[: min(12, int(rel[f].sum()))] for f in range(F)]))
     states = (len(keep) + 1) ** F
     if states > max_states:
         return _greedy_marginals(indep, plane_lw, plane_ids, logw)
@@ -534,10 +559,9 @@ def joint_marginals(logw: np.ndarray, plane_ids: np.ndarray, allow_shared: bool 
         marg_plane[f, npl] = m[Q]
     # Split each plane's marginal among its candidates as in the independent weights.
     out = np.zeros_like(indep)
-    for p in range(npl):
-        sel = np.flatnonzero(plane_ids == p)
-        w = np.exp(logw[:, sel] - logsumexp(logw[:, sel], axis=1, keepdims=True))
-        out[:, sel] = w * marg_plane[:, p:p + 1]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        within = np.where(psum[:, plane_ids] > 0, e / psum[:, plane_ids], 0.0)
+    out[:, :P] = within * marg_plane[:, plane_ids]
     out[:, P] = marg_plane[:, npl]
     return out / out.sum(axis=1, keepdims=True)
 
