@@ -137,3 +137,15 @@ def test_figures_save_as_png(tmp_path):
     fig = plots.rose_diagram([30.0, 40.0])
     p = plots.save_figure(fig, tmp_path / "rose.png")
     assert p.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+
+
+def test_stereogram_for_an_orientation_draws_one_circle_per_distinct_plane():
+    from tracefit.lattice import lattice_preset
+    from tracefit.orientation import from_euler
+    from tracefit.systems import catalogue
+
+    lat = lattice_preset("fcc")
+    fig = plots.stereogram_for(lat, from_euler([0.0, 0.0, 0.0]), catalogue(lat, ["slip", "twin"]), matched=[(1, 1, 1)])
+    ax = fig.axes[0]
+    arcs = [ln for ln in ax.lines if len(ln.get_xydata()) > 100]
+    assert len(arcs) == 4 + 1  # four {111} planes (slip and twin share them) + the primitive circle

@@ -216,3 +216,35 @@ def test_fake_families_are_identified_as_their_planes(tmp_path):
 def test_workers_must_be_positive(tmp_path):
     with pytest.raises(TracefitInputError, match="workers"):
         run_survey(_job(tmp_path), tmp_path / "out", workers=-1, progress=False, analyse=fake_analyse, figures=False)
+
+
+def test_cli_survey_with_the_real_detector_skips_a_corrupt_image(tmp_path, run_cli):
+    # The real pipeline (reader, detector, matcher) on one demo coupon plus a truncated PNG:
+    # the PNG is reported and skipped, the coupon is analysed, the exit code is 1.
+    import shutil
+
+    from tracefit.demo import demo_dir
+
+    shutil.copy(demo_dir() / "coupon_C.png", tmp_path / "good.png")
+    (tmp_path / "broken.png").write_bytes((demo_dir() / "coupon_C.png").read_bytes()[:300])
+    job = tmp_path / "job.toml"
+    job.write_text(
+        '[defaults]\nlattice = "hcp"\nc_over_a = 1.587\nmodes = ["twin"]\nfamilies = ["{10-12}", "{11-21}"]\n'
+        'load = { axis = "x", sense = "compression" }\neuler_deg_note = 1\n', encoding="utf-8")
+    code, out, err = run_cli("survey", str(job), "--out", str(tmp_path / "out"))
+    assert code == 2 and "defaults.euler_deg_note" in err  # first a bad job file: exit 2, nothing run
+    job.write_text(job.read_text().replace("euler_deg_note = 1\n", "")
+                   + '[[image]]\nname = "broken"\nfile = "broken.png"\neuler_deg = [250, 22, 84]\n'
+                   + '[[image]]\nname = "good"\nfile = "good.png"\neuler_deg = [250, 22, 84]\n', encoding="utf-8")
+    code, out, err = run_cli("survey", str(job), "--out", str(tmp_path / "out"), "--workers", "1", "--json")
+    assert code == 1
+    assert "Traceback" not in err
+    summary = json.loads(out)  # --json: one object on stdout
+    assert summary["n_ok"] == 1 and summary["n_failed"] == 1 and summary["exit_code"] == 1
+    assert summary["failed"][0]["image"] == "broken" and "broken.png" in summary["failed"][0]["error"]
+    with open(tmp_path / "out" / "results.csv", newline="", encoding="utf-8") as f:
+        rows = list(csv.DictReader(f))
+    assert [(r["image"], r["status"]) for r in rows] == [("broken", "failed"), ("good", "ok")]
+    # the coupon's twin family, drawn from (10-1-2) by demo_images/make_demo.py, is found
+    assert rows[1]["plane"] in ("(10-1-2)", "(-1012)") and rows[1]["mode"] == "twin"
+    assert (tmp_path / "out" / "report.html").is_file()

@@ -21,6 +21,7 @@ __all__ = [
     "wulff_project",
     "great_circle",
     "stereogram",
+    "stereogram_for",
     "rose_diagram",
     "overlay_figure",
     "family_colors",
@@ -211,6 +212,38 @@ def stereogram(planes, matched=None, observed_deg=None, title=None, ax=None, lab
         handles.append(ax.plot([], [], ls="--", color="black", alpha=0.6, label="observed trace")[0])
     ax.legend(handles=handles, loc="lower left", fontsize=6, frameon=False, bbox_to_anchor=(-0.02, -0.03))
     return fig
+
+
+def stereogram_for(lattice, g, systems, frame=None, load=None, observed_deg=None, matched=None, title=None,
+                   ax=None) -> Figure:
+    """Stereogram of every candidate plane of one orientation (a notebook convenience).
+
+    Parameters
+    ----------
+    lattice : tracefit.lattice.Lattice
+    g : array_like (3, 3)
+        Orientation, v_crystal = g v_sample.
+    systems : sequence of DeformationSystem
+        Candidates, e.g. ``tracefit.systems.catalogue(lattice)``.
+    frame : tracefit.frames.FrameSettings, optional
+        Orientation-data frame -> image; the projection is drawn in the image frame.
+    load : LoadAxis or str, optional
+    observed_deg : sequence of float, optional
+        Observed band angles (image frame, degrees), drawn as dashed diameters.
+    matched : sequence of plane index tuples, optional
+        Planes whose poles are highlighted (e.g. the best candidate of each family).
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    from tracefit.frames import data_to_image_matrix
+    from tracefit.traces import predict_traces
+
+    M = data_to_image_matrix(frame)
+    planes = [{"plane": tuple(t.plane), "normal_sample": M @ np.asarray(t.normal_sample, float)}
+              for t in predict_traces(lattice, np.asarray(g, float), systems, frame, load)]
+    return stereogram(planes, matched=matched, observed_deg=observed_deg, title=title, ax=ax)
 
 
 def rose_diagram(angles_deg, weights=None, bin_deg: float = 5.0, title=None, ax=None, labels=None) -> Figure:

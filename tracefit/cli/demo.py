@@ -31,8 +31,20 @@ def demo(
         print(f"tracefit demo: job {demo_job_path()}", file=sys.stderr)
     result = run_demo(out_dir, workers=workers, progress=not quiet)
     checks = check_demo(result)
-    print_summary(result, json_out)
-    if not json_out:
+    if json_out:
+        from tracefit.cli.common import print_json
+        from tracefit.cli.survey import summary_dict
+
+        d = summary_dict(result)
+        d["demo_check"] = [
+            {"image": c.image, "grain": c.grain, "drawn_plane": list(c.drawn_plane),
+             "found_plane": None if c.found_plane is None else list(c.found_plane),
+             "probability": c.probability, "ok": c.ok}
+            for c in checks
+        ]
+        print_json(d)
+    else:
+        print_summary(result, False)
         n_ok = sum(c.ok for c in checks)
         print(f"demo check: {n_ok} of {len(checks)} drawn band families identified as the plane they were drawn from")
         print(f"open the report: {result.report_path.resolve().as_uri()}")
