@@ -241,3 +241,73 @@ def test_bad_inputs_raise_input_errors():
         identify_families([10.0], FCC, np.eye(3)[None], catalogue(FCC))
     with pytest.raises(TracefitInputError):
         candidate_set(catalogue(FCC), modes=["twin"], families=["{110}"])
+
+
+def _g_with(direction_c, axis_s, second_c, second_s):
+    """g (sample -> crystal) putting crystal direction_c along sample axis_s (scipy align_vectors)."""
+    R, _ = Rotation.align_vectors([axis_s, second_s], [direction_c, second_c])  # crystal -> sample
+    return R.as_matrix().T
+
+
+def test_worked_case_primary_system_for_a_123_tensile_axis():
+    # FCC single crystal in tension along [-1 2 3]: the primary system is (111)[-101] with
+    # m = 16 / (14 sqrt 6) = 0.467 (Dieter, Mechanical Metallurgy, Schmid's law worked example;
+    # from memory). The crystal is set with [-123] along sample x and [210] along sample y.
+    l_c = np.array([-1.0, 2.0, 3.0])
+    perp = np.cross(l_c, [0.0, 0.0, 1.0])
+    g = _g_with(l_c, [1.0, 0.0, 0.0], perp, [0.0, 1.0, 0.0])
+    ang = scipy_trace(FCC, Rotation.from_matrix(g.T).as_euler("ZXZ", degrees=True), (1, 1, 1))[0]
+    load = parse_load("[-123]", FCC)
+    r = identify_families([ObservedFamily(ang, 0.3)], FCC, g, catalogue(FCC, ("slip",)), load=load)[0]
+    c = [c for c in r.candidates if same_plane(c.plane, (1, 1, 1))][0]
+    assert c.best_system.schmid_factor == pytest.approx(16 / (14 * math.sqrt(6)), abs=1e-9)
+    assert same_plane(c.best_system.direction, (-1, 0, 1))
+    # (111)[-101] is the largest Schmid factor of all twelve systems
+    allm = [s.schmid_factor for cc in r.candidates for s in cc.systems]
+    assert c.best_system.schmid_factor == pytest.approx(max(allm))
+
+
+def test_traces_on_a_111_surface_form_60_degree_triangles():
+    # On a {111} surface of an fcc crystal the three inclined {111} planes leave traces along
+    # <110> at 60 deg to each other (slip-line triangles; common practice, no source), and the
+    # (111) plane itself lies in the surface: its trace is undefined (huge sigma, near_surface).
+    g = _g_with([1.0, 1.0, 1.0], [0.0, 0.0, 1.0], [1.0, -1.0, 0.0], [1.0, 0.0, 0.0])
+    bunge = Rotation.from_matrix(g.T).as_euler("ZXZ", degrees=True)
+    planes = [(-1, 1, 1), (1, -1, 1), (1, 1, -1)]
+    angs = [scipy_trace(FCC, bunge, p)[0] for p in planes]
+    diffs = sorted(abs((a - b + 90) % 180 - 90) for i, a in enumerate(angs) for b in angs[i + 1:])
+    assert diffs == pytest.approx([60.0, 60.0, 60.0], abs=1e-9)
+    res = identify_families([ObservedFamily(a, 0.3) for a in angs], FCC, g, catalogue(FCC, ("slip",)))
+    for r, p in zip(res, planes):
+        assert same_plane(r.best.plane, p) and r.best.probability > 0.9
+    # a family at an angle between the triangle sides: the in-surface (111) cannot take it with
+    # confidence, since its spread is enormous
+    r = identify_families([ObservedFamily((angs[0] + 30) % 180, 0.3)], FCC, g, catalogue(FCC, ("slip",)))[0]
+    assert all(not same_plane(c.plane, (1, 1, 1)) or (c.near_surface and c.predicted_sigma_deg > 30) for c in r.candidates)
+
+
+def test_stage_tilt_is_undone_before_matching():
+    # tan(apparent) = tan(true) cos(tilt) for a tilt about the image x axis (../shared/conventions.md).
+    from tracefit.frames import FrameSettings
+
+    bunge = (23.0, 41.0, 67.0)
+    true = scipy_trace(FCC, bunge, (1, -1, 1))[0]
+    app = math.degrees(math.atan2(math.sin(math.radians(true)) * math.cos(math.radians(60)), math.cos(math.radians(true)))) % 180
+    cat = catalogue(FCC, ("slip",))
+    tilted = identify_families([ObservedFamily(app, 0.3)], FCC, from_euler(bunge), cat, frame=FrameSettings(tilt_deg=60.0))[0]
+    assert same_plane(tilted.best.plane, (1, -1, 1)) and tilted.best.predicted_deg == pytest.approx(app, abs=1e-6)
+
+
+def test_stress_tensor_ranks_by_resolved_shear():
+    # Uniaxial stress s along sample x as a tensor: tau = s * m for every system (Schmid's law).
+    bunge = (23.0, 41.0, 67.0)
+    a = scipy_trace(FCC, bunge, (1, 1, 1))[0]
+    cat = catalogue(FCC, ("slip",))
+    s = np.zeros((3, 3))
+    s[0, 0] = 200.0
+    rt = identify_families([ObservedFamily(a, 0.3)], FCC, from_euler(bunge), cat, load=s)[0]
+    rm = identify_families([ObservedFamily(a, 0.3)], FCC, from_euler(bunge), cat, load=parse_load("x"))[0]
+    ct = [c for c in rt.candidates if same_plane(c.plane, (1, 1, 1))][0]
+    cm = [c for c in rm.candidates if same_plane(c.plane, (1, 1, 1))][0]
+    assert ct.best_system.resolved_shear == pytest.approx(200.0 * cm.best_system.schmid_factor, rel=1e-9)
+    assert same_plane(ct.best_system.direction, cm.best_system.direction)
