@@ -49,7 +49,7 @@ class FrameFit:
     Attributes
     ----------
     rotation_deg : float
-        Best rho (deg, in [-90, 90)): add it to --frame-rotation... see ``frame``.
+        Best rho (deg, in [-90, 90)): the value to pass as ``--frame-rotation`` (with ``flip_x``).
     rotation_sigma_deg : float
         One-sigma uncertainty of rho, degrees.
     flip_x : bool
