@@ -183,3 +183,15 @@ def test_cli_bad_job_file_is_one_line_and_exit_2(tmp_path, run_cli):
     assert "Traceback" not in err and err.strip().count("\n") == 0
     assert err.startswith("tracefit: error: job.toml, line 7: field 'defaults.pixel_size_um'")
     assert not (tmp_path / "out").exists()
+
+
+def test_the_documented_example_is_a_valid_job():
+    # docs/job-file.md's full example must stay in step with the reader.
+    import re
+
+    doc = (Path(__file__).resolve().parent.parent / "docs" / "job-file.md").read_text(encoding="utf-8")
+    block = re.search(r"```toml\n(.*?)```", doc, re.S).group(1)
+    job = parse_job(block, "/data/job.toml")
+    assert [im.name for im in job.images] == ["coupon-A", "coupon-B", "coupon-C"]
+    assert job.images[1].lattice == "bcc" and job.images[1].labels is not None
+    assert job.images[2].load_sense == "compression" and job.images[0].load_sense == "tension"

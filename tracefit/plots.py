@@ -129,11 +129,11 @@ def _primitive(ax, radius=1.0):
     ax.plot(radius * np.cos(t), radius * np.sin(t), color="black", lw=1.0)
     ax.plot([-0.03, 0.03], [0, 0], color="black", lw=0.6)
     ax.plot([0, 0], [-0.03, 0.03], color="black", lw=0.6)
-    for ang, lab, ha, va in ((0, "X (image right)", "left", "center"), (90, "Y (image up)", "center", "bottom")):
+    for ang, lab, ha, va in ((0, "X\n(right)", "left", "center"), (90, "Y (image up)", "center", "bottom")):
         x, y = np.cos(np.radians(ang)), np.sin(np.radians(ang))
         ax.annotate(lab, (x * 1.02, y * 1.02), ha=ha, va=va, fontsize=7, color="0.3")
-    ax.set_xlim(-1.35, 1.35)
-    ax.set_ylim(-1.25, 1.25)
+    ax.set_xlim(-1.25, 1.42)
+    ax.set_ylim(-1.2, 1.2)
     ax.set_aspect("equal")
     ax.axis("off")
 

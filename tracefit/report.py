@@ -61,10 +61,10 @@ tr.best td{background:#eaf6ee;font-weight:600}
 .figs{display:flex;flex-wrap:wrap;gap:14px;align-items:flex-start}
 figure{margin:0}
 figure img{max-width:100%;height:auto;border:1px solid #c9d2dc}
-figure.overlay img{max-width:640px}
-figure.stereo img{max-width:420px}
+figure.overlay img{max-width:600px}
+figure.stereo img{max-width:440px}
 figure.rose img{max-width:340px}
-figcaption{font-size:11.5px;color:#444;max-width:640px}
+figcaption{font-size:11.5px;color:#444;max-width:600px}
 .error{background:#fdecee;border:1px solid #f1b0b9;padding:8px 12px;font-family:ui-monospace,monospace;font-size:12.5px;white-space:pre-wrap}
 .notes{font-size:12px;color:#444}
 section.image{border-top:1px solid #dde3e9;margin-top:22px}
@@ -166,7 +166,7 @@ def _candidate_table(rec: dict, fam: dict) -> str:
         f", mean spacing {_num(fam['spacing_px'], 1)} px" if fam.get("spacing_px") else "")
     cap = (
         f"<h3>Family {fid}{grain}: bands at {_num(fam.get('angle_deg'))} deg "
-        f"(&plusmn; {_num(fam.get('angle_sigma_deg'))}), {_e(fam.get('n_bands'))} bands{spacing} "
+        f"(&plusmn; {_num(fam.get('angle_sigma_deg'), 3)}), {_e(fam.get('n_bands'))} bands{spacing} "
         f"&rarr; {_verdict(ident)}</h3>"
     )
     pn = ident.get("p_none")
@@ -210,6 +210,17 @@ def _image_section(rec: dict, img_dir: Path) -> str:
         out.append('<figure class="overlay">' + _img_tag(img_dir / figs["overlay"], f"{name}: overlay", "overlay")
                    + f"<figcaption>Detected band families drawn on the micrograph, each labelled with its identified "
                    f"plane (F1 ... F{len(fams)}; G = grain).</figcaption></figure>")
+    st = figs.get("stereograms") or []
+    grs = rec.get("grains") or []
+    for k, sname in enumerate(st):
+        gr = grs[k] if k < len(grs) else {}
+        gtxt = f" of grain {gr['grain']}" if gr.get("grain") is not None else ""
+        eul = (" (Bunge Euler " + ", ".join(_num(x, 1) for x in gr["euler_deg"]) + " deg)") if gr.get("euler_deg") else ""
+        out.append('<figure class="stereo">' + _img_tag(img_dir / sname, f"{name}: stereogram {k + 1}", "stereo")
+                   + f"<figcaption>Stereogram{_e(gtxt)}{_e(eul)}: every candidate plane as its great circle "
+                   "(grey) and pole; matched planes in the colour of their family, with filled poles; observed "
+                   "band traces dashed. Equal-angle (Wulff) projection, upper hemisphere, sample frame = image "
+                   "frame.</figcaption></figure>")
     if figs.get("rose"):
         out.append('<figure class="rose">' + _img_tag(img_dir / figs["rose"], f"{name}: rose diagram", "rose")
                    + "<figcaption>Rose diagram of band angles (axial: 0-180 deg mirrored), weighted by the number of "
@@ -233,18 +244,6 @@ def _image_section(rec: dict, img_dir: Path) -> str:
                f"<th>residual (deg)</th></tr></thead><tbody>{''.join(rows)}</tbody></table>")
     for fam in fams:
         out.append(_candidate_table(rec, fam))
-    st = figs.get("stereograms") or []
-    if st:
-        out.append('<div class="figs">')
-        for k, s in enumerate(st):
-            gr = (rec.get("grains") or [{}] * len(st))[k] if k < len(rec.get("grains") or []) else {}
-            gtxt = f" of grain {gr['grain']}" if gr.get("grain") is not None else ""
-            eul = (" (Bunge Euler " + ", ".join(_num(x, 1) for x in gr["euler_deg"]) + " deg)") if gr.get("euler_deg") else ""
-            out.append('<figure class="stereo">' + _img_tag(img_dir / s, f"{name}: stereogram {k + 1}", "stereo")
-                       + f"<figcaption>Stereogram{_e(gtxt)}{_e(eul)}: every candidate plane as its great circle "
-                       "(grey) and pole; matched planes in colour with filled poles; observed band traces dashed. "
-                       "Equal-angle (Wulff) projection, upper hemisphere, sample frame = image frame.</figcaption></figure>")
-        out.append("</div>")
     out.append("</section>")
     return "".join(out)
 
