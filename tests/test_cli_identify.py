@@ -105,7 +105,10 @@ def test_identify_grain_map_with_frame_rotation(run_cli, grain_map):
     code, out, err = run_cli("identify", str(ip), "--lattice", "fcc", "--grains", str(lp), "--orientations", str(cp),
                              "--frame-rotation", str(RHO), "--modes", "slip", "--json")
     assert code == 0, err
-    fams = json.loads(out)["families"]
+    d = json.loads(out)
+    # the automatic frame check agrees with the given frame
+    assert not d["frame_check"]["misaligned"] and "frame check" not in err
+    fams = d["families"]
     n_ok = 0
     for gid, tr in truth.items():
         mine = [f for f in fams if f["grain"] == gid]
@@ -121,8 +124,12 @@ def test_wrong_frame_leaves_families_unexplained_and_align_frame_finds_it(run_cl
     code, out, err = run_cli("identify", str(ip), "--lattice", "fcc", "--grains", str(lp), "--orientations", str(cp),
                              "--modes", "slip", "--json")
     assert code == 0, err
-    fams = json.loads(out)["families"]
+    d = json.loads(out)
+    fams = d["families"]
     assert sum(f["unexplained"] for f in fams) >= len(fams) // 2
+    # the automatic frame check on the grain map notices, and says which rotation fits
+    assert d["frame_check"]["misaligned"] and abs(d["frame_check"]["rotation_deg"] - RHO) < 1.0
+    assert "frame check" in err
     code, out, err = run_cli("align-frame", str(ip), "--lattice", "fcc", "--grains", str(lp), "--orientations", str(cp),
                              "--modes", "slip", "--json")
     assert code == 0, err
@@ -176,3 +183,4 @@ def test_bad_input_exits_2_without_traceback(run_cli, single, tmp_path, args):
     assert code == 2
     assert "Traceback" not in err and err.strip().startswith("tracefit: error:")
     assert len(err.strip().splitlines()) == 1
+

@@ -119,6 +119,7 @@ def identify(
         None, "--measured", help="CSV of hand-measured lines: angles or pixel endpoints (docs/measured-traces.md)."
     ),
     crack_k_sigma: float = typer.Option(2.0, "--crack-k-sigma", help="A crack is consistent with a plane within this many sigma."),
+    no_frame_check: bool = typer.Option(False, "--no-frame-check", help="Skip the automatic frame-alignment check on grain maps."),
     json_out: JsonOpt = False,
 ) -> None:
     """Identify the slip or twin system behind each band family, with probabilities.
@@ -181,6 +182,7 @@ def identify(
             results = identify_observed(obs, lat, systems, orientations=ori_map, grain_sigma_deg=sig_map or None,
                                         crack_k_sigma=crack_k_sigma, **common)
             extra["grains"] = {"n_table": len(table), "n_with_families": len({o.grain for o in obs})}
+            extra["frame_check"] = _frame_check(obs, lat, ori_map, systems, frame, orientation_sigma, p_none, no_frame_check)
         else:
             g, ori = build_orientation(lat, euler, quaternion, matrix, axis_angle, align)
             obs, img, labels, notes = (observed_from_image(image, None, None, pixel_size, min_grain_px)
@@ -215,6 +217,22 @@ def identify(
         typer.echo(f"measured traces read as: {MEASURED_CONVENTION}")
     if "caution" in extra:
         typer.echo(extra["caution"])
+
+
+def _frame_check(obs, lat, ori_map, systems, frame, osig, p_none, skip):
+    """On a grain map, test the frame against the traces (a wrong frame is a common source of wrong answers)."""
+    if skip:
+        return None
+    from tracefit.alignment import fit_frame
+    from tracefit.measured import is_crack
+
+    use = [o for o in obs if o.grain in ori_map and not is_crack(o)]
+    if len({o.grain for o in use}) < 3 or len(use) < 4:
+        return None
+    fit = fit_frame(use, lat, ori_map, systems, frame=frame, orientation_sigma_deg=osig, p_none=p_none, n_bootstrap=50)
+    for w in fit.warnings:
+        print(f"tracefit: warning: frame check: {w} (see tracefit align-frame)", file=sys.stderr)
+    return fit.to_dict()
 
 
 def _print_text(results, lat, ld) -> None:
