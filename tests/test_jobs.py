@@ -195,3 +195,16 @@ def test_the_documented_example_is_a_valid_job():
     assert [im.name for im in job.images] == ["coupon-A", "coupon-B", "coupon-C"]
     assert job.images[1].lattice == "bcc" and job.images[1].labels is not None
     assert job.images[2].load_sense == "compression" and job.images[0].load_sense == "tension"
+
+
+def test_detect_and_match_options_must_be_known_keywords():
+    ok = GOOD.replace("[[image]]", "detect = { min_bands = 4 }\nmatch = { p_none = 0.1 }\n\n[[image]]", 1)
+    job = parse_job(ok, "/data/job.toml")
+    assert job.images[0].detect == {"min_bands": 4} and job.images[1].match == {"p_none": 0.1}
+    bad = GOOD.replace("[[image]]", "detect = { min_band = 4 }\n\n[[image]]", 1)
+    msg = _err(bad)
+    assert "defaults.detect.min_band" in msg and "min_bands" in msg
+    assert f"line {_line_of(bad, 'detect = {')}" in msg
+    reserved = GOOD.replace('euler_deg = [10, 20, 30]', 'euler_deg = [10, 20, 30]\nmatch = { lattice = "bcc" }')
+    msg = _err(reserved)
+    assert "image[1].match.lattice" in msg and "set by the survey" in msg

@@ -405,6 +405,29 @@ def _check_with_geometry(ctx: _Ctx, key_of: dict, im: dict) -> None:
                 raise ctx.fail(key_of["frame"], f"is not valid: {exc}") from None
 
 
+# Arguments the survey itself passes; a job's detect/match tables may not set them.
+_DETECT_RESERVED = {"image", "mask", "pixel_size_um", "labels", "grain", "path", "notes", "grains"}
+_MATCH_RESERVED = {"observed", "lattice", "g", "systems", "frame", "load", "modes", "families", "grain"}
+
+
+def _check_options(ctx: _Ctx, key: tuple, opts: dict, module: str, func_name: str, reserved: set) -> None:
+    """Keys of a detect/match table must be keyword options of the function they go to."""
+    import importlib
+    import inspect
+
+    try:
+        func = getattr(importlib.import_module(module), func_name)
+    except (ImportError, AttributeError):
+        return  # that module has not landed; the analysis reports any bad option itself
+    kinds = (inspect.Parameter.KEYWORD_ONLY, inspect.Parameter.POSITIONAL_OR_KEYWORD)
+    allowed = {n: 1 for n, p in inspect.signature(func).parameters.items() if p.kind in kinds and n not in reserved}
+    for k in opts:
+        if k in reserved:
+            raise ctx.fail(key + (k,), f"is set by the survey itself and cannot be given in '{key[-1]}'")
+        if k not in allowed:
+            raise _unknown(ctx, key + (k,), allowed)
+
+
 def parse_job(text: str, path: str | Path = "job.toml") -> Job:
     """Parse and validate job-file text; ``path`` sets the name in messages and the base for files.
 
@@ -506,6 +529,10 @@ def parse_job(text: str, path: str | Path = "job.toml") -> Job:
         if not isinstance(inote, str):
             raise ctx.fail(key + ("notes",), "must be a string")
         _check_with_geometry(ctx, {**key_of, "lattice": key_of.get("lattice", key)}, im)
+        if im.get("detect"):
+            _check_options(ctx, key_of["detect"], im["detect"], "tracefit.image.detect", "detect_bands", _DETECT_RESERVED)
+        if im.get("match"):
+            _check_options(ctx, key_of["match"], im["match"], "tracefit.matching", "identify_families", _MATCH_RESERVED)
         images.append(
             ImageJob(
                 name=name,

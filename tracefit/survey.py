@@ -465,6 +465,29 @@ class _Progress:
         self.stream.flush()
 
 
+def available_cores() -> int:
+    """Cores this process may run on (the affinity mask where the system has one)."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except (AttributeError, OSError):
+        return os.cpu_count() or 1
+
+
+def _mp_context():
+    # Workers come from a fresh server process ("forkserver"), not from a fork of this
+    # possibly multi-threaded process (BLAS, OpenCV and GUI threads do not survive a fork
+    # reliably); where forkserver does not exist (Windows, macOS default) use spawn.
+    import multiprocessing as mp
+
+    methods = mp.get_all_start_methods()
+    if "forkserver" not in methods:
+        return mp.get_context("spawn")
+    ctx = mp.get_context("forkserver")
+    # the server imports the heavy modules once; each worker forked from it starts warm
+    ctx.set_forkserver_preload(["tracefit.survey", "tracefit.image.detect", "tracefit.matching", "tracefit.plots"])
+    return ctx
+
+
 def _previous(out_dir: Path, im: ImageJob, figures: bool) -> dict | None:
     p = out_dir / "images" / f"{im.name}.json"
     try:
@@ -494,7 +517,10 @@ def run_survey(job: Job, out_dir, workers: int | None = None, resume: bool = Fal
     out_dir : str or Path
         Output folder (created). See the module docstring for its layout.
     workers : int, optional
-        Worker processes; default all cores. 1 runs in this process.
+        Worker processes; default all cores. 1 runs in this process. Workers start from a
+        fresh server process (``forkserver``; ``spawn`` where that does not exist), so a
+        script that calls this with ``workers > 1`` needs the usual
+        ``if __name__ == "__main__":`` guard.
     resume : bool
         Reuse finished images of an earlier run into the same folder whose inputs and
         settings are unchanged; redo failed, missing and changed ones. Without it every
@@ -517,7 +543,7 @@ def run_survey(job: Job, out_dir, workers: int | None = None, resume: bool = Fal
     """
     out_dir = Path(out_dir)
     (out_dir / "images").mkdir(parents=True, exist_ok=True)
-    n_workers = int(workers) if workers else (os.cpu_count() or 1)
+    n_workers = int(workers) if workers else available_cores()
     if n_workers < 1:
         raise TracefitInputError(f"--workers must be at least 1, got {workers}")
     records: dict[str, dict] = {}
@@ -541,7 +567,7 @@ def run_survey(job: Job, out_dir, workers: int | None = None, resume: bool = Fal
             records[im.name] = rec
             bar.step(im.name, rec["status"] if rec["status"] == "ok" else "FAILED")
     elif todo:
-        with ProcessPoolExecutor(max_workers=n_workers) as pool:
+        with ProcessPoolExecutor(max_workers=n_workers, mp_context=_mp_context()) as pool:
             futs = {pool.submit(_worker, (im, out_dir, analyse, figures)): im for im in todo}
             try:
                 for fut in as_completed(futs):
