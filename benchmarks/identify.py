@@ -145,7 +145,7 @@ def score(results, truth, key):
 RESTRICTED = {"fcc": None, "bcc": ["{110}"], "hcp": ["basal", "prismatic", "{10-12}"]}
 
 
-def run_accuracy(n_total, seed, schmid_weight=0.0, restricted=False):
+def run_accuracy(n_total, seed, schmid_weight=0.0, restricted=False, p_none=0.05):
     rng = np.random.default_rng(seed)
     lats = [("fcc", lattice_preset("fcc")), ("bcc", lattice_preset("bcc")), ("hcp", lattice_preset("hcp", 1.587))]
     per = n_total // 3 + 1
@@ -154,7 +154,8 @@ def run_accuracy(n_total, seed, schmid_weight=0.0, restricted=False):
     all_res, all_truth, all_keys = [], [], []
     for name, lat in lats:
         obs, ori, truth, cs, key = simulate(lat, per, rng, families=RESTRICTED[name] if restricted else None)
-        res = identify_grains(obs, lat, ori, cs, load=load, orientation_sigma_deg=SIG_ORI, schmid_weight=schmid_weight)
+        res = identify_grains(obs, lat, ori, cs, load=load, orientation_sigma_deg=SIG_ORI, schmid_weight=schmid_weight,
+                              p_none=p_none)
         s = score(res, truth, key)
         rows.append((name, s))
         all_res += res
@@ -247,6 +248,11 @@ def main(argv=None):
     _print_rows(rows2, tot2, "\n[with the known load: --schmid-weight 1]")
     rows3, tot3, _ = run_accuracy(n, a.seed, restricted=True)
     _print_rows(rows3, tot3, "\n[user-restricted catalogues, truth drawn from them: bcc {110}; hcp basal, prismatic, {10-12} twin]")
+    print("\n[trade-off of the 'none of these' prior (--p-none), default catalogues, all lattices]")
+    print(f"{'p_none':>7}{'top1|unamb':>12}{'in-set':>9}{'false-unexpl':>14}{'flagged':>9}")
+    for pn in (0.05, 0.15, 0.3, 0.5):
+        _, t, _ = run_accuracy(max(n // 2, 150), a.seed + 7, p_none=pn)
+        print(f"{pn:>7.2f}{100 * t['top1_unamb']:>11.2f}%{100 * t['in_set']:>8.2f}%{100 * t['false_alarm']:>13.2f}%{100 * t['flagged']:>8.1f}%")
     print("\ntargets: top-1 | unambiguous >= 99 %, in-set >= 99.5 %, scratches flagged >= 95 %")
     print(f"result (angle only): top-1 {100 * tot['top1_unamb']:.2f} %, in-set {100 * tot['in_set']:.2f} %, "
           f"scratches flagged {100 * tot['flagged']:.1f} % (of detectable ones {100 * tot['flagged_det']:.1f} %)")
