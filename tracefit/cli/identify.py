@@ -242,8 +242,9 @@ def _print_text(results, lat, ld) -> None:
         typer.echo("no band families detected")
         return
     nc = sum(getattr(r, "consistent_planes", None) is not None for r in results)
-    cr = f" ({nc} crack{'' if nc == 1 else 's'})" if nc else ""
-    typer.echo(f"{len(results)} band famil{'y' if len(results) == 1 else 'ies'}{cr}; angles in degrees ccw from the image x axis")
+    nb = len(results) - nc
+    what = f"{nb} band famil{'y' if nb == 1 else 'ies'}" + (f", {nc} crack{'' if nc == 1 else 's'}" if nc else "")
+    typer.echo(f"{what}; angles in degrees ccw from the image x axis")
     for r in results:
         where = f"grain {r.grain}, " if r.grain is not None else ""
         what = "crack" if getattr(r, "consistent_planes", None) is not None else "family"
