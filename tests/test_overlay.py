@@ -235,3 +235,22 @@ def test_cli_bad_drawing_options(run_cli, tmp_path, args, words):
     assert "Traceback" not in err
     for w in words:
         assert w in err
+
+
+def test_wedge_sigma_equals_the_matchers_under_tilt():
+    # The drawing's spread must be the one the matcher uses (same propagation, same tilt slope).
+    from tracefit.frames import FrameSettings
+    from tracefit.matching import candidate_set, predict_candidates, predicted_trace_sigma
+
+    frame = FrameSettings(tilt_deg=60.0)
+    g = from_euler(BUNGE)
+    systems = catalogue(FCC, ("slip",))
+    trs = predict_traces(FCC, g, systems, frame=frame)
+    cands = candidate_set(systems)
+    ang, incl, slope = predict_candidates(cands, g, frame)
+    psig = predicted_trace_sigma(incl[0], 1.5, slope[0])
+    mine = trace_sigma_deg(trs, 1.5, frame)
+    for t, s in zip(trs, mine):
+        j = int(np.argmin(np.abs((ang[0] - t.angle_deg + 90) % 180 - 90)))
+        assert s == pytest.approx(psig[j], rel=1e-3)
+    assert not np.allclose(mine, trace_sigma_deg(trs, 1.5))  # the tilt does change it
