@@ -2,7 +2,7 @@
 
 The detector is replaced by a fake (``fake_analyse``) that "observes" the predicted traces of
 two planes, so these tests do not depend on image processing; the geometry and the matcher
-are the real ones. Calls are logged to a file (named by an environment variable) so that the
+are the real ones. Each call is logged to ``calls.log`` beside the job's images, so that the
 resume test counts analyses across worker processes instead of timing anything.
 """
 
@@ -20,9 +20,6 @@ from tracefit.errors import TracefitInputError
 from tracefit.jobs import parse_job
 from tracefit.survey import CSV_COLUMNS, ImageAnalysis, run_survey
 
-LOG_ENV = "TRACEFIT_TEST_CALL_LOG"
-
-
 def fake_analyse(im) -> ImageAnalysis:
     """Stand-in for analyse_image: two families at the predicted traces of two planes."""
     from tracefit.angles import angle_to_pixel_direction
@@ -32,10 +29,10 @@ def fake_analyse(im) -> ImageAnalysis:
     from tracefit.survey import _predicted_dicts
     from tracefit.systems import catalogue
 
-    log = os.environ.get(LOG_ENV)
-    if log:
-        with open(log, "a", encoding="utf-8") as f:
-            f.write(im.name + "\n")
+    # (a file beside the images, not an environment variable: workers forked from a
+    # forkserver started earlier would not see a variable set now)
+    with open(im.file.parent / "calls.log", "a", encoding="utf-8") as f:
+        f.write(im.name + "\n")
     if "bad" in im.name:
         raise TracefitInputError(f"{im.file.name}: deliberately unreadable test image")
     lat = lattice_preset(im.lattice, im.c_over_a)
@@ -85,9 +82,8 @@ def _job(tmp_path, euler3="10, 20, 30"):
 
 
 @pytest.fixture
-def call_log(tmp_path, monkeypatch):
+def call_log(tmp_path):
     p = tmp_path / "calls.log"
-    monkeypatch.setenv(LOG_ENV, str(p))
     return lambda: p.read_text().split() if p.exists() else []
 
 
