@@ -43,35 +43,10 @@ from tracefit.errors import TracefitInputError
 
 def observed_from_image(image_path: Path, grains_path: Path | None = None, orientations=None,
                         pixel_size_um: float | None = None, min_grain_px: int = 2500):
-    """Detect band families in an image (per grain with a label image) -> (observed, image, labels, notes)."""
-    from tracefit.image import detect_bands, detect_grains, read_image
-    from tracefit.matching import observed_from_detection
+    """Detect band families in an image (per grain with a label image); see :func:`tracefit.grains.observe_image`."""
+    from tracefit.grains import observe_image
 
-    img, notes = read_image(image_path)
-    if grains_path is None:
-        res = detect_bands(img, pixel_size_um=pixel_size_um)
-        return observed_from_detection(res), img, None, list(notes) + list(getattr(res, "notes", []))
-    from tracefit.grains import read_label_image
-
-    labels = read_label_image(grains_path)
-    if labels.shape != img.shape[:2]:
-        raise TracefitInputError(
-            f"the grain label image is {labels.shape[1]}x{labels.shape[0]} px but the micrograph is "
-            f"{img.shape[1]}x{img.shape[0]} px; they must match pixel for pixel"
-        )
-    ids = sorted(int(k) for k in orientations) if orientations is not None else None
-    present = set(int(x) for x in set(labels.ravel().tolist()))
-    ids = [k for k in ids if k in present] if ids is not None else None
-    if ids is not None and not ids:
-        raise TracefitInputError("no grain id of the orientation table occurs in the grain label image")
-    res = detect_grains(img, labels, pixel_size_um=pixel_size_um, min_pixels=min_grain_px, grains=ids)
-    obs = []
-    for gid in sorted(res):
-        obs.extend(observed_from_detection(res[gid], grain=int(gid)))
-    missing = sorted(present - set(int(k) for k in (orientations or {})))
-    if missing:
-        notes = list(notes) + [f"{len(missing)} grain id(s) of the label image have no orientation and were skipped"]
-    return obs, img, labels, list(notes)
+    return observe_image(image_path, grains_path, orientations, pixel_size_um, min_grain_px)
 
 
 @app.command("identify")
