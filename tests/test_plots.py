@@ -149,3 +149,17 @@ def test_stereogram_for_an_orientation_draws_one_circle_per_distinct_plane():
     ax = fig.axes[0]
     arcs = [ln for ln in ax.lines if len(ln.get_xydata()) > 100]
     assert len(arcs) == 4 + 1  # four {111} planes (slip and twin share them) + the primitive circle
+
+
+def test_overlay_of_a_large_image_keeps_full_resolution_coordinates():
+    img = np.zeros((3000, 4000), np.float32)
+    lab = np.zeros((3000, 4000), int)
+    lab[:, 2000:] = 1
+    fig = plots.overlay_figure(img, [{"angle_deg": 0.0, "lines": [[100, 2900, 3900, 2900]]}], labels=["x"],
+                               grain_labels=lab)
+    ax = fig.axes[0]
+    shown = ax.images[0]
+    assert shown.get_array().shape[1] <= 1600  # drawn through a strided copy
+    assert tuple(shown.get_extent()) == (-0.5, 3999.5, 2999.5, -0.5)
+    assert np.allclose(ax.lines[0].get_xydata(), [[100, 2900], [3900, 2900]])
+    assert sorted(t.get_text() for t in ax.texts) == ["F1: x", "G0", "G1"]

@@ -244,3 +244,19 @@ def test_cli_survey_with_the_real_detector_skips_a_corrupt_image(tmp_path, run_c
     # the coupon's twin family, drawn from (10-1-2) by demo_images/make_demo.py, is found
     assert rows[1]["plane"] in ("(10-1-2)", "(-1012)") and rows[1]["mode"] == "twin"
     assert (tmp_path / "out" / "report.html").is_file()
+
+
+def _no_bands(im):
+    a = fake_analyse(im)
+    a.families, a.identifications = [], []
+    return a
+
+
+def test_an_image_without_bands_keeps_one_row_in_the_csv(tmp_path):
+    job = parse_job(JOB.replace("EULER3", "1, 2, 3").replace('name = "bad-two"', 'name = "two"'), tmp_path / "j.toml")
+    res = run_survey(job, tmp_path / "out", workers=1, progress=False, analyse=_no_bands, figures=False)
+    with open(res.csv_path, newline="", encoding="utf-8") as f:
+        rows = list(csv.DictReader(f))
+    assert [(r["image"], r["status"], r["verdict"], r["family"]) for r in rows] == [
+        (n, "ok", "no bands found", "") for n in ("one", "two", "three")]
+    assert res.exit_code == 0

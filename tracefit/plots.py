@@ -337,17 +337,26 @@ def overlay_figure(image, families, labels=None, title=None, ax=None, max_width_
         ax = fig.add_axes([0.0, 0.0, 1.0, (fw * h / w) / (fw * h / w + 0.45)])
     else:
         fig = ax.figure
-    lo, hi = np.nanmin(img), np.nanmax(img)
-    disp = (img - lo) / (hi - lo) if hi > lo else np.zeros_like(img)
-    ax.imshow(disp, cmap="gray" if disp.ndim == 2 else None, vmin=0, vmax=1, interpolation="nearest")
+    # a large micrograph is shown through a strided copy (the figure has ~600 px anyway);
+    # the extent keeps full-resolution pixel coordinates for the band lines
+    step = max(1, int(np.ceil(max(h, w) / 1600)))
+    view = img[::step, ::step]
+    lo, hi = np.nanmin(view), np.nanmax(view)
+    disp = (view - lo) / (hi - lo) if hi > lo else np.zeros_like(view)
+    ax.imshow(disp, cmap="gray" if disp.ndim == 2 else None, vmin=0, vmax=1, interpolation="nearest",
+              extent=(-0.5, w - 0.5, h - 0.5, -0.5))
     if grain_labels is not None:
         lab_img = np.asarray(grain_labels)
         edge = np.zeros(lab_img.shape, bool)
         edge[:, 1:] |= lab_img[:, 1:] != lab_img[:, :-1]
         edge[1:, :] |= lab_img[1:, :] != lab_img[:-1, :]
-        rgba = np.zeros(lab_img.shape + (4,))
+        if step > 1:  # thicken before striding so thin boundaries survive
+            from scipy.ndimage import binary_dilation
+
+            edge = binary_dilation(edge, iterations=step // 2)[::step, ::step]
+        rgba = np.zeros(edge.shape + (4,))
         rgba[edge] = (1.0, 0.85, 0.0, 0.9)
-        ax.imshow(rgba, interpolation="nearest")
+        ax.imshow(rgba, interpolation="nearest", extent=(-0.5, w - 0.5, h - 0.5, -0.5))
         for gid in np.unique(lab_img):
             if gid < 0:  # not a grain (background, data bar)
                 continue

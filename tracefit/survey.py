@@ -597,13 +597,17 @@ def run_survey(job: Job, out_dir, workers: int | None = None, resume: bool = Fal
 
 
 def csv_rows(records: list[dict]) -> list[dict]:
-    """Results table rows: one per family; a failed image gives one row with its error."""
+    """Results table rows: one per family; a failed image gives one row with its error, and an
+    image without any band family one row with verdict "no bands found"."""
     from tracefit.plots import plane_label
 
     rows = []
     for rec in records:
         if rec.get("status") != "ok":
             rows.append({"image": rec["name"], "status": "failed", "error": rec.get("error")})
+            continue
+        if not rec.get("families"):  # keep the image in the table: no family was found in it
+            rows.append({"image": rec["name"], "status": "ok", "verdict": "no bands found", "error": ""})
             continue
         for fam in rec.get("families") or []:
             ident = fam.get("identification") or {}
