@@ -260,3 +260,16 @@ def test_an_image_without_bands_keeps_one_row_in_the_csv(tmp_path):
     assert [(r["image"], r["status"], r["verdict"], r["family"]) for r in rows] == [
         (n, "ok", "no bands found", "") for n in ("one", "two", "three")]
     assert res.exit_code == 0
+
+
+def test_cli_interrupted_survey_says_how_to_resume(tmp_path, run_cli, monkeypatch):
+    import tracefit.survey
+
+    def interrupted(*a, **k):
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(tracefit.survey, "run_survey", interrupted)
+    job = tmp_path / "job.toml"
+    job.write_text(JOB.replace("EULER3", "1, 2, 3"), encoding="utf-8")
+    code, out, err = run_cli("survey", str(job), "--out", str(tmp_path / "out"))
+    assert code == 130 and "--resume" in err and "Traceback" not in err

@@ -63,14 +63,20 @@ def survey(
 ) -> None:
     """Run every image of a job file in parallel; write results CSV/JSON, overlays and an HTML report.
 
-    Exit code 0 when every image succeeded, 1 when some failed (they are reported and
-    skipped), 2 for a bad job file.
+    Exit code 0 when every image succeeded, 1 when some failed (reported and skipped), 2 for a bad job file, 130 when interrupted (rerun with --resume).
     """
     from tracefit.jobs import load_job
     from tracefit.survey import run_survey
 
+    import sys
+
     j = load_job(job)
     out_dir = out if out is not None else Path("out") / job.stem
-    result = run_survey(j, out_dir, workers=workers, resume=resume, progress=not quiet)
+    try:
+        result = run_survey(j, out_dir, workers=workers, resume=resume, progress=not quiet)
+    except KeyboardInterrupt:
+        print(f"\ntracefit: survey interrupted; finished images are kept in {out_dir}: "
+              f"run the same command with --resume to go on", file=sys.stderr)
+        raise typer.Exit(130) from None
     print_summary(result, json_out)
     raise typer.Exit(result.exit_code)
