@@ -18,6 +18,7 @@ Definitions printed below:
   frame sigma);
 * top-1: the most probable candidate is the true plane; in-set: the true plane is among the
   reported candidates (probability >= 0.01);
+* set size: mean number of distinct planes in the reported candidate set of a real family;
 * a scratch is flagged when the family is reported unexplained; "detectable" scratches are those
   more than 3 sigma from every candidate trace (no angle-only method can flag the others).
 
@@ -128,7 +129,9 @@ def score(results, truth, key):
     flagged_det = sum(r.unexplained for r, _ in det)
     false_alarm = sum(r.unexplained for r, _ in real)
     amb = sum(r.ambiguous for r, _ in real)
+    set_size = np.mean([len(r.planes) for r, _ in real]) if real else float("nan")
     return {
+        "set_size": set_size,
         "families": len(real),
         "unambiguous": len(unamb),
         "top1_unamb": top1 / max(len(unamb), 1),
@@ -168,7 +171,7 @@ def run_accuracy(n_total, seed, schmid_weight=0.0, restricted=False, p_none=0.05
 
 def _print_rows(rows, tot, title):
     print(title)
-    hdr = f"{'lattice':<8}{'families':>9}{'unamb':>7}{'top1|unamb':>12}{'in-set':>9}{'ambig':>8}{'false-unexpl':>14}{'scratches':>10}{'flagged':>9}{'detectable':>11}{'flagged|det':>12}"
+    hdr = f"{'lattice':<8}{'families':>9}{'unamb':>7}{'top1|unamb':>12}{'in-set':>9}{'ambig':>8}{'false-unexpl':>14}{'scratches':>10}{'flagged':>9}{'detectable':>11}{'flagged|det':>12}{'set size':>10}"
     print(hdr)
     def pct(x, n, w, nd):
         return f"{'n/a':>{w + 1}}" if n == 0 else f"{100 * x:>{w}.{nd}f}%"
@@ -177,7 +180,7 @@ def _print_rows(rows, tot, title):
         print(f"{name:<8}{s['families']:>9}{s['unambiguous']:>7}{pct(s['top1_unamb'], s['unambiguous'], 11, 2)}"
               f"{pct(s['in_set'], s['families'], 8, 2)}{pct(s['ambiguous'], s['families'], 7, 1)}"
               f"{pct(s['false_alarm'], s['families'], 13, 2)}{s['scratches']:>10}{pct(s['flagged'], s['scratches'], 8, 1)}"
-              f"{s['detectable']:>11}{pct(s['flagged_det'], s['detectable'], 11, 1)}")
+              f"{s['detectable']:>11}{pct(s['flagged_det'], s['detectable'], 11, 1)}{s['set_size']:>10.2f}")
 
 
 def run_timing(seed):

@@ -78,3 +78,30 @@ def test_two_families_alone_are_reported_as_underdetermined():
 def test_one_family_is_an_input_error():
     with pytest.raises(TracefitInputError):
         search_orientations([ObservedFamily(10.0)], FCC, catalogue(FCC))
+
+
+def test_hcp_four_families_truth_among_the_reported_solutions():
+    # hcp (c/a 1.587) with basal, prismatic and {10-12} twin candidates: four families give a
+    # handful of exact solutions; the truth must be one of them (orix D6h, test reference).
+    from tracefit.matching import candidate_set
+
+    hcp = lattice_preset("hcp", 1.587)
+    cs = candidate_set(catalogue(hcp, families=["basal", "prismatic", "{10-12}"]))
+    R = Rotation.from_euler("ZXZ", (10.0, 30.0, 50.0), degrees=True)
+    n = R.apply(cs.normals)
+    ang = (np.degrees(np.arctan2(n[:, 1], n[:, 0])) + 90.0) % 180.0
+    incl = np.degrees(np.arccos(np.abs(n[:, 2])))
+    obs = [ObservedFamily(ang[i], 0.2) for i in np.argsort(-incl)[:4]]
+    res = search_orientations(obs, hcp, cs, max_solutions=100)
+    g_true = R.as_matrix().T
+    rz = Rotation.from_euler("z", 180, degrees=True).as_matrix()
+
+    def d6h(g1, g2):
+        o1 = Orientation.from_matrix(np.asarray(g1), symmetry=symmetry.D6h)
+        o2 = Orientation.from_matrix(np.asarray(g2), symmetry=symmetry.D6h)
+        return float(np.ravel(o1.angle_with(o2, degrees=True))[0])
+
+    assert min(min(d6h(c.g, g_true), d6h(c.g @ rz, g_true)) for c in res.candidates) < 0.5
+    assert all(math.isfinite(c.uncertainty_deg) for c in res.candidates[:1])
+    if len(res.candidates) > 1:
+        assert any("distinct orientations" in n for n in res.notes)

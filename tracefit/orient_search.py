@@ -57,9 +57,14 @@ class OrientationCandidate:
     assignment: list
     n_explained: int
     constraint_deviation_deg: float | None = None
+    uncertainty_deg: float = float("nan")
+    weak_axis: tuple | None = None
 
     def to_dict(self) -> dict:
+        u = self.uncertainty_deg
         return {
+            "uncertainty_deg": None if not math.isfinite(u) else round(float(u), 3),
+            "weak_axis": None if self.weak_axis is None else [round(float(x), 4) for x in self.weak_axis],
             "euler_deg": [round(float(x), 3) for x in self.euler_deg],
             "partner_euler_deg": [round(float(x), 3) for x in self.partner_euler_deg],
             "log_evidence": round(float(self.log_evidence), 3),
@@ -111,14 +116,22 @@ class _Scorer:
         self.log_prior = np.log((1.0 - p_none) / npl / counts[cands.plane_ids])
         self.lnone = math.log(p_none) - math.log(180.0)
 
-    def score(self, G, extra_sigma):
-        """(N,) robust log evidence of N orientations (each family independently)."""
+    def score(self, G, extra_sigma, best_only=False):
+        """(N,) robust log evidence of N orientations (each family independently).
+
+        ``best_only`` scores each family by its best hypothesis instead of the sum over all:
+        then every exact solution scores the same, whereas the sum also rewards places where
+        two candidate traces happen to meet (which would pull the refinement off the truth).
+        """
         ang, incl, slope = predict_candidates(self.cands, G, self.frame)  # (N, P)
         r = axial_difference(self.oa[None, :, None], ang[:, None, :])  # (N, F, P)
         sig = np.sqrt(self.os[None, :, None] ** 2 + extra_sigma**2)
         ll = axial_logpdf(r, sig) + self.log_prior[None, None, :]
         none = np.full(ll.shape[:2] + (1,), self.lnone)
-        return logsumexp(np.concatenate([ll, none], axis=2), axis=2).sum(axis=1)
+        full = np.concatenate([ll, none], axis=2)
+        if best_only:
+            return full.max(axis=2).sum(axis=1)
+        return logsumexp(full, axis=2).sum(axis=1)
 
 
 def _constraint_family(lattice, direction, axis, n_steps):
@@ -147,7 +160,7 @@ def _refine_batch(scorer, G, sigmas, penalty=None):
     n = len(G)
 
     def cost(GG, s):
-        c = -scorer.score(GG, s)
+        c = -scorer.score(GG, s, best_only=True)
         if penalty is not None:
             c = c + penalty(GG)
         return c
@@ -173,6 +186,47 @@ def _refine_batch(scorer, G, sigmas, penalty=None):
     return G
 
 
+def _uncertainty(g, obs, ids, cands, frame, constraint=None):
+    """First-order orientation uncertainty (deg) of a solution, from the assigned planes' traces.
+
+    J[f, k] = d(trace angle of family f's plane) / d(turn about sample axis k); covariance
+    (J^T W J)^-1 with W = 1 / sigma_f^2, plus the known direction's two perpendicular residuals
+    (weight 1 / tol^2) when given. Returns the largest one-sigma angle and its axis (sample
+    frame); inf when the data leave a free turn.
+    """
+    rows, w = [], []
+    idx = {(cands.planes[i], cands.modes[i]): i for i in range(len(cands))}
+    for o, r in zip(obs, ids):
+        if r.best is None or r.unexplained:
+            continue
+        rows.append(idx[(r.best.plane, r.best.mode)])
+        w.append(1.0 / max(o.angle_sigma_deg, 0.05) ** 2)
+    h = 0.05
+    H = np.zeros((3, 3))
+    if rows:
+        J = np.zeros((len(rows), 3))
+        for k in range(3):
+            rv = np.zeros(3)
+            rv[k] = math.radians(h)
+            ap, _, _ = predict_candidates(cands, g @ Rotation.from_rotvec(rv).as_matrix().T, frame)
+            am, _, _ = predict_candidates(cands, g @ Rotation.from_rotvec(-rv).as_matrix().T, frame)
+            J[:, k] = axial_difference(ap[0, rows], am[0, rows]) / (2 * h)
+        H += J.T @ (J * np.array(w)[:, None])
+    if constraint is not None:
+        dvec, ahat, tol = constraint
+        ds = g.T @ (dvec / np.linalg.norm(dvec))  # known direction in sample coordinates
+        u1 = np.cross(ahat, [1.0, 0.0, 0.0] if abs(ahat[0]) < 0.9 else [0.0, 1.0, 0.0])
+        u1 /= np.linalg.norm(u1)
+        u2 = np.cross(ahat, u1)
+        # a turn w about sample axis e_k moves ds by w (e_k x ds)
+        Jc = np.array([[u @ np.cross(np.eye(3)[k], ds) for k in range(3)] for u in (u1, u2)])
+        H += Jc.T @ Jc / tol**2
+    vals, vecs = np.linalg.eigh(H)
+    if vals[0] <= 1e-9 * max(vals[-1], 1e-12):
+        return float("inf"), tuple(vecs[:, 0])
+    return float(1.0 / math.sqrt(vals[0])), tuple(vecs[:, 0])
+
+
 def search_orientations(
     observed: Sequence[ObservedFamily],
     lattice,
@@ -183,7 +237,7 @@ def search_orientations(
     direction_tol_deg: float = 3.0,
     p_none: float = DEFAULT_P_NONE,
     n_samples: int = 40000,
-    n_seeds: int = 30,
+    n_seeds: int = 40,
     max_solutions: int = 8,
     seed: int = 0,
     modes=None,
@@ -263,7 +317,7 @@ def search_orientations(
         seeds.append(int(i))
     stages = [2.0, 0.8, 0.0]
     Gr = _refine_batch(sc, G[seeds], stages, penalty)
-    vals = sc.score(Gr, 0.0) - (penalty(Gr) if penalty else 0.0)
+    vals = sc.score(Gr, 0.0, best_only=True) - (penalty(Gr) if penalty else 0.0)
     refined = [(float(v), g) for v, g in zip(vals, Gr)]
     refined.sort(key=lambda t: -t[0])
     # merge up to symmetry and the 180-degree turn about the surface normal
@@ -274,7 +328,8 @@ def search_orientations(
             continue
         distinct.append((val, g))
     best = distinct[0][0]
-    keep = [(v, g) for v, g in distinct if v >= best - 6.0][:max_solutions]
+    good = [(v, g) for v, g in distinct if v >= best - 6.0]
+    keep = good[:max_solutions]
     out = []
     for val, g in keep:
         ids = identify_families(obs, lattice, g, cands, frame=frame, orientation_sigma_deg=0.0, p_none=p_none)
@@ -292,10 +347,11 @@ def search_orientations(
                 "residual_deg": None if c is None or r.unexplained else round(c.residual_deg, 4),
             })
         res = np.abs(np.array(res)) if res else np.array([np.nan])
+        unc, axis_w = _uncertainty(g, obs, ids, cands, frame, None if known_direction is None else (dvec, ahat, direction_tol_deg))
         e = tuple(float(x) for x in to_euler(g))
         ep = tuple(float(x) for x in to_euler(g @ rz180))
         out.append(OrientationCandidate(g, e, ep, val, float(np.sqrt(np.nanmean(res**2))), float(np.nanmax(res)), assign, n_ex,
-                                        None if dev is None else dev(g)))
+                                        None if dev is None else dev(g), unc, axis_w))
     n_constraints = len(obs) + (2 if known_direction is not None else 0)
     free = max(0, 3 - n_constraints)
     notes = []
@@ -307,6 +363,14 @@ def search_orientations(
         )
     if known_direction is None or any(dev(c.g @ rz180) < 3.0 * direction_tol_deg for c in out):
         notes.append("each solution is indistinguishable from the same orientation turned 180 deg about the surface normal (partner_euler_deg)")
+    loose = [c for c in out if not math.isfinite(c.uncertainty_deg) or c.uncertainty_deg > 5.0]
+    if loose and not free:
+        notes.append(
+            f"{len(loose)} of the solutions are poorly fixed (orientation uncertainty > 5 deg, see uncertainty_deg and "
+            "weak_axis): steep planes' traces hardly change when the crystal tilts about an in-surface axis"
+        )
     if len(keep) > 1 and not free:
-        notes.append(f"{len(keep)} distinct orientations explain the families about equally well (log evidence within 6)")
+        shown = f" (the best {len(keep)} are listed; raise max_solutions to see all)" if len(good) > len(keep) else ""
+        notes.append(f"{len(good)} distinct orientations (at least) explain the families about equally well (log evidence within 6){shown}; "
+                     "more families, a known direction or a second surface would separate them")
     return OrientationSearchResult(out, free, len(obs), notes)
