@@ -101,6 +101,8 @@ def find_orientation(
         p = c.partner_euler_deg
         line = (f"{k}. Euler ({e[0]:.2f}, {e[1]:.2f}, {e[2]:.2f})  [or ({p[0]:.2f}, {p[1]:.2f}, {p[2]:.2f})]  "
                 f"rms {c.rms_residual_deg:.2f} deg, {c.n_explained}/{len(obs)} explained")
+        u = c.uncertainty_deg
+        line += ", orientation +- " + (f"{u:.1f} deg" if u == u and u != float("inf") else "unbounded")
         if c.constraint_deviation_deg is not None:
             line += f", known direction off by {c.constraint_deviation_deg:.2f} deg"
         typer.echo(line)
