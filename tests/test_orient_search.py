@@ -8,7 +8,6 @@ import math
 
 import numpy as np
 import pytest
-from orix.quaternion import Orientation, symmetry
 from scipy.spatial.transform import Rotation
 
 from tracefit.errors import TracefitInputError
@@ -22,6 +21,8 @@ PLANES = [(1, 1, 1), (-1, 1, 1), (1, -1, 1), (1, 1, -1)]
 
 
 def orix_angle(g1, g2):
+    orix_q = pytest.importorskip("orix.quaternion")
+    Orientation, symmetry = orix_q.Orientation, orix_q.symmetry
     o1 = Orientation.from_matrix(np.asarray(g1), symmetry=symmetry.Oh)
     o2 = Orientation.from_matrix(np.asarray(g2), symmetry=symmetry.Oh)
     return float(np.ravel(o1.angle_with(o2, degrees=True))[0])
@@ -95,6 +96,9 @@ def test_hcp_four_families_truth_among_the_reported_solutions():
     res = search_orientations(obs, hcp, cs, max_solutions=100)
     g_true = R.as_matrix().T
     rz = Rotation.from_euler("z", 180, degrees=True).as_matrix()
+
+    orix_q = pytest.importorskip("orix.quaternion")
+    Orientation, symmetry = orix_q.Orientation, orix_q.symmetry
 
     def d6h(g1, g2):
         o1 = Orientation.from_matrix(np.asarray(g1), symmetry=symmetry.D6h)
