@@ -82,9 +82,10 @@ def _num(x, nd=2) -> str:
     if x is None or x == "":
         return ""
     try:
-        return f"{float(x):.{nd}f}"
+        s = f"{float(x):.{nd}f}"
     except (TypeError, ValueError):
         return _e(x)
+    return s[1:] if s.startswith("-") and float(s) == 0 else s  # no "-0.00"
 
 
 def _plane(p) -> str:
