@@ -100,6 +100,9 @@ class BandFamily:
         Sum over bands of (seen length / image diagonal) x band contrast-to-noise ratio.
     polarity : str
         "dark" or "bright" bands.
+    contrast : float
+        Median relative grey level of the band centres against the local median
+        background (negative for dark bands), e.g. -0.2 = 20 % darker.
     lines : list of BandLine
     """
 
@@ -111,6 +114,7 @@ class BandFamily:
     spacing_um: float | None
     strength: float
     polarity: str = "dark"
+    contrast: float = float("nan")
     lines: list[BandLine] = field(default_factory=list)
 
     def to_dict(self, with_lines: bool = False) -> dict:
@@ -125,6 +129,7 @@ class BandFamily:
         if with_lines:
             d["spacing_sigma_px"] = _num(self.spacing_sigma_px, 3)
             d["polarity"] = self.polarity
+            d["contrast"] = _num(self.contrast, 4)
             d["lines"] = [ln.to_dict() for ln in self.lines]
         return d
 
@@ -211,7 +216,7 @@ def _line_candidates(rp: RidgePixels, mask_w, theta, alpha, chord, v_min, c_min)
     for k in range(n_sec):
         centre = k * _SECTOR_DEG
         sel_t = np.nonzero(sector_of_theta == k)[0]
-        near = np.abs(axial_difference(rp.angle_deg, centre)) <= _SECTOR_DEG / 2 + _SECTOR_TOL_DEG
+        near = rp.sector == k
         if near.sum() < v_min or len(sel_t) == 0:
             continue
         canvas[ri[near], ci[near]] = 1
@@ -250,7 +255,7 @@ def _normal(alpha_deg):
     return np.array([dc, dr]), np.array([-dr, dc])
 
 
-def _radon_refine(x, y, wgt, alpha0, half=1.0, step=0.05, bin_px=0.5):
+def _radon_refine(x, y, wgt, alpha0, half=1.0, step=0.1, bin_px=0.5):
     """Angle maximising the sharpness (sum of squares) of the projection profile."""
 
     def score(a):
@@ -261,10 +266,12 @@ def _radon_refine(x, y, wgt, alpha0, half=1.0, step=0.05, bin_px=0.5):
         return float(np.dot(hist, hist))
 
     best = alpha0
-    for hw, st in ((half, step), (3 * step, step / 5)):
+    for stage, (hw, st) in enumerate(((half, step), (1.5 * step, step / 5))):
         grid = best + np.arange(-hw, hw + st / 2, st)
         sc = np.array([score(a) for a in grid])
         k = int(np.argmax(sc))
+        if stage == 0 and (k == 0 or k == len(grid) - 1):
+            return None  # the profile is sharpest outside the window: no family at alpha0
         best = float(grid[k])
         if 0 < k < len(grid) - 1:
             den = sc[k - 1] - 2 * sc[k] + sc[k + 1]
@@ -290,7 +297,7 @@ def _clip_to_box(p, d, w, h):
     return t_lo, t_hi
 
 
-def _fit_band(img, valid, p, d, half_width, polarity, max_samples=6000):
+def _fit_band(img, valid, p, d, half_width, polarity, pixel_noise, max_samples=6000):
     """Fit one band's centre line at full resolution on a strip sampled along it.
 
     Returns a dict (point, direction, angle, sigma, endpoints, snr, seen length) or None.
@@ -315,10 +322,16 @@ def _fit_band(img, valid, p, d, half_width, polarity, max_samples=6000):
     if valid is not None:
         vm = cv2.remap(valid, mapx, mapy, cv2.INTER_NEAREST, borderMode=cv2.BORDER_CONSTANT, borderValue=0)
         inside &= vm.min(1) > 0
-    q = polarity * (strip - np.median(strip, axis=1, keepdims=True))
+    # background: a straight line between the strip's two outer edges, row by row
+    ne = 2 if hw < 6 else 3
+    left = strip[:, :ne].mean(axis=1, keepdims=True)
+    right = strip[:, -ne:].mean(axis=1, keepdims=True)
+    frac_u = (u[None, :] + hw) / max(2 * hw, 1)
+    q = polarity * (strip - (left + (right - left) * frac_u))
     step = float(t[1] - t[0]) if nt > 1 else 1.0
     q = cv2.GaussianBlur(q, (0, 0), sigmaX=0.8, sigmaY=max(0.5, 2.0 / step))
-    noise = 1.4826 * float(np.median(np.abs(q - np.median(q)))) + 1e-12
+    # pixel noise reduced by the strip smoothing (sum of squared Gaussian weights per axis)
+    noise = pixel_noise * math.sqrt(1.0 / (2 * math.sqrt(math.pi) * 0.8) / (2 * math.sqrt(math.pi) * max(0.5, 2.0 / step))) + 1e-12
     k = np.argmax(q[:, 1:-1], axis=1) + 1
     rows = np.arange(nt)
     qm, q0, qp = q[rows, k - 1], q[rows, k], q[rows, k + 1]
@@ -326,7 +339,8 @@ def _fit_band(img, valid, p, d, half_width, polarity, max_samples=6000):
     frac = np.where(den < 0, 0.5 * (qm - qp) / np.where(den < 0, den, -1.0), 0.0)
     upk = u[k] + np.clip(frac, -0.5, 0.5)
     snr = q0 / noise
-    good = inside & (snr >= 3.0) & (k >= 2) & (k <= 2 * hw - 2)
+    typical = float(np.median(q0[inside])) if inside.any() else 0.0
+    good = inside & (snr >= 4.0) & (q0 >= 0.3 * typical) & (k >= 2) & (k <= 2 * hw - 2)
     if good.sum() < max(12, 0.08 * nt):
         return None
     tg, ug, wg = t[good].astype(np.float64), upk[good].astype(np.float64), np.minimum(snr[good], 30.0).astype(np.float64) ** 2
@@ -366,6 +380,7 @@ def _fit_band(img, valid, p, d, half_width, polarity, max_samples=6000):
         "snr": float(np.median(snr[good][keep])),
         "seen": float(tk.max() - tk.min()),
         "rms": s_res,
+        "shift": float(max(abs(a_ + b_ * tk.min()), abs(a_ + b_ * tk.max()))),
         "n": int(keep.sum()),
     }
 
@@ -433,6 +448,7 @@ def detect_bands(
     working_size: int = 2048,
     scales=(1.0, 1.7, 2.8, 4.5),
     min_coverage: float = 0.3,
+    min_depth: float = 0.035,
     notes: list[str] | None = None,
 ) -> DetectionResult:
     """Detect families of parallel straight bands.
@@ -464,6 +480,9 @@ def detect_bands(
         Hessian scales at working resolution, px.
     min_coverage : float
         Least fraction of a Hough chord that must lie on ridge pixels.
+    min_depth : float
+        Least relative depth of a band below (dark) or above (bright) the local median
+        grey level, e.g. 0.035 = 3.5 %.
     notes : list of str, optional
         Notes to start the result with (e.g. from :func:`tracefit.image.io.read_image`).
 
@@ -518,8 +537,13 @@ def detect_bands(
     if mw_in.sum() < 400:
         res.notes.append("analysed region too small for band detection; no bands reported")
         return res
-    dark, bright = ridge_pixels(flat, mw_in, scales=scales)
+    dark, bright = ridge_pixels(flat, mw_in, sector_deg=_SECTOR_DEG, scales=scales)
     del flat
+    depth_of, dmap = _depth_sampler(wk, mw, f, spacing_hint=bg_sigma)
+    # band pixels must lie below (dark) / above (bright) the local median grey: this drops
+    # the gaps between bands, which are ridges of the opposite sign at the median level
+    dark, bright = (_keep(rp, rp.polarity * dmap[rp.row.astype(np.intp), rp.col.astype(np.intp)] >= 0.5 * min_depth)
+                    for rp in (dark, bright))
 
     theta, alpha = _hough_theta()
     chord, _ = _chord_lengths(mw_in, theta)
@@ -544,17 +568,35 @@ def detect_bands(
         valid_full = m.astype(np.uint8)
     fams = []
     diag_w = math.hypot(hw_, ww_)
-    for rp, ln in kept[: 4 * max_families]:
-        fam = _build_family(img, valid_full, rp, ln, f, pixel_size_um, min_bands, diag_w)
+    pix_noise = _pixel_noise(img, m)
+    # cheap screen before the full-resolution fits: the strongest Hough lines of a
+    # family must be deeper than the local median grey (rejects gaps between bands)
+    attempts = 0
+    for rp, ln in kept:
+        if attempts >= 4 * max_families:
+            break
+        a_c = _vote_mean_angle(ln)
+        # a split cluster of a family already fitted (same polarity)
+        pol_c = "dark" if rp.polarity < 0 else "bright"
+        if any(abs(axial_difference(a_c, fm.angle_deg)) < 2.0 and fm.polarity == pol_c for fm in fams):
+            continue
+        # cheap screen before the full-resolution fits: the strongest Hough lines must be
+        # deeper than the local median grey (rejects the gaps between bands)
+        if _hough_depth(rp, ln, depth_of, f, mw_in) < 0.6 * min_depth:
+            continue
+        attempts += 1
+        fam = _build_family(img, valid_full, rp, ln, f, pixel_size_um, min_bands, diag_w, pix_noise, depth_of, min_depth=min_depth)
         if fam is not None:
             fams.append(fam)
-    # families that collapsed onto the same angle after refinement
-    fams.sort(key=lambda fm: -fm.strength)
+    # Dark and bright "families" at one angle: the bands and the gaps between them. The
+    # bands stand further from the median grey than the gaps do.
+    fams.sort(key=lambda fm: -abs(fm.contrast))
     final: list[BandFamily] = []
     for fm in fams:
         if any(abs(axial_difference(fm.angle_deg, g.angle_deg)) < 2.0 for g in final):
             continue
         final.append(fm)
+    final.sort(key=lambda fm: -fm.strength)
     res.families = final[:max_families]
     if not res.families:
         res.notes.append("no band families found")
@@ -566,13 +608,116 @@ def detect_bands(
     return res
 
 
+_DEBUG = None
+
+
+def _family_sigma(prof, ss, s0, spacing, bin_px=0.5):
+    """Band width scale (px, ~FWHM / 2.4) from the mean projection peak of the bands."""
+    half = int(max(4, min(40, 0.45 * spacing / bin_px)))
+    stack = []
+    for s in ss:
+        i = int((s - s0) / bin_px)
+        if half <= i < len(prof) - half:
+            stack.append(prof[i - half : i + half + 1])
+    if not stack:
+        return 1.5
+    pk = np.mean(stack, axis=0)
+    pk = pk - min(pk[0], pk[-1])
+    top = pk[half]
+    if top <= 0:
+        return 1.5
+    above = np.nonzero(pk >= 0.5 * top)[0]
+    fwhm = (above.max() - above.min() + 1) * bin_px
+    return float(np.clip(fwhm / 2.355, 0.8, 8.0))
+
+
+def _hough_depth(rp, lines, depth_of, f, mw_in, n_lines=5):
+    """Median signed depth along the strongest Hough lines of a candidate (best of 3 offsets)."""
+    h, w = mw_in.shape
+    top = lines[np.argsort(-lines[:, 3])[:n_lines]]
+    vals = []
+    for _, th, rho, _, _ in top:
+        nt = np.array([math.cos(th), math.sin(th)])
+        dt = np.array([-math.sin(th), math.cos(th)])
+        seg = _clip_to_box(rho * nt, dt, w, h)
+        if seg is None:
+            continue
+        tt = np.linspace(seg[0], seg[1], int(np.clip((seg[1] - seg[0]) / 2, 8, 96)))
+        best = None
+        for off in (-1.0, 0.0, 1.0):
+            pw = rho * nt + off * nt + tt[:, None] * dt
+            ok = mw_in[np.clip(np.rint(pw[:, 1]).astype(int), 0, h - 1), np.clip(np.rint(pw[:, 0]).astype(int), 0, w - 1)]
+            if ok.sum() < 8:
+                continue
+            v = float(np.median(rp.polarity * depth_of(((pw + 0.5) * f - 0.5)[ok])))
+            best = v if best is None else max(best, v)
+        if best is not None:
+            vals.append(best)
+    return float(np.median(vals)) if vals else 0.0
+
+
+def _depth_sampler(wk, mw, f, spacing_hint):
+    """Function giving (I - median background) / median background at full-res points."""
+    h, w = wk.shape
+    ds = max(1, int(round(min(h, w) / 256)))
+    small = cv2.resize(wk, (max(8, w // ds), max(8, h // ds)), interpolation=cv2.INTER_AREA)
+    if mw is not None:
+        ms = cv2.resize(mw.astype(np.uint8) * 255, (small.shape[1], small.shape[0]), interpolation=cv2.INTER_AREA) >= 128
+        if ms.any():
+            small = np.where(ms, small, np.median(small[ms])).astype(np.float32)
+    lo, hi = np.percentile(small, [0.1, 99.9])
+    u8 = np.clip((small - lo) / max(hi - lo, 1e-12) * 254 + 0.5, 0, 255).astype(np.uint8)
+    k = int(2 * math.ceil(spacing_hint / ds) + 1)
+    k = max(3, min(k, 2 * (min(small.shape) // 2) - 1))
+    med = cv2.medianBlur(u8, k).astype(np.float32) / 254.0 * (hi - lo) + lo
+    med = cv2.resize(med, (w, h), interpolation=cv2.INTER_LINEAR)
+    med = np.maximum(med, max(1e-6, 0.05 * abs(float(np.median(med)))))
+    dmap = cv2.GaussianBlur(wk, (0, 0), 1.0)
+    dmap -= med
+    dmap /= med
+    del med
+
+    def depth(points_full):
+        pw = (np.asarray(points_full, float) + 0.5) / f - 0.5
+        c = np.clip(np.rint(pw[:, 0]).astype(int), 0, w - 1)
+        r = np.clip(np.rint(pw[:, 1]).astype(int), 0, h - 1)
+        return dmap[r, c]
+
+    return depth, dmap
+
+
+def _keep(rp: RidgePixels, sel) -> RidgePixels:
+    return RidgePixels(rp.col[sel], rp.row[sel], rp.strength[sel], rp.angle_deg[sel], rp.polarity, rp.shape,
+                       None if rp.sector is None else rp.sector[sel])
+
+
+def _pixel_noise(img, m, tile=512):
+    """Robust per-pixel noise (image units) from diagonal second differences on a few tiles."""
+    h, w = img.shape
+    vals = []
+    for fr, fc in ((0.25, 0.25), (0.25, 0.75), (0.75, 0.25), (0.75, 0.75), (0.5, 0.5)):
+        r0 = int(max(0, min(h - tile, fr * h - tile / 2)))
+        c0 = int(max(0, min(w - tile, fc * w - tile / 2)))
+        t = img[r0 : r0 + tile, c0 : c0 + tile]
+        d = t[2:, 2:] - 2 * t[1:-1, 1:-1] + t[:-2, :-2]
+        if m is not None:
+            d = d[m[r0 + 1 : r0 + t.shape[0] - 1, c0 + 1 : c0 + t.shape[1] - 1]]
+        vals.append(d.ravel())
+    v = np.concatenate(vals)
+    if v.size == 0:
+        return 1e-3
+    # var(x[i+1] - 2 x[i] + x[i-1]) = 6 var(x) for white noise
+    return max(1.4826 * float(np.median(np.abs(v - np.median(v)))) / math.sqrt(6.0), 1e-6 * float(np.ptp(img[::16, ::16]) + 1e-12))
+
+
 def _vote_mean_angle(lines):
     from tracefit.angles import axial_mean
 
     return float(axial_mean(lines[:, 0], lines[:, 3]))
 
 
-def _build_family(img, valid_full, rp: RidgePixels, lines, f, pixel_size_um, min_bands, diag_w, max_rms=1.0):
+def _build_family(img, valid_full, rp: RidgePixels, lines, f, pixel_size_um, min_bands, diag_w, pixel_noise, depth_of,
+                  max_rms=1.0, min_depth=0.035, max_spacing_cv=0.75):
     """Refine one candidate family; None when it does not hold up as >= min_bands bands."""
     a0 = _vote_mean_angle(lines)
     near = np.abs(axial_difference(rp.angle_deg, a0)) <= 8.0
@@ -580,6 +725,8 @@ def _build_family(img, valid_full, rp: RidgePixels, lines, f, pixel_size_um, min
         return None
     x, y, wt = rp.col[near].astype(np.float64), rp.row[near].astype(np.float64), rp.strength[near].astype(np.float64)
     a1 = _radon_refine(x, y, wt, a0)
+    if a1 is None:
+        return None
     d, n = _normal(a1)
     cx, cy = float(np.average(x, weights=wt)), float(np.average(y, weights=wt))
     # profile across the bands at the refined angle, to centre the Hough lines
@@ -600,8 +747,7 @@ def _build_family(img, valid_full, rp: RidgePixels, lines, f, pixel_size_um, min
             s = s0 + 0.5 * (lo + int(np.argmax(prof[lo:hi])) + 0.5)
         pos.append((s, votes))
     pos.sort()
-    sig_med = float(np.median(rp.sigma[near]))
-    merge = max(2.5, 2.0 * sig_med)
+    merge = 2.5
     uniq: list[list[float]] = []
     for s, v in pos:
         if uniq and s - uniq[-1][0] < merge:
@@ -614,6 +760,7 @@ def _build_family(img, valid_full, rp: RidgePixels, lines, f, pixel_size_um, min
     ss = np.array([u_[0] for u_ in uniq])
     gaps = np.diff(ss)
     spacing_w = float(np.median(gaps)) if len(gaps) else 50.0
+    sig_med = _family_sigma(prof, ss, s0, spacing_w)
     # ---- full-resolution fits
     sig_full = sig_med * f
     half = int(max(4, min(math.ceil(3.5 * sig_full + 2), math.floor(0.45 * spacing_w * f))))
@@ -627,15 +774,16 @@ def _build_family(img, valid_full, rp: RidgePixels, lines, f, pixel_size_um, min
             return None  # the strongest lines are not sharp bands: not a family
         pw = s * n + cen * d  # working coordinates
         pf = (pw + 0.5) * f - 0.5
-        fit = _fit_band(img, valid_full, pf, d, half, rp.polarity)
-        if fit is not None:
-            fit2 = _fit_band(img, valid_full, fit["point"], fit["direction"], half, rp.polarity)
+        fit = _fit_band(img, valid_full, pf, d, half, rp.polarity, pixel_noise)
+        if fit is not None and fit["shift"] > 0.3:
+            # a second pass, centred on the first fit, when the first one moved the line
+            fit2 = _fit_band(img, valid_full, fit["point"], fit["direction"], half, rp.polarity, pixel_noise)
             fit = fit2 or fit
         if fit is not None:
             fits.append(fit)
     # a broad plateau (the gap between bands of another polarity) gives a wandering
     # centre; a band gives a sharp one
-    fits = [ft for ft in fits if ft["rms"] <= max_rms]
+    fits = [ft for ft in fits if ft["rms"] <= min(max_rms, 0.3 * (half - 2))]
     # Hough lines that converged onto the same band: keep the best fit
     fits.sort(key=lambda z: float(z["point"] @ n))
     dedup = []
@@ -646,6 +794,16 @@ def _build_family(img, valid_full, rp: RidgePixels, lines, f, pixel_size_um, min
             continue
         dedup.append(ft)
     fits = dedup
+    # A band differs from the local *median* grey level; the dark gaps in a lattice of
+    # bright bands (and vice versa) sit at that level and are no bands.
+    for ft in fits:
+        pa, pb = ft["ends"]
+        tt = np.linspace(0.0, 1.0, max(8, int(ft["seen"] / (2.0 * f))))[:, None]
+        pts = pa[None, :] * (1 - tt) + pb[None, :] * tt
+        ft["depth"] = float(np.median(rp.polarity * depth_of(pts)))
+    if _DEBUG is not None:
+        _DEBUG.append((rp.polarity, float(np.median([ft["angle"] for ft in fits])) if fits else None, [round(ft["depth"], 3) for ft in fits]))
+    fits = [ft for ft in fits if ft["depth"] >= min_depth]
     if len(fits) < min_bands:
         return None
     ang = np.array([ft["angle"] for ft in fits])
@@ -664,11 +822,18 @@ def _build_family(img, valid_full, rp: RidgePixels, lines, f, pixel_size_um, min
     nb = len(fits)
     chi2 = float(np.sum(wgt * (dev - mean_dev) ** 2)) / max(nb - 1, 1)
     angle_sigma = math.sqrt(1.0 / float(np.sum(wgt))) * math.sqrt(max(1.0, chi2))
+    if angle_sigma > 1.0:
+        return None
     d_f, n_f = _normal(angle)
     offs = np.sort(np.array([ft["point"] @ n_f for ft in fits]))
     gaps = np.diff(offs)
+    # bands of a family keep a spacing (missed bands only make gaps of several spacings)
+    if len(gaps) >= 2 and np.mean(gaps < 0.45 * np.median(gaps)) > 0.25:
+        return None
     spacing = float(np.mean(gaps)) if len(gaps) else float("nan")
     spacing_sd = float(np.std(gaps, ddof=1)) if len(gaps) > 1 else float("nan")
+    if len(gaps) > 1 and spacing_sd > max_spacing_cv * spacing:
+        return None  # no consistent spacing: chance alignments, not a band family
     diag_full = diag_w * f
     strength = float(sum(ft["seen"] / diag_full * ft["snr"] for ft in fits))
     band_lines = []
@@ -684,6 +849,7 @@ def _build_family(img, valid_full, rp: RidgePixels, lines, f, pixel_size_um, min
         spacing_um=None if pixel_size_um is None or not math.isfinite(spacing) else spacing * pixel_size_um,
         strength=strength,
         polarity="dark" if rp.polarity < 0 else "bright",
+        contrast=float(rp.polarity * np.median([ft["depth"] for ft in fits])),
         lines=band_lines,
     )
 

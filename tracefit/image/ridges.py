@@ -2,9 +2,9 @@
 
 Bands are thin straight valleys (dark) or ridges (bright) in the grey level. After
 dividing out the slowly varying background (uneven illumination), the Hessian of the
-Gaussian-smoothed image has one large eigenvalue across a band and a small one along
-it; its eigenvector gives the local band orientation. Dark and bright bands are kept
-apart, so the weak opposite-sign side lobes beside a band never pose as bands.
+Gaussian-smoothed image is steered to each orientation sector: a band shows a large
+curvature across it and a small one along it. Dark and bright bands are kept apart,
+so the weak opposite-sign side lobes beside a band never pose as bands.
 """
 
 from __future__ import annotations
@@ -14,9 +14,10 @@ from dataclasses import dataclass
 import cv2
 import numpy as np
 
-from tracefit.angles import pixel_direction_angle
+from tracefit.angles import angle_to_pixel_direction
 
-__all__ = ["flatten_background", "RidgePixels", "ridge_pixels"]
+
+__all__ = ["flatten_background", "RidgePixels", "ridge_pixels", "noise_sigma"]
 
 
 def flatten_background(image: np.ndarray, mask: np.ndarray | None, sigma: float) -> np.ndarray:
@@ -64,21 +65,21 @@ class RidgePixels:
     strength : ndarray of float32
         Ridge strength in threshold units (>= 1).
     angle_deg : ndarray of float32
-        Local band direction, image-frame axial degrees.
-    sigma : ndarray of float32
-        Hessian scale that responded best, pixels.
+        Band direction of the pixel's orientation sector, image-frame axial degrees.
     polarity : int
         -1 dark bands, +1 bright bands.
     shape : (int, int)
+    sector : ndarray of int16
+        Orientation sector of each pixel.
     """
 
     col: np.ndarray
     row: np.ndarray
     strength: np.ndarray
     angle_deg: np.ndarray
-    sigma: np.ndarray
     polarity: int
     shape: tuple[int, int]
+    sector: np.ndarray | None = None
 
     def __len__(self) -> int:
         return len(self.col)
@@ -92,18 +93,24 @@ def _hessian(flat, sigma):
     return dxx, dyy, dxy
 
 
-_WHITE = {}
+_WHITE: dict[float, float] = {}
+
+
+def _steered(dxx, dyy, dxy, c, s_):
+    """Second derivatives across (nn) and along (tt) a direction with unit normal (c, s)."""
+    cc, ss, cs2 = np.float32(c * c), np.float32(s_ * s_), np.float32(2 * c * s_)
+    dnn = cc * dxx + ss * dyy + cs2 * dxy
+    dtt = ss * dxx + cc * dyy - cs2 * dxy
+    return dnn, dtt
 
 
 def _white_noise_level(sigma):
-    """95th percentile of the ridge response to unit white noise at ``sigma`` (calibration)."""
+    """95th percentile of the oriented ridge response to unit white noise at ``sigma``."""
     if sigma not in _WHITE:
         z = np.random.default_rng(12345).standard_normal((256, 256)).astype(np.float32)
         dxx, dyy, dxy = _hessian(z, sigma)
-        half = 0.5 * (dxx - dyy)
-        disc = np.sqrt(half * half + dxy * dxy)
-        tr = 0.5 * (dxx + dyy)
-        r = sigma * sigma * np.maximum(tr + disc - np.abs(tr - disc), 0)[16:-16, 16:-16]
+        dnn, dtt = _steered(dxx, dyy, dxy, 1.0, 0.0)
+        r = sigma * sigma * np.maximum(dnn - np.abs(dtt), 0)[16:-16, 16:-16]
         _WHITE[sigma] = float(np.percentile(r, 95))
     return _WHITE[sigma]
 
@@ -118,8 +125,24 @@ def noise_sigma(flat: np.ndarray, mask: np.ndarray | None) -> float:
     return 1.4826 * float(np.median(np.abs(d - np.median(d)))) / np.sqrt(6.0) if d.size else 0.0
 
 
-def ridge_pixels(flat: np.ndarray, mask: np.ndarray | None, scales=(1.5, 2.5, 4.0), k_noise: float = 2.0):
-    """Thin ridge pixels of both polarities from a flattened image.
+def _hessian(flat, sigma):
+    s = cv2.GaussianBlur(flat, (0, 0), sigma, borderType=cv2.BORDER_REFLECT)
+    dxx = cv2.Sobel(s, cv2.CV_32F, 2, 0, ksize=3, scale=0.25)
+    dyy = cv2.Sobel(s, cv2.CV_32F, 0, 2, ksize=3, scale=0.25)
+    dxy = cv2.Sobel(s, cv2.CV_32F, 1, 1, ksize=3, scale=0.25)
+    return dxx, dyy, dxy
+
+
+def ridge_pixels(flat: np.ndarray, mask: np.ndarray | None, sector_deg: float = 15.0,
+                 scales=(1.0, 1.7, 2.8, 4.5), k_noise: float = 2.0):
+    """Thin band-centre pixels per orientation sector and polarity (steered filters).
+
+    For each sector (band direction ``k * sector_deg``) the Hessian is steered to the
+    sector's normal: the response is the curvature across the band minus the
+    magnitude of the curvature along it, normalised by scale (sigma**2) and by the
+    response to white noise of the image's noise level. A band crossed by other
+    bands keeps its own response (second derivatives add), which the isotropic
+    eigen-analysis would lose at every crossing.
 
     Parameters
     ----------
@@ -127,67 +150,60 @@ def ridge_pixels(flat: np.ndarray, mask: np.ndarray | None, scales=(1.5, 2.5, 4.
         Output of :func:`flatten_background`.
     mask : ndarray of bool or None
         Pixels to analyse (already eroded away from mask edges by the caller).
+    sector_deg : float
+        Sector width, degrees (180 / sector_deg sectors).
     scales : sequence of float
         Hessian scales, pixels (about half the band widths looked for).
     k_noise : float
-        Threshold, in units of the 95th percentile of the response to white noise of the
-        image's noise level (so the strength of a kept pixel is >= 1).
+        Threshold in units of the 95th percentile of the white-noise response.
 
     Returns
     -------
     (RidgePixels, RidgePixels)
-        Dark then bright band pixels.
+        Dark then bright band pixels; ``angle_deg`` is the sector's band direction.
     """
     h, w = flat.shape
-    best = {-1: None, 1: None}
     sn = max(noise_sigma(flat, mask), 1e-6)
+    derivs = []
     for sg in scales:
         dxx, dyy, dxy = _hessian(flat, sg)
-        half = 0.5 * (dxx - dyy)
-        disc = np.sqrt(half * half + dxy * dxy)
-        tr = 0.5 * (dxx + dyy)
-        lhi = tr + disc
-        llo = tr - disc
-        # normal direction of the large-|eigenvalue| eigenvector (x = col, y = row)
-        phi_hi = 0.5 * np.arctan2(2.0 * dxy, dxx - dyy)
-        s2 = np.float32(sg * sg / (k_noise * sn * _white_noise_level(sg)))  # response in threshold units
-        dark = s2 * np.maximum(lhi - np.abs(llo), 0)  # valley: large positive curvature across
-        bright = s2 * np.maximum(-llo - np.abs(lhi), 0)
-        del dxx, dyy, half, disc, tr, lhi, llo
-        for pol, resp, phi in ((-1, dark, phi_hi), (1, bright, phi_hi + np.float32(np.pi / 2))):
-            if best[pol] is None:
-                best[pol] = [resp, phi.astype(np.float32), np.full((h, w), sg, np.float32)]
-            else:
-                r0, p0, s0 = best[pol]
-                better = resp > r0
-                r0[better] = resp[better]
-                p0[better] = phi[better]
-                s0[better] = sg
-        del dark, bright, phi_hi, dxy
+        derivs.append((sg, dxx, dyy, dxy, cv2.add(dxx, dyy)))
+    n_sec = int(round(180.0 / sector_deg))
+    acc = {-1: [], 1: []}
+    for k in range(n_sec):
+        centre = k * sector_deg
+        dc, dr = angle_to_pixel_direction(centre)  # band direction (col, row)
+        c, s_ = -dr, dc  # its normal
+        best = {-1: None, 1: None}
+        for sg, dxx, dyy, dxy, tr in derivs:
+            # curvature across the band, and |along| = |trace - across| (trace is invariant)
+            dnn = cv2.scaleAdd(dxy, float(2 * c * s_), cv2.addWeighted(dxx, float(c * c), dyy, float(s_ * s_), 0.0))
+            dtt = cv2.absdiff(tr, dnn)
+            norm = float(sg * sg / (k_noise * sn * _white_noise_level(sg)))
+            for pol in (-1, 1):
+                resp = cv2.addWeighted(dnn, -pol * norm, dtt, -norm, 0.0)
+                if best[pol] is None:
+                    best[pol] = resp
+                else:
+                    cv2.max(best[pol], resp, dst=best[pol])
+            del dnn, dtt
+        # non-maximum suppression across the band (fixed normal per sector)
+        oc, orow = int(np.rint(c)), int(np.rint(s_))
+        for pol in (-1, 1):
+            resp = best[pol]
+            if mask is not None:
+                resp[~mask] = 0
+            pad = np.pad(resp, 1)
+            fwd = pad[1 + orow : 1 + orow + h, 1 + oc : 1 + oc + w]
+            bwd = pad[1 - orow : 1 - orow + h, 1 - oc : 1 - oc + w]
+            keep = (resp > 1.0) & (resp >= fwd) & (resp > bwd)
+            rr, cc = np.nonzero(keep)
+            acc[pol].append((cc, rr, resp[rr, cc], np.full(len(rr), centre, np.float32), np.full(len(rr), k, np.int16)))
+        best.clear()
     out = []
     for pol in (-1, 1):
-        resp, phi, sig = best[pol]
-        if mask is not None:
-            resp[~mask] = 0
-        thr = 1.0
-        # Non-maximum suppression across the ridge (8-neighbour quantised normal).
-        cand = resp > thr
-        rr, cc = np.nonzero(cand)
-        if len(rr) == 0:
-            out.append(RidgePixels(*(np.zeros(0, np.float32) for _ in range(5)), pol, (h, w)))
-            continue
-        ph = phi[rr, cc]
-        dc = np.rint(np.cos(ph)).astype(np.int64)
-        dr = np.rint(np.sin(ph)).astype(np.int64)
-        r1, c1 = np.clip(rr + dr, 0, h - 1), np.clip(cc + dc, 0, w - 1)
-        r2, c2 = np.clip(rr - dr, 0, h - 1), np.clip(cc - dc, 0, w - 1)
-        v = resp[rr, cc]
-        keep = (v >= resp[r1, c1]) & (v > resp[r2, c2])
-        rr, cc, ph, v = rr[keep], cc[keep], ph[keep], v[keep]
-        # band direction is perpendicular to the normal (cos phi, sin phi) in (col, row)
-        ang = pixel_direction_angle(-np.sin(ph), np.cos(ph)).astype(np.float32)
-        out.append(RidgePixels(cc.astype(np.float32), rr.astype(np.float32), v.astype(np.float32), ang,
-                               sig[rr, cc].astype(np.float32), pol, (h, w)))
-        del resp, phi, sig
-    best.clear()
+        parts = acc[pol]
+        cat = [np.concatenate([p[i] for p in parts]) for i in range(5)]
+        out.append(RidgePixels(cat[0].astype(np.float32), cat[1].astype(np.float32), cat[2].astype(np.float32),
+                               cat[3].astype(np.float32), pol, (h, w), cat[4]))
     return out[0], out[1]
