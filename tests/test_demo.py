@@ -100,3 +100,16 @@ def test_demo_report_in_the_browser(demo_run, tmp_path):
     assert [(t["image"], t["family"]) for t in state["candidates"]] == [
         ("coupon-A", "F1"), ("coupon-A", "F2"), ("coupon-B", "F1"), ("coupon-B", "F2"), ("coupon-C", "F1")]
     assert all(t["rows"] >= 1 for t in state["candidates"])
+
+
+def test_demo_report_records_input_digests_and_software(demo_run):
+    import hashlib
+
+    code, out, err, folder = demo_run
+    d = json.loads((folder / "results.json").read_text(encoding="utf-8"))
+    html = (folder / "report.html").read_text(encoding="utf-8")
+    for rec in d["images"]:
+        digest = hashlib.sha256(Path(rec["file"]).read_bytes()).hexdigest()
+        assert rec["inputs_sha256"]["file"] == digest and digest in html
+    assert d["software"]["numpy"] and d["software"]["python"]
+    assert "The job file as run" in html and "Harrow Lane Instruments" in d["job"]["text"]

@@ -142,3 +142,10 @@ def test_report_from_results_json_equals_report_from_result(survey, tmp_path):
     assert a == b
     out = write_report(d, tmp_path / "again.html", img_dir=survey.out_dir / "images")
     assert out.read_text(encoding="utf-8").count('<table class="candidates"') == a.count('<table class="candidates"') == 2
+
+
+def test_report_keeps_the_job_file_as_run(survey, page):
+    pre = "".join(page.text)
+    assert 'name = "bad-two"' in pre  # the job text, shown verbatim (escaped)
+    html = survey.report_path.read_text(encoding="utf-8")
+    assert 'title = &quot;Report &lt;test&gt; &amp; check&quot;' in html

@@ -125,6 +125,7 @@ class Job:
     images: tuple[ImageJob, ...]
     notes: str = ""
     defaults: dict = field(default_factory=dict)
+    text: str = ""  # the job file as written, kept for the report's audit trail
 
     def to_dict(self) -> dict:
         return {
@@ -133,6 +134,7 @@ class Job:
             "notes": self.notes,
             "defaults": self.defaults,
             "images": [im.settings() for im in self.images],
+            "text": self.text,
         }
 
 
@@ -556,7 +558,7 @@ def parse_job(text: str, path: str | Path = "job.toml") -> Job:
             )
         )
     jdefaults = {k: (list(v) if isinstance(v, tuple) else str(v) if isinstance(v, Path) else v) for k, v in defaults.items()}
-    return Job(path=path.resolve(), title=title, images=tuple(images), notes=notes, defaults=jdefaults)
+    return Job(path=path.resolve(), title=title, images=tuple(images), notes=notes, defaults=jdefaults, text=text)
 
 
 def load_job(path: str | Path) -> Job:

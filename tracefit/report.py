@@ -71,6 +71,7 @@ section.image{border-top:1px solid #dde3e9;margin-top:22px}
 code{font-family:ui-monospace,monospace;font-size:12px}
 footer{border-top:1px solid #c9d2dc;margin-top:30px;padding-top:10px;font-size:12px;color:#444}
 nav ul{columns:2;font-size:13px}
+pre.jobtext{background:#f6f8fa;border:1px solid #c9d2dc;padding:8px;font-size:12px;overflow-x:auto}
 """
 
 
@@ -194,7 +195,10 @@ def _image_section(rec: dict, img_dir: Path) -> str:
                + (f" &middot; job file line {_e(rec.get('line'))}" if rec.get("line") else "") + "</p>")
     if rec.get("settings", {}).get("notes"):
         out.append(f'<p class="notes">{_e(rec["settings"]["notes"])}</p>')
-    out.append(f'<table class="settings" data-image="{_e(name)}">{_settings_rows(rec.get("settings") or {})}</table>')
+    digests = "".join(f"<tr><th>SHA-256 of {_e(k if k != 'file' else 'image')}</th><td><code>{_e(v)}</code></td></tr>"
+                      for k, v in (rec.get("inputs_sha256") or {}).items())
+    out.append(f'<table class="settings" data-image="{_e(name)}">{_settings_rows(rec.get("settings") or {})}'
+               f"{digests}</table>")
     if status != "ok":
         out.append(f'<div class="error">This image was not analysed: {_e(rec.get("error"))}</div>')
         out.append("</section>")
@@ -286,6 +290,15 @@ def render_report(result, img_dir, generated_utc: str | None = None) -> str:
     ]
     if job.get("notes"):
         parts.append(f"<p>{_e(job['notes'])}</p>")
+    parts.append(
+        '<p class="notes"><strong>How to read this report.</strong> For every family of parallel bands found '
+        "in an image, tracefit lists the candidate planes whose predicted surface trace fits the measured "
+        "angle, with the residual (measured minus predicted, degrees) and the probability of each, given the "
+        "angle's uncertainty and the orientation's. <em>Identified</em>: one plane holds most of the "
+        "probability. <em>Ambiguous</em>: a second plane holds at least a tenth of the best one's "
+        "probability; other evidence is needed. <em>Unexplained</em>: \"none of these\" is the likeliest "
+        "answer (a scratch, a wrong orientation or frame, or a system outside the chosen modes). The Schmid "
+        "factor of the best system on a plane is given when the load is known.</p>")
     # summary
     srows = []
     for r in images:
@@ -318,6 +331,14 @@ def render_report(result, img_dir, generated_utc: str | None = None) -> str:
             f"<tr><th>{_e(k)}</th><td><code>{_e(json.dumps(v))}</code></td></tr>" for k, v in job["defaults"].items())
             + "</table>")
     parts.append("<h3>Conventions</h3><ul>" + "".join(f"<li>{_e(c)}</li>" for c in CONVENTIONS_SUMMARY) + "</ul>")
+    sw = d.get("software") or {}
+    if sw:
+        parts.append("<h3>Software</h3><table class=\"software\">"
+                     + f"<tr><th>tracefit</th><td>{_e(d.get('tracefit_version', tracefit.__version__))}</td></tr>"
+                     + "".join(f"<tr><th>{_e(k)}</th><td>{_e(v)}</td></tr>" for k, v in sw.items()) + "</table>")
+    if job.get("text"):
+        parts.append("<details><summary>The job file as run</summary><pre class=\"jobtext\">"
+                     f"{_e(job['text'])}</pre></details>")
     parts.append(
         f"<footer><p><strong>Caution.</strong> {_e(caution)}</p><p>Made with tracefit {_e(tracefit.__version__)}. "
         "Each image's full record (detection, every candidate, settings, input fingerprint) is in "

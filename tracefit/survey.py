@@ -355,6 +355,8 @@ def process_image(im: ImageJob, out_dir, analyse: Callable[[ImageJob], ImageAnal
         "status": "ok",
         "error": None,
         "fingerprint": image_fingerprint(im),
+        "inputs_sha256": {k: _file_digest(getattr(im, k)) for k in ("file", "mask", "labels", "orientations")
+                          if getattr(im, k) is not None},
         "tracefit_version": tracefit.__version__,
         "settings": _jsonable(im.settings()),
         "started_utc": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
@@ -429,6 +431,7 @@ class SurveyResult:
     def to_dict(self) -> dict:
         return {
             "tracefit_version": tracefit.__version__,
+            "software": software_versions(),
             "caution": tracefit.CAUTION,
             "job": self.job.to_dict(),
             "out_dir": str(self.out_dir),
@@ -463,6 +466,20 @@ class _Progress:
         else:
             self.stream.write(msg + "\n")
         self.stream.flush()
+
+
+def software_versions() -> dict:
+    """Versions of Python and of the libraries the results depend on (for the audit trail)."""
+    import platform
+    from importlib import metadata
+
+    out = {"python": platform.python_version(), "platform": platform.platform(terse=True)}
+    for dist in ("numpy", "scipy", "opencv-python-headless", "scikit-image", "matplotlib"):
+        try:
+            out[dist] = metadata.version(dist)
+        except metadata.PackageNotFoundError:
+            out[dist] = None
+    return out
 
 
 def available_cores() -> int:
