@@ -141,6 +141,14 @@ class _Evaluator:
             self.ang0 = ang0
             self.psig = predicted_trace_sigma(incl, osig, slope)
             self.sig = np.sqrt(self.os[:, :, None] ** 2 + self.psig[:, None, :] ** 2)
+            # Without tilt a frame turn rho only shifts every predicted angle: precompute the
+            # doubled residual at rho = 0 and the density's normaliser (same formula as
+            # tracefit.matching.axial_logpdf), so each trial rho costs a rotation of (cos, sin).
+            r0 = np.radians(2.0 * axial_difference(self.oa[:, :, None], ang0[:, None, :]))
+            self.c0, self.s0 = np.cos(r0), np.sin(r0)
+            srad = np.radians(np.maximum(self.sig, 1e-3))
+            self.kappa = 1.0 / (4.0 * srad * srad)
+            self.lognorm = axial_logpdf(0.0, self.sig) - 0.0 + self.log_prior[None, None, :]
 
     def _ll(self, rho):
         if not self.tilt:
@@ -153,9 +161,15 @@ class _Evaluator:
         r = axial_difference(self.oa[:, :, None], ang[:, None, :])  # (n, F, P)
         return r, axial_logpdf(r, sig) + self.log_prior[None, None, :]
 
+    def _ll_fast(self, rho):
+        # cos(2 (r0 - rho)) = cos 2r0 cos 2rho + sin 2r0 sin 2rho
+        t = math.radians(2.0 * rho)
+        c2 = self.c0 * math.cos(t) + self.s0 * math.sin(t)
+        return self.kappa * (c2 - 1.0) + self.lognorm
+
     def per_grain(self, rho):
         """(n_grains,) summed robust log evidence of each grain's families."""
-        _, ll = self._ll(rho)
+        ll = self._ll_fast(rho) if not self.tilt else self._ll(rho)[1]
         lse = np.logaddexp(logsumexp(ll, axis=2), self.lnone)
         return np.where(self.mask, lse, 0.0).sum(axis=1)
 
