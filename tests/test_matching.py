@@ -311,3 +311,15 @@ def test_stress_tensor_ranks_by_resolved_shear():
     cm = [c for c in rm.candidates if same_plane(c.plane, (1, 1, 1))][0]
     assert ct.best_system.resolved_shear == pytest.approx(200.0 * cm.best_system.schmid_factor, rel=1e-9)
     assert same_plane(ct.best_system.direction, cm.best_system.direction)
+
+
+def test_a_wrong_orientation_is_named_when_every_family_of_a_grain_fails():
+    # Families from one orientation, matched against a wrong one (phi2 off by 47 deg): nothing fits.
+    bunge = (23.0, 41.0, 67.0)
+    obs = _observed_for(bunge, [(1, 1, 1), (1, -1, 1)])
+    cat = catalogue(FCC, ("slip",))
+    res = identify_families(obs, FCC, from_euler((23.0, 41.0, 20.0)), cat, grain=5)
+    assert all(r.unexplained for r in res)
+    assert all(any("orientation" in n and "grain 5" in n for n in r.notes) for r in res)
+    right = identify_families(obs, FCC, from_euler(bunge), cat, grain=5)
+    assert not any("are unexplained" in n for r in right for n in r.notes)

@@ -808,6 +808,14 @@ def _identify_one(obs, cands, g, ang, incl, slope, load, osig, fsig, p_none, sch
         sep = _separation_hints(cl, load, g, cands) if (ambiguous or _mixed_modes(cl)) and not unexplained else []
         results.append(FamilyIdentification(o.angle_deg, o.angle_sigma_deg, o.grain, o.source, o.label,
                                             bool(unexplained), bool(ambiguous), pn, cl, sep, notes))
+    if len(results) >= 2 and all(r.unexplained for r in results):
+        # Several families and none fits: the orientation (or the frame) is the likelier culprit.
+        where = "this grain" if obs[0].grain is None else f"grain {obs[0].grain}"
+        for r in results:
+            r.notes.append(
+                f"all {len(results)} families of {where} are unexplained: its orientation, the frame alignment or the "
+                "phase is probably wrong; tracefit find-orientation can propose orientations from these angles"
+            )
     return results
 
 
