@@ -196,6 +196,7 @@ def fit_frame(
     modes=None,
     families=None,
     n_bootstrap: int = 200,
+    coarse_step_deg: float = _STEP,
     seed: int = 0,
 ) -> FrameFit:
     """Fit the in-plane rotation (and a mirror) between orientation data and image.
@@ -217,6 +218,8 @@ def fit_frame(
         Also try the mirrored frame (flip_x).
     n_bootstrap : int
         Bootstrap resamples over grains for the uncertainty (0 = curvature only).
+    coarse_step_deg : float
+        Step of the first scan over rho (the best point is then refined on a 0.025 deg grid).
 
     Returns
     -------
@@ -243,7 +246,7 @@ def fit_frame(
     given_flip = bool(frame.flip_x) != bool(frame.flip_y)  # flip_y == flip_x + 180 deg turn
     given_rho = float(frame.rotation_deg) + (180.0 if frame.flip_y else 0.0)
     states = [False, True] if fit_mirror else [given_flip]
-    grid = np.arange(-90.0, 90.0, _STEP)
+    grid = np.arange(-90.0, 90.0, float(coarse_step_deg))
     scans = {}
     evals = {}
     for st in states:
@@ -257,7 +260,8 @@ def fit_frame(
     scan = scans[best_state]
     i0 = int(np.argmax(scan))
     # Fine local grid (periodic), per grain, for refinement and bootstrap.
-    fine = grid[i0] + np.arange(-2.0, 2.0001, 0.02)
+    half = max(1.0, 1.5 * float(coarse_step_deg))
+    fine = grid[i0] + np.arange(-half, half + 1e-9, 0.025)
     per = np.array([ev.per_grain(r) for r in fine])  # (K, n_grains)
     tot = per.sum(axis=1)
     k0 = int(np.argmax(tot))

@@ -204,7 +204,8 @@ def _frame_check(obs, lat, ori_map, systems, frame, osig, p_none, skip):
     use = [o for o in obs if o.grain in ori_map and not is_crack(o)]
     if len({o.grain for o in use}) < 3 or len(use) < 4:
         return None
-    fit = fit_frame(use, lat, ori_map, systems, frame=frame, orientation_sigma_deg=osig, p_none=p_none, n_bootstrap=50)
+    fit = fit_frame(use, lat, ori_map, systems, frame=frame, orientation_sigma_deg=osig, p_none=p_none, n_bootstrap=50,
+                    coarse_step_deg=1.0)
     for w in fit.warnings:
         print(f"tracefit: warning: frame check: {w} (see tracefit align-frame)", file=sys.stderr)
     return fit.to_dict()
