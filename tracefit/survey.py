@@ -386,6 +386,16 @@ def process_image(im: ImageJob, out_dir, analyse: Callable[[ImageJob], ImageAnal
     return rec
 
 
+def _init_worker() -> None:
+    # One process per core already: keep OpenCV from starting a thread per core in each worker.
+    try:
+        import cv2
+
+        cv2.setNumThreads(1)
+    except Exception:  # pragma: no cover - OpenCV missing or without threading control
+        pass
+
+
 def _worker(args):
     im, out_dir, analyse, figures = args
     return process_image(im, out_dir, analyse, figures)
@@ -584,7 +594,7 @@ def run_survey(job: Job, out_dir, workers: int | None = None, resume: bool = Fal
             records[im.name] = rec
             bar.step(im.name, rec["status"] if rec["status"] == "ok" else "FAILED")
     elif todo:
-        with ProcessPoolExecutor(max_workers=n_workers, mp_context=_mp_context()) as pool:
+        with ProcessPoolExecutor(max_workers=n_workers, mp_context=_mp_context(), initializer=_init_worker) as pool:
             futs = {pool.submit(_worker, (im, out_dir, analyse, figures)): im for im in todo}
             try:
                 for fut in as_completed(futs):
