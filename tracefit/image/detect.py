@@ -297,7 +297,7 @@ def _clip_to_box(p, d, w, h):
     return t_lo, t_hi
 
 
-def _fit_band(img, valid, p, d, half_width, polarity, pixel_noise, max_samples=6000):
+def _fit_band(img, valid, p, d, half_width, polarity, pixel_noise, max_samples=1500, f=1):
     """Fit one band's centre line at full resolution on a strip sampled along it.
 
     Returns a dict (point, direction, angle, sigma, endpoints, snr, seen length) or None.
@@ -320,8 +320,15 @@ def _fit_band(img, valid, p, d, half_width, polarity, pixel_noise, max_samples=6
     strip = cv2.remap(img, mapx, mapy, cv2.INTER_LINEAR, borderMode=cv2.BORDER_REPLICATE)
     inside = (mapx.min(1) >= 0) & (mapx.max(1) <= w - 1) & (mapy.min(1) >= 0) & (mapy.max(1) <= h - 1)
     if valid is not None:
-        vm = cv2.remap(valid, mapx, mapy, cv2.INTER_NEAREST, borderMode=cv2.BORDER_CONSTANT, borderValue=0)
-        inside &= vm.min(1) > 0
+        # the analysed region, checked on the (working-resolution) mask at the strip's
+        # centre and edges
+        vh, vw = valid.shape
+        ok = np.ones(nt, bool)
+        for j in (0, hw, 2 * hw):
+            cc = np.clip(np.rint((mapx[:, j] + 0.5) / f - 0.5).astype(np.intp), 0, vw - 1)
+            rr = np.clip(np.rint((mapy[:, j] + 0.5) / f - 0.5).astype(np.intp), 0, vh - 1)
+            ok &= valid[rr, cc] > 0
+        inside &= ok
     # background: a straight line between the strip's two outer edges, row by row
     ne = 2 if hw < 6 else 3
     left = strip[:, :ne].mean(axis=1, keepdims=True)
@@ -563,27 +570,25 @@ def detect_bands(
     # resolved after fitting, where they fail the sharpness test
     cands.sort(key=lambda c: -c[1][:, 3].sum())
     kept = cands
-    valid_full = None
-    if m is not None:
-        valid_full = m.astype(np.uint8)
+    valid_full = None if mw is None else mw.astype(np.uint8)  # checked at working resolution
     fams = []
     diag_w = math.hypot(hw_, ww_)
     pix_noise = _pixel_noise(img, m)
     # cheap screen before the full-resolution fits: the strongest Hough lines of a
     # family must be deeper than the local median grey (rejects gaps between bands)
+    # Cheap screen before the full-resolution fits: the strongest Hough lines must be
+    # deeper than the local median grey (rejects the gaps between bands). The deepest
+    # candidates are fitted first, so a band family comes before the gaps beside it.
+    scored = [(_hough_depth(rp, ln, depth_of, f, mw_in), rp, ln) for rp, ln in kept]
+    scored = [c for c in scored if c[0] >= 0.6 * min_depth]
+    scored.sort(key=lambda c: -c[0])
     attempts = 0
-    for rp, ln in kept:
-        if attempts >= 4 * max_families:
+    for _, rp, ln in scored:
+        if attempts >= 3 * max_families:
             break
         a_c = _vote_mean_angle(ln)
-        # a split cluster of a family already fitted (same polarity)
-        pol_c = "dark" if rp.polarity < 0 else "bright"
-        if any(abs(axial_difference(a_c, fm.angle_deg)) < 2.0 and fm.polarity == pol_c for fm in fams):
-            continue
-        # cheap screen before the full-resolution fits: the strongest Hough lines must be
-        # deeper than the local median grey (rejects the gaps between bands)
-        if _hough_depth(rp, ln, depth_of, f, mw_in) < 0.6 * min_depth:
-            continue
+        if any(abs(axial_difference(a_c, fm.angle_deg)) < 2.0 for fm in fams):
+            continue  # a split cluster of a family already fitted, or its gaps
         attempts += 1
         fam = _build_family(img, valid_full, rp, ln, f, pixel_size_um, min_bands, diag_w, pix_noise, depth_of, min_depth=min_depth)
         if fam is not None:
@@ -657,12 +662,17 @@ def _hough_depth(rp, lines, depth_of, f, mw_in, n_lines=5):
 
 
 def _depth_sampler(wk, mw, f, spacing_hint):
-    """Function giving (I - median background) / median background at full-res points."""
+    """Relative depth map ``(I - B) / B`` and a sampler at full-resolution points.
+
+    B is the local background level: a median over about ``spacing_hint`` px refined
+    towards the local mode (the grey level between the bands).
+    """
     h, w = wk.shape
     ds = max(1, int(round(min(h, w) / 256)))
-    small = cv2.resize(wk, (max(8, w // ds), max(8, h // ds)), interpolation=cv2.INTER_AREA)
+    # strided, not averaged: averaging would smear the bands into the background level
+    small = np.ascontiguousarray(wk[ds // 2 :: ds, ds // 2 :: ds])
     if mw is not None:
-        ms = cv2.resize(mw.astype(np.uint8) * 255, (small.shape[1], small.shape[0]), interpolation=cv2.INTER_AREA) >= 128
+        ms = mw[ds // 2 :: ds, ds // 2 :: ds]
         if ms.any():
             small = np.where(ms, small, np.median(small[ms])).astype(np.float32)
     lo, hi = np.percentile(small, [0.1, 99.9])
@@ -670,6 +680,17 @@ def _depth_sampler(wk, mw, f, spacing_hint):
     k = int(2 * math.ceil(spacing_hint / ds) + 1)
     k = max(3, min(k, 2 * (min(small.shape) // 2) - 1))
     med = cv2.medianBlur(u8, k).astype(np.float32) / 254.0 * (hi - lo) + lo
+    # From the median towards the mode (the background between bands): average only
+    # the pixels near the current level, twice. Where bands cover much of the area the
+    # median leans towards them; the mode does not.
+    sig = _pixel_noise(wk, mw) * 1.0
+    valid = np.ones(small.shape, bool) if mw is None else ms
+    for _ in range(2):
+        near = (np.abs(small - med) <= 2.5 * sig) & valid
+        wgt = near.astype(np.float32)
+        num = cv2.blur(small * wgt, (k, k), borderType=cv2.BORDER_REFLECT)
+        den = cv2.blur(wgt, (k, k), borderType=cv2.BORDER_REFLECT)
+        med = np.where(den > 0.05, num / np.maximum(den, 1e-6), med).astype(np.float32)
     med = cv2.resize(med, (w, h), interpolation=cv2.INTER_LINEAR)
     med = np.maximum(med, max(1e-6, 0.05 * abs(float(np.median(med)))))
     dmap = cv2.GaussianBlur(wk, (0, 0), 1.0)
@@ -720,9 +741,17 @@ def _build_family(img, valid_full, rp: RidgePixels, lines, f, pixel_size_um, min
                   max_rms=1.0, min_depth=0.035, max_spacing_cv=0.75):
     """Refine one candidate family; None when it does not hold up as >= min_bands bands."""
     a0 = _vote_mean_angle(lines)
-    near = np.abs(axial_difference(rp.angle_deg, a0)) <= 8.0
-    if near.sum() < 50:
+    # ridge pixels of the orientation sectors within 8 deg of the family (pixels are
+    # stored sector by sector)
+    n_sec = int(round(180.0 / _SECTOR_DEG))
+    bounds = np.searchsorted(rp.sector, np.arange(n_sec + 1))
+    idx = [np.arange(bounds[k], bounds[k + 1]) for k in range(n_sec)
+           if abs(axial_difference(k * _SECTOR_DEG, a0)) <= 8.0 + _SECTOR_DEG / 2]
+    near = np.concatenate(idx) if idx else np.zeros(0, np.intp)
+    if len(near) < 50:
         return None
+    if len(near) > 60000:  # plenty for the profile; keep the strongest
+        near = near[np.argpartition(-rp.strength[near], 60000)[:60000]]
     x, y, wt = rp.col[near].astype(np.float64), rp.row[near].astype(np.float64), rp.strength[near].astype(np.float64)
     a1 = _radon_refine(x, y, wt, a0)
     if a1 is None:
@@ -774,10 +803,10 @@ def _build_family(img, valid_full, rp: RidgePixels, lines, f, pixel_size_um, min
             return None  # the strongest lines are not sharp bands: not a family
         pw = s * n + cen * d  # working coordinates
         pf = (pw + 0.5) * f - 0.5
-        fit = _fit_band(img, valid_full, pf, d, half, rp.polarity, pixel_noise)
+        fit = _fit_band(img, valid_full, pf, d, half, rp.polarity, pixel_noise, f=f)
         if fit is not None and fit["shift"] > 0.3:
             # a second pass, centred on the first fit, when the first one moved the line
-            fit2 = _fit_band(img, valid_full, fit["point"], fit["direction"], half, rp.polarity, pixel_noise)
+            fit2 = _fit_band(img, valid_full, fit["point"], fit["direction"], half, rp.polarity, pixel_noise, f=f)
             fit = fit2 or fit
         if fit is not None:
             fits.append(fit)
