@@ -198,6 +198,11 @@ class FamilyIdentification:
     candidates: list[Candidate]
     separation: list[str] = field(default_factory=list)
     notes: list[str] = field(default_factory=list)
+    # Map-level surface-artefact hypothesis (tracefit.artefacts); set after construction so that
+    # subclasses keep their positional arguments.
+    p_artefact: float = field(default=0.0, init=False)
+    unexplained_reason: str | None = field(default=None, init=False)
+    artefact_angle_deg: float | None = field(default=None, init=False)
 
     @property
     def best(self) -> Candidate | None:
@@ -231,6 +236,9 @@ class FamilyIdentification:
             "p_none": _r(self.p_none, 6),
             "separation": list(self.separation),
             "notes": list(self.notes),
+            "p_artefact": _r(self.p_artefact, 6),
+            "unexplained_reason": (self.unexplained_reason or "no candidate fits") if self.unexplained else None,
+            "artefact_angle_deg": _r(self.artefact_angle_deg, 3),
         }
 
 
@@ -676,6 +684,8 @@ def identify_grains(
     report_threshold: float = DEFAULT_REPORT_THRESHOLD,
     ambiguity_ratio: float = DEFAULT_AMBIGUITY_RATIO,
     grain_sigma_deg: dict | None = None,
+    artefacts: bool = True,
+    artefact_options: dict | None = None,
 ) -> list[FamilyIdentification]:
     """Identify families of many grains at once.
 
@@ -687,6 +697,14 @@ def identify_grains(
         Orientation of each grain (v_crystal = g v_sample).
     grain_sigma_deg : dict grain -> float, optional
         Per-grain orientation uncertainty overriding ``orientation_sigma_deg``.
+    artefacts : bool
+        Test the map-level surface-artefact hypothesis (:mod:`tracefit.artefacts`): a family
+        that keeps one image angle in several grains whose crystallography predicts different
+        traces there is reported unexplained with ``p_artefact`` (default on; it needs at
+        least three grains with families).
+    artefact_options : dict, optional
+        Keyword options of :func:`tracefit.artefacts.find_artefact_directions` (``p_map``,
+        ``line_sigma_deg``, ``min_witnesses``, ``max_directions``).
     (others as :func:`identify_families`)
 
     Returns
@@ -704,12 +722,18 @@ def identify_grains(
     if keys:
         G = np.stack([np.asarray(orientations[k], float) for k in keys])
         ang, incl, slope = predict_candidates(cands, G, frame)
+        osigs = {k: (orientation_sigma_deg if not grain_sigma_deg else grain_sigma_deg.get(k, orientation_sigma_deg))
+                 for k in keys}
+        pre = {k: _grain_weights([obs[i] for i in by_grain[k]], cands, G[j], ang[j], incl[j], slope[j], load,
+                                 osigs[k], frame_sigma_deg, p_none, schmid_weight)
+               for j, k in enumerate(keys)}
+        art = _map_artefacts(obs, by_grain, keys, pre, cands, G, ang, slope, osigs, frame_sigma_deg,
+                             artefact_options) if artefacts else {}
         for j, k in enumerate(keys):
             idx = by_grain[k]
-            osig = orientation_sigma_deg if not grain_sigma_deg else grain_sigma_deg.get(k, orientation_sigma_deg)
             res = _identify_one([obs[i] for i in idx], cands, G[j], ang[j], incl[j], slope[j], load,
-                                osig, frame_sigma_deg, p_none, schmid_weight,
-                                allow_shared_planes, report_threshold, ambiguity_ratio)
+                                osigs[k], frame_sigma_deg, p_none, schmid_weight,
+                                allow_shared_planes, report_threshold, ambiguity_ratio, pre=pre[k], art=art.get(k))
             for i, r in zip(idx, res):
                 out[i] = r
     for k, idx in by_grain.items():
@@ -719,6 +743,40 @@ def identify_grains(
             o = obs[i]
             out[i] = FamilyIdentification(o.angle_deg, o.angle_sigma_deg, o.grain, o.source, o.label, True, False,
                                           1.0, [], [], [f"grain {k!r} has no orientation in the table"])
+            out[i].unexplained_reason = "grain has no orientation"
+    return out
+
+
+def _map_artefacts(obs, by_grain, keys, pre, cands, G, ang, slope, osigs, fsig, options):
+    """Run the map-level artefact scan; per grain ``(mass, log_w, angle)`` for :func:`_identify_one`."""
+    from tracefit.artefacts import CrystalContext, artefact_family_weights, find_artefact_directions
+
+    opts = dict(options or {})
+    if len(keys) < int(opts.get("min_witnesses", 3)):
+        return {}
+    idx = [i for k in keys for i in by_grain[k]]
+    lg = np.concatenate([logsumexp(pre[k][0], axis=1).reshape(-1) for k in keys])
+    a = np.array([obs[i].angle_deg for i in idx])
+    s = np.array([obs[i].angle_sigma_deg for i in idx])
+    gr = [obs[i].grain for i in idx]
+    ctx = CrystalContext(
+        pred_deg={k: ang[j] for j, k in enumerate(keys)},
+        pred_sigma_deg={k: np.sqrt(pre[k][3] ** 2 + (fsig * np.abs(slope[j])) ** 2) for j, k in enumerate(keys)},
+        normals_sample={k: cands.normals @ G[j] for j, k in enumerate(keys)},  # rows: g^T n (sample frame)
+        orientation_sigma_deg=dict(osigs),
+        families=[str(f).replace(" ", "") for f in cands.families],
+    )
+    dirs = find_artefact_directions(a, s, gr, lg, ctx, **opts)
+    if not dirs:
+        return {}
+    lsig = float(opts.get("line_sigma_deg", 0.2))
+    mass, law, which = artefact_family_weights(dirs, a, s, lsig)
+    out, pos = {}, 0
+    for k in keys:
+        n = len(by_grain[k])
+        sl = slice(pos, pos + n)
+        out[k] = (mass, law[sl], [dirs[w].angle_deg for w in which[sl]])
+        pos += n
     return out
 
 
@@ -736,9 +794,8 @@ def _as_observed(observed, grain) -> list[ObservedFamily]:
     return out
 
 
-def _identify_one(obs, cands, g, ang, incl, slope, load, osig, fsig, p_none, schmid_weight, allow_shared,
-                  threshold, ratio):
-    P = len(cands)
+def _grain_weights(obs, cands, g, ang, incl, slope, load, osig, fsig, p_none, schmid_weight):
+    """Log (prior x likelihood) of every family of one grain, before the joint assignment."""
     psig = predicted_trace_sigma(incl, osig, slope)
     systems_ranked, drive = _load_values(load, cands, g)
     # Prior: equal per distinct plane, split among the modes on that plane.
@@ -757,14 +814,46 @@ def _identify_one(obs, cands, g, ang, incl, slope, load, osig, fsig, p_none, sch
     oa = np.array([o.angle_deg for o in obs])
     os_ = np.array([o.angle_sigma_deg for o in obs])
     logw, resid, sig = family_log_weights(oa, os_, ang, psig, log_prior, p_none, fsig, slope)
+    return logw, resid, sig, psig, systems_ranked
+
+
+def _identify_one(obs, cands, g, ang, incl, slope, load, osig, fsig, p_none, schmid_weight, allow_shared,
+                  threshold, ratio, pre=None, art=None):
+    """Verdicts for the families of one grain.
+
+    ``pre``: the output of :func:`_grain_weights` (computed here when None). ``art``: optional
+    surface-artefact hypothesis from :mod:`tracefit.artefacts`, ``(mass, log_w (F,), angle (F,))``:
+    crystallographic and "none" priors are scaled by 1 - mass, and the artefact (like "none",
+    open to any number of families) is folded into the last column for the joint assignment,
+    then split off again by its share of that column's weight.
+    """
+    P = len(cands)
+    logw, resid, sig, psig, systems_ranked = pre if pre is not None else _grain_weights(
+        obs, cands, g, ang, incl, slope, load, osig, fsig, p_none, schmid_weight)
+    F = len(obs)
+    art_share = np.zeros(F)
+    art_angle = [None] * F
+    if art is not None and art[0] > 0:
+        mass, law, aang = art
+        logw = logw + math.log1p(-mass)
+        last = np.logaddexp(logw[:, P], law)
+        with np.errstate(invalid="ignore"):
+            art_share = np.where(np.isfinite(last), np.exp(law - last), 0.0)
+        logw = logw.copy()
+        logw[:, P] = last
+        art_angle = list(aang)
     post = joint_marginals(logw, cands.plane_ids, allow_shared)
+    p_art = post[:, P] * art_share
+    post = post.copy()
+    post[:, P] = post[:, P] - p_art
     results = []
     for f, o in enumerate(obs):
         pn = float(post[f, P])
+        pa = float(p_art[f])
         order = np.argsort(-post[f, :P])
         cl = []
         for c in order:
-            if post[f, c] < threshold and not (len(cl) == 0 and post[f, c] > 0 and pn < 0.5):
+            if post[f, c] < threshold and not (len(cl) == 0 and post[f, c] > 0 and pn + pa < 0.5):
                 break
             best = None
             if systems_ranked[c]:
@@ -788,7 +877,13 @@ def _identify_one(obs, cands, g, ang, incl, slope, load, osig, fsig, p_none, sch
                     log_likelihood=float(logw[f, c]),
                 )
             )
-        unexplained = pn >= 0.5
+        unexplained = pn + pa >= 0.5
+        reason = None
+        if unexplained:
+            if pa > pn and art_angle[f] is not None:
+                reason = f"surface artefact (continues across grains at {float(art_angle[f]):.1f} deg)"
+            else:
+                reason = "no candidate fits"
         # distinct planes in the set, with their summed probability
         plane_p: dict = {}
         for c in cl:
@@ -796,7 +891,13 @@ def _identify_one(obs, cands, g, ang, incl, slope, load, osig, fsig, p_none, sch
         ps = sorted(plane_p.values(), reverse=True)
         ambiguous = (not unexplained) and len(ps) > 1 and ps[1] >= ratio * ps[0]
         notes = []
-        if unexplained:
+        if reason is not None and reason.startswith("surface artefact"):
+            notes.append(
+                f"p_artefact = {pa:.2f}: this family keeps one image angle ({float(art_angle[f]):.1f} deg) in several grains "
+                "whose crystallography predicts different traces there; a polishing scratch or other surface mark "
+                "runs straight through grain boundaries, slip and twin traces do not"
+            )
+        elif unexplained:
             notes.append(
                 f"no candidate explains this family (p_none = {pn:.2f}): a scratch or polishing mark, "
                 "a wrong orientation, a wrong frame alignment, or a system outside the selected modes"
@@ -806,9 +907,13 @@ def _identify_one(obs, cands, g, ang, incl, slope, load, osig, fsig, p_none, sch
                 notes.append(f"plane {_fmt_plane(c.plane)} lies within {NEAR_SURFACE_DEG:g} deg of the surface: its trace is ill-defined")
                 break
         sep = _separation_hints(cl, load, g, cands) if (ambiguous or _mixed_modes(cl)) and not unexplained else []
-        results.append(FamilyIdentification(o.angle_deg, o.angle_sigma_deg, o.grain, o.source, o.label,
-                                            bool(unexplained), bool(ambiguous), pn, cl, sep, notes))
-    if len(results) >= 2 and all(r.unexplained for r in results):
+        r = FamilyIdentification(o.angle_deg, o.angle_sigma_deg, o.grain, o.source, o.label,
+                                 bool(unexplained), bool(ambiguous), pn, cl, sep, notes)
+        r.p_artefact = pa
+        r.unexplained_reason = reason
+        r.artefact_angle_deg = None if art_angle[f] is None or pa < threshold else float(art_angle[f])
+        results.append(r)
+    if len(results) >= 2 and all(r.unexplained and r.p_artefact < r.p_none for r in results):
         # Several families and none fits: the orientation (or the frame) is the likelier culprit.
         where = "this grain" if obs[0].grain is None else f"grain {obs[0].grain}"
         for r in results:

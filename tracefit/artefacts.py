@@ -1,0 +1,382 @@
+"""Map-level surface artefacts: families that keep one image angle across grains of different orientation.
+
+Polishing scratches (and other surface marks) are straight lines on the surface: they run on
+through grain boundaries at one image angle, whereas a slip or twin trace changes direction
+from grain to grain with the crystal orientation (common practice, no source). This module
+turns that cue into a hypothesis of the probability model.
+
+Model
+-----
+M0 (no artefact direction): family f of grain k has the density L0_f (per degree) of the
+grain's own crystallographic model: candidates and "none of these", priors included
+(:mod:`tracefit.matching`).
+
+M1 (one surface-artefact direction at image angle theta): every family is, independently, an
+artefact with probability pi and otherwise follows M0:
+
+    p(a_f | theta, pi) = (1 - pi) L0_f + pi vM(a_f - theta; sqrt(s_f^2 + s_line^2)),
+
+s_f the family's angle sigma and s_line (default 0.2 deg) the straightness of a surface line
+across the map. No orientation or frame sigma enters: an artefact lives in the image frame.
+theta is uniform on [0, 180), pi uniform on [0, 1] (an exchangeable prior on which families
+belong). The Bayes factor
+
+    B = p(D | M1) / p(D | M0) = int dtheta / 180 int dpi  prod_f (1 - pi + pi R_f(theta)),
+    R_f(theta) = vM(a_f - theta) / L0_f,
+
+is computed on a grid (theta step 0.05 deg, 100 values of pi), so the look-elsewhere effect
+(any theta could have been the artefact's) and the Occam factor of pi are both paid. The
+posterior probability that the direction exists is B o / (1 + B o), o the prior odds
+(``p_map`` = 0.5: polished sections often carry a scratch direction; common practice, no
+source).
+
+Guards against killing real systems
+-----------------------------------
+* Witnesses: the families that support theta (responsibility >= 0.5) are grouped when the
+  crystallography itself links them: two grains that both have a candidate plane predicting
+  theta, of one family, with nearly parallel normals in the sample frame (within
+  2 sqrt(s_A^2 + s_B^2), s the orientation sigmas; planes with a predicted-trace spread over
+  3 deg, i.e. shallow ones, cannot link) show the same physical plane continuing across their boundary
+  (a twin plane, a low-angle boundary, one grain split in two labels). Each group counts as
+  one witness: only its least supporting member enters B, the others are neutral (R = 1).
+* At least ``min_witnesses`` (default 3) independent witnesses: two grains at one angle are a
+  coincidence that crystallography predicts often enough (any family pair matches within a
+  degree with probability ~ 1/90).
+* Directions with posterior < 0.5 are dropped (their families keep the M0 answer), so a
+  borderline direction slightly under-states p_artefact; accepted directions enter each
+  family's prior as q pi (q the posterior of the direction), exact when q is near 0 or 1.
+
+Several directions are found greedily (default at most 3): after one is accepted, L0 of every
+family becomes the M1 mixture and the scan runs again. What this cannot do: a scratch seen in
+only one or two grains, or a scratch that happens to lie on the traces the crystallography
+predicts in all grains it crosses, stays an ordinary family (angle alone cannot separate it).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Any, Sequence
+
+import numpy as np
+
+__all__ = [
+    "ArtefactDirection",
+    "CrystalContext",
+    "find_artefact_directions",
+    "artefact_family_weights",
+    "DEFAULT_P_MAP",
+    "DEFAULT_LINE_SIGMA_DEG",
+    "DEFAULT_MIN_WITNESSES",
+    "DEFAULT_MAX_DIRECTIONS",
+]
+
+DEFAULT_P_MAP = 0.5
+DEFAULT_LINE_SIGMA_DEG = 0.2
+DEFAULT_MIN_WITNESSES = 3
+DEFAULT_MAX_DIRECTIONS = 3
+_STEP_DEG = 0.05
+_WINDOW_DEG = 3.0
+_MAX_PEAKS = 12  # peaks examined per map (rejected ones are masked and the next is tried)
+_MAX_LINK_SIGMA_DEG = 3.0  # ~ inclination >= 20 deg at 1 deg orientation sigma
+
+# Uniform prior on pi, integrated on a grid dense at small fractions (trapezoid weights).
+_PI = np.unique(np.concatenate([np.geomspace(1e-4, 0.3, 80), np.linspace(0.3, 0.999, 21)]))
+_LOG_DPI = np.log(np.gradient(_PI))
+
+
+@dataclass
+class ArtefactDirection:
+    """One surface-artefact direction shared across a map.
+
+    Attributes
+    ----------
+    angle_deg, angle_sigma_deg : float
+        Image-frame axial angle of the artefact and its posterior sigma, degrees.
+    p_exists : float
+        Posterior probability that this common direction is a surface artefact.
+    log10_bayes_factor : float
+        log10 of p(D | artefact) / p(D | none), witness groups merged.
+    fraction : float
+        Posterior mean of pi, the share of the map's families on this artefact.
+    members : list of int
+        Indices (into the families given) with responsibility >= 0.5.
+    grains : list
+        Their grains.
+    n_witnesses : int
+        Independent witnesses (member groups not linked by a common crystal plane).
+    """
+
+    angle_deg: float
+    angle_sigma_deg: float
+    p_exists: float
+    log10_bayes_factor: float
+    fraction: float
+    members: list = field(default_factory=list)
+    grains: list = field(default_factory=list)
+    n_witnesses: int = 0
+
+    def to_dict(self) -> dict:
+        return {
+            "angle_deg": round(float(self.angle_deg), 3),
+            "angle_sigma_deg": round(float(self.angle_sigma_deg), 3),
+            "p_exists": round(float(self.p_exists), 6),
+            "log10_bayes_factor": round(float(self.log10_bayes_factor), 3),
+            "fraction": round(float(self.fraction), 4),
+            "grains": [int(g) if isinstance(g, (np.integer,)) else g for g in self.grains],
+            "n_witnesses": int(self.n_witnesses),
+        }
+
+
+@dataclass
+class CrystalContext:
+    """Per-grain predicted traces, for the witness test (same plane continuing across a boundary).
+
+    Attributes
+    ----------
+    pred_deg : dict grain -> ndarray (P,)
+        Predicted image-frame trace angles of the candidates, degrees.
+    pred_sigma_deg : dict grain -> ndarray (P,)
+        Their spread from orientation and frame uncertainty, degrees.
+    normals_sample : dict grain -> ndarray (P, 3)
+        Candidate plane normals in the sample frame (unit).
+    orientation_sigma_deg : dict grain -> float
+    families : sequence (P,), optional
+        Family name of every candidate (``{110}``, ...): a continuing plane is one plane of
+        one family on both sides of the boundary.
+    """
+
+    pred_deg: dict
+    pred_sigma_deg: dict
+    normals_sample: dict
+    orientation_sigma_deg: dict
+    families: Sequence | None = None
+
+    def planes_at(self, grain, theta: float, k: float = 2.5) -> np.ndarray:
+        """Indices of the grain's candidates whose predicted trace lies within k sigma of theta."""
+        if grain not in self.pred_deg:
+            return np.zeros(0, int)
+        d = np.abs(_axial(self.pred_deg[grain] - theta))
+        sig = np.maximum(self.pred_sigma_deg[grain], 1e-6)
+        # shallow planes (broad predicted traces, normals near the surface normal) would link
+        # any two grains; they cannot draw a sharp common line anyway
+        return np.flatnonzero((d <= k * sig) & (sig <= _MAX_LINK_SIGMA_DEG))
+
+    def linked(self, ga, gb, theta: float) -> bool:
+        """True when grains ga and gb both predict theta on planes with nearly parallel normals."""
+        if ga == gb:
+            return True
+        ia, ib = self.planes_at(ga, theta), self.planes_at(gb, theta)
+        if len(ia) == 0 or len(ib) == 0:
+            return False
+        na, nb = self.normals_sample[ga][ia], self.normals_sample[gb][ib]
+        cos = np.abs(na @ nb.T)
+        if self.families is not None:
+            fam = np.asarray(self.families, object)
+            cos = np.where(fam[ia][:, None] == fam[ib][None, :], cos, 0.0)
+        sa = self.orientation_sigma_deg.get(ga, 1.0)
+        sb = self.orientation_sigma_deg.get(gb, 1.0)
+        # normals of one plane seen through two noisy orientations differ by ~ sqrt(2) hypot(sa, sb)
+        # in magnitude (two components); 2 hypot keeps ~ 86 % of true links (Rayleigh)
+        tol = max(2.0 * math.hypot(sa, sb), 1.0)
+        return bool(cos.max() >= math.cos(math.radians(tol)))
+
+
+def _axial(a):
+    return (np.asarray(a, float) + 90.0) % 180.0 - 90.0
+
+
+def _vm_logpdf(resid, sigma):
+    from tracefit.matching import axial_logpdf
+
+    return axial_logpdf(resid, sigma)
+
+
+def _lse(a, axis=None):
+    from tracefit.matching import logsumexp
+
+    return logsumexp(a, axis=axis)
+
+
+def _scan(angles, s_eff, log_l0, grid):
+    """I(theta, pi) - F log(1 - pi) on the grid: sum over families near theta of log1p(rho R)."""
+    n = len(grid)
+    F = len(angles)
+    rho = _PI / (1.0 - _PI)
+    acc = np.zeros((n, len(_PI)))
+    K = int(min(math.ceil(6.0 * float(np.max(s_eff)) / _STEP_DEG), n // 2 - 1))
+    offs = np.arange(-K, K + 1)
+    B = max(1, 2_000_000 // (len(offs) * len(_PI)))  # families per block (memory)
+    for lo in range(0, F, B):
+        a = angles[lo:lo + B]
+        i0 = np.round(a / _STEP_DEG).astype(int)
+        idx = (i0[:, None] + offs[None, :]) % n
+        lr = _vm_logpdf(a[:, None] - grid[idx], s_eff[lo:lo + B, None]) - log_l0[lo:lo + B, None]
+        c = np.log1p(rho[None, None, :] * np.exp(np.minimum(lr, 700.0))[..., None])
+        flat = idx.ravel()
+        cc = c.reshape(-1, len(_PI))
+        for m in range(len(_PI)):
+            acc[:, m] += np.bincount(flat, weights=cc[:, m], minlength=n)
+    return acc
+
+
+def find_artefact_directions(
+    angles_deg,
+    sigmas_deg,
+    grains: Sequence[Any],
+    log_l0,
+    context: CrystalContext | None = None,
+    *,
+    p_map: float = DEFAULT_P_MAP,
+    line_sigma_deg: float = DEFAULT_LINE_SIGMA_DEG,
+    min_witnesses: int = DEFAULT_MIN_WITNESSES,
+    max_directions: int = DEFAULT_MAX_DIRECTIONS,
+) -> list[ArtefactDirection]:
+    """Surface-artefact directions shared across a grain map (see the module docstring).
+
+    Parameters
+    ----------
+    angles_deg, sigmas_deg : array_like (F,)
+        Observed family angles (image frame, axial) and their sigmas, degrees.
+    grains : sequence (F,)
+        Grain of each family.
+    log_l0 : array_like (F,)
+        Log density (per degree) of each family's angle under its grain's crystallographic
+        model (candidates and "none", priors included).
+    context : CrystalContext, optional
+        Predicted traces per grain for the witness test; without it every grain is its own
+        witness.
+    p_map : float
+        Prior probability that the map carries a surface-artefact direction (default 0.5).
+    line_sigma_deg : float
+        Straightness of an artefact across the map, degrees (default 0.2).
+    min_witnesses : int
+        Independent witnesses needed to accept a direction (default 3).
+    max_directions : int
+        At most this many directions (default 3).
+
+    Returns
+    -------
+    list of ArtefactDirection (accepted ones only), in the order found.
+    """
+    a = np.mod(np.asarray(angles_deg, float), 180.0)
+    s = np.asarray(sigmas_deg, float)
+    l0 = np.asarray(log_l0, float).copy()
+    grains = list(grains)
+    F = len(a)
+    if F < min_witnesses or len(set(grains)) < min_witnesses or max_directions <= 0:
+        return []
+    if not (0.0 < p_map < 1.0):
+        from tracefit.errors import TracefitInputError
+
+        raise TracefitInputError(f"the map artefact prior must be in (0, 1), got {p_map!r}")
+    s_eff = np.sqrt(s**2 + float(line_sigma_deg) ** 2)
+    grid = np.arange(0.0, 180.0, _STEP_DEG)
+    n = len(grid)
+    log_odds_prior = math.log(p_map / (1.0 - p_map))
+    log_1mpi = np.log1p(-_PI)
+    rho = _PI / (1.0 - _PI)
+    out: list[ArtefactDirection] = []
+    masked = np.zeros(n, bool)
+    acc = _scan(a, s_eff, l0, grid)
+    for _ in range(_MAX_PEAKS):
+        if len(out) >= max_directions:
+            break
+        T = _lse(acc + F * log_1mpi[None, :] + _LOG_DPI[None, :], axis=1)
+        T = np.where(masked, -np.inf, T)
+        i_hat = int(np.argmax(T))
+        if not np.isfinite(T[i_hat]):
+            break
+        th = grid[i_hat]
+        win = (i_hat + np.arange(-round(_WINDOW_DEG / _STEP_DEG), round(_WINDOW_DEG / _STEP_DEG) + 1)) % n
+        masked[win] = True
+        # responsibilities at the peak, pi at its posterior mean there
+        lp = acc[i_hat] + F * log_1mpi + _LOG_DPI
+        wpi = np.exp(lp - _lse(lp))
+        pi_hat = float(wpi @ _PI)
+        lr_hat = _vm_logpdf(a - th, s_eff) - l0
+        rr = 1.0 / (1.0 + np.exp(np.minimum(-(lr_hat + math.log(pi_hat / (1.0 - pi_hat))), 700.0)))
+        members = [int(i) for i in np.flatnonzero(rr >= 0.5)]
+        # witness groups: union-find over members linked by a common crystal plane
+        parent = list(range(len(members)))
+
+        def find(x):
+            while parent[x] != x:
+                parent[x] = parent[parent[x]]
+                x = parent[x]
+            return x
+
+        for i in range(len(members)):
+            for j in range(i + 1, len(members)):
+                gi, gj = grains[members[i]], grains[members[j]]
+                if gi == gj or (context is not None and context.linked(gi, gj, th)):
+                    parent[find(i)] = find(j)
+        groups: dict = {}
+        for i, f in enumerate(members):
+            groups.setdefault(find(i), []).append(f)
+        n_w = len(groups)
+        if n_w < min_witnesses:
+            continue
+        # neutralise all but the least supporting member of each group, then B in the window
+        neutral = set()
+        for grp in groups.values():
+            if len(grp) > 1:
+                keep = min(grp, key=lambda f: lr_hat[f])
+                neutral.update(f for f in grp if f != keep)
+        near = [f for f in range(F) if f not in neutral and abs(float(_axial(a[f] - th))) < _WINDOW_DEG + 6 * s_eff[f]]
+        tw = grid[win]
+        if near:
+            nr = np.array(near)
+            lrw = _vm_logpdf(a[nr][:, None] - tw[None, :], s_eff[nr][:, None]) - l0[nr][:, None]  # (Fn, W)
+            cw = np.log1p(rho[None, None, :] * np.exp(np.minimum(lrw, 700.0))[..., None]).sum(axis=0)  # (W, M)
+        else:
+            cw = np.zeros((len(win), len(_PI)))
+        Iw = cw + F * log_1mpi[None, :] + _LOG_DPI[None, :]
+        log_b = _lse(Iw) + math.log(_STEP_DEG / 180.0)
+        q = 1.0 / (1.0 + math.exp(-min(max(log_b + log_odds_prior, -700.0), 700.0)))
+        if q < 0.5:
+            continue
+        pt = np.exp(_lse(Iw, axis=1) - _lse(Iw))
+        d = _axial(tw - th)
+        mu = th + float(pt @ d)
+        sd = math.sqrt(max(float(pt @ (d - (mu - th)) ** 2), 0.0) + _STEP_DEG**2 / 12.0)
+        ppi = np.exp(_lse(Iw, axis=0) - _lse(Iw))
+        frac = float(ppi @ _PI)
+        direction = ArtefactDirection(float(np.mod(mu, 180.0)), sd, q, log_b / math.log(10.0), frac,
+                                      members, [grains[f] for f in members], n_w)
+        out.append(direction)
+        # later scans see this direction as part of the baseline model
+        w = q * frac
+        la = _vm_logpdf(_axial(a - direction.angle_deg), np.sqrt(s_eff**2 + sd**2))
+        l0 = np.logaddexp(l0 + math.log1p(-w), la + math.log(w))
+        acc = _scan(a, s_eff, l0, grid)
+    return out
+
+
+def artefact_family_weights(directions: Sequence[ArtefactDirection], angles_deg, sigmas_deg,
+                            line_sigma_deg: float = DEFAULT_LINE_SIGMA_DEG):
+    """Per-family artefact prior mass and log (prior x density) for the matcher.
+
+    Returns
+    -------
+    mass : float
+        Total prior of "artefact" per family, sum over directions of p_exists x fraction; the
+        crystallographic and "none" priors are scaled by 1 - mass.
+    log_w : ndarray (F,)
+        log sum_j q_j pi_j vM(a_f - theta_j; sqrt(s_f^2 + s_line^2 + s_theta_j^2)), per degree.
+    which : ndarray (F,) of int
+        Index of the direction that contributes most to each family (-1 without directions).
+    """
+    a = np.asarray(angles_deg, float)
+    s = np.asarray(sigmas_deg, float)
+    F = len(a)
+    if not directions:
+        return 0.0, np.full(F, -np.inf), np.full(F, -1, int)
+    parts = []
+    for dct in directions:
+        w = dct.p_exists * dct.fraction
+        sig = np.sqrt(s**2 + line_sigma_deg**2 + dct.angle_sigma_deg**2)
+        parts.append(math.log(max(w, 1e-300)) + _vm_logpdf(_axial(a - dct.angle_deg), sig))
+    P = np.array(parts)  # (J, F)
+    mass = float(min(sum(d.p_exists * d.fraction for d in directions), 0.999))
+    return mass, _lse(P, axis=0) if P.shape[0] > 1 else P[0], np.argmax(P, axis=0)
