@@ -453,7 +453,7 @@ def detect_bands(
     min_bands: int = 3,
     max_families: int = 8,
     working_size: int = 2048,
-    scales=(1.0, 1.7, 2.8, 4.5),
+    scales=(1.0, 1.7, 2.8),
     min_coverage: float = 0.3,
     min_depth: float = 0.035,
     notes: list[str] | None = None,
@@ -817,7 +817,7 @@ def _build_family(img, valid_full, rp: RidgePixels, lines, f, pixel_size_um, min
     fits.sort(key=lambda z: float(z["point"] @ n))
     dedup = []
     for ft in fits:
-        if dedup and abs(float((ft["point"] - dedup[-1]["point"]) @ n)) < max(2.0, 1.2 * sig_full):
+        if dedup and abs(float((ft["point"] - dedup[-1]["point"]) @ n)) < max(2.0, 1.2 * sig_full, 0.3 * spacing_w * f):
             if ft["n"] * ft["snr"] > dedup[-1]["n"] * dedup[-1]["snr"]:
                 dedup[-1] = ft
             continue
@@ -862,7 +862,11 @@ def _build_family(img, valid_full, rp: RidgePixels, lines, f, pixel_size_um, min
     spacing = float(np.mean(gaps)) if len(gaps) else float("nan")
     spacing_sd = float(np.std(gaps, ddof=1)) if len(gaps) > 1 else float("nan")
     if len(gaps) > 1 and spacing_sd > max_spacing_cv * spacing:
-        return None  # no consistent spacing: chance alignments, not a band family
+        # irregular, unless only a few holes (missed bands) widen the spread
+        med_gap = float(np.median(gaps))
+        robust_cv = 1.4826 * float(np.median(np.abs(gaps - med_gap))) / max(med_gap, 1e-9)
+        if robust_cv > 0.4 or len(gaps) < 8:
+            return None  # no consistent spacing: chance alignments, not a band family
     diag_full = diag_w * f
     strength = float(sum(ft["seen"] / diag_full * ft["snr"] for ft in fits))
     band_lines = []

@@ -197,7 +197,12 @@ def ridge_pixels(flat: np.ndarray, mask: np.ndarray | None, sector_deg: float = 
             fwd = pad[1 + orow : 1 + orow + h, 1 + oc : 1 + oc + w]
             bwd = pad[1 - orow : 1 - orow + h, 1 - oc : 1 - oc + w]
             keep = (resp > 1.0) & (resp >= fwd) & (resp > bwd)
-            rr, cc = np.nonzero(keep)
+            nz = cv2.findNonZero(keep.view(np.uint8))
+            if nz is None:
+                cc = rr = np.zeros(0, np.intp)
+            else:
+                nz = nz.reshape(-1, 2)
+                cc, rr = nz[:, 0], nz[:, 1]
             acc[pol].append((cc, rr, resp[rr, cc], np.full(len(rr), centre, np.float32), np.full(len(rr), k, np.int16)))
         best.clear()
     out = []
