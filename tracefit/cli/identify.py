@@ -95,6 +95,9 @@ def identify(
     ),
     crack_k_sigma: float = typer.Option(2.0, "--crack-k-sigma", help="A crack is consistent with a plane within this many sigma."),
     no_frame_check: bool = typer.Option(False, "--no-frame-check", help="Skip the automatic frame-alignment check on grain maps."),
+    no_artefacts: bool = typer.Option(
+        False, "--no-artefacts", help="On grain maps, skip the surface-artefact test (one image angle continuing across grains)."
+    ),
     json_out: JsonOpt = False,
 ) -> None:
     """Identify the slip or twin system behind each band family, with probabilities.
@@ -155,8 +158,9 @@ def identify(
             ori_map = {k: v.g for k, v in table.items()}
             sig_map = {k: v.sigma_deg for k, v in table.items() if v.sigma_deg is not None}
             results = identify_observed(obs, lat, systems, orientations=ori_map, grain_sigma_deg=sig_map or None,
-                                        crack_k_sigma=crack_k_sigma, **common)
+                                        crack_k_sigma=crack_k_sigma, artefacts=not no_artefacts, **common)
             extra["grains"] = {"n_table": len(table), "n_with_families": len({o.grain for o in obs})}
+            extra["artefacts"] = None if no_artefacts else _artefact_summary(results)
             extra["frame_check"] = _frame_check(obs, lat, ori_map, systems, frame, orientation_sigma, p_none, no_frame_check)
         else:
             g, ori = build_orientation(lat, euler, quaternion, matrix, axis_angle, align)
@@ -194,6 +198,18 @@ def identify(
         typer.echo(extra["caution"])
 
 
+def _artefact_summary(results) -> list:
+    """Surface-artefact directions of the map: their angle and the grains of the families called artefacts."""
+    by: dict = {}
+    for r in results:
+        a = getattr(r, "artefact_angle_deg", None)
+        if r.unexplained and a is not None and getattr(r, "p_artefact", 0.0) > r.p_none:
+            d = by.setdefault(round(float(a), 2), {"angle_deg": round(float(a), 2), "grains": [], "n_families": 0})
+            d["grains"].append(int(r.grain) if r.grain is not None else None)
+            d["n_families"] += 1
+    return list(by.values())
+
+
 def _frame_check(obs, lat, ori_map, systems, frame, osig, p_none, skip):
     """On a grain map, test the frame against the traces (a wrong frame is a common source of wrong answers)."""
     if skip:
@@ -226,7 +242,10 @@ def _print_text(results, lat, ld) -> None:
         what = "crack" if getattr(r, "consistent_planes", None) is not None else "family"
         src = f" [measured{', ' + r.label if r.label and r.label != 'crack' else ''}]" if r.source == "measured" else ""
         head = f"{where}{what} at {r.angle_deg:.2f} +- {r.angle_sigma_deg:.2f} deg{src}"
-        if r.unexplained:
+        pa = getattr(r, "p_artefact", 0.0)
+        if r.unexplained and pa > r.p_none and getattr(r, "artefact_angle_deg", None) is not None:
+            head += f": UNEXPLAINED, {r.unexplained_reason} (p_artefact {pa:.2f}, p_none {r.p_none:.2f})"
+        elif r.unexplained:
             head += f": UNEXPLAINED (p_none {r.p_none:.2f})"
         elif r.ambiguous:
             head += ": AMBIGUOUS"
