@@ -38,6 +38,9 @@ def detect_command(
         raise TracefitInputError(f"--pixel-size {pixel_size!r}: expected a positive number of micrometres per pixel")
     gray, notes = read_image(image)
     m = read_mask(mask, gray.shape) if mask else None
+    lo, hi = float(gray.min()), float(gray.max())
+    if hi <= lo:
+        raise TracefitInputError(f"{image}: the image is constant (every pixel = {lo:g}); expected a micrograph with contrast")
     _err(f"tracefit detect: {Path(image).name}: {gray.shape[1]} x {gray.shape[0]} px; detecting bands ...")
     result = detect_bands(gray, mask=m, pixel_size_um=pixel_size, path=str(image), notes=notes)
     for note in result.notes:

@@ -103,7 +103,16 @@ def _read_tiff(path: str, notes: list[str]) -> np.ndarray:
     except TracefitInputError:
         raise
     except Exception as exc:  # tifffile raises many kinds for damaged files
-        raise TracefitInputError(f"{path}: cannot read the TIFF file ({exc}); expected a complete TIFF image") from None
+        # compressions tifffile cannot decode without extra codecs (e.g. LZW): OpenCV can
+        ok, pages = cv2.imreadmulti(path, flags=cv2.IMREAD_UNCHANGED)
+        if not ok or not pages:
+            raise TracefitInputError(f"{path}: cannot read the TIFF file ({exc}); expected a complete TIFF image") from None
+        if len(pages) > 1:
+            notes.append(f"multi-page TIFF with {len(pages)} pages: the first page was used")
+        arr = pages[0]
+        if arr.ndim == 3 and arr.shape[2] >= 3:  # OpenCV decodes to BGR(A)
+            arr = arr[..., [2, 1, 0] + ([3] if arr.shape[2] == 4 else [])]
+        return arr
     if n_pages > 1:
         notes.append(f"multi-page TIFF with {n_pages} pages: the first page was used")
     if arr.ndim == 3 and samples in (3, 4) and arr.shape[0] == samples and arr.shape[-1] != samples:
