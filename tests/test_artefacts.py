@@ -224,3 +224,29 @@ def test_cli_reports_the_artefact_on_a_measured_map(run_cli, tmp_path):
     assert code == 0 and json.loads(out)["artefacts"] is None
     code, out, err = run_cli(*args)
     assert code == 0 and "surface artefact (continues across grains at 123." in out
+
+
+def test_line_continuation_across_a_grain_boundary():
+    # detection cue (common practice, no source): a scratch runs on straight through the boundary;
+    # a band stops there, or (slip transfer) goes on in the neighbour at another angle
+    import cv2
+
+    from tracefit.grains import line_continuation
+    from tracefit.image.detect import BandLine
+
+    rng = np.random.default_rng(0)
+    img = 0.5 + rng.normal(0, 0.01, (200, 200))
+    labels = np.ones((200, 200), np.int64)
+    labels[:, 100:] = 2
+    cv2.line(img, (0, 40), (199, 155), 0.2, 2)  # scratch across both grains
+    cv2.line(img, (10, 190), (99, 100), 0.2, 2)  # band of grain 1 ending at the boundary
+    cv2.line(img, (99, 100), (199, 80), 0.2, 2)  # a band in grain 2 at another angle from the same point
+    cv2.line(img, (10, 10), (60, 10), 0.2, 2)  # a band ending inside grain 1
+    r_at = 40 + (155 - 40) * 98 / 199
+    scratch = BandLine(0.0, 40.0, 98.0, r_at, 0.0)
+    band = BandLine(10.0, 190.0, 98.0, 101.0, 0.0)
+    short = BandLine(10.0, 10.0, 60.0, 10.0, 0.0)
+    assert line_continuation(img, labels, 1, [scratch]) == 1.0  # the image-edge end is not tested
+    assert line_continuation(img, labels, 1, [band]) == 0.0
+    assert line_continuation(img, labels, 1, [short]) is None
+    assert line_continuation(img, labels, 1, [scratch, band]) == 0.5

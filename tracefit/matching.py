@@ -88,6 +88,10 @@ class ObservedFamily:
         Free label for reports.
     n_bands, strength : optional
         Detection details, carried through to reports.
+    boundary_continuation : float, optional
+        Share of the family's lines that run on straight into a neighbouring grain with the
+        same contrast (:func:`tracefit.grains.line_continuation`); reported, not used in the
+        probabilities.
     """
 
     angle_deg: float
@@ -97,6 +101,7 @@ class ObservedFamily:
     label: str | None = None
     n_bands: int | None = None
     strength: float | None = None
+    boundary_continuation: float | None = None
 
     def __post_init__(self):
         a = float(self.angle_deg)
@@ -203,6 +208,7 @@ class FamilyIdentification:
     p_artefact: float = field(default=0.0, init=False)
     unexplained_reason: str | None = field(default=None, init=False)
     artefact_angle_deg: float | None = field(default=None, init=False)
+    boundary_continuation: float | None = field(default=None, init=False)
 
     @property
     def best(self) -> Candidate | None:
@@ -239,6 +245,7 @@ class FamilyIdentification:
             "p_artefact": _r(self.p_artefact, 6),
             "unexplained_reason": (self.unexplained_reason or "no candidate fits") if self.unexplained else None,
             "artefact_angle_deg": _r(self.artefact_angle_deg, 3),
+            "boundary_continuation": _r(self.boundary_continuation, 3),
         }
 
 
@@ -785,7 +792,8 @@ def _as_observed(observed, grain) -> list[ObservedFamily]:
     for o in observed:
         if isinstance(o, ObservedFamily):
             if grain is not None and o.grain is None:
-                o = ObservedFamily(o.angle_deg, o.angle_sigma_deg, grain, o.source, o.label, o.n_bands, o.strength)
+                o = ObservedFamily(o.angle_deg, o.angle_sigma_deg, grain, o.source, o.label, o.n_bands, o.strength,
+                                   o.boundary_continuation)
             out.append(o)
         elif isinstance(o, (int, float, np.floating, np.integer)):
             out.append(ObservedFamily(float(o), 0.5, grain, "measured"))
@@ -911,6 +919,13 @@ def _identify_one(obs, cands, g, ang, incl, slope, load, osig, fsig, p_none, sch
                                  bool(unexplained), bool(ambiguous), pn, cl, sep, notes)
         r.p_artefact = pa
         r.unexplained_reason = reason
+        bc = getattr(o, "boundary_continuation", None)
+        r.boundary_continuation = bc
+        if bc is not None and bc >= 0.5:
+            r.notes.append(
+                f"{100 * bc:.0f} % of its line ends run on straight into the neighbouring grain with the same contrast: "
+                "typical of a surface scratch (a slip or twin band stops at the boundary or turns); not used in the probabilities"
+            )
         r.artefact_angle_deg = None if art_angle[f] is None or pa < threshold else float(art_angle[f])
         results.append(r)
     if len(results) >= 2 and all(r.unexplained and r.p_artefact < r.p_none for r in results):
