@@ -15,7 +15,15 @@ __all__ = ["find_databar"]
 
 
 def _row_stats(img, rows, col_step):
-    sub = img[rows][:, ::col_step].astype(np.float32, copy=False)
+    rows = np.asarray(rows)
+    lo, hi = int(rows.min()), int(rows.max())
+    step = int(rows[1] - rows[0]) if len(rows) > 1 else 1
+    # a strided view, then one small copy (no full-width fancy-indexed copy)
+    if step > 0:
+        sub = img[lo : hi + 1 : step, ::col_step]
+    else:
+        sub = img[lo : hi + 1, ::col_step][::-1]
+    sub = np.array(sub, dtype=np.float32)
     med = np.median(sub, axis=1)
     return sub, med
 

@@ -414,7 +414,8 @@ def _prepare(image, mask, labels, grain):
     if min(img.shape) < 16:
         raise TracefitInputError(f"image is {img.shape[1]} x {img.shape[0]} pixels; expected at least 16 x 16")
     img = img.astype(np.float32, copy=False)
-    if not np.isfinite(img[:: max(1, img.shape[0] // 512), :: max(1, img.shape[1] // 512)]).all() or not np.isfinite(img).all():
+    step = max(1, (1 << 22) // max(1, img.shape[1]))  # row blocks: no full-size temporaries
+    if not all(np.isfinite(img[r : r + step]).all() for r in range(0, img.shape[0], step)):
         raise TracefitInputError("image contains NaN or infinite values; expected finite grey levels")
     lo, hi = float(img.min()), float(img.max())
     if hi - lo <= 0:
@@ -508,14 +509,12 @@ def detect_bands(
     res = DetectionResult(path=path, width=w, height=h, notes=list(notes or []), pixel_size_um=pixel_size_um, grain=grain)
     if pixel_size_um is not None and not (pixel_size_um > 0 and math.isfinite(pixel_size_um)):
         raise TracefitInputError(f"pixel size {pixel_size_um!r} um; expected a positive number")
-    if find_bar:
-        bars = find_databar(img)
-        for b in bars:
-            res.excluded.append(b)
-            res.notes.append(b["note"])
+    bars = find_databar(img) if find_bar else []
+    for b in bars:
+        res.excluded.append(b)
+        res.notes.append(b["note"])
+        if m is not None:
             c0, r0, c1, r1 = b["bbox"]
-            if m is None:
-                m = np.ones((h, w), bool)
             m[r0:r1, c0:c1] = False
     if m is not None:
         if not m.any():
@@ -528,10 +527,16 @@ def detect_bands(
     f = max(1, int(math.ceil(max(h, w) / working_size)))
     if f > 1:
         wk = cv2.resize(img, (w // f, h // f), interpolation=cv2.INTER_AREA)
-        mw = None if m is None else cv2.resize(m.astype(np.uint8) * 255, (w // f, h // f), interpolation=cv2.INTER_AREA) >= 250
+        mw = None if m is None else cv2.resize(m.view(np.uint8) * np.uint8(255), (w // f, h // f), interpolation=cv2.INTER_AREA) >= 250
         res.notes.append(f"bands located on a {w // f} x {h // f} copy (1/{f}), fitted at full resolution")
     else:
-        wk, mw = img, m
+        wk, mw = img, (None if m is None else m.copy())
+    if bars and m is None:
+        # a bar alone: mark it on the working mask only (no full-size mask needed)
+        mw = np.ones(wk.shape, bool)
+        for b in bars:
+            c0, r0, c1, r1 = b["bbox"]
+            mw[max(0, r0 // f - 1) : -(-r1 // f), max(0, c0 // f - 1) : -(-c1 // f)] = False
     hw_, ww_ = wk.shape
     bg_sigma = max(24.0, min(hw_, ww_) / 12.0)
     flat = flatten_background(wk, mw, bg_sigma)
@@ -573,7 +578,7 @@ def detect_bands(
     valid_full = None if mw is None else mw.astype(np.uint8)  # checked at working resolution
     fams = []
     diag_w = math.hypot(hw_, ww_)
-    pix_noise = _pixel_noise(img, m)
+    pix_noise = _pixel_noise(img, m, bars)
     # cheap screen before the full-resolution fits: the strongest Hough lines of a
     # family must be deeper than the local median grey (rejects gaps between bands)
     # Cheap screen before the full-resolution fits: the strongest Hough lines must be
@@ -712,9 +717,14 @@ def _keep(rp: RidgePixels, sel) -> RidgePixels:
                        None if rp.sector is None else rp.sector[sel])
 
 
-def _pixel_noise(img, m, tile=512):
+def _pixel_noise(img, m, bars=(), tile=512):
     """Robust per-pixel noise (image units) from diagonal second differences on a few tiles."""
     h, w = img.shape
+    if bars and m is None:
+        top = max([b["bbox"][3] for b in bars if b["bbox"][1] == 0] or [0])
+        bottom = min([b["bbox"][1] for b in bars if b["bbox"][1] > 0] or [h])
+        if bottom - top >= 32:
+            return _pixel_noise(img[top:bottom], None, (), tile)
     vals = []
     for fr, fc in ((0.25, 0.25), (0.25, 0.75), (0.75, 0.25), (0.75, 0.75), (0.5, 0.5)):
         r0 = int(max(0, min(h - tile, fr * h - tile / 2)))
