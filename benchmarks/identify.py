@@ -13,7 +13,8 @@ the trace formula atan2(n_y, n_x) + 90 deg):
   of the maps one polishing-scratch direction at a uniform random angle crosses 3-10 of the
   map's grains (a scratch is one straight surface line: the same image angle, plus 0.3 deg
   detection noise, in every grain it crosses; a few parallel scratches of one polishing
-  direction cross that many grains of a 20-grain map);
+  direction cross that many grains of a 20-grain map); where a crossed grain has a real family
+  within 2 deg of the scratch, no separate scratch family is added (detection would merge them);
 * in addition, in 30 % of the grains one single-grain scratch family at its own uniform random
   angle is added (the old figure: angle only, not separable in principle for dense catalogues);
 * a false-alarm case: maps of 5 parent grains x 4 subgrains (0.5 deg per axis apart) whose
@@ -155,7 +156,8 @@ def simulate(lattice, n_grains, rng, scratch_rate=0.3, families=None, map_grains
                 sep[c] = np.inf
                 obs.append(ObservedFamily(ang[c] + rng.normal(0, SIG_DET), SIG_DET, grain=gid))
                 truth.append({"plane": c, "unambiguous": bool(sep.min() > 4.0), "scratch": False})
-            if j in scr_grains:
+            if j in scr_grains and all(abs(_axial(theta - ang[c])) >= 2.0 for c in chosen):
+                # (within 2 deg of a real family detection would see one family, as for two planes above)
                 a = theta + rng.normal(0, SIG_DET)
                 d = np.abs(_axial(a - ang)) / sig
                 obs.append(ObservedFamily(a % 180.0, SIG_DET, grain=gid))

@@ -78,6 +78,7 @@ DEFAULT_MAX_DIRECTIONS = 3
 _STEP_DEG = 0.05
 _WINDOW_DEG = 3.0
 _MAX_PEAKS = 12  # peaks examined per map (rejected ones are masked and the next is tried)
+_LINK_K = 2.0  # normals of one plane agree within _LINK_K hypot(s_A, s_B) degrees
 _MAX_LINK_SIGMA_DEG = 3.0  # ~ inclination >= 20 deg at 1 deg orientation sigma
 
 # Uniform prior on pi, integrated on a grid dense at small fractions (trapezoid weights).
@@ -178,7 +179,7 @@ class CrystalContext:
         sb = self.orientation_sigma_deg.get(gb, 1.0)
         # normals of one plane seen through two noisy orientations differ by ~ sqrt(2) hypot(sa, sb)
         # in magnitude (two components); 2 hypot keeps ~ 86 % of true links (Rayleigh)
-        tol = max(2.0 * math.hypot(sa, sb), 1.0)
+        tol = max(_LINK_K * math.hypot(sa, sb), 1.0)
         return bool(cos.max() >= math.cos(math.radians(tol)))
 
 

@@ -28,6 +28,11 @@ The model, per observed family f and candidate c (one plane variant of one mode)
 Several families of one grain are assigned jointly: the probabilities are the exact
 marginals over all assignments in which no two families take the same plane (unless
 ``allow_shared_planes``); "none" may be taken by any number of families.
+
+On grain maps (:func:`identify_grains`) a map-level surface-artefact hypothesis
+(:mod:`tracefit.artefacts`) may add a third kind of answer: a family on a straight surface
+line that keeps one image angle across grains. Like "none" it may be taken by any number of
+families; each family reports its probability as ``p_artefact``.
 """
 
 from __future__ import annotations
