@@ -713,8 +713,7 @@ def _depth_sampler(wk, mw, f, spacing_hint):
 
 
 def _keep(rp: RidgePixels, sel) -> RidgePixels:
-    return RidgePixels(rp.col[sel], rp.row[sel], rp.strength[sel], rp.angle_deg[sel], rp.polarity, rp.shape,
-                       None if rp.sector is None else rp.sector[sel])
+    return RidgePixels(rp.col[sel], rp.row[sel], rp.strength[sel], rp.polarity, rp.shape, rp.sector[sel], rp.sector_deg)
 
 
 def _pixel_noise(img, m, bars=(), tile=512):

@@ -60,26 +60,31 @@ class RidgePixels:
 
     Attributes
     ----------
-    col, row : ndarray of float32
-        Pixel coordinates.
+    col, row : ndarray of int16
+        Pixel coordinates (working resolution, at most 32767).
     strength : ndarray of float32
         Ridge strength in threshold units (>= 1).
-    angle_deg : ndarray of float32
-        Band direction of the pixel's orientation sector, image-frame axial degrees.
     polarity : int
         -1 dark bands, +1 bright bands.
     shape : (int, int)
     sector : ndarray of int16
-        Orientation sector of each pixel.
+        Orientation sector of each pixel (pixels are stored sector by sector).
+    sector_deg : float
+        Sector width, degrees; sector k holds bands at about ``k * sector_deg``.
     """
 
     col: np.ndarray
     row: np.ndarray
     strength: np.ndarray
-    angle_deg: np.ndarray
     polarity: int
     shape: tuple[int, int]
-    sector: np.ndarray | None = None
+    sector: np.ndarray
+    sector_deg: float = 15.0
+
+    @property
+    def angle_deg(self) -> np.ndarray:
+        """Band direction of each pixel's sector, image-frame axial degrees."""
+        return self.sector.astype(np.float32) * np.float32(self.sector_deg)
 
     def __len__(self) -> int:
         return len(self.col)
@@ -203,12 +208,13 @@ def ridge_pixels(flat: np.ndarray, mask: np.ndarray | None, sector_deg: float = 
             else:
                 nz = nz.reshape(-1, 2)
                 cc, rr = nz[:, 0], nz[:, 1]
-            acc[pol].append((cc, rr, resp[rr, cc], np.full(len(rr), centre, np.float32), np.full(len(rr), k, np.int16)))
+            acc[pol].append((cc.astype(np.int16), rr.astype(np.int16), resp[rr, cc], np.full(len(rr), k, np.int16)))
         best.clear()
+    del derivs
     out = []
     for pol in (-1, 1):
         parts = acc[pol]
-        cat = [np.concatenate([p[i] for p in parts]) for i in range(5)]
-        out.append(RidgePixels(cat[0].astype(np.float32), cat[1].astype(np.float32), cat[2].astype(np.float32),
-                               cat[3].astype(np.float32), pol, (h, w), cat[4]))
+        cat = [np.concatenate([p[i] for p in parts]) for i in range(4)]
+        parts.clear()
+        out.append(RidgePixels(cat[0], cat[1], cat[2].astype(np.float32, copy=False), pol, (h, w), cat[3], float(sector_deg)))
     return out[0], out[1]
