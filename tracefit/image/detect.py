@@ -453,7 +453,7 @@ def detect_bands(
     find_bar: bool = True,
     min_bands: int = 3,
     max_families: int = 8,
-    working_size: int = 2048,
+    working_size: int = 1536,
     scales=(1.0, 1.7, 2.8),
     min_coverage: float = 0.3,
     min_depth: float = 0.035,
