@@ -8,7 +8,7 @@
    prints the ratio and megapixels per second.
 3. Peak memory of reading + detecting a 64-megapixel 8-bit PNG, measured in a fresh
    subprocess (tracemalloc peak of Python/numpy allocations, and the peak resident set
-   size of the whole process, which includes the interpreter and libraries).
+   size VmHWM of the whole process, which includes the interpreter and libraries).
 
 Usage::
 
@@ -140,7 +140,18 @@ gray, notes = read_image(sys.argv[1])
 res = detect_bands(gray, path=sys.argv[1], notes=notes)
 dt = time.perf_counter() - t0
 cur, peak = tracemalloc.get_traced_memory()
-rss_kb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+# VmHWM (peak resident set of this process image); ru_maxrss would carry over the
+# parent's peak across fork + exec on Linux
+rss_kb = None
+try:
+    with open("/proc/self/status") as fh:
+        for line in fh:
+            if line.startswith("VmHWM:"):
+                rss_kb = float(line.split()[1])
+except OSError:
+    pass
+if rss_kb is None:
+    rss_kb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
 print(json.dumps({"tracemalloc_peak_mb": peak / 2**20, "max_rss_mb": rss_kb / 1024.0, "seconds": dt,
                   "families": [round(f.angle_deg, 3) for f in res.families]}))
 """
