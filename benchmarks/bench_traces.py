@@ -16,11 +16,11 @@ import warnings
 import numpy as np
 from scipy.spatial.transform import Rotation
 
-from tracefit.frames import FrameSettings
-from tracefit.lattice import lattice_preset
-from tracefit.orientation import from_euler
-from tracefit.systems import catalogue
-from tracefit.traces import parse_load, predict_traces, predicted_trace_table
+from tracefit.conventions import FrameSettings
+from tracefit.crystal import lattice_preset
+from tracefit.crystal import from_euler
+from tracefit.crystal import catalogue
+from tracefit.predict import parse_load, predict_traces, predicted_trace_table
 
 
 def main(n: int = 20000) -> None:

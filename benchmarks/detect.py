@@ -1,6 +1,6 @@
 """Benchmark of band detection (not part of the test suite): prints its figures.
 
-1. Accuracy on the synthetic standard suite (``tracefit.synthetic.standard_suite``):
+1. Accuracy on the synthetic standard suite (``tracefit.image.synthetic.standard_suite``):
    median and 95th-percentile absolute family-angle error, share of true families
    found, share of spurious families, and how well ``angle_sigma_deg`` covers the error.
 2. Speed on a 16-megapixel image: ``detect_bands`` against a bare OpenCV Canny +
@@ -33,9 +33,9 @@ import time
 import cv2
 import numpy as np
 
-from tracefit.angles import axial_difference
-from tracefit.image.detect import detect_bands
-from tracefit.synthetic import BandFamilySpec, render_micrograph, standard_suite
+from tracefit.conventions import axial_difference
+from tracefit.image import detect_bands
+from tracefit.image.synthetic import BandFamilySpec, render_micrograph, standard_suite
 
 MATCH_TOL_DEG = 2.0  # a detected family within this of a true one counts as that family
 
@@ -133,8 +133,8 @@ def speed(repeats: int = 3) -> dict:
 _CHILD = r"""
 import json, resource, sys, time, tracemalloc
 tracemalloc.start()
-from tracefit.image.io import read_image
-from tracefit.image.detect import detect_bands
+from tracefit.image import read_image
+from tracefit.image import detect_bands
 t0 = time.perf_counter()
 gray, notes = read_image(sys.argv[1])
 res = detect_bands(gray, path=sys.argv[1], notes=notes)

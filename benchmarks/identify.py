@@ -1,6 +1,6 @@
 """Benchmark of the matcher (issue 4 targets): accuracy, honesty of the candidate set, scratches, speed.
 
-Synthetic grains with known truth, built independently of tracefit.traces (scipy rotations and
+Synthetic grains with known truth, built independently of tracefit.predict.traces (scipy rotations and
 the trace formula atan2(n_y, n_x) + 90 deg):
 
 * random orientations (uniform), lattices fcc, bcc, hcp (c/a 1.587) in equal shares;
@@ -51,10 +51,10 @@ from scipy.spatial.transform import Rotation
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from tracefit.lattice import lattice_preset  # noqa: E402
-from tracefit.matching import ObservedFamily, candidate_set, identify_grains, predicted_trace_sigma  # noqa: E402
-from tracefit.systems import catalogue  # noqa: E402
-from tracefit.traces import parse_load  # noqa: E402
+from tracefit.crystal.lattice import lattice_preset  # noqa: E402
+from tracefit.identify.matching import ObservedFamily, candidate_set, identify_grains, predicted_trace_sigma  # noqa: E402
+from tracefit.crystal.systems import catalogue  # noqa: E402
+from tracefit.predict.traces import parse_load  # noqa: E402
 
 SIG_DET = 0.3
 SIG_ORI = 1.0
@@ -284,7 +284,7 @@ def run_timing(seed):
             t0 = time.perf_counter()
             identify_grains(obs, lat, ori, catalogue(lat), load=parse_load("x"), artefacts=False)
             best0 = min(best0, time.perf_counter() - t0)
-        from tracefit.alignment import fit_frame
+        from tracefit.identify import fit_frame
 
         t0 = time.perf_counter()
         fit_frame(obs, lat, ori, catalogue(lat), n_bootstrap=50, coarse_step_deg=1.0)  # identify's automatic frame check
@@ -295,8 +295,8 @@ def run_timing(seed):
 def run_images(n, seed):
     """End to end on small synthetic micrographs (detection + identification), fcc single grains."""
     from tracefit.image import detect_bands
-    from tracefit.matching import identify_families, observed_from_detection
-    from tracefit.synthetic import BandFamilySpec, render_micrograph
+    from tracefit.identify import identify_families, observed_from_detection
+    from tracefit.image.synthetic import BandFamilySpec, render_micrograph
 
     rng = np.random.default_rng(seed)
     lat = lattice_preset("fcc")

@@ -22,7 +22,7 @@ def main() -> None:
     ap.add_argument("--repeat", type=int, default=2, help="runs per setting (best is reported)")
     ap.add_argument("--copies", type=int, default=4, help="copies of each demo image in the job")
     args = ap.parse_args()
-    from tracefit.jobs import parse_job
+    from tracefit.survey import parse_job
 
     # the demo job with each image listed several times under different names
     text = demo_job_path().read_text(encoding="utf-8")

@@ -11,8 +11,8 @@ three coupons from a prototype bracket after a proof test and polished one face 
   image's horizontal axis, showing {10-12} twins.
 
 The band angles are not typed in: each is the predicted trace of the chosen plane for the
-coupon's orientation (:func:`tracefit.traces.predict_traces`), so the demo truth agrees with
-the geometry by construction. The images are drawn by :func:`tracefit.synthetic.render_micrograph`.
+coupon's orientation (:func:`tracefit.predict.traces.predict_traces`), so the demo truth agrees with
+the geometry by construction. The images are drawn by :func:`tracefit.image.synthetic.render_micrograph`.
 
 Run from the repository root::
 
@@ -32,13 +32,13 @@ from pathlib import Path
 import cv2
 import numpy as np
 
-from tracefit.angles import axial_difference
-from tracefit.grains import write_orientation_table
-from tracefit.lattice import lattice_preset
-from tracefit.orientation import from_euler
-from tracefit.synthetic import BandFamilySpec, render_micrograph
-from tracefit.systems import catalogue
-from tracefit.traces import parse_load, predict_traces
+from tracefit.conventions import axial_difference
+from tracefit.maps import write_orientation_table
+from tracefit.crystal import lattice_preset
+from tracefit.crystal import from_euler
+from tracefit.image.synthetic import BandFamilySpec, render_micrograph
+from tracefit.crystal import catalogue
+from tracefit.predict import parse_load, predict_traces
 
 ROOT = Path(__file__).resolve().parent.parent
 PACKAGE_DEMO = ROOT / "tracefit" / "data" / "demo"
@@ -117,7 +117,7 @@ def _job_toml(coupons) -> str:
         "format = 1",
         'title = "Harrow Lane Instruments: bracket coupon study (fictional demo)"',
         'notes = "Three polished coupons from a prototype bracket (an invented scenario). Synthetic micrographs '
-        'drawn by tracefit.synthetic from the predicted traces of known planes."',
+        'drawn by tracefit.image.synthetic from the predicted traces of known planes."',
         "",
         "[defaults]",
         f"pixel_size_um = {PIXEL_UM}",

@@ -1,6 +1,6 @@
 """Frame fit: recovers a known rotation (and mirror) between orientation data and image.
 
-Observed traces are made independently of tracefit.traces: scipy rotations give the sample-frame
+Observed traces are made independently of tracefit.predict.traces: scipy rotations give the sample-frame
 normals, the known frame rotation is applied as an active turn about z (v_image = Rz(rho) v_data,
 ../shared/conventions.md), and the trace angle is atan2(n_y, n_x) + 90 deg.
 """
@@ -11,12 +11,12 @@ import numpy as np
 import pytest
 from scipy.spatial.transform import Rotation
 
-from tracefit.alignment import fit_frame
+from tracefit.identify.frame_fit import fit_frame
 from tracefit.errors import TracefitInputError
-from tracefit.frames import FrameSettings
-from tracefit.lattice import lattice_preset
-from tracefit.matching import ObservedFamily
-from tracefit.systems import catalogue
+from tracefit.conventions import FrameSettings
+from tracefit.crystal.lattice import lattice_preset
+from tracefit.identify.matching import ObservedFamily
+from tracefit.crystal.systems import catalogue
 
 FCC = lattice_preset("fcc")
 PLANES = [(1, 1, 1), (-1, 1, 1), (1, -1, 1), (1, 1, -1)]

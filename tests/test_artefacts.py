@@ -1,4 +1,4 @@
-"""Map-level surface artefacts (tracefit.artefacts) through the matcher (identify_grains).
+"""Map-level surface artefacts (tracefit.identify.artefacts) through the matcher (identify_grains).
 
 Basis of the checks:
 * continuity cue: a polishing scratch is a straight surface line and keeps one image angle across
@@ -7,7 +7,7 @@ Basis of the checks:
 * traces of a plane shared by two grains coincide (a twin plane of an fcc annealing twin is
   common to both sides: Sigma-3 = 180 deg about the <111> twin plane normal, from memory), so a
   real system may predict one angle in two grains and must not be called an artefact;
-* reference geometry comes from scipy's Rotation, not from tracefit.traces: the trace of a plane
+* reference geometry comes from scipy's Rotation, not from tracefit.predict.traces: the trace of a plane
   with sample-frame normal n is at atan2(n_y, n_x) + 90 deg (the intersection of the plane with
   the surface z = 0);
 * the Bayes factor is checked against scipy.integrate.quad of the same integral.
@@ -22,9 +22,9 @@ import pytest
 from scipy import integrate
 from scipy.spatial.transform import Rotation
 
-from tracefit.artefacts import find_artefact_directions
-from tracefit.lattice import lattice_preset
-from tracefit.matching import (
+from tracefit.identify.artefacts import find_artefact_directions
+from tracefit.crystal.lattice import lattice_preset
+from tracefit.identify.matching import (
     ObservedFamily,
     _grain_weights,
     axial_logpdf,
@@ -35,7 +35,7 @@ from tracefit.matching import (
     logsumexp,
     predict_candidates,
 )
-from tracefit.systems import catalogue
+from tracefit.crystal.systems import catalogue
 
 FCC = lattice_preset("fcc")
 CAT = catalogue(FCC)
@@ -200,7 +200,7 @@ def test_cli_reports_the_artefact_on_a_measured_map(run_cli, tmp_path):
     # the same continuity cue through tracefit identify --measured (grain column) --orientations --json
     import json
 
-    from tracefit.grains import write_orientation_table
+    from tracefit.maps.tables import write_orientation_table
 
     rng = np.random.default_rng(4)
     Rs = {k: Rotation.random(random_state=300 + k) for k in range(1, 7)}
@@ -231,7 +231,7 @@ def test_line_continuation_across_a_grain_boundary():
     # a band stops there, or (slip transfer) goes on in the neighbour at another angle
     import cv2
 
-    from tracefit.grains import line_continuation
+    from tracefit.image.continuation import line_continuation
     from tracefit.image.detect import BandLine
 
     rng = np.random.default_rng(0)

@@ -6,8 +6,8 @@ import cv2
 import numpy as np
 import pytest
 
-from tracefit.angles import axial_difference
-from tracefit.synthetic import BandFamilySpec, render_micrograph
+from tracefit.conventions import axial_difference
+from tracefit.image.synthetic import BandFamilySpec, render_micrograph
 
 
 @pytest.fixture(scope="module")

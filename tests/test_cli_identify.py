@@ -1,7 +1,7 @@
 """End to end on generated micrographs with known truth: identify, align-frame, find-orientation, two-face.
 
 Truth traces come from scipy's Rotation (crystal -> sample = Rotation.from_euler("ZXZ", bunge),
-../shared/conventions.md) and atan2(n_y, n_x) + 90 deg, not from tracefit.traces.
+../shared/conventions.md) and atan2(n_y, n_x) + 90 deg, not from tracefit.predict.traces.
 """
 
 import json
@@ -12,8 +12,8 @@ import numpy as np
 import pytest
 from scipy.spatial.transform import Rotation
 
-from tracefit.lattice import lattice_preset
-from tracefit.synthetic import BandFamilySpec, render_micrograph, voronoi_labels
+from tracefit.crystal.lattice import lattice_preset
+from tracefit.image.synthetic import BandFamilySpec, render_micrograph, voronoi_labels
 
 FCC = lattice_preset("fcc")
 PLANES = [(1, 1, 1), (-1, 1, 1), (1, -1, 1), (1, 1, -1)]

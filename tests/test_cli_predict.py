@@ -10,7 +10,7 @@ import math
 
 import pytest
 
-from tracefit.angles import axial_difference
+from tracefit.conventions import axial_difference
 
 
 def _traces_by_plane(out):

@@ -1,6 +1,6 @@
 """The bundled demo, end to end: ``tracefit demo`` finds the planes the images were drawn from.
 
-The demo images were drawn by tracefit.synthetic at the traces that tracefit.traces predicts for
+The demo images were drawn by tracefit.image.synthetic at the traces that tracefit.predict.traces predicts for
 known planes (demo_images/make_demo.py); ``truth.json`` records them. The check here reads the
 results CSV that the real survey (detector + matcher) wrote and compares it with that truth.
 The predicted angles themselves rest on the conventions' worked vectors, which are checked
@@ -17,8 +17,8 @@ from pathlib import Path
 import pytest
 
 from tracefit.demo import demo_dir, demo_job_path
-from tracefit.indices import format_index
-from tracefit.jobs import load_job
+from tracefit.crystal.indices import format_index
+from tracefit.survey.jobs import load_job
 
 
 @pytest.fixture(scope="module")

@@ -8,10 +8,10 @@ import pytest
 from skimage.draw import line as sk_line
 from skimage.transform import hough_line, hough_line_peaks
 
-from tracefit.angles import axial_difference
+from tracefit.conventions import axial_difference
 from tracefit.errors import TracefitInputError
 from tracefit.image.detect import detect_bands, detect_grains
-from tracefit.synthetic import BandFamilySpec, render_micrograph, voronoi_labels
+from tracefit.image.synthetic import BandFamilySpec, render_micrograph, voronoi_labels
 
 
 def _match(result, true_angles, tol=2.0):
@@ -164,7 +164,7 @@ def _draw_parallel_lines(shape, p0, p1, offsets, thickness=(-1, 0, 1)):
 def test_angle_convention_on_lines_drawn_by_skimage_draw():
     # skimage.draw.line as an independent line renderer: rows (r) grow downward, so a line
     # from (r=400, c=40) to (r=130, c=470) rises to the right on screen; its image-frame
-    # angle is atan2(400 - 130, 470 - 40), computed here without tracefit.angles.
+    # angle is atan2(400 - 130, 470 - 40), computed here without tracefit.conventions.
     r0, c0, r1, c1 = 400, 40, 130, 470
     expect = math.degrees(math.atan2(r0 - r1, c1 - c0))  # 32.12 deg
     img = _draw_parallel_lines((512, 512), (r0, c0), (r1, c1), offsets=range(-150, 151, 30))

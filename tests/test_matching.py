@@ -1,6 +1,6 @@
 """The matcher: probabilities, "none of these", ambiguity, joint assignment.
 
-Predictions for the checks are made independently of tracefit.traces: scipy's Rotation
+Predictions for the checks are made independently of tracefit.predict.traces: scipy's Rotation
 (``Rotation.from_euler("ZXZ", bunge)`` is the crystal -> sample rotation, see
 ../shared/conventions.md) and the trace formula atan2(n_y, n_x) + 90 deg.
 """
@@ -14,8 +14,8 @@ from scipy.integrate import quad
 from scipy.spatial.transform import Rotation
 
 from tracefit.errors import TracefitInputError
-from tracefit.lattice import lattice_preset
-from tracefit.matching import (
+from tracefit.crystal.lattice import lattice_preset
+from tracefit.identify.matching import (
     ObservedFamily,
     axial_logpdf,
     candidate_set,
@@ -24,15 +24,15 @@ from tracefit.matching import (
     identify_grains,
     predicted_trace_sigma,
 )
-from tracefit.orientation import from_euler
-from tracefit.systems import catalogue
-from tracefit.traces import parse_load
+from tracefit.crystal.orientation import from_euler
+from tracefit.crystal.systems import catalogue
+from tracefit.predict.traces import parse_load
 
 FCC = lattice_preset("fcc")
 
 
 def scipy_trace(lattice, bunge, plane):
-    """(trace angle, inclination) of a plane via scipy's rotation, independent of tracefit.traces."""
+    """(trace angle, inclination) of a plane via scipy's rotation, independent of tracefit.predict.traces."""
     n_c = lattice.plane_normal(plane)
     n_s = Rotation.from_euler("ZXZ", bunge, degrees=True).apply(n_c)
     ang = (math.degrees(math.atan2(n_s[1], n_s[0])) + 90.0) % 180.0
@@ -288,7 +288,7 @@ def test_traces_on_a_111_surface_form_60_degree_triangles():
 
 def test_stage_tilt_is_undone_before_matching():
     # tan(apparent) = tan(true) cos(tilt) for a tilt about the image x axis (../shared/conventions.md).
-    from tracefit.frames import FrameSettings
+    from tracefit.conventions import FrameSettings
 
     bunge = (23.0, 41.0, 67.0)
     true = scipy_trace(FCC, bunge, (1, -1, 1))[0]

@@ -4,7 +4,7 @@ Outside references: endpoint angles are checked against hand calculation (plane 
 done on paper, stated beside each case); crack consistency against trace angles predicted
 with scipy's Rotation (``Rotation.from_euler("ZXZ", bunge)`` is the crystal -> sample rotation,
 see ../shared/conventions.md) and the trace formula atan2(n_y, n_x) + 90 deg, independent of
-tracefit.traces.
+tracefit.predict.traces.
 """
 
 import math
@@ -14,9 +14,9 @@ import pytest
 from scipy.spatial.transform import Rotation
 
 from tracefit.errors import TracefitInputError
-from tracefit.lattice import lattice_preset
-from tracefit.matching import ObservedFamily
-from tracefit.measured import (
+from tracefit.crystal.lattice import lattice_preset
+from tracefit.identify.matching import ObservedFamily
+from tracefit.identify.measured import (
     MEASURED_CONVENTION,
     CrackIdentification,
     identify_observed,
@@ -24,15 +24,15 @@ from tracefit.measured import (
     parse_angle_option,
     read_measured_csv,
 )
-from tracefit.orientation import from_euler
-from tracefit.systems import catalogue
+from tracefit.crystal.orientation import from_euler
+from tracefit.crystal.systems import catalogue
 
 FCC = lattice_preset("fcc")
 FCC_111 = [(1, 1, 1), (-1, 1, 1), (1, -1, 1), (1, 1, -1)]
 
 
 def scipy_trace(bunge, plane):
-    """(trace angle, inclination) via scipy's rotation, independent of tracefit.traces."""
+    """(trace angle, inclination) via scipy's rotation, independent of tracefit.predict.traces."""
     n_s = Rotation.from_euler("ZXZ", bunge, degrees=True).apply(FCC.plane_normal(plane))
     return (math.degrees(math.atan2(n_s[1], n_s[0])) + 90.0) % 180.0, math.degrees(math.acos(min(1.0, abs(n_s[2]))))
 

@@ -18,8 +18,8 @@ import pytest
 from scipy.spatial.transform import Rotation as SciRot
 
 from tracefit.errors import TracefitInputError
-from tracefit.lattice import lattice_preset
-from tracefit.orientation import (
+from tracefit.crystal.lattice import lattice_preset
+from tracefit.crystal.orientation import (
     crystal_to_sample,
     from_axis_angle,
     from_euler,

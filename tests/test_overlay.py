@@ -16,9 +16,9 @@ from scipy.spatial.transform import Rotation
 
 from tracefit.errors import TracefitInputError
 from tracefit.image.draw import FAMILY_COLOURS
-from tracefit.lattice import lattice_preset
-from tracefit.orientation import from_euler
-from tracefit.overlay import (
+from tracefit.crystal.lattice import lattice_preset
+from tracefit.crystal.orientation import from_euler
+from tracefit.viz.overlay import (
     CANVAS_BACKGROUND,
     WEDGE_ALPHA,
     draw_predicted,
@@ -27,8 +27,8 @@ from tracefit.overlay import (
     trace_sigma_deg,
     write_overlay,
 )
-from tracefit.systems import catalogue
-from tracefit.traces import predict_traces
+from tracefit.crystal.systems import catalogue
+from tracefit.predict.traces import predict_traces
 
 FCC = lattice_preset("fcc")
 BUNGE = (20.0, 35.0, 60.0)  # {111} traces at 32.2, 53.9, 98.7 and 142.6 deg: well apart
@@ -239,8 +239,8 @@ def test_cli_bad_drawing_options(run_cli, tmp_path, args, words):
 
 def test_wedge_sigma_equals_the_matchers_under_tilt():
     # The drawing's spread must be the one the matcher uses (same propagation, same tilt slope).
-    from tracefit.frames import FrameSettings
-    from tracefit.matching import candidate_set, predict_candidates, predicted_trace_sigma
+    from tracefit.conventions import FrameSettings
+    from tracefit.identify.matching import candidate_set, predict_candidates, predicted_trace_sigma
 
     frame = FrameSettings(tilt_deg=60.0)
     g = from_euler(BUNGE)

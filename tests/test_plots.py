@@ -7,7 +7,7 @@ import pytest
 from hypothesis import given, settings, strategies as st
 from scipy.spatial.transform import Rotation
 
-from tracefit import plots
+from tracefit.viz import plots
 
 unit3 = st.tuples(*[st.floats(-1, 1, allow_nan=False)] * 3).filter(lambda v: np.linalg.norm(v) > 0.1)
 
@@ -65,7 +65,7 @@ def test_great_circle_lies_in_the_plane_on_the_upper_hemisphere(n):
 )
 def test_great_circle_meets_the_rim_at_the_trace_angle(euler, hkl, trace_deg):
     # The plane normal in the sample frame from scipy (v_sample = R v_crystal with
-    # R = Rotation.from_euler("ZXZ", Bunge angles)), independent of tracefit.orientation.
+    # R = Rotation.from_euler("ZXZ", Bunge angles)), independent of tracefit.crystal.orientation.
     n = Rotation.from_euler("ZXZ", euler, degrees=True).apply(np.asarray(hkl, float) / np.linalg.norm(hkl))
     ends = plots.great_circle(n, 181)[[0, -1]]
     assert np.allclose(ends[:, 2], 0, atol=1e-12)  # both ends on the primitive circle
@@ -77,11 +77,11 @@ def test_stereogram_uses_the_image_frame_when_the_data_frame_is_rotated():
     # With the orientation data turned by rho = 30 deg against the image, predicted traces move by
     # +30 deg (conventions); the stereogram's normals (normal_image) must move with them, so each
     # great circle still meets the rim at its predicted image angle.
-    from tracefit.frames import FrameSettings
-    from tracefit.lattice import lattice_preset
-    from tracefit.orientation import from_euler
-    from tracefit.survey import _predicted_dicts
-    from tracefit.systems import catalogue
+    from tracefit.conventions import FrameSettings
+    from tracefit.crystal.lattice import lattice_preset
+    from tracefit.crystal.orientation import from_euler
+    from tracefit.survey.runner import _predicted_dicts
+    from tracefit.crystal.systems import catalogue
 
     lat = lattice_preset("fcc")
     preds = _predicted_dicts(lat, from_euler(np.array([0.0, 0.0, 0.0])), catalogue(lat, ["slip"]),
@@ -140,9 +140,9 @@ def test_figures_save_as_png(tmp_path):
 
 
 def test_stereogram_for_an_orientation_draws_one_circle_per_distinct_plane():
-    from tracefit.lattice import lattice_preset
-    from tracefit.orientation import from_euler
-    from tracefit.systems import catalogue
+    from tracefit.crystal.lattice import lattice_preset
+    from tracefit.crystal.orientation import from_euler
+    from tracefit.crystal.systems import catalogue
 
     lat = lattice_preset("fcc")
     fig = plots.stereogram_for(lat, from_euler([0.0, 0.0, 0.0]), catalogue(lat, ["slip", "twin"]), matched=[(1, 1, 1)])

@@ -1,4 +1,4 @@
-"""Laue-class rotations and family variants (tracefit.symmetry) against outside references."""
+"""Laue-class rotations and family variants (tracefit.crystal.symmetry) against outside references."""
 
 import math
 
@@ -7,8 +7,8 @@ import pytest
 from hypothesis import given, settings, strategies as st
 
 from tracefit.errors import TracefitInputError
-from tracefit.lattice import Lattice, lattice_preset
-from tracefit.symmetry import (
+from tracefit.crystal.lattice import Lattice, lattice_preset
+from tracefit.crystal.symmetry import (
     direction_variants,
     index_rotations,
     plane_variants,

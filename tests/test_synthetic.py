@@ -4,8 +4,8 @@ import numpy as np
 import pytest
 from skimage.draw import line as sk_line
 
-from tracefit.angles import axial_difference, pixel_endpoints_angle
-from tracefit.synthetic import BandFamilySpec, render_micrograph, standard_suite, voronoi_labels
+from tracefit.conventions import axial_difference, pixel_endpoints_angle
+from tracefit.image.synthetic import BandFamilySpec, render_micrograph, standard_suite, voronoi_labels
 
 
 def test_same_seed_same_image_other_seed_other_image():
@@ -23,7 +23,7 @@ def test_truth_lines_have_the_family_angle_and_lie_on_dark_pixels():
     fam = truth.families[0]
     assert fam.n_bands >= 8
     for c0, r0, c1, r1 in fam.lines:
-        # every band line has the family angle (convention: tracefit.angles, rows down)
+        # every band line has the family angle (convention: tracefit.conventions, rows down)
         assert abs(axial_difference(pixel_endpoints_angle(c0, r0, c1, r1), 62.0)) < 1e-6
     # independent renderer of the same line: skimage.draw.line rasterises the truth line;
     # the image must be darker there than on average (the band is drawn where the truth says)

@@ -16,13 +16,13 @@ import pytest
 from hypothesis import given, settings, strategies as st
 from scipy.spatial.transform import Rotation as SciRot
 
-from tracefit.angles import axial_difference
+from tracefit.conventions import axial_difference
 from tracefit.errors import TracefitInputError
-from tracefit.frames import FrameSettings
-from tracefit.lattice import lattice_preset
-from tracefit.orientation import crystal_to_sample, from_euler
-from tracefit.systems import catalogue
-from tracefit.traces import (
+from tracefit.conventions import FrameSettings
+from tracefit.crystal.lattice import lattice_preset
+from tracefit.crystal.orientation import crystal_to_sample, from_euler
+from tracefit.crystal.systems import catalogue
+from tracefit.predict.traces import (
     parse_load,
     plane_normals_in_image,
     predict_traces,

@@ -2,7 +2,7 @@
 
 The library is a set of small modules (geometry, image, matching, reports) with a
 thin command line on top (:mod:`tracefit.cli`). Conventions are fixed once in
-``docs/conventions.md`` and in :mod:`tracefit.angles`.
+``docs/conventions.md`` and in :mod:`tracefit.conventions`.
 """
 
 __version__ = "0.1.0"

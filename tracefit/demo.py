@@ -2,7 +2,7 @@
 
 The demo lives inside the package (``tracefit/data/demo/``) so that a plain
 ``pip install .`` carries it: three synthetic micrographs drawn by
-:mod:`tracefit.synthetic` from the predicted traces of known planes, a grain label image
+:mod:`tracefit.image.synthetic` from the predicted traces of known planes, a grain label image
 and orientation table, the job file ``job.toml`` and ``truth.json`` (what was drawn).
 ``demo_images/make_demo.py`` in the source tree regenerates them.
 
@@ -64,7 +64,7 @@ def check_demo(result) -> list[DemoCheck]:
     taken, and its most probable candidate plane is compared with the drawn one (a plane
     and its negative are the same plane).
     """
-    from tracefit.angles import axial_difference
+    from tracefit.conventions import axial_difference
 
     truth = json.loads((demo_dir() / "truth.json").read_text(encoding="utf-8"))
     records = {r["name"]: r for r in (result.records if hasattr(result, "records") else result["images"])}
@@ -97,9 +97,9 @@ def run_demo(out_dir=DEFAULT_DEMO_OUT, workers: int | None = None, progress: boo
 
     Returns
     -------
-    tracefit.survey.SurveyResult
+    tracefit.survey.runner.SurveyResult
     """
-    from tracefit.jobs import load_job
+    from tracefit.survey import load_job
     from tracefit.survey import run_survey
 
     return run_survey(load_job(demo_job_path()), out_dir, workers=workers, resume=resume, progress=progress)

@@ -15,12 +15,12 @@ import tempfile
 from pathlib import Path
 
 from tracefit import CAUTION
-from tracefit.indices import format_index
-from tracefit.lattice import lattice_preset
-from tracefit.matching import identifications_to_json
-from tracefit.measured import MEASURED_CONVENTION, identify_observed, parse_angle_option, read_measured_csv
-from tracefit.orientation import from_euler
-from tracefit.systems import catalogue
+from tracefit.crystal import format_index
+from tracefit.crystal import lattice_preset
+from tracefit.identify import identifications_to_json
+from tracefit.identify import MEASURED_CONVENTION, identify_observed, parse_angle_option, read_measured_csv
+from tracefit.crystal import from_euler
+from tracefit.crystal import catalogue
 
 out_dir = Path(sys.argv[1]) if len(sys.argv) > 1 else Path(tempfile.mkdtemp(prefix="tracefit-example-"))
 out_dir.mkdir(parents=True, exist_ok=True)

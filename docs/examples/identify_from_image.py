@@ -15,12 +15,12 @@ from pathlib import Path
 
 from tracefit.demo import demo_dir
 from tracefit.image import detect_bands, read_image
-from tracefit.indices import format_index
-from tracefit.lattice import lattice_preset
-from tracefit.matching import identifications_to_json, identify_families, observed_from_detection
-from tracefit.orientation import from_euler
-from tracefit.systems import catalogue
-from tracefit.traces import parse_load
+from tracefit.crystal import format_index
+from tracefit.crystal import lattice_preset
+from tracefit.identify import identifications_to_json, identify_families, observed_from_detection
+from tracefit.crystal import from_euler
+from tracefit.crystal import catalogue
+from tracefit.predict import parse_load
 
 out_dir = Path(sys.argv[1]) if len(sys.argv) > 1 else Path(tempfile.mkdtemp(prefix="tracefit-example-"))
 out_dir.mkdir(parents=True, exist_ok=True)

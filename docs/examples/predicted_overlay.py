@@ -15,11 +15,11 @@ from pathlib import Path
 
 from tracefit.demo import demo_dir
 from tracefit.image import read_image
-from tracefit.lattice import lattice_preset
-from tracefit.orientation import from_euler
-from tracefit.overlay import draw_predicted, write_overlay
-from tracefit.systems import catalogue
-from tracefit.traces import predict_traces
+from tracefit.crystal import lattice_preset
+from tracefit.crystal import from_euler
+from tracefit.viz.overlay import draw_predicted, write_overlay
+from tracefit.crystal import catalogue
+from tracefit.predict import predict_traces
 
 out_dir = Path(sys.argv[1]) if len(sys.argv) > 1 else Path(tempfile.mkdtemp(prefix="tracefit-example-"))
 out_dir.mkdir(parents=True, exist_ok=True)

@@ -16,10 +16,10 @@ import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 from matplotlib.patches import Arc, FancyArrowPatch, Polygon  # noqa: E402
 
-from tracefit.frames import FrameSettings, apparent_angle  # noqa: E402
-from tracefit.lattice import lattice_preset  # noqa: E402
-from tracefit.orientation import from_euler  # noqa: E402
-from tracefit.traces import predicted_trace_table  # noqa: E402
+from tracefit.conventions import FrameSettings, apparent_angle  # noqa: E402
+from tracefit.crystal.lattice import lattice_preset  # noqa: E402
+from tracefit.crystal.orientation import from_euler  # noqa: E402
+from tracefit.predict.traces import predicted_trace_table  # noqa: E402
 
 OUT = Path(__file__).with_name("conventions.png")
 

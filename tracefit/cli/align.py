@@ -55,9 +55,9 @@ def align_frame(
     The given --frame-rotation/--flip-x/--flip-y are the frame assumed so far; the command says
     whether the traces agree with it, and if not, which rotation they prefer and how sure that is.
     """
-    from tracefit.alignment import fit_frame
+    from tracefit.identify import fit_frame
     from tracefit.cli.identify import observed_from_image
-    from tracefit.grains import read_orientation_table
+    from tracefit.maps import read_orientation_table
 
     with cli_warnings():
         lat, file_systems = build_lattice(lattice, c_over_a, hex_setting, systems_file)

@@ -108,7 +108,7 @@ def build_lattice(lattice: str | None, c_over_a: float | None = None, hex_settin
     -------
     (Lattice, list of DeformationSystem or None)
     """
-    from tracefit.lattice import lattice_preset
+    from tracefit.crystal import lattice_preset
 
     base = None
     if lattice is not None:
@@ -121,7 +121,7 @@ def build_lattice(lattice: str | None, c_over_a: float | None = None, hex_settin
         if base is None:
             raise TracefitInputError("no lattice given; use --lattice fcc|bcc|hcp|tetragonal or --systems-file FILE")
         return base, None
-    from tracefit.systems import load_systems_file
+    from tracefit.crystal import load_systems_file
 
     file_lattice, systems = load_systems_file(systems_file, lattice=base)
     if file_lattice is not None and base is not None:
@@ -164,7 +164,7 @@ def _split_families(text: str | None):
 
 def build_systems(lattice, file_systems=None, modes: str | None = None, families: str | None = None):
     """Systems to use: the file's (if any) else the built-in catalogue, filtered by modes and families."""
-    from tracefit.systems import catalogue, filter_systems
+    from tracefit.crystal import catalogue, filter_systems
 
     m = parse_modes(modes)
     fams = _split_families(families)
@@ -182,8 +182,8 @@ _ALIGN = re.compile(r"\s*([\[<][^\]>]*[\]>])\s*:\s*([+-]?[xyzXYZ])\s*")
 
 def parse_align(text: str, lattice):
     """``"[001]:z,[100]:x"`` -> orientation g (first pair exact, second sets the turn)."""
-    from tracefit.indices import parse_index
-    from tracefit.orientation import from_two_directions
+    from tracefit.crystal import parse_index
+    from tracefit.crystal import from_two_directions
 
     t = text.strip()
     pairs = []
@@ -212,7 +212,7 @@ def parse_align(text: str, lattice):
 
 def build_orientation(lattice, euler=None, quaternion=None, matrix=None, axis_angle=None, align=None):
     """Orientation matrix g from exactly one of the orientation options, and a description dict."""
-    from tracefit import orientation as ori
+    from tracefit.crystal import orientation as ori
 
     given = {k: v for k, v in (("--euler", euler), ("--quaternion", quaternion), ("--matrix", matrix), ("--axis-angle", axis_angle), ("--align", align)) if v is not None}
     if len(given) != 1:
@@ -239,7 +239,7 @@ def build_orientation(lattice, euler=None, quaternion=None, matrix=None, axis_an
 
 
 def build_frame(rotation: float = 0.0, flip_x: bool = False, flip_y: bool = False, tilt: float = 0.0, tilt_axis: str = "x"):
-    from tracefit.frames import FrameSettings
+    from tracefit.conventions import FrameSettings
 
     return FrameSettings(rotation_deg=float(rotation), flip_x=bool(flip_x), flip_y=bool(flip_y), tilt_deg=float(tilt), tilt_axis=tilt_axis)
 
@@ -272,7 +272,7 @@ def build_load(text: str | None, lattice, compression: bool = False):
         if compression:
             raise TracefitInputError("--compression needs --load (the load axis)")
         return None
-    from tracefit.traces import parse_load
+    from tracefit.predict import parse_load
 
     return parse_load(text, lattice, "compression" if compression else "tension")
 

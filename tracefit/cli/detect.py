@@ -31,7 +31,7 @@ def detect_command(
     Angles are image frame: degrees counterclockwise from the image's +x (right),
     axial 0-180. A data bar is found and left out on its own.
     """
-    from tracefit.image.detect import detect_bands
+    from tracefit.image import detect_bands
     from tracefit.image.io import read_image, read_mask
 
     if pixel_size is not None and not (pixel_size > 0 and math.isfinite(pixel_size)):

@@ -43,8 +43,8 @@ from tracefit.errors import TracefitInputError
 
 def observed_from_image(image_path: Path, grains_path: Path | None = None, orientations=None,
                         pixel_size_um: float | None = None, min_grain_px: int = 2500):
-    """Detect band families in an image (per grain with a label image); see :func:`tracefit.grains.observe_image`."""
-    from tracefit.grains import observe_image
+    """Detect band families in an image (per grain with a label image); see :func:`tracefit.pipeline.observe_image`."""
+    from tracefit.pipeline import observe_image
 
     return observe_image(image_path, grains_path, orientations, pixel_size_um, min_grain_px)
 
@@ -108,8 +108,8 @@ def identify(
     --crack, --measured) are identified the same way; cracks get the planes they are
     consistent with.
     """
-    from tracefit.matching import identifications_to_json
-    from tracefit.measured import MEASURED_CONVENTION, identify_observed, is_crack, parse_angle_option, read_measured_csv
+    from tracefit.identify import identifications_to_json
+    from tracefit.identify import MEASURED_CONVENTION, identify_observed, is_crack, parse_angle_option, read_measured_csv
 
     with cli_warnings():
         lat, file_systems = build_lattice(lattice, c_over_a, hex_setting, systems_file)
@@ -146,7 +146,7 @@ def identify(
                       p_none=p_none, schmid_weight=schmid_weight, allow_shared_planes=allow_shared_planes)
         extra = {}
         if per_grain:
-            from tracefit.grains import read_orientation_table
+            from tracefit.maps import read_orientation_table
 
             table = read_orientation_table(orientations)
             obs, img, labels, notes = (observed_from_image(image, grains, table, pixel_size, min_grain_px)
@@ -214,8 +214,8 @@ def _frame_check(obs, lat, ori_map, systems, frame, osig, p_none, skip):
     """On a grain map, test the frame against the traces (a wrong frame is a common source of wrong answers)."""
     if skip:
         return None
-    from tracefit.alignment import fit_frame
-    from tracefit.measured import is_crack
+    from tracefit.identify import fit_frame
+    from tracefit.identify import is_crack
 
     use = [o for o in obs if o.grain in ori_map and not is_crack(o)]
     if len({o.grain for o in use}) < 3 or len(use) < 4:
@@ -228,7 +228,7 @@ def _frame_check(obs, lat, ori_map, systems, frame, osig, p_none, skip):
 
 
 def _print_text(results, lat, ld) -> None:
-    from tracefit.indices import format_index
+    from tracefit.crystal import format_index
 
     if not results:
         typer.echo("no band families detected")
@@ -280,7 +280,7 @@ def _write_overlay(path: Path, img, results, labels) -> None:
     import cv2
     import numpy as np
 
-    from tracefit.angles import angle_to_pixel_direction
+    from tracefit.conventions import angle_to_pixel_direction
 
     a = np.asarray(img, float)
     lo, hi = np.percentile(a, 1), np.percentile(a, 99)

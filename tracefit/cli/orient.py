@@ -56,9 +56,9 @@ def find_orientation(
     Two families alone leave a one-parameter family of orientations; a third family or a
     known direction (e.g. a single crystal's growth axis) makes the answer discrete.
     """
-    from tracefit.matching import ObservedFamily
-    from tracefit.orient_search import search_orientations
-    from tracefit.orientation import parse_vector
+    from tracefit.identify import ObservedFamily
+    from tracefit.identify import search_orientations
+    from tracefit.crystal import parse_vector
 
     with cli_warnings():
         lat, file_systems = build_lattice(lattice, c_over_a, hex_setting, systems_file)
@@ -77,7 +77,7 @@ def find_orientation(
             raise TracefitInputError(f"need at least two band families (from IMAGE or --angle), got {len(obs)}")
         kd = ka = None
         if direction is not None:
-            from tracefit.indices import parse_index
+            from tracefit.crystal import parse_index
 
             idx = parse_index(direction, lat, expect="direction")
             if idx.family:

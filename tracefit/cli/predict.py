@@ -81,7 +81,7 @@ def predict(
     --orientations), labelled with its plane, with a wedge of +- k sigma from the
     orientation uncertainty.
     """
-    from tracefit.traces import predict_traces
+    from tracefit.predict import predict_traces
 
     if (overlay is not None or canvas is not None) != (out is not None):
         raise TracefitInputError("drawing needs a picture or canvas and a file: --overlay IMAGE --out OUT.png "
@@ -124,7 +124,7 @@ def predict(
 
 
 def _draw(traces, overlay, canvas, out, orientation_sigma, frame, k, labels=None) -> None:
-    from tracefit.overlay import draw_predicted, parse_canvas_size, write_overlay
+    from tracefit.viz.overlay import draw_predicted, parse_canvas_size, write_overlay
 
     img, size = None, None
     if overlay is not None:
@@ -143,9 +143,9 @@ def _predict_grains(lattice, c_over_a, hex_setting, systems_file, modes, familie
                     frame_rotation, flip_x, flip_y, tilt, tilt_axis, near_surface, overlay, grains, orientations,
                     out, orientation_sigma, k, json_out) -> None:
     """Per-grain prediction for the drawing: each grain's traces through its centroid."""
-    from tracefit.grains import read_label_image, read_orientation_table
-    from tracefit.orientation import to_euler
-    from tracefit.traces import predict_traces
+    from tracefit.maps import read_label_image, read_orientation_table
+    from tracefit.crystal import to_euler
+    from tracefit.predict import predict_traces
 
     with cli_warnings():
         lat, file_systems = build_lattice(lattice, c_over_a, hex_setting, systems_file)
@@ -173,7 +173,7 @@ def _predict_grains(lattice, c_over_a, hex_setting, systems_file, modes, familie
 
 
 def _print_table(lat, ori, frame, ld, traces, near_surface) -> None:
-    from tracefit.indices import format_index
+    from tracefit.crystal import format_index
 
     e = ori["euler_deg"]
     head = f"{lat.name}, Bunge Euler ({e[0]:.2f}, {e[1]:.2f}, {e[2]:.2f}) deg"

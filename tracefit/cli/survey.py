@@ -65,7 +65,7 @@ def survey(
 
     Exit code 0 when every image succeeded, 1 when some failed (reported and skipped), 2 for a bad job file, 130 when interrupted (rerun with --resume).
     """
-    from tracefit.jobs import load_job
+    from tracefit.survey import load_job
     from tracefit.survey import run_survey
 
     import sys

@@ -51,7 +51,7 @@ def systems_command(
 
     A crystal-direction load ([110]) needs no orientation; a sample-axis load (x, 1,0,0) needs one (--euler, --align, ...).
     """
-    from tracefit.traces import system_schmid_factors
+    from tracefit.predict import system_schmid_factors
 
     with cli_warnings():
         lat, file_systems = build_lattice(lattice, c_over_a, hex_setting, systems_file)

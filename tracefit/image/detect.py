@@ -17,7 +17,7 @@ Pipeline (one concern per step):
    fit). The family angle is the weighted mean of its bands, with a standard
    uncertainty from their fit errors and scatter.
 
-Angles are image-frame, axial, degrees ccw from +x (:mod:`tracefit.angles`); pixel
+Angles are image-frame, axial, degrees ccw from +x (:mod:`tracefit.conventions`); pixel
 coordinates are (column, row), rows down.
 """
 
@@ -31,7 +31,7 @@ import numpy as np
 from scipy import ndimage
 from skimage.transform import hough_line
 
-from tracefit.angles import angle_to_pixel_direction, axial_difference, fold_axial, pixel_direction_angle, pixel_endpoints_angle
+from tracefit.conventions import angle_to_pixel_direction, axial_difference, fold_axial, pixel_direction_angle, pixel_endpoints_angle
 from tracefit.errors import TracefitInputError
 from tracefit.image.databar import find_databar
 from tracefit.image.ridges import RidgePixels, flatten_background, ridge_pixels
@@ -741,7 +741,7 @@ def _pixel_noise(img, m, bars=(), tile=512):
 
 
 def _vote_mean_angle(lines):
-    from tracefit.angles import axial_mean
+    from tracefit.conventions import axial_mean
 
     return float(axial_mean(lines[:, 0], lines[:, 3]))
 

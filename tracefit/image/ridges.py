@@ -14,7 +14,7 @@ from dataclasses import dataclass
 import cv2
 import numpy as np
 
-from tracefit.angles import angle_to_pixel_direction
+from tracefit.conventions import angle_to_pixel_direction
 
 
 __all__ = ["flatten_background", "RidgePixels", "ridge_pixels", "noise_sigma"]

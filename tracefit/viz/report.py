@@ -90,13 +90,13 @@ def _num(x, nd=2) -> str:
 
 
 def _plane(p) -> str:
-    from tracefit.plots import plane_label
+    from tracefit.viz.plots import plane_label
 
     return plane_label(tuple(p)) if p is not None else ""
 
 
 def _direction(d) -> str:
-    from tracefit.survey import plane_label_direction
+    from tracefit.survey.runner import plane_label_direction
 
     return plane_label_direction(d) if d else ""
 
@@ -354,7 +354,7 @@ def write_report(result, path, img_dir=None) -> Path:
     Parameters
     ----------
     result : SurveyResult, dict or list of dict
-        A :class:`tracefit.survey.SurveyResult`, its ``to_dict()`` (the content of
+        A :class:`tracefit.survey.runner.SurveyResult`, its ``to_dict()`` (the content of
         ``results.json``), or a list of per-image records.
     path : str or Path
         Output HTML file (written atomically).

@@ -9,7 +9,7 @@ Model
 -----
 M0 (no artefact direction): family f of grain k has the density L0_f (per degree) of the
 grain's own crystallographic model: candidates and "none of these", priors included
-(:mod:`tracefit.matching`).
+(:mod:`tracefit.identify.matching`).
 
 M1 (one surface-artefact direction at image angle theta): every family is, independently, an
 artefact with probability pi and otherwise follows M0:
@@ -188,13 +188,13 @@ def _axial(a):
 
 
 def _vm_logpdf(resid, sigma):
-    from tracefit.matching import axial_logpdf
+    from tracefit.identify.matching import axial_logpdf
 
     return axial_logpdf(resid, sigma)
 
 
 def _lse(a, axis=None):
-    from tracefit.matching import logsumexp
+    from tracefit.identify.matching import logsumexp
 
     return logsumexp(a, axis=axis)
 

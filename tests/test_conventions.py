@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 from hypothesis import given, strategies as st
 
-from tracefit.angles import (
+from tracefit.conventions import (
     angle_to_pixel_direction,
     axial_difference,
     axial_mean,

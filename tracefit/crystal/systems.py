@@ -40,9 +40,9 @@ from pathlib import Path
 import numpy as np
 
 from tracefit.errors import TracefitInputError
-from tracefit.indices import MillerIndex, format_index, parse_index, to_three
-from tracefit.lattice import Lattice, lattice_preset
-from tracefit.symmetry import (
+from tracefit.crystal.indices import MillerIndex, format_index, parse_index, to_three
+from tracefit.crystal.lattice import Lattice, lattice_preset
+from tracefit.crystal.symmetry import (
     _to_four,
     canonical_sign,
     direction_variants,
@@ -319,7 +319,7 @@ def expand_slip(lattice, plane, direction, name: str | None = None, source: str 
 
     Parameters
     ----------
-    lattice : tracefit.lattice.Lattice
+    lattice : tracefit.crystal.lattice.Lattice
     plane, direction : sequence of int
         Any member of each family (3 indices, or 4 for hexagonal lattices).
     name : str, optional
@@ -328,7 +328,7 @@ def expand_slip(lattice, plane, direction, name: str | None = None, source: str 
     Returns
     -------
     list of DeformationSystem
-        Ordered by plane (as :func:`tracefit.symmetry.plane_variants`) then direction.
+        Ordered by plane (as :func:`tracefit.crystal.symmetry.plane_variants`) then direction.
     """
     pf = plane_family or _family_label(lattice, plane, "plane")
     df = direction_family or _family_label(lattice, direction, "direction")
@@ -372,7 +372,7 @@ def expand_twin(lattice, plane, direction, name: str | None = None, shear: float
 
     Parameters
     ----------
-    lattice : tracefit.lattice.Lattice
+    lattice : tracefit.crystal.lattice.Lattice
     plane, direction : sequence of int
         One twin plane K1 and its twinning direction with the sense of the shear.
     name : str, optional
@@ -570,7 +570,7 @@ def catalogue(lattice, modes=MODES, families=None) -> list[DeformationSystem]:
 
     Parameters
     ----------
-    lattice : tracefit.lattice.Lattice
+    lattice : tracefit.crystal.lattice.Lattice
         Built-ins exist for lattices named ``"fcc"`` and ``"bcc"`` (cubic) and for any
         hexagonal 6/mmm lattice (hcp; c/a from the lattice).
     modes : iterable of {"slip", "twin"}

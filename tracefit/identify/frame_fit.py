@@ -6,7 +6,7 @@ families of several grains, the rotation rho (v_image = Rz(rho) v_data) is the v
 makes the predicted traces explain the observed ones best.
 
 Model: for a trial frame, each family's evidence is the robust mixture used by the matcher,
-p_none / 180 + sum_c prior_c f(r_c; sigma_c) (see :mod:`tracefit.matching`), so families
+p_none / 180 + sum_c prior_c f(r_c; sigma_c) (see :mod:`tracefit.identify.matching`), so families
 nothing explains (scratches, wrong grains) cannot drag the fit. The summed log evidence is
 scanned over rho in [-90, 90) deg (trace angles are axial, so rho and rho + 180 are
 indistinguishable from traces) for both mirror states, then refined. The uncertainty is the
@@ -24,9 +24,9 @@ from typing import Sequence
 
 import numpy as np
 
-from tracefit.angles import axial_difference, fold_axial
+from tracefit.conventions import axial_difference, fold_axial
 from tracefit.errors import TracefitInputError
-from tracefit.matching import (
+from tracefit.identify.matching import (
     DEFAULT_P_NONE,
     CandidateSet,
     ObservedFamily,
@@ -143,7 +143,7 @@ class _Evaluator:
             self.sig = np.sqrt(self.os[:, :, None] ** 2 + self.psig[:, None, :] ** 2)
             # Without tilt a frame turn rho only shifts every predicted angle: precompute the
             # doubled residual at rho = 0 and the density's normaliser (same formula as
-            # tracefit.matching.axial_logpdf), so each trial rho costs a rotation of (cos, sin).
+            # tracefit.identify.matching.axial_logpdf), so each trial rho costs a rotation of (cos, sin).
             r0 = np.radians(2.0 * axial_difference(self.oa[:, :, None], ang0[:, None, :]))
             self.c0, self.s0 = np.cos(r0), np.sin(r0)
             srad = np.radians(np.maximum(self.sig, 1e-3))
@@ -225,7 +225,7 @@ def fit_frame(
     -------
     FrameFit
     """
-    from tracefit.frames import FrameSettings
+    from tracefit.conventions import FrameSettings
 
     frame = frame or FrameSettings()
     cands = systems if isinstance(systems, CandidateSet) else candidate_set(systems, modes, families)

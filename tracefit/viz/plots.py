@@ -46,7 +46,7 @@ def plane_label(p) -> str:
     if isinstance(p, str):
         return p
     try:
-        from tracefit.indices import format_index  # geometry module; used when present
+        from tracefit.crystal.indices import format_index  # geometry module; used when present
     except ImportError:
         format_index = None
     if format_index is not None:
@@ -220,12 +220,12 @@ def stereogram_for(lattice, g, systems, frame=None, load=None, observed_deg=None
 
     Parameters
     ----------
-    lattice : tracefit.lattice.Lattice
+    lattice : tracefit.crystal.lattice.Lattice
     g : array_like (3, 3)
         Orientation, v_crystal = g v_sample.
     systems : sequence of DeformationSystem
-        Candidates, e.g. ``tracefit.systems.catalogue(lattice)``.
-    frame : tracefit.frames.FrameSettings, optional
+        Candidates, e.g. ``tracefit.crystal.systems.catalogue(lattice)``.
+    frame : tracefit.conventions.FrameSettings, optional
         Orientation-data frame -> image; the projection is drawn in the image frame.
     load : LoadAxis or str, optional
     observed_deg : sequence of float, optional
@@ -237,8 +237,8 @@ def stereogram_for(lattice, g, systems, frame=None, load=None, observed_deg=None
     -------
     matplotlib.figure.Figure
     """
-    from tracefit.frames import data_to_image_matrix
-    from tracefit.traces import predict_traces
+    from tracefit.conventions import data_to_image_matrix
+    from tracefit.predict import predict_traces
 
     M = data_to_image_matrix(frame)
     planes = [{"plane": tuple(t.plane), "normal_sample": M @ np.asarray(t.normal_sample, float)}
@@ -264,7 +264,7 @@ def rose_diagram(angles_deg, weights=None, bin_deg: float = 5.0, title=None, ax=
     -------
     matplotlib.figure.Figure
     """
-    from tracefit.angles import fold_axial
+    from tracefit.conventions import fold_axial
 
     a = np.atleast_1d(fold_axial(np.asarray(angles_deg, float))) if np.size(angles_deg) else np.zeros(0)
     w = np.ones_like(a) if weights is None else np.asarray(weights, float).reshape(a.shape)

@@ -1,6 +1,17 @@
-"""The orientation-data frame versus the image frame, and stage-tilt foreshortening.
+"""Every convention tracefit uses, written once.
 
-Image frame: x right, y up the screen, z toward the viewer (see :mod:`tracefit.angles`).
+Nothing else in the package turns pixel rows into angles, folds an axial angle, rotates
+about the surface normal, applies a frame flip or stage tilt, or converts between three-
+and four-index hexagonal notation: it calls this module. ``docs/conventions.md`` states
+the same with worked vectors (and ``tests/test_conventions.py`` checks them).
+
+Image frame
+    x to the right, y *up* the screen. Angles are in degrees, counterclockwise from +x,
+    and axial: a line has no sense, so 0 <= angle < 180. Pixel rows run *down*; this is
+    the only place where a (column, row) direction becomes an image-frame angle.
+
+Orientation-data frame versus image
+
 Orientation data (EBSD maps and the like) may be stored in a frame that differs from the
 image by a turn about the surface normal and by reversed axes. :class:`FrameSettings`
 states the difference:
@@ -21,6 +32,13 @@ direction ``(t_x, t_y)`` appears as ``(t_x, t_y cos alpha)``, so
 ``tan(apparent) = tan(true) cos(alpha)`` (45 deg true at 60 deg tilt appears at 26.565 deg).
 About the vertical axis (``"y"``): ``(t_x cos alpha, t_y)``. Tilt acts in the image frame,
 after rotation and flips.
+
+Hexagonal indices
+    (hkil) -> (hkl) and [uvtw] -> [u - t, v - t, w]; back: (hkl) -> (h, k, -(h+k), l) and
+    [UVW] -> [(2U - V)/3, (2V - U)/3, -(U + V)/3, W].
+
+The Bunge Euler convention (passive, ``v_crystal = g v_sample``) lives with the
+orientation type in :mod:`tracefit.crystal.orientation`.
 """
 
 from __future__ import annotations
@@ -30,12 +48,101 @@ from dataclasses import asdict, dataclass
 
 import numpy as np
 
-from tracefit.angles import fold_axial
 from tracefit.errors import TracefitInputError
 
-__all__ = ["FrameSettings", "data_to_image_matrix", "apparent_angle", "true_angle", "rotation_z"]
+__all__ = [
+    "fold_axial",
+    "axial_difference",
+    "pixel_direction_angle",
+    "pixel_endpoints_angle",
+    "angle_to_pixel_direction",
+    "axial_mean",
+    "FrameSettings",
+    "rotation_z",
+    "data_to_image_matrix",
+    "apparent_angle",
+    "true_angle",
+    "miller_bravais_to_miller",
+    "miller_to_miller_bravais",
+]
 
 TILT_AXES = ("x", "y")
+
+# ------------------------------------------------------------------ image-frame angles
+def fold_axial(angle_deg):
+    """Fold angles onto the axial range [0, 180).
+
+    Parameters
+    ----------
+    angle_deg : float or array_like
+        Angle(s) in degrees, any range.
+
+    Returns
+    -------
+    float or ndarray
+        Equivalent axial angle(s) in degrees, 0 <= a < 180.
+    """
+    a = np.mod(np.asarray(angle_deg, dtype=float), 180.0)
+    # mod can return exactly 180.0 for tiny negative inputs through rounding.
+    a = np.where(a >= 180.0, a - 180.0, a)
+    return float(a) if a.ndim == 0 else a
+
+
+def axial_difference(a_deg, b_deg):
+    """Signed smallest difference a - b between axial angles, in (-90, 90] degrees."""
+    d = np.mod(np.asarray(a_deg, dtype=float) - np.asarray(b_deg, dtype=float) + 90.0, 180.0) - 90.0
+    d = np.where(d <= -90.0, d + 180.0, d)
+    return float(d) if d.ndim == 0 else d
+
+
+def pixel_direction_angle(d_col, d_row):
+    """Image-frame axial angle of a direction given in pixel (column, row) steps.
+
+    Rows grow downward, so the upward screen component is ``-d_row``:
+    angle = atan2(-d_row, d_col), folded to [0, 180).
+
+    Parameters
+    ----------
+    d_col, d_row : float or array_like
+        Direction components in pixels (column to the right, row downward).
+
+    Returns
+    -------
+    float or ndarray
+        Axial angle in degrees.
+    """
+    return fold_axial(np.degrees(np.arctan2(-np.asarray(d_row, float), np.asarray(d_col, float))))
+
+
+def pixel_endpoints_angle(col0, row0, col1, row1):
+    """Axial image-frame angle of the line through two pixel points (col, row).
+
+    Raises
+    ------
+    ValueError
+        If the two points coincide (no direction).
+    """
+    dc = np.asarray(col1, float) - np.asarray(col0, float)
+    dr = np.asarray(row1, float) - np.asarray(row0, float)
+    if np.any(np.hypot(dc, dr) == 0):
+        raise ValueError("the two endpoints coincide, so the line has no direction")
+    return pixel_direction_angle(dc, dr)
+
+
+def angle_to_pixel_direction(angle_deg):
+    """Unit (d_col, d_row) pixel direction of an image-frame angle (inverse of the above)."""
+    t = np.radians(np.asarray(angle_deg, float))
+    return np.cos(t), -np.sin(t)
+
+
+def axial_mean(angles_deg, weights=None):
+    """Weighted mean of axial angles (angle doubling), in [0, 180) degrees."""
+    t = np.radians(2.0 * np.asarray(angles_deg, float))
+    w = np.ones_like(t) if weights is None else np.asarray(weights, float)
+    return fold_axial(np.degrees(np.arctan2(np.sum(w * np.sin(t)), np.sum(w * np.cos(t)))) / 2.0)
+
+
+# ------------------------------------------------------------------ frames and tilt
 
 
 @dataclass(frozen=True)
@@ -133,3 +240,33 @@ def true_angle(apparent_deg, frame: FrameSettings | None = None):
     a = np.radians(np.asarray(apparent_deg, float))
     # (cos a, sin a) ~ (t_x fx, t_y fy)  ->  t ~ (cos a / fx, sin a / fy); multiply by fx*fy > 0.
     return fold_axial(np.degrees(np.arctan2(np.sin(a) * fx, np.cos(a) * fy)))
+
+
+# ------------------------------------------------------------------ hexagonal indices
+def miller_bravais_to_miller(idx, kind: str):
+    """Four-index (hkil) plane or [uvtw] direction to three indices.
+
+    Planes: (hkil) -> (hkl), with h + k + i = 0 required.
+    Directions: [uvtw] -> [u - t, v - t, w], with u + v + t = 0 required.
+    """
+    v = np.asarray(idx, dtype=float)
+    s = v[..., 0] + v[..., 1] + v[..., 2]
+    if np.any(np.abs(s) > 1e-9):
+        first = "h + k + i" if kind == "plane" else "u + v + t"
+        raise TracefitInputError(f"Miller-Bravais {kind} {_index_text(v)} breaks {first} = 0")
+    if kind == "plane":
+        return np.stack([v[..., 0], v[..., 1], v[..., 3]], axis=-1)
+    return np.stack([v[..., 0] - v[..., 2], v[..., 1] - v[..., 2], v[..., 3]], axis=-1)
+
+
+def miller_to_miller_bravais(idx, kind: str):
+    """Three indices to four: (hkl) -> (h, k, -(h+k), l); [UVW] -> [(2U-V)/3, (2V-U)/3, -(U+V)/3, W]."""
+    v = np.asarray(idx, dtype=float)
+    if kind == "plane":
+        return np.stack([v[..., 0], v[..., 1], -(v[..., 0] + v[..., 1]), v[..., 2]], axis=-1)
+    U, V, W = v[..., 0], v[..., 1], v[..., 2]
+    return np.stack([(2 * U - V) / 3, (2 * V - U) / 3, -(U + V) / 3, W], axis=-1)
+
+
+def _index_text(v) -> str:
+    return "(" + " ".join(f"{x:g}" for x in np.ravel(v)) + ")"

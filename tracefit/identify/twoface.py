@@ -190,7 +190,7 @@ def index_two_face(pairs, geom: FaceGeometry | None = None, lattice=None, g=None
     -------
     list of TwoFacePlane
     """
-    from tracefit.matching import candidate_set
+    from tracefit.identify.matching import candidate_set
 
     geom = geom or FaceGeometry()
     out = []
@@ -206,7 +206,7 @@ def index_two_face(pairs, geom: FaceGeometry | None = None, lattice=None, g=None
         incl = math.degrees(math.acos(min(1.0, abs(n[2]))))
         tp = TwoFacePlane(float(p[0]) % 180.0, float(p[1]) % 180.0, n, sig, incl)
         if cands is not None:
-            from tracefit.frames import data_to_image_matrix
+            from tracefit.conventions import data_to_image_matrix
 
             n_data = data_to_image_matrix(frame).T @ n
             nc = np.asarray(g, float) @ n_data
@@ -255,7 +255,7 @@ def interplanar_pairs(normals_sample, lattice, families, tol_deg: float = 2.0, m
     measured_deg : float
     list of (family_a, family_b, plane_a, plane_b, angle_deg), closest first, within tol.
     """
-    from tracefit.symmetry import plane_variants
+    from tracefit.crystal import plane_variants
 
     a, b = (np.asarray(v, float) / np.linalg.norm(v) for v in normals_sample)
     meas = math.degrees(math.acos(min(1.0, abs(float(a @ b)))))

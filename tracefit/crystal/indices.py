@@ -127,7 +127,7 @@ def parse_index(text, lattice=None, expect: str | None = None, hex_three_index: 
     ----------
     text : str
         The index as written, e.g. ``"(1-11)"``, ``"{10-12}"``, ``"<-1-123>"``, ``"(1,-1,1)"``.
-    lattice : tracefit.lattice.Lattice, optional
+    lattice : tracefit.crystal.lattice.Lattice, optional
         When given, the number of indices is checked against it: four for hexagonal
         lattices, three for all others.
     expect : {"plane", "direction"}, optional

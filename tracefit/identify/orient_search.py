@@ -29,9 +29,9 @@ from typing import Sequence
 import numpy as np
 from scipy.spatial.transform import Rotation
 
-from tracefit.angles import axial_difference
+from tracefit.conventions import axial_difference
 from tracefit.errors import TracefitInputError
-from tracefit.matching import (
+from tracefit.identify.matching import (
     DEFAULT_P_NONE,
     CandidateSet,
     ObservedFamily,
@@ -269,9 +269,9 @@ def search_orientations(
     -------
     OrientationSearchResult
     """
-    from tracefit.matching import _as_observed, identify_families
-    from tracefit.orientation import to_euler
-    from tracefit.symmetry import proper_rotations
+    from tracefit.identify.matching import _as_observed, identify_families
+    from tracefit.crystal import to_euler
+    from tracefit.crystal import proper_rotations
 
     obs = _as_observed(observed, None)
     if len(obs) < 2:

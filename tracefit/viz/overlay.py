@@ -4,13 +4,13 @@ Every candidate plane's predicted trace is drawn as a line through the image cen
 through each grain's centroid when a grain label image is given, labelled with its plane,
 with a translucent wedge of +- k sigma around it. sigma is the spread of the predicted
 trace angle that the orientation uncertainty causes, propagated exactly as the matcher
-does (:func:`tracefit.matching.predicted_trace_sigma`): sigma_orient / sin(inclination),
+does (:func:`tracefit.identify.matching.predicted_trace_sigma`): sigma_orient / sin(inclination),
 times the stage-tilt foreshortening slope. A legend panel to the right of the picture lists
 each trace's plane, modes and angle; the picture's own pixels keep their coordinates.
 
 Colours are the detection overlay's palette (:data:`tracefit.image.draw.FAMILY_COLOURS`):
 trace ``i`` of a grain (in the order given) gets ``FAMILY_COLOURS[i % 8]``. Angles follow
-:mod:`tracefit.angles` (image frame, y up; pixel rows down).
+:mod:`tracefit.conventions` (image frame, y up; pixel rows down).
 """
 
 from __future__ import annotations
@@ -21,11 +21,11 @@ from pathlib import Path
 import cv2
 import numpy as np
 
-from tracefit.angles import angle_to_pixel_direction
+from tracefit.conventions import angle_to_pixel_direction
 from tracefit.errors import TracefitInputError
 from tracefit.image.draw import FAMILY_COLOURS, _to_rgb8
 from tracefit.image.draw import draw_detection as draw_detected
-from tracefit.matching import predicted_trace_sigma
+from tracefit.identify import predicted_trace_sigma
 
 __all__ = [
     "DEFAULT_K_SIGMA",
@@ -52,10 +52,10 @@ def trace_sigma_deg(traces, orientation_sigma_deg: float, frame=None) -> np.ndar
 
     Parameters
     ----------
-    traces : sequence of tracefit.traces.PredictedTrace
+    traces : sequence of tracefit.predict.traces.PredictedTrace
     orientation_sigma_deg : float
         One-sigma orientation error about each sample axis, degrees.
-    frame : tracefit.frames.FrameSettings, optional
+    frame : tracefit.conventions.FrameSettings, optional
         With a stage tilt, the spread scales with d(apparent)/d(true).
 
     Returns
@@ -68,8 +68,8 @@ def trace_sigma_deg(traces, orientation_sigma_deg: float, frame=None) -> np.ndar
     true = np.array([t.true_angle_deg for t in traces], float)
     slope = np.ones_like(true)
     if frame is not None and float(frame.tilt_deg) != 0.0:
-        from tracefit.angles import axial_difference
-        from tracefit.frames import apparent_angle
+        from tracefit.conventions import axial_difference
+        from tracefit.conventions import apparent_angle
 
         h = 0.05
         slope = np.asarray(axial_difference(apparent_angle(true + h, frame), apparent_angle(true - h, frame)), float) / (2 * h)
@@ -118,7 +118,7 @@ def parse_canvas_size(text: str) -> tuple[int, int]:
 
 
 def _plane_text(plane) -> str:
-    from tracefit.indices import format_index
+    from tracefit.crystal import format_index
 
     return format_index(tuple(int(x) for x in plane), "plane")
 
@@ -190,7 +190,7 @@ def draw_predicted(
     Parameters
     ----------
     traces : sequence of PredictedTrace, or dict grain -> sequence of PredictedTrace
-        From :func:`tracefit.traces.predict_traces`. A dict (one entry per grain) needs
+        From :func:`tracefit.predict.traces.predict_traces`. A dict (one entry per grain) needs
         ``labels``; a sequence is drawn through the picture's centre.
     image : ndarray (H, W) or (H, W, 3|4), optional
         The picture (any units; contrast-stretched for display).

@@ -3,12 +3,12 @@
 A person auditing a photo often starts from a line measured by hand (an angle read with a
 protractor tool, or two points read off an image viewer) or from a crack, not from an image
 the detector can read. This module turns such measurements into the matcher's own input,
-:class:`tracefit.matching.ObservedFamily` with ``source="measured"``, and adds the crack
+:class:`tracefit.identify.matching.ObservedFamily` with ``source="measured"``, and adds the crack
 question: which candidate planes is a crack trace consistent with?
 
 Conventions (``docs/conventions.md``): angles are image-frame, degrees counterclockwise from
 +x (right), axial in [0, 180). Endpoints are pixel coordinates as an image viewer shows them,
-x = column to the right, y = row *downward*; :func:`tracefit.angles.pixel_endpoints_angle` is
+x = column to the right, y = row *downward*; :func:`tracefit.conventions.pixel_endpoints_angle` is
 the one place they become an angle. :data:`MEASURED_CONVENTION` states this in results.
 
 The CSV columns are documented in ``docs/measured-traces.md``.
@@ -25,9 +25,9 @@ from typing import Any, Sequence
 
 import numpy as np
 
-from tracefit.angles import fold_axial, pixel_endpoints_angle
+from tracefit.conventions import fold_axial, pixel_endpoints_angle
 from tracefit.errors import TracefitInputError
-from tracefit.matching import (
+from tracefit.identify.matching import (
     CandidateSet,
     FamilyIdentification,
     ObservedFamily,
@@ -300,15 +300,15 @@ def plane_consistency(family: ObservedFamily, g, cands: CandidateSet, frame=None
                       near_surface_deg: float | None = None) -> list[PlaneConsistency]:
     """Every distinct candidate plane, with whether the family's angle is within ``k_sigma`` of its trace.
 
-    The spread is the matcher's (:func:`tracefit.matching.family_log_weights`): measurement
+    The spread is the matcher's (:func:`tracefit.identify.matching.family_log_weights`): measurement
     sigma, the predicted trace's spread from the orientation uncertainty
-    (:func:`tracefit.matching.predicted_trace_sigma`) and the frame uncertainty, in quadrature.
+    (:func:`tracefit.identify.matching.predicted_trace_sigma`) and the frame uncertainty, in quadrature.
 
     Returns
     -------
     list of PlaneConsistency, consistent planes first, each group by |residual| / sigma.
     """
-    from tracefit.traces import NEAR_SURFACE_DEG
+    from tracefit.predict import NEAR_SURFACE_DEG
 
     ns = NEAR_SURFACE_DEG if near_surface_deg is None else near_surface_deg
     ang, incl, slope = predict_candidates(cands, np.asarray(g, float), frame)
@@ -352,8 +352,8 @@ def identify_observed(
 ) -> list[FamilyIdentification]:
     """Identify detected and measured families, and state each crack's consistent planes.
 
-    Families are matched with :func:`tracefit.matching.identify_families` (one orientation
-    ``g``) or :func:`tracefit.matching.identify_grains` (``orientations``). The matcher's
+    Families are matched with :func:`tracefit.identify.matching.identify_families` (one orientation
+    ``g``) or :func:`tracefit.identify.matching.identify_grains` (``orientations``). The matcher's
     rule that two families of one grain cannot share a plane is applied within one source
     only (detected with detected, measured with measured): a hand-measured line may be one
     the detector also found. Each crack (label containing ``crack``) is matched on its own,
@@ -363,20 +363,20 @@ def identify_observed(
     Parameters
     ----------
     observed : sequence of ObservedFamily
-    lattice : tracefit.lattice.Lattice
+    lattice : tracefit.crystal.lattice.Lattice
     systems : iterable of DeformationSystem or CandidateSet
     g : ndarray (3, 3), optional
         One orientation (v_crystal = g v_sample).
     orientations : dict grain -> ndarray (3, 3), optional
         Per-grain orientations instead of ``g``.
     frame, orientation_sigma_deg, frame_sigma_deg, grain_sigma_deg :
-        As :func:`tracefit.matching.identify_grains`.
+        As :func:`tracefit.identify.matching.identify_grains`.
     crack_k_sigma : float
         A crack is consistent with a plane when |residual| <= k sigma (default 2).
     modes, families : optional filters of the candidate systems.
     **matcher_options
         ``load``, ``p_none``, ``schmid_weight``, ``allow_shared_planes``, ``report_threshold``,
-        ``ambiguity_ratio`` (see :func:`tracefit.matching.identify_families`).
+        ``ambiguity_ratio`` (see :func:`tracefit.identify.matching.identify_families`).
 
     Returns
     -------

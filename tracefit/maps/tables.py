@@ -19,8 +19,7 @@ import numpy as np
 
 from tracefit.errors import TracefitInputError
 
-__all__ = ["GrainOrientation", "read_orientation_table", "write_orientation_table", "read_label_image", "observe_image",
-           "line_continuation"]
+__all__ = ["GrainOrientation", "read_orientation_table", "write_orientation_table", "read_label_image"]
 
 
 @dataclass
@@ -57,7 +56,7 @@ def read_orientation_table(path) -> dict[int, GrainOrientation]:
     -------
     dict grain id -> GrainOrientation (``g`` maps sample to crystal).
     """
-    from tracefit.orientation import from_euler, from_quaternion
+    from tracefit.crystal import from_euler, from_quaternion
 
     p = Path(path)
     if not p.is_file():
@@ -117,7 +116,7 @@ def read_orientation_table(path) -> dict[int, GrainOrientation]:
     if not out:
         raise TracefitInputError(f"orientation table {str(p)!r} has a header but no grains")
     if eulers:
-        from tracefit.orientation import looks_like_radians
+        from tracefit.crystal import looks_like_radians
 
         if looks_like_radians(np.array(eulers)):
             import warnings
@@ -128,7 +127,7 @@ def read_orientation_table(path) -> dict[int, GrainOrientation]:
 
 def write_orientation_table(path, grains: dict, phase: str | None = None) -> None:
     """Write ``{grain: g or (phi1, Phi, phi2)}`` as an orientation CSV (Bunge Euler, degrees)."""
-    from tracefit.orientation import to_euler
+    from tracefit.crystal import to_euler
 
     with open(path, "w", newline="", encoding="utf-8") as fh:
         w = csv.writer(fh)
@@ -167,137 +166,3 @@ def read_label_image(path) -> np.ndarray:
     if lab.ndim != 2 or not np.issubdtype(lab.dtype, np.integer):
         raise TracefitInputError(f"grain label image {str(p)!r} must be a 2-D image of integer grain ids")
     return lab.astype(np.int64)
-
-
-def observe_image(image_path, grains_path=None, orientations=None, pixel_size_um: float | None = None,
-                  min_grain_px: int = 2500):
-    """Detect band families in a micrograph, per grain when a label image is given.
-
-    Parameters
-    ----------
-    image_path : str or Path
-        Micrograph.
-    grains_path : str or Path, optional
-        Grain label image of the same size (integer ids).
-    orientations : dict, optional
-        Grain id -> orientation (or GrainOrientation); only these grains are analysed.
-    pixel_size_um : float, optional
-    min_grain_px : int
-        Grains with fewer pixels are skipped.
-
-    Returns
-    -------
-    observed : list of tracefit.matching.ObservedFamily
-        With ``grain`` set (None without a label image).
-    image : ndarray
-    labels : ndarray or None
-    notes : list of str
-    """
-    from tracefit.image import detect_bands, detect_grains, read_image
-    from tracefit.matching import observed_from_detection
-
-    img, notes = read_image(image_path)
-    if grains_path is None:
-        res = detect_bands(img, pixel_size_um=pixel_size_um)
-        return observed_from_detection(res), img, None, list(notes) + list(getattr(res, "notes", []))
-    labels = read_label_image(grains_path)
-    if labels.shape != img.shape[:2]:
-        raise TracefitInputError(
-            f"the grain label image is {labels.shape[1]}x{labels.shape[0]} px but the micrograph is "
-            f"{img.shape[1]}x{img.shape[0]} px; they must match pixel for pixel"
-        )
-    present = set(int(x) for x in np.unique(labels))
-    ids = None
-    if orientations is not None:
-        ids = [k for k in sorted(int(k) for k in orientations) if k in present]
-        if not ids:
-            raise TracefitInputError("no grain id of the orientation table occurs in the grain label image")
-    res = detect_grains(img, labels, pixel_size_um=pixel_size_um, min_pixels=min_grain_px, grains=ids)
-    obs = []
-    for gid in sorted(res):
-        fams = observed_from_detection(res[gid], grain=int(gid))
-        for o, f in zip(fams, res[gid].families):
-            o.boundary_continuation = line_continuation(img, labels, int(gid), getattr(f, "lines", []))
-        obs.extend(fams)
-    notes = list(notes)
-    if orientations is not None:
-        missing = sorted(present - set(int(k) for k in orientations))
-        if missing:
-            notes.append(f"{len(missing)} grain id(s) of the label image have no orientation and were skipped")
-    return obs, img, labels, notes
-
-
-def line_continuation(image, labels, grain, lines, reach_px: float = 15.0, gap_px: float = 2.0,
-                      offset_px: float = 4.0, min_px: int = 8) -> float | None:
-    """Share of a family's band lines that run on, straight and with the same contrast, into a neighbouring grain.
-
-    A surface scratch crosses grain boundaries without a kink; a slip or twin band stops at the
-    boundary (or continues in the neighbour at another angle). For each end of each detected
-    line, the straight extension beyond the end is sampled over ``reach_px`` pixels (starting
-    ``gap_px`` past the end) where it lies in another grain of the label image, and its band
-    contrast (mean of the two side lines ``offset_px`` away minus the centre line) is compared
-    with the same measure over the last ``reach_px`` pixels inside the grain. An end counts as
-    continuing when the outside contrast has the inside's sign and at least half its size.
-
-    Parameters
-    ----------
-    image : ndarray (H, W) or (H, W, C)
-        The micrograph (grey levels; colour is averaged).
-    labels : ndarray (H, W) of int
-        Grain label image.
-    grain : int
-        The grain the lines were detected in.
-    lines : sequence of tracefit.image.detect.BandLine
-        Detected lines in whole-image pixel coordinates (col, row).
-    reach_px, gap_px, offset_px : float
-        Sampling lengths, pixels.
-    min_px : int
-        Fewest outside samples (in another grain, inside the image) for an end to be tested.
-
-    Returns
-    -------
-    float or None
-        Share of the tested line ends that continue (None when no end meets a neighbouring
-        grain, e.g. lines ending at the image edge or inside the grain).
-    """
-    from scipy.ndimage import map_coordinates
-
-    img = np.asarray(image, float)
-    if img.ndim == 3:
-        img = img[..., :3].mean(axis=2)
-    lab = np.asarray(labels)
-    H, W = img.shape
-    tested = cont = 0
-
-    def contrast(pts, nrm):
-        def samp(q):
-            return map_coordinates(img, [q[:, 1], q[:, 0]], order=1, mode="nearest")
-
-        centre = samp(pts)
-        side = 0.5 * (samp(pts + offset_px * nrm) + samp(pts - offset_px * nrm))
-        return float(np.mean(side - centre))
-
-    for ln in lines:
-        p0 = np.array([ln.col0, ln.row0], float)
-        p1 = np.array([ln.col1, ln.row1], float)
-        L = float(np.hypot(*(p1 - p0)))
-        if L < 2.0 * reach_px:
-            continue
-        u = (p1 - p0) / L
-        nrm = np.array([-u[1], u[0]])
-        t = gap_px + np.arange(0.0, reach_px, 1.0)
-        for end, sgn in ((p1, 1.0), (p0, -1.0)):
-            out = end[None, :] + sgn * t[:, None] * u[None, :]
-            cc, rr = np.round(out[:, 0]).astype(int), np.round(out[:, 1]).astype(int)
-            inside = (cc >= 0) & (cc < W) & (rr >= 0) & (rr < H)
-            other = np.zeros(len(t), bool)
-            other[inside] = lab[rr[inside], cc[inside]] != grain
-            if int(other.sum()) < min_px:
-                continue
-            c_in = contrast(end[None, :] - sgn * t[:, None] * u[None, :], nrm)
-            if abs(c_in) <= 1e-12:
-                continue
-            c_out = contrast(out[other], nrm)
-            tested += 1
-            cont += bool(c_out * np.sign(c_in) >= 0.5 * abs(c_in))
-    return None if tested == 0 else cont / tested

@@ -11,7 +11,7 @@ scored against it. Everything is deterministic from ``seed``.
 :func:`standard_suite` yields the reference set of images used by the tests and by
 ``benchmarks/detect.py``.
 
-Angles follow :mod:`tracefit.angles`: image frame, x right, y up, degrees ccw from +x,
+Angles follow :mod:`tracefit.conventions`: image frame, x right, y up, degrees ccw from +x,
 axial in [0, 180). Pixel coordinates are (column, row) with rows growing downward.
 """
 
@@ -23,7 +23,7 @@ from typing import Iterator, Sequence
 import cv2
 import numpy as np
 
-from tracefit.angles import angle_to_pixel_direction, fold_axial
+from tracefit.conventions import angle_to_pixel_direction, fold_axial
 
 __all__ = [
     "BandFamilySpec",

@@ -307,7 +307,7 @@ def from_two_directions(lattice, crystal_dir1, sample_axis1, crystal_dir2, sampl
 
     Parameters
     ----------
-    lattice : tracefit.lattice.Lattice
+    lattice : tracefit.crystal.lattice.Lattice
         Converts ``[uvw]`` / ``[uvtw]`` to Cartesian crystal vectors (hexagonal works).
     crystal_dir1, crystal_dir2 : sequence of 3 or 4 numbers
         Direction indices, e.g. ``(0, 0, 1)`` or ``(2, -1, -1, 0)``.

@@ -19,6 +19,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from tracefit.conventions import miller_bravais_to_miller, miller_to_miller_bravais, rotation_z
 from tracefit.errors import TracefitInputError
 
 __all__ = [
@@ -34,12 +35,6 @@ IDEAL_C_OVER_A = math.sqrt(8.0 / 3.0)  # 1.63299..., hard-sphere ideal (common p
 
 HEX_SETTINGS = ("x_a1", "x_a1star")
 LAUE_CLASSES = ("m-3m", "m-3", "6/mmm", "6/m", "-3m", "-3", "4/mmm", "4/m", "mmm", "2/m", "-1")
-
-
-def _rz(deg: float) -> np.ndarray:
-    t = math.radians(deg)
-    c, s = math.cos(t), math.sin(t)
-    return np.array([[c, -s, 0.0], [s, c, 0.0], [0.0, 0.0, 1.0]])
 
 
 @dataclass(frozen=True)
@@ -140,7 +135,7 @@ class Lattice:
                 ]
             )
             if self.is_hexagonal and self.hex_setting == "x_a1star":
-                A = _rz(-30.0) @ A  # brings a1* (30 deg from a1) onto x
+                A = rotation_z(-30.0) @ A  # brings a1* (30 deg from a1) onto x
             A[np.abs(A) < 1e-14] = 0.0
             self._cache["A"] = A
         return self._cache["A"]
@@ -197,34 +192,6 @@ class Lattice:
     def with_setting(self, hex_setting: str) -> "Lattice":
         return Lattice(self.a, self.b, self.c, self.alpha, self.beta, self.gamma, self.name, self.laue, hex_setting)
 
-
-def miller_bravais_to_miller(idx, kind: str):
-    """Four-index (hkil) plane or [uvtw] direction to three indices.
-
-    Planes: (hkil) -> (hkl), with h + k + i = 0 required.
-    Directions: [uvtw] -> [u - t, v - t, w], with u + v + t = 0 required.
-    """
-    v = np.asarray(idx, dtype=float)
-    s = v[..., 0] + v[..., 1] + v[..., 2]
-    if np.any(np.abs(s) > 1e-9):
-        first = "h + k + i" if kind == "plane" else "u + v + t"
-        raise TracefitInputError(f"Miller-Bravais {kind} {_fmt(v)} breaks {first} = 0")
-    if kind == "plane":
-        return np.stack([v[..., 0], v[..., 1], v[..., 3]], axis=-1)
-    return np.stack([v[..., 0] - v[..., 2], v[..., 1] - v[..., 2], v[..., 3]], axis=-1)
-
-
-def miller_to_miller_bravais(idx, kind: str):
-    """Three indices to four: (hkl) -> (h, k, -(h+k), l); [UVW] -> [(2U-V)/3, (2V-U)/3, -(U+V)/3, W]."""
-    v = np.asarray(idx, dtype=float)
-    if kind == "plane":
-        return np.stack([v[..., 0], v[..., 1], -(v[..., 0] + v[..., 1]), v[..., 2]], axis=-1)
-    U, V, W = v[..., 0], v[..., 1], v[..., 2]
-    return np.stack([(2 * U - V) / 3, (2 * V - U) / 3, -(U + V) / 3, W], axis=-1)
-
-
-def _fmt(v) -> str:
-    return "(" + " ".join(f"{x:g}" for x in np.ravel(v)) + ")"
 
 
 def _hcp(c_over_a: float | None = None, **kw) -> Lattice:

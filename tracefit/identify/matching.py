@@ -30,7 +30,7 @@ marginals over all assignments in which no two families take the same plane (unl
 ``allow_shared_planes``); "none" may be taken by any number of families.
 
 On grain maps (:func:`identify_grains`) a map-level surface-artefact hypothesis
-(:mod:`tracefit.artefacts`) may add a third kind of answer: a family on a straight surface
+(:mod:`tracefit.identify.artefacts`) may add a third kind of answer: a family on a straight surface
 line that keeps one image angle across grains. Like "none" it may be taken by any number of
 families; each family reports its probability as ``p_artefact``.
 """
@@ -45,9 +45,9 @@ from typing import Any, Iterable, Sequence
 import numpy as np
 from scipy.special import i0e
 
-from tracefit.angles import axial_difference, fold_axial
+from tracefit.conventions import axial_difference, fold_axial
 from tracefit.errors import TracefitInputError
-from tracefit.traces import NEAR_SURFACE_DEG
+from tracefit.predict import NEAR_SURFACE_DEG
 
 __all__ = [
     "ObservedFamily",
@@ -95,7 +95,7 @@ class ObservedFamily:
         Detection details, carried through to reports.
     boundary_continuation : float, optional
         Share of the family's lines that run on straight into a neighbouring grain with the
-        same contrast (:func:`tracefit.grains.line_continuation`); reported, not used in the
+        same contrast (:func:`tracefit.maps.tables.line_continuation`); reported, not used in the
         probabilities.
     """
 
@@ -208,7 +208,7 @@ class FamilyIdentification:
     candidates: list[Candidate]
     separation: list[str] = field(default_factory=list)
     notes: list[str] = field(default_factory=list)
-    # Map-level surface-artefact hypothesis (tracefit.artefacts); set after construction so that
+    # Map-level surface-artefact hypothesis (tracefit.identify.artefacts); set after construction so that
     # subclasses keep their positional arguments.
     p_artefact: float = field(default=0.0, init=False)
     unexplained_reason: str | None = field(default=None, init=False)
@@ -421,8 +421,8 @@ def predict_candidates(cands: CandidateSet, g, frame=None):
     angle_deg, inclination_deg, slope : ndarray (N, P)
         Apparent trace angle (after frame and tilt), inclination, and d(apparent)/d(true).
     """
-    from tracefit.frames import FrameSettings, apparent_angle
-    from tracefit.traces import plane_normals_in_image, trace_angles
+    from tracefit.conventions import FrameSettings, apparent_angle
+    from tracefit.predict import plane_normals_in_image, trace_angles
 
     g = np.asarray(g, float)
     G = g[None] if g.ndim == 2 else g
@@ -463,11 +463,11 @@ def _flat_systems(cands: CandidateSet):
 def _load_values(load, cands: CandidateSet, g):
     """Per candidate group: its systems ranked under the load, and the best drive (m or tau, >= 0).
 
-    ``load`` is a :class:`tracefit.traces.LoadAxis` (uniaxial; Schmid factors) or a stress
+    ``load`` is a :class:`tracefit.predict.traces.LoadAxis` (uniaxial; Schmid factors) or a stress
     tensor in sample coordinates, (3, 3) or Voigt (6,) (resolved shear). Slip counts either
     way (|m|); a twin only in its twinning sense (m > 0 in the load's sense).
     """
-    from tracefit.traces import resolved_shear, schmid_factor
+    from tracefit.predict import resolved_shear, schmid_factor
 
     flat, grp, normals, dirs = _flat_systems(cands)
     twin_g = np.array([m == "twin" for m in cands.modes])
@@ -632,15 +632,15 @@ def identify_families(
     ----------
     observed : sequence of ObservedFamily (or floats: angles in degrees, sigma 0.5)
         Families seen in this grain (one orientation).
-    lattice : tracefit.lattice.Lattice
+    lattice : tracefit.crystal.lattice.Lattice
     g : ndarray (3, 3)
         Orientation, v_crystal = g v_sample.
     systems : iterable of DeformationSystem or CandidateSet
-        Candidate systems (e.g. ``tracefit.systems.catalogue(lattice)``).
-    frame : tracefit.frames.FrameSettings, optional
+        Candidate systems (e.g. ``tracefit.crystal.systems.catalogue(lattice)``).
+    frame : tracefit.conventions.FrameSettings, optional
         Orientation-data frame -> image (rotation, flips, stage tilt).
     load : optional
-        Load from ``tracefit.traces.parse_load`` (uniaxial axis or stress tensor); used to
+        Load from ``tracefit.predict.traces.parse_load`` (uniaxial axis or stress tensor); used to
         rank systems within a plane and, with ``schmid_weight``, as a prior.
     orientation_sigma_deg : float
         One-sigma orientation error about each sample axis, degrees (default 1).
@@ -710,12 +710,12 @@ def identify_grains(
     grain_sigma_deg : dict grain -> float, optional
         Per-grain orientation uncertainty overriding ``orientation_sigma_deg``.
     artefacts : bool
-        Test the map-level surface-artefact hypothesis (:mod:`tracefit.artefacts`): a family
+        Test the map-level surface-artefact hypothesis (:mod:`tracefit.identify.artefacts`): a family
         that keeps one image angle in several grains whose crystallography predicts different
         traces there is reported unexplained with ``p_artefact`` (default on; it needs at
         least three grains with families).
     artefact_options : dict, optional
-        Keyword options of :func:`tracefit.artefacts.find_artefact_directions` (``p_map``,
+        Keyword options of :func:`tracefit.identify.artefacts.find_artefact_directions` (``p_map``,
         ``line_sigma_deg``, ``min_witnesses``, ``max_directions``).
     (others as :func:`identify_families`)
 
@@ -761,7 +761,7 @@ def identify_grains(
 
 def _map_artefacts(obs, by_grain, keys, pre, cands, G, ang, slope, osigs, fsig, options):
     """Run the map-level artefact scan; per grain ``(mass, log_w, angle)`` for :func:`_identify_one`."""
-    from tracefit.artefacts import CrystalContext, artefact_family_weights, find_artefact_directions
+    from tracefit.identify.artefacts import CrystalContext, artefact_family_weights, find_artefact_directions
 
     opts = dict(options or {})
     if len(keys) < int(opts.get("min_witnesses", 3)):
@@ -835,7 +835,7 @@ def _identify_one(obs, cands, g, ang, incl, slope, load, osig, fsig, p_none, sch
     """Verdicts for the families of one grain.
 
     ``pre``: the output of :func:`_grain_weights` (computed here when None). ``art``: optional
-    surface-artefact hypothesis from :mod:`tracefit.artefacts`, ``(mass, log_w (F,), angle (F,))``:
+    surface-artefact hypothesis from :mod:`tracefit.identify.artefacts`, ``(mass, log_w (F,), angle (F,))``:
     crystallographic and "none" priors are scaled by 1 - mass, and the artefact (like "none",
     open to any number of families) is folded into the last column for the joint assignment,
     then split off again by its share of that column's weight.

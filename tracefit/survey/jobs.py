@@ -368,7 +368,7 @@ def _check_with_geometry(ctx: _Ctx, key_of: dict, im: dict) -> None:
     """
     import warnings
 
-    from tracefit.lattice import lattice_preset
+    from tracefit.crystal import lattice_preset
 
     try:
         with warnings.catch_warnings():
@@ -379,7 +379,7 @@ def _check_with_geometry(ctx: _Ctx, key_of: dict, im: dict) -> None:
         raise ctx.fail(key_of[which], f"is not valid: {exc}") from None
     if im.get("load") is not None:
         try:
-            from tracefit.traces import parse_load
+            from tracefit.predict import parse_load
         except ImportError:
             parse_load = None
         if parse_load is not None:
@@ -389,7 +389,7 @@ def _check_with_geometry(ctx: _Ctx, key_of: dict, im: dict) -> None:
                 raise ctx.fail(key_of["load"], f"is not valid: {exc}") from None
     if im.get("frame"):
         try:
-            from tracefit.frames import FrameSettings
+            from tracefit.conventions import FrameSettings
         except ImportError:
             FrameSettings = None
         if FrameSettings is not None:
@@ -534,7 +534,7 @@ def parse_job(text: str, path: str | Path = "job.toml") -> Job:
         if im.get("detect"):
             _check_options(ctx, key_of["detect"], im["detect"], "tracefit.image.detect", "detect_bands", _DETECT_RESERVED)
         if im.get("match"):
-            _check_options(ctx, key_of["match"], im["match"], "tracefit.matching", "identify_families", _MATCH_RESERVED)
+            _check_options(ctx, key_of["match"], im["match"], "tracefit.identify.matching", "identify_families", _MATCH_RESERVED)
         images.append(
             ImageJob(
                 name=name,

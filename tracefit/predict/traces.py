@@ -21,10 +21,10 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from tracefit.angles import fold_axial
+from tracefit.conventions import fold_axial
 from tracefit.errors import TracefitInputError
-from tracefit.frames import FrameSettings, apparent_angle, data_to_image_matrix
-from tracefit.orientation import parse_vector
+from tracefit.conventions import FrameSettings, apparent_angle, data_to_image_matrix
+from tracefit.crystal import parse_vector
 
 __all__ = [
     "trace_angles",
@@ -78,7 +78,7 @@ def trace_angles(normals):
 def plane_normals_in_image(g, normals_crystal, frame: FrameSettings | None = None) -> np.ndarray:
     """Crystal-frame plane normals expressed in the image frame.
 
-    ``n_image = M g^T n_crystal`` with ``M`` = :func:`tracefit.frames.data_to_image_matrix`.
+    ``n_image = M g^T n_crystal`` with ``M`` = :func:`tracefit.conventions.data_to_image_matrix`.
 
     Parameters
     ----------
@@ -136,7 +136,7 @@ def predicted_trace_table(
 
     Parameters
     ----------
-    lattice : tracefit.lattice.Lattice
+    lattice : tracefit.crystal.lattice.Lattice
         Used only when ``indices`` is true, to turn plane indices into normals.
     g_many : array_like, shape (N, 3, 3) or (3, 3)
         Orientations.
@@ -224,7 +224,7 @@ def parse_load(text: str, lattice=None, sense: str = "tension") -> LoadAxis:
     Parameters
     ----------
     text : str
-    lattice : tracefit.lattice.Lattice, optional
+    lattice : tracefit.crystal.lattice.Lattice, optional
         Needed for crystal directions.
     sense : {"tension", "compression"}
     """
@@ -253,7 +253,7 @@ def parse_load(text: str, lattice=None, sense: str = "tension") -> LoadAxis:
 
 
 def _parse_direction(t: str, lattice) -> tuple:
-    from tracefit.indices import parse_index  # the project's one index reader
+    from tracefit.crystal.indices import parse_index  # the project's one index reader
 
     try:
         idx = parse_index(t, lattice, expect="direction")
@@ -453,11 +453,11 @@ def predict_traces(
 
     Parameters
     ----------
-    lattice : tracefit.lattice.Lattice
+    lattice : tracefit.crystal.lattice.Lattice
         Crystal lattice (used to read a load given as text).
     g : array_like, shape (3, 3)
         Orientation, ``v_crystal = g v_sample``.
-    systems : sequence of tracefit.systems.DeformationSystem
+    systems : sequence of tracefit.crystal.systems.DeformationSystem
     frame : FrameSettings
         Data-to-image frame and stage tilt.
     load : LoadAxis or str, optional

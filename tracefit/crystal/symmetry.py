@@ -1,7 +1,7 @@
 """Proper rotation groups of the Laue classes, and the variants of plane and direction families.
 
 The rotations are built from the lattice's own basis vectors (Cartesian crystal frame of
-:class:`tracefit.lattice.Lattice`), so they follow whatever setting the lattice uses
+:class:`tracefit.crystal.lattice.Lattice`), so they follow whatever setting the lattice uses
 (e.g. hexagonal x || a1 or x || a1*). Rotation axes per Laue class:
 
 =========  ===========  ==========================================================
@@ -41,7 +41,7 @@ import math
 import numpy as np
 
 from tracefit.errors import TracefitInputError
-from tracefit.indices import MillerIndex, check_values, parse_index, to_three
+from tracefit.crystal.indices import MillerIndex, check_values, parse_index, to_three
 
 __all__ = [
     "proper_rotations",
@@ -126,7 +126,7 @@ def proper_rotations(lattice) -> np.ndarray:
 
     Parameters
     ----------
-    lattice : tracefit.lattice.Lattice
+    lattice : tracefit.crystal.lattice.Lattice
 
     Returns
     -------
@@ -182,7 +182,7 @@ def index_rotations(lattice, kind: str) -> np.ndarray:
 
     Parameters
     ----------
-    lattice : tracefit.lattice.Lattice
+    lattice : tracefit.crystal.lattice.Lattice
     kind : {"plane", "direction"}
         Planes transform with M = B^-1 R B (B: columns a*, b*, c*), directions with
         M = A^-1 R A (A: columns a, b, c).
@@ -277,7 +277,7 @@ def plane_variants(lattice, hkl) -> list[tuple[int, ...]]:
 
     Parameters
     ----------
-    lattice : tracefit.lattice.Lattice
+    lattice : tracefit.crystal.lattice.Lattice
     hkl : sequence of int, str or MillerIndex
         Any member of the family: (hkl), or (hkil) for hexagonal lattices.
 
@@ -297,7 +297,7 @@ def direction_variants(lattice, uvw, signed: bool = True) -> list[tuple[int, ...
 
     Parameters
     ----------
-    lattice : tracefit.lattice.Lattice
+    lattice : tracefit.crystal.lattice.Lattice
     uvw : sequence of int, str or MillerIndex
         [uvw], or [uvtw] for hexagonal lattices.
     signed : bool

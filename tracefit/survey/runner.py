@@ -3,7 +3,7 @@
 Output folder layout (all files written atomically: temporary file, then rename)::
 
     OUT/
-      report.html              self-contained report (tracefit.report)
+      report.html              self-contained report (tracefit.viz.report)
       results.csv              one row per band family (failed images: one row, status "failed")
       results.json             job, settings, every image's full record
       images/NAME.json         per-image record; written last, so it marks the image done
@@ -37,7 +37,7 @@ import numpy as np
 import tracefit
 from tracefit.atomic import write_text
 from tracefit.errors import TracefitInputError
-from tracefit.jobs import ImageJob, Job
+from tracefit.survey.jobs import ImageJob, Job
 
 __all__ = [
     "SurveyResult",
@@ -123,7 +123,7 @@ def _family_dict(f, grain, pixel_size_um) -> dict:
     """A detected BandFamily as plain data."""
     lines = []
     for ln in getattr(f, "lines", None) or []:
-        from tracefit.plots import _line_endpoints
+        from tracefit.viz.plots import _line_endpoints
 
         lines.append([round(v, 2) for v in _line_endpoints(ln)])
     sp_px = getattr(f, "spacing_px", None)
@@ -144,8 +144,8 @@ def _family_dict(f, grain, pixel_size_um) -> dict:
 
 def _predicted_dicts(lattice, g, systems, frame, load) -> list[dict]:
     """Predicted traces of every candidate plane, with the plane normal in the image frame."""
-    from tracefit.frames import data_to_image_matrix
-    from tracefit.traces import predict_traces
+    from tracefit.conventions import data_to_image_matrix
+    from tracefit.predict import predict_traces
 
     M = data_to_image_matrix(frame)
     out = []
@@ -161,7 +161,7 @@ def analyse_image(im: ImageJob) -> ImageAnalysis:
     """Detect the band families of one image and identify their planes.
 
     Uses the detector (:mod:`tracefit.image.detect`), the candidate catalogue
-    (:mod:`tracefit.systems`) and the matcher (:mod:`tracefit.matching`) with the
+    (:mod:`tracefit.crystal.systems`) and the matcher (:mod:`tracefit.identify.matching`) with the
     image's settings from the job. Per-grain images (label image + orientation table)
     are analysed grain by grain.
 
@@ -170,14 +170,14 @@ def analyse_image(im: ImageJob) -> ImageAnalysis:
     TracefitInputError
         For a missing or unreadable file, or inconsistent settings.
     """
-    from tracefit.frames import FrameSettings
-    from tracefit.image.detect import detect_bands, detect_grains
+    from tracefit.conventions import FrameSettings
+    from tracefit.image import detect_bands, detect_grains
     from tracefit.image.io import read_image, read_mask
-    from tracefit.lattice import lattice_preset
-    from tracefit.matching import identify_families, observed_from_detection
-    from tracefit.orientation import from_euler
-    from tracefit.systems import catalogue
-    from tracefit.traces import parse_load
+    from tracefit.crystal import lattice_preset
+    from tracefit.identify import identify_families, observed_from_detection
+    from tracefit.crystal import from_euler
+    from tracefit.crystal import catalogue
+    from tracefit.predict import parse_load
 
     caught: list[str] = []
     with warnings.catch_warnings(record=True) as wlist:
@@ -199,7 +199,7 @@ def analyse_image(im: ImageJob) -> ImageAnalysis:
         if im.euler_deg is not None:
             grain_list.append((None, from_euler(np.asarray(im.euler_deg, float)), None, list(im.euler_deg)))
         else:
-            from tracefit.grains import read_label_image, read_orientation_table
+            from tracefit.maps import read_label_image, read_orientation_table
 
             labels = read_label_image(im.labels)
             if labels.shape != image.shape[:2]:
@@ -255,7 +255,7 @@ def analyse_image(im: ImageJob) -> ImageAnalysis:
 # --------------------------------------------------------------------------- figures and record
 def family_label(ident: dict | None) -> str:
     """Short verdict label for a family: its identified plane and mode, or why not."""
-    from tracefit.plots import plane_label
+    from tracefit.viz.plots import plane_label
 
     if not ident:
         return "not identified"
@@ -276,7 +276,7 @@ def family_label(ident: dict | None) -> str:
 
 
 def _draw_figures(im: ImageJob, a: ImageAnalysis, img_dir: Path) -> dict:
-    from tracefit import plots
+    from tracefit.viz import plots
 
     figs = {}
     labels = []
@@ -516,7 +516,7 @@ def _mp_context():
         return mp.get_context("spawn")
     ctx = mp.get_context("forkserver")
     # the server imports the heavy modules once; each worker forked from it starts warm
-    ctx.set_forkserver_preload(["tracefit.survey", "tracefit.image.detect", "tracefit.matching", "tracefit.plots"])
+    ctx.set_forkserver_preload(["tracefit.survey.runner", "tracefit.image.detect", "tracefit.identify.matching", "tracefit.viz.plots"])
     return ctx
 
 
@@ -545,7 +545,7 @@ def run_survey(job: Job, out_dir, workers: int | None = None, resume: bool = Fal
     Parameters
     ----------
     job : Job
-        From :func:`tracefit.jobs.load_job`.
+        From :func:`tracefit.survey.jobs.load_job`.
     out_dir : str or Path
         Output folder (created). See the module docstring for its layout.
     workers : int, optional
@@ -622,7 +622,7 @@ def run_survey(job: Job, out_dir, workers: int | None = None, resume: bool = Fal
     result.csv_path = write_results_csv(ordered, out_dir / "results.csv")
     result.json_path = write_text(out_dir / "results.json", json.dumps(_jsonable(result.to_dict()), indent=1))
     if report:
-        from tracefit.report import write_report
+        from tracefit.viz.report import write_report
 
         result.report_path = write_report(result, out_dir / "report.html")
     return result
@@ -631,7 +631,7 @@ def run_survey(job: Job, out_dir, workers: int | None = None, resume: bool = Fal
 def csv_rows(records: list[dict]) -> list[dict]:
     """Results table rows: one per family; a failed image gives one row with its error, and an
     image without any band family one row with verdict "no bands found"."""
-    from tracefit.plots import plane_label
+    from tracefit.viz.plots import plane_label
 
     rows = []
     for rec in records:
@@ -678,7 +678,7 @@ def csv_rows(records: list[dict]) -> list[dict]:
 
 def plane_label_direction(d) -> str:
     try:
-        from tracefit.indices import format_index
+        from tracefit.crystal import format_index
 
         return format_index(tuple(int(x) for x in d), kind="direction")
     except Exception:
