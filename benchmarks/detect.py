@@ -35,7 +35,7 @@ import numpy as np
 
 from tracefit.conventions import axial_difference
 from tracefit.image import detect_bands
-from tracefit.image.synthetic import BandFamilySpec, render_micrograph, standard_suite
+from tracefit.image import BandFamilySpec, render_micrograph, standard_suite
 
 MATCH_TOL_DEG = 2.0  # a detected family within this of a true one counts as that family
 

@@ -296,7 +296,7 @@ def run_images(n, seed):
     """End to end on small synthetic micrographs (detection + identification), fcc single grains."""
     from tracefit.image import detect_bands
     from tracefit.identify import identify_families, observed_from_detection
-    from tracefit.image.synthetic import BandFamilySpec, render_micrograph
+    from tracefit.image import BandFamilySpec, render_micrograph
 
     rng = np.random.default_rng(seed)
     lat = lattice_preset("fcc")

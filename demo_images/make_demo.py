@@ -36,7 +36,7 @@ from tracefit.conventions import axial_difference
 from tracefit.maps import write_orientation_table
 from tracefit.crystal import lattice_preset
 from tracefit.crystal import from_euler
-from tracefit.image.synthetic import BandFamilySpec, render_micrograph
+from tracefit.image import BandFamilySpec, render_micrograph
 from tracefit.crystal import catalogue
 from tracefit.predict import parse_load, predict_traces
 

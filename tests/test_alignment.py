@@ -11,12 +11,12 @@ import numpy as np
 import pytest
 from scipy.spatial.transform import Rotation
 
-from tracefit.identify.frame_fit import fit_frame
+from tracefit.identify import fit_frame
 from tracefit.errors import TracefitInputError
 from tracefit.conventions import FrameSettings
-from tracefit.crystal.lattice import lattice_preset
-from tracefit.identify.matching import ObservedFamily
-from tracefit.crystal.systems import catalogue
+from tracefit.crystal import lattice_preset
+from tracefit.identify import ObservedFamily
+from tracefit.crystal import catalogue
 
 FCC = lattice_preset("fcc")
 PLANES = [(1, 1, 1), (-1, 1, 1), (1, -1, 1), (1, 1, -1)]

@@ -22,8 +22,8 @@ import pytest
 from scipy import integrate
 from scipy.spatial.transform import Rotation
 
-from tracefit.identify.artefacts import find_artefact_directions
-from tracefit.crystal.lattice import lattice_preset
+from tracefit.identify import find_artefact_directions
+from tracefit.crystal import lattice_preset
 from tracefit.identify.matching import (
     ObservedFamily,
     _grain_weights,
@@ -35,7 +35,7 @@ from tracefit.identify.matching import (
     logsumexp,
     predict_candidates,
 )
-from tracefit.crystal.systems import catalogue
+from tracefit.crystal import catalogue
 
 FCC = lattice_preset("fcc")
 CAT = catalogue(FCC)
@@ -200,7 +200,7 @@ def test_cli_reports_the_artefact_on_a_measured_map(run_cli, tmp_path):
     # the same continuity cue through tracefit identify --measured (grain column) --orientations --json
     import json
 
-    from tracefit.maps.tables import write_orientation_table
+    from tracefit.maps import write_orientation_table
 
     rng = np.random.default_rng(4)
     Rs = {k: Rotation.random(random_state=300 + k) for k in range(1, 7)}
@@ -231,8 +231,8 @@ def test_line_continuation_across_a_grain_boundary():
     # a band stops there, or (slip transfer) goes on in the neighbour at another angle
     import cv2
 
-    from tracefit.image.continuation import line_continuation
-    from tracefit.image.detect import BandLine
+    from tracefit.image import line_continuation
+    from tracefit.image import BandLine
 
     rng = np.random.default_rng(0)
     img = 0.5 + rng.normal(0, 0.01, (200, 200))

@@ -7,7 +7,7 @@ import numpy as np
 import pytest
 
 from tracefit.conventions import axial_difference
-from tracefit.image.synthetic import BandFamilySpec, render_micrograph
+from tracefit.image import BandFamilySpec, render_micrograph
 
 
 @pytest.fixture(scope="module")

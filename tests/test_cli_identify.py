@@ -12,8 +12,8 @@ import numpy as np
 import pytest
 from scipy.spatial.transform import Rotation
 
-from tracefit.crystal.lattice import lattice_preset
-from tracefit.image.synthetic import BandFamilySpec, render_micrograph, voronoi_labels
+from tracefit.crystal import lattice_preset
+from tracefit.image import BandFamilySpec, render_micrograph, voronoi_labels
 
 FCC = lattice_preset("fcc")
 PLANES = [(1, 1, 1), (-1, 1, 1), (1, -1, 1), (1, 1, -1)]

@@ -15,7 +15,7 @@ import numpy as np
 import pytest
 from scipy.spatial.transform import Rotation
 
-from tracefit.crystal.lattice import lattice_preset
+from tracefit.crystal import lattice_preset
 
 FCC = lattice_preset("fcc")
 FCC_111 = [(1, 1, 1), (-1, 1, 1), (1, -1, 1), (1, 1, -1)]

@@ -17,8 +17,8 @@ from pathlib import Path
 import pytest
 
 from tracefit.demo import demo_dir, demo_job_path
-from tracefit.crystal.indices import format_index
-from tracefit.survey.jobs import load_job
+from tracefit.crystal import format_index
+from tracefit.survey import load_job
 
 
 @pytest.fixture(scope="module")

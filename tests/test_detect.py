@@ -10,8 +10,8 @@ from skimage.transform import hough_line, hough_line_peaks
 
 from tracefit.conventions import axial_difference
 from tracefit.errors import TracefitInputError
-from tracefit.image.detect import detect_bands, detect_grains
-from tracefit.image.synthetic import BandFamilySpec, render_micrograph, voronoi_labels
+from tracefit.image import detect_bands, detect_grains
+from tracefit.image import BandFamilySpec, render_micrograph, voronoi_labels
 
 
 def _match(result, true_angles, tol=2.0):

@@ -51,7 +51,7 @@ def test_identify_from_image(tmp_path):
 
 
 def test_identify_from_angles(tmp_path):
-    from tracefit.crystal.lattice import lattice_preset
+    from tracefit.crystal import lattice_preset
 
     out = run_example("identify_from_angles.py", tmp_path)
     d = json.loads((tmp_path / "measured.json").read_text())
@@ -83,7 +83,7 @@ def test_predicted_overlay(tmp_path):
         assert img is not None and img.shape[1] > min_w  # picture plus legend panel
     canvas = cv2.cvtColor(cv2.imread(str(tmp_path / "predicted_on_canvas.png")), cv2.COLOR_BGR2RGB)
     # the canvas keeps plain background somewhere and carries the first trace's colour somewhere
-    from tracefit.image.draw import FAMILY_COLOURS
+    from tracefit.image import FAMILY_COLOURS
     from tracefit.viz.overlay import CANVAS_BACKGROUND
 
     pic = canvas[:480, :640].reshape(-1, 3)

@@ -13,9 +13,9 @@ from scipy.spatial.transform import Rotation as SciRot
 from tracefit.conventions import axial_difference
 from tracefit.errors import TracefitInputError
 from tracefit.conventions import FrameSettings, apparent_angle, data_to_image_matrix, true_angle
-from tracefit.crystal.lattice import lattice_preset
-from tracefit.crystal.orientation import from_euler
-from tracefit.predict.traces import predicted_trace_table
+from tracefit.crystal import lattice_preset
+from tracefit.crystal import from_euler
+from tracefit.predict import predicted_trace_table
 
 angles = st.floats(min_value=0.0, max_value=179.999, allow_nan=False)
 tilts = st.floats(min_value=-85.0, max_value=85.0, allow_nan=False)

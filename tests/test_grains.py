@@ -5,7 +5,7 @@ import pytest
 from scipy.spatial.transform import Rotation
 
 from tracefit.errors import TracefitInputError
-from tracefit.maps.tables import read_orientation_table, write_orientation_table
+from tracefit.maps import read_orientation_table, write_orientation_table
 
 
 def test_euler_and_quaternion_rows_give_the_same_matrix(tmp_path):

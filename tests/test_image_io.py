@@ -6,7 +6,7 @@ import pytest
 import tifffile
 
 from tracefit.errors import TracefitInputError
-from tracefit.image.io import read_image, read_mask
+from tracefit.image import read_image, read_mask
 
 
 @pytest.fixture

@@ -5,8 +5,8 @@ import pytest
 from hypothesis import given, settings, strategies as st
 
 from tracefit.errors import TracefitInputError
-from tracefit.crystal.indices import MillerIndex, format_index, parse_index
-from tracefit.crystal.lattice import lattice_preset, miller_bravais_to_miller, miller_to_miller_bravais
+from tracefit.crystal import MillerIndex, format_index, parse_index
+from tracefit.crystal import lattice_preset, miller_bravais_to_miller, miller_to_miller_bravais
 
 FCC = lattice_preset("fcc")
 HCP = lattice_preset("hcp", c_over_a=1.624)

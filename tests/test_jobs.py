@@ -7,7 +7,7 @@ from pathlib import Path
 import pytest
 
 from tracefit.errors import TracefitInputError
-from tracefit.survey.jobs import key_lines, load_job, parse_job
+from tracefit.survey import key_lines, load_job, parse_job
 
 GOOD = """\
 # a survey job

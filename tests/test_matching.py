@@ -14,8 +14,8 @@ from scipy.integrate import quad
 from scipy.spatial.transform import Rotation
 
 from tracefit.errors import TracefitInputError
-from tracefit.crystal.lattice import lattice_preset
-from tracefit.identify.matching import (
+from tracefit.crystal import lattice_preset
+from tracefit.identify import (
     ObservedFamily,
     axial_logpdf,
     candidate_set,
@@ -24,9 +24,9 @@ from tracefit.identify.matching import (
     identify_grains,
     predicted_trace_sigma,
 )
-from tracefit.crystal.orientation import from_euler
-from tracefit.crystal.systems import catalogue
-from tracefit.predict.traces import parse_load
+from tracefit.crystal import from_euler
+from tracefit.crystal import catalogue
+from tracefit.predict import parse_load
 
 FCC = lattice_preset("fcc")
 

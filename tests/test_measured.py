@@ -14,9 +14,9 @@ import pytest
 from scipy.spatial.transform import Rotation
 
 from tracefit.errors import TracefitInputError
-from tracefit.crystal.lattice import lattice_preset
-from tracefit.identify.matching import ObservedFamily
-from tracefit.identify.measured import (
+from tracefit.crystal import lattice_preset
+from tracefit.identify import ObservedFamily
+from tracefit.identify import (
     MEASURED_CONVENTION,
     CrackIdentification,
     identify_observed,
@@ -24,8 +24,8 @@ from tracefit.identify.measured import (
     parse_angle_option,
     read_measured_csv,
 )
-from tracefit.crystal.orientation import from_euler
-from tracefit.crystal.systems import catalogue
+from tracefit.crystal import from_euler
+from tracefit.crystal import catalogue
 
 FCC = lattice_preset("fcc")
 FCC_111 = [(1, 1, 1), (-1, 1, 1), (1, -1, 1), (1, 1, -1)]

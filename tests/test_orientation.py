@@ -18,7 +18,7 @@ import pytest
 from scipy.spatial.transform import Rotation as SciRot
 
 from tracefit.errors import TracefitInputError
-from tracefit.crystal.lattice import lattice_preset
+from tracefit.crystal import lattice_preset
 from tracefit.crystal.orientation import (
     crystal_to_sample,
     from_axis_angle,

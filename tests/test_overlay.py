@@ -15,9 +15,9 @@ import pytest
 from scipy.spatial.transform import Rotation
 
 from tracefit.errors import TracefitInputError
-from tracefit.image.draw import FAMILY_COLOURS
-from tracefit.crystal.lattice import lattice_preset
-from tracefit.crystal.orientation import from_euler
+from tracefit.image import FAMILY_COLOURS
+from tracefit.crystal import lattice_preset
+from tracefit.crystal import from_euler
 from tracefit.viz.overlay import (
     CANVAS_BACKGROUND,
     WEDGE_ALPHA,
@@ -27,8 +27,8 @@ from tracefit.viz.overlay import (
     trace_sigma_deg,
     write_overlay,
 )
-from tracefit.crystal.systems import catalogue
-from tracefit.predict.traces import predict_traces
+from tracefit.crystal import catalogue
+from tracefit.predict import predict_traces
 
 FCC = lattice_preset("fcc")
 BUNGE = (20.0, 35.0, 60.0)  # {111} traces at 32.2, 53.9, 98.7 and 142.6 deg: well apart

@@ -78,10 +78,10 @@ def test_stereogram_uses_the_image_frame_when_the_data_frame_is_rotated():
     # +30 deg (conventions); the stereogram's normals (normal_image) must move with them, so each
     # great circle still meets the rim at its predicted image angle.
     from tracefit.conventions import FrameSettings
-    from tracefit.crystal.lattice import lattice_preset
-    from tracefit.crystal.orientation import from_euler
+    from tracefit.crystal import lattice_preset
+    from tracefit.crystal import from_euler
     from tracefit.survey.runner import _predicted_dicts
-    from tracefit.crystal.systems import catalogue
+    from tracefit.crystal import catalogue
 
     lat = lattice_preset("fcc")
     preds = _predicted_dicts(lat, from_euler(np.array([0.0, 0.0, 0.0])), catalogue(lat, ["slip"]),
@@ -140,9 +140,9 @@ def test_figures_save_as_png(tmp_path):
 
 
 def test_stereogram_for_an_orientation_draws_one_circle_per_distinct_plane():
-    from tracefit.crystal.lattice import lattice_preset
-    from tracefit.crystal.orientation import from_euler
-    from tracefit.crystal.systems import catalogue
+    from tracefit.crystal import lattice_preset
+    from tracefit.crystal import from_euler
+    from tracefit.crystal import catalogue
 
     lat = lattice_preset("fcc")
     fig = plots.stereogram_for(lat, from_euler([0.0, 0.0, 0.0]), catalogue(lat, ["slip", "twin"]), matched=[(1, 1, 1)])

@@ -9,9 +9,9 @@ from html.parser import HTMLParser
 import pytest
 
 import tracefit
-from tracefit.survey.jobs import parse_job
+from tracefit.survey import parse_job
 from tracefit.viz.report import render_report, write_report
-from tracefit.survey.runner import run_survey
+from tracefit.survey import run_survey
 from test_survey import fake_analyse
 
 
@@ -108,7 +108,7 @@ def test_candidate_tables_hold_one_row_per_candidate(survey, page):
     cand_tables = [t for t in page.tables if t["attrs"].get("class") == "candidates"]
     expect = [(r["name"], f"F{f['index']}", f["identification"]["candidates"]) for r in ok for f in r["families"]]
     assert len(cand_tables) == len(expect) == 2
-    from tracefit.crystal.indices import format_index
+    from tracefit.crystal import format_index
 
     for t, (name, fid, cands) in zip(cand_tables, expect):
         assert (t["attrs"]["data-image"], t["attrs"]["data-family"]) == (name, fid)

@@ -185,8 +185,8 @@ _PAGE_STATE = """JSON.stringify({
 
 def _fake_survey(tmp_path):
     """A small survey with a fake analysis (two images ok, one failed) and its report."""
-    from tracefit.survey.jobs import parse_job
-    from tracefit.survey.runner import run_survey
+    from tracefit.survey import parse_job
+    from tracefit.survey import run_survey
     from test_survey import fake_analyse  # the same fake the survey tests use
 
     text = (

@@ -17,17 +17,17 @@ import numpy as np
 import pytest
 
 from tracefit.errors import TracefitInputError
-from tracefit.survey.jobs import parse_job
-from tracefit.survey.runner import CSV_COLUMNS, ImageAnalysis, run_survey
+from tracefit.survey import parse_job
+from tracefit.survey import CSV_COLUMNS, ImageAnalysis, run_survey
 
 def fake_analyse(im) -> ImageAnalysis:
     """Stand-in for analyse_image: two families at the predicted traces of two planes."""
     from tracefit.conventions import angle_to_pixel_direction
-    from tracefit.crystal.lattice import lattice_preset
-    from tracefit.identify.matching import ObservedFamily, identify_families
-    from tracefit.crystal.orientation import from_euler
+    from tracefit.crystal import lattice_preset
+    from tracefit.identify import ObservedFamily, identify_families
+    from tracefit.crystal import from_euler
     from tracefit.survey.runner import _predicted_dicts
-    from tracefit.crystal.systems import catalogue
+    from tracefit.crystal import catalogue
 
     # (a file beside the images, not an environment variable: workers forked from a
     # forkserver started earlier would not see a variable set now)
@@ -188,7 +188,7 @@ def test_results_csv_has_one_row_per_family(tmp_path):
     failed = [r for r in rows if r["status"] == "failed"]
     assert [r["image"] for r in failed] == ["bad-two"] and "deliberately" in failed[0]["error"]
     # each row carries its family's best candidate as the matcher gave it
-    from tracefit.crystal.indices import format_index
+    from tracefit.crystal import format_index
 
     fams = [f for r in res.records if r["status"] == "ok" for f in r["families"]]
     for row, fam in zip(ok, fams):

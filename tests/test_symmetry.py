@@ -7,8 +7,8 @@ import pytest
 from hypothesis import given, settings, strategies as st
 
 from tracefit.errors import TracefitInputError
-from tracefit.crystal.lattice import Lattice, lattice_preset
-from tracefit.crystal.symmetry import (
+from tracefit.crystal import Lattice, lattice_preset
+from tracefit.crystal import (
     direction_variants,
     index_rotations,
     plane_variants,

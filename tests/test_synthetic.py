@@ -5,7 +5,7 @@ import pytest
 from skimage.draw import line as sk_line
 
 from tracefit.conventions import axial_difference, pixel_endpoints_angle
-from tracefit.image.synthetic import BandFamilySpec, render_micrograph, standard_suite, voronoi_labels
+from tracefit.image import BandFamilySpec, render_micrograph, standard_suite, voronoi_labels
 
 
 def test_same_seed_same_image_other_seed_other_image():

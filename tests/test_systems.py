@@ -10,9 +10,9 @@ import pytest
 from hypothesis import given, settings, strategies as st
 
 from tracefit.errors import TracefitInputError
-from tracefit.crystal.lattice import Lattice, lattice_preset
-from tracefit.crystal.symmetry import direction_variants, proper_rotations
-from tracefit.crystal.systems import DeformationSystem, catalogue, filter_systems, load_systems_file, twin_shear
+from tracefit.crystal import Lattice, lattice_preset
+from tracefit.crystal import direction_variants, proper_rotations
+from tracefit.crystal import DeformationSystem, catalogue, filter_systems, load_systems_file, twin_shear
 
 EXAMPLE = Path(__file__).resolve().parents[1] / "docs" / "examples" / "tin_systems.toml"
 FCC = lattice_preset("fcc")

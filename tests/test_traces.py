@@ -19,10 +19,10 @@ from scipy.spatial.transform import Rotation as SciRot
 from tracefit.conventions import axial_difference
 from tracefit.errors import TracefitInputError
 from tracefit.conventions import FrameSettings
-from tracefit.crystal.lattice import lattice_preset
-from tracefit.crystal.orientation import crystal_to_sample, from_euler
-from tracefit.crystal.systems import catalogue
-from tracefit.predict.traces import (
+from tracefit.crystal import lattice_preset
+from tracefit.crystal import crystal_to_sample, from_euler
+from tracefit.crystal import catalogue
+from tracefit.predict import (
     parse_load,
     plane_normals_in_image,
     predict_traces,

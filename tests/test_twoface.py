@@ -6,9 +6,9 @@ import numpy as np
 import pytest
 
 from tracefit.errors import TracefitInputError
-from tracefit.crystal.lattice import lattice_preset
-from tracefit.crystal.systems import catalogue
-from tracefit.identify.twoface import FaceGeometry, index_two_face, interplanar_pairs, plane_from_two_traces, trace_on_face
+from tracefit.crystal import lattice_preset
+from tracefit.crystal import catalogue
+from tracefit.identify import FaceGeometry, index_two_face, interplanar_pairs, plane_from_two_traces, trace_on_face
 
 FCC = lattice_preset("fcc")
 

@@ -36,7 +36,7 @@ def observe_image(image_path, grains_path=None, orientations=None, pixel_size_um
     """
     from tracefit.image import detect_bands, detect_grains, read_image
     from tracefit.identify import observed_from_detection
-    from tracefit.image.continuation import line_continuation
+    from tracefit.image import line_continuation
 
     img, notes = read_image(image_path)
     if grains_path is None:

@@ -32,7 +32,7 @@ def detect_command(
     axial 0-180. A data bar is found and left out on its own.
     """
     from tracefit.image import detect_bands
-    from tracefit.image.io import read_image, read_mask
+    from tracefit.image import read_image, read_mask
 
     if pixel_size is not None and not (pixel_size > 0 and math.isfinite(pixel_size)):
         raise TracefitInputError(f"--pixel-size {pixel_size!r}: expected a positive number of micrometres per pixel")
@@ -46,7 +46,7 @@ def detect_command(
     for note in result.notes:
         _err(f"note: {note}")
     if overlay:
-        from tracefit.image.draw import write_detection_overlay
+        from tracefit.image import write_detection_overlay
 
         write_detection_overlay(overlay, gray, result)
         _err(f"overlay written to {overlay}")

@@ -172,7 +172,7 @@ def analyse_image(im: ImageJob) -> ImageAnalysis:
     """
     from tracefit.conventions import FrameSettings
     from tracefit.image import detect_bands, detect_grains
-    from tracefit.image.io import read_image, read_mask
+    from tracefit.image import read_image, read_mask
     from tracefit.crystal import lattice_preset
     from tracefit.identify import identify_families, observed_from_detection
     from tracefit.crystal import from_euler

@@ -24,7 +24,7 @@ import numpy as np
 from tracefit.conventions import angle_to_pixel_direction
 from tracefit.errors import TracefitInputError
 from tracefit.image.draw import FAMILY_COLOURS, _to_rgb8
-from tracefit.image.draw import draw_detection as draw_detected
+from tracefit.image import draw_detection as draw_detected
 from tracefit.identify import predicted_trace_sigma
 
 __all__ = [
