@@ -176,7 +176,7 @@ def test_bad_csv_exits_2_with_row_and_field(run_cli, tmp_path, body, words):
     (("--euler", "0,0,0", "--angle", "30", "--overlay", "o.png"), ["--overlay", "IMAGE"]),
     (("--euler", "0,0,0", "--angle", "30", "--grains", "l.png"), ["--grains"]),
     (("--euler", "0,0,0", "--measured", "missing.csv"), ["not found"]),
-    (("--euler", "0,0,0", "--crack", "30", "--crack-k-sigma", "0"), ["positive"]),
+    (("--euler", "0,0,0", "--crack", "30", "--crack-k-sigma", "0"), ["--crack-k-sigma", "> 0"]),
 ])
 def test_bad_options_exit_2(run_cli, args, words):
     code, out, err = run_cli("identify", "--lattice", "fcc", *args)

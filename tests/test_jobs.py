@@ -207,4 +207,4 @@ def test_detect_and_match_options_must_be_known_keywords():
     assert f"line {_line_of(bad, 'detect = {')}" in msg
     reserved = GOOD.replace('euler_deg = [10, 20, 30]', 'euler_deg = [10, 20, 30]\nmatch = { lattice = "bcc" }')
     msg = _err(reserved)
-    assert "image[1].match.lattice" in msg and "set by the survey" in msg
+    assert "image[1].match.lattice" in msg and "is an image setting" in msg

@@ -1,69 +1,734 @@
-"""The one analysis chain (being built): read -> detect -> predict -> identify -> results."""
+"""The one analysis chain: read -> detect -> predict -> identify -> results.
+
+Every entry point runs this chain with the same defaults: ``tracefit identify`` on one
+image, ``tracefit survey`` on a job that holds it, and :func:`analyse_image` in a notebook
+give the same planes and probabilities for the same settings. The stages are public too,
+for work that starts half-way (families measured by hand, a detection done elsewhere):
+
+1. :func:`read_grain_map` -- a grain label image and its orientation table, checked together;
+2. :func:`detect_families` -- band families per grain (or in the whole image), as
+   :class:`~tracefit.identify.ObservedFamily` objects, with the status of every grain;
+3. :func:`identify` -- candidate planes and systems with probabilities (artefact test,
+   joint per-grain assignment, line continuation carried through, frame check);
+4. :func:`analyse_image` -- all of the above for one micrograph, returning an
+   :class:`ImageResult` that tables, figures, the report and ``--json`` all read.
+
+Settings and their defaults are declared once in :mod:`tracefit.options`.
+"""
 
 from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Sequence
 
 import numpy as np
 
 from tracefit.errors import TracefitInputError
-from tracefit.maps import read_label_image
+from tracefit.options import DEFAULT_MODES, check_options, defaults
 
-__all__ = ["observe_image"]
+__all__ = [
+    "GrainStatus",
+    "FamilyDetection",
+    "Identification",
+    "ImageResult",
+    "orientation_table",
+    "read_label_map",
+    "read_grain_map",
+    "observe_image",
+    "detect_families",
+    "identify",
+    "analyse_image",
+    "resolve_settings",
+]
 
 
-def observe_image(image_path, grains_path=None, orientations=None, pixel_size_um: float | None = None,
-                  min_grain_px: int = 2500):
-    """Detect band families in a micrograph, per grain when a label image is given.
+# --------------------------------------------------------------------------- settings
+def resolve_settings(settings: dict | None = None, detect: dict | None = None) -> tuple[dict, dict]:
+    """Identification/analysis settings and detection settings with defaults filled in, checked.
 
     Parameters
     ----------
-    image_path : str or Path
-        Micrograph.
-    grains_path : str or Path, optional
-        Grain label image of the same size (integer ids).
-    orientations : dict, optional
-        Grain id -> orientation (or GrainOrientation); only these grains are analysed.
-    pixel_size_um : float, optional
-    min_grain_px : int
-        Grains with fewer pixels are skipped.
+    settings : dict, optional
+        Names from the ``identify`` and ``analysis`` groups of :mod:`tracefit.options`.
+    detect : dict, optional
+        Names from the ``detect`` group.
 
     Returns
     -------
-    observed : list of tracefit.identify.matching.ObservedFamily
-        With ``grain`` set (None without a label image).
-    image : ndarray
-    labels : ndarray or None
+    (dict, dict)
+        Complete settings (every name of the two groups) and the detection options as given
+        (checked; the detector fills in its own defaults, which are the same ones).
+
+    Raises
+    ------
+    tracefit.options.OptionError
+        Unknown name, wrong type or value out of range.
+
+    Examples
+    --------
+    >>> s, d = resolve_settings({"p_none": 0.1})
+    >>> s["p_none"], s["orientation_sigma_deg"], d
+    (0.1, 1.0, {})
+    """
+    full = {**defaults("identify"), **defaults("analysis")}
+    full.update(check_options(dict(settings or {}), ("identify", "analysis")))
+    return full, check_options(dict(detect or {}), "detect")
+
+
+def _as_matrix(orientation) -> np.ndarray:
+    """An orientation matrix g (3, 3) from an Orientation-like object or an array."""
+    if hasattr(orientation, "as_matrix"):
+        orientation = orientation.as_matrix()
+    g = np.asarray(orientation, float)
+    if g.shape != (3, 3) or not np.all(np.isfinite(g)):
+        raise TracefitInputError(f"orientation must be one orientation (an Orientation or a 3 x 3 matrix g), "
+                                 f"got shape {g.shape}")
+    return g
+
+
+def _as_lattice(lattice):
+    from tracefit.crystal import lattice_preset
+
+    if isinstance(lattice, str):
+        return lattice_preset(lattice)
+    if lattice is None or not hasattr(lattice, "plane_normal"):
+        raise TracefitInputError(f"lattice must be a Lattice or a preset name (fcc, bcc, hcp, tetragonal), got {lattice!r}")
+    return lattice
+
+
+def _as_load(load, lattice):
+    if isinstance(load, str):
+        from tracefit.predict import parse_load
+
+        return parse_load(load, lattice)
+    return load
+
+
+# --------------------------------------------------------------------------- stage 1: grain maps
+def orientation_table(orientations) -> dict:
+    """Grain id -> GrainOrientation, from an orientation table file or a dict of orientations.
+
+    Parameters
+    ----------
+    orientations : str, Path or dict
+        Orientation table CSV (docs/orientation-table.md), or a dict grain id ->
+        GrainOrientation, Orientation or matrix g (3, 3).
+
+    Returns
+    -------
+    dict of int -> GrainOrientation
+
+    Raises
+    ------
+    TracefitInputError
+        An unreadable table, or a value that is not an orientation.
+    """
+    from tracefit.maps import GrainOrientation, read_orientation_table
+
+    if isinstance(orientations, (str, Path)):
+        return read_orientation_table(orientations)
+    if not isinstance(orientations, dict):
+        raise TracefitInputError("orientations must be an orientation table file or a dict grain id -> orientation")
+    return {int(k): v if isinstance(v, GrainOrientation) else GrainOrientation(int(k), _as_matrix(v))
+            for k, v in orientations.items()}
+
+
+def read_label_map(labels, shape: tuple[int, int] | None = None) -> np.ndarray:
+    """A grain label image (file or array) as int64, checked against the micrograph's size.
+
+    Raises
+    ------
+    TracefitInputError
+        Not a 2-D integer image, or a size that differs from ``shape``.
+    """
+    from tracefit.maps import read_label_image
+
+    lab = read_label_image(labels) if isinstance(labels, (str, Path)) else np.asarray(labels)
+    if lab.ndim != 2 or not np.issubdtype(lab.dtype, np.integer):
+        raise TracefitInputError("labels must be a 2-D image of integer grain ids")
+    if shape is not None and tuple(lab.shape) != tuple(shape[:2]):
+        raise TracefitInputError(
+            f"the grain label image is {lab.shape[1]}x{lab.shape[0]} px but the micrograph is "
+            f"{shape[1]}x{shape[0]} px; they must match pixel for pixel")
+    return lab.astype(np.int64)
+
+
+def read_grain_map(labels, orientations, shape: tuple[int, int] | None = None):
+    """A grain label image and its orientation table, checked against each other and the image.
+
+    Parameters
+    ----------
+    labels : str, Path or ndarray (H, W) of int
+        Grain label image (integer ids).
+    orientations : str, Path or dict
+        Orientation table CSV (docs/orientation-table.md), or a dict grain id ->
+        :class:`~tracefit.maps.GrainOrientation`, Orientation or matrix g (3, 3).
+    shape : (int, int), optional
+        The micrograph's (rows, columns); the label image must match it pixel for pixel.
+
+    Returns
+    -------
+    labels : ndarray (H, W) of int64
+    table : dict of int -> GrainOrientation
+
+    Raises
+    ------
+    TracefitInputError
+        Unreadable files, a size mismatch, or no grain id in common.
+    """
+    lab = read_label_map(labels, shape)
+    table = orientation_table(orientations)
+    present = set(int(x) for x in np.unique(lab))
+    if not present & set(table):
+        raise TracefitInputError("no grain id of the orientation table occurs in the grain label image")
+    return lab, table
+
+
+# --------------------------------------------------------------------------- stage 2: detection
+@dataclass
+class GrainStatus:
+    """What happened to one grain (or to the whole image when there is no grain map).
+
+    Attributes
+    ----------
+    grain : int or None
+    n_pixels : int
+        Pixels analysed (inside the mask, outside any data bar).
+    n_families : int
+        Band families found.
+    status : str
+        ``"analysed"``, ``"too small"``, ``"no orientation"`` or ``"no families"``.
+    reason : str
+        Why a grain has no families, in words ("" when it has some).
+    euler_deg : list of float or None
+        Its orientation as Bunge angles (degrees), where known.
+    sigma_deg : float or None
+        Its own orientation uncertainty from the orientation table, where given.
+    """
+
+    grain: int | None
+    n_pixels: int
+    n_families: int = 0
+    status: str = "analysed"
+    reason: str = ""
+    euler_deg: list | None = None
+    sigma_deg: float | None = None
+
+    def to_dict(self) -> dict:
+        return {"grain": self.grain, "n_pixels": self.n_pixels, "n_families": self.n_families, "status": self.status,
+                "reason": self.reason, "euler_deg": self.euler_deg, "sigma_deg": self.sigma_deg}
+
+
+@dataclass
+class FamilyDetection:
+    """Band families found in one image, grain by grain.
+
+    Attributes
+    ----------
+    observed : list of ObservedFamily
+        One per family, in grain order then strength order; ``grain`` set on grain maps.
+    bands : list of BandFamily
+        The detector's families, aligned with ``observed`` (lines, spacing, strength).
+    grains : list of GrainStatus
     notes : list of str
     """
-    from tracefit.image import detect_bands, detect_grains, read_image
-    from tracefit.identify import observed_from_detection
-    from tracefit.image import line_continuation
 
-    img, notes = read_image(image_path)
-    if grains_path is None:
-        res = detect_bands(img, pixel_size_um=pixel_size_um)
-        return observed_from_detection(res), img, None, list(notes) + list(getattr(res, "notes", []))
-    labels = read_label_image(grains_path)
-    if labels.shape != img.shape[:2]:
-        raise TracefitInputError(
-            f"the grain label image is {labels.shape[1]}x{labels.shape[0]} px but the micrograph is "
-            f"{img.shape[1]}x{img.shape[0]} px; they must match pixel for pixel"
-        )
-    present = set(int(x) for x in np.unique(labels))
-    ids = None
+    observed: list
+    bands: list
+    grains: list
+    notes: list = field(default_factory=list)
+
+
+def detect_families(image, *, labels=None, orientations: dict | None = None, mask=None,
+                    pixel_size_um: float | None = None, min_grain_px: int | None = None, path: str | None = None,
+                    **detect: Any) -> FamilyDetection:
+    """Detect band families in a micrograph: per grain on a grain map, else in the whole image.
+
+    Parameters
+    ----------
+    image : ndarray (H, W)
+        Grey micrograph (float).
+    labels : ndarray (H, W) of int, optional
+        Grain label image; each grain is analysed on its own pixels.
+    orientations : dict, optional
+        Grain id -> GrainOrientation; only these grains are analysed (others get the status
+        ``"no orientation"``).
+    mask : ndarray (H, W) of bool, optional
+        Pixels to analyse.
+    pixel_size_um : float, optional
+        Micrometres per pixel (band spacings in um).
+    min_grain_px : int, optional
+        Grains with fewer analysable pixels are skipped (default from :mod:`tracefit.options`).
+    path : str, optional
+        Source file name, for notes.
+    **detect
+        Detection settings (the ``detect`` group of :mod:`tracefit.options`).
+
+    Returns
+    -------
+    FamilyDetection
+
+    Raises
+    ------
+    TracefitInputError
+        Bad settings, or an image the detector cannot use.
+    """
+    from tracefit.identify import observed_from_detection
+    from tracefit.image import detect_bands, detect_grains, line_continuation
+
+    detect = check_options(detect, "detect")
+    min_px = defaults("analysis")["min_grain_px"] if min_grain_px is None else check_options(
+        {"min_grain_px": min_grain_px}, "analysis")["min_grain_px"]
+    if labels is None:
+        res = detect_bands(image, mask, pixel_size_um, path=path, **detect)
+        obs = observed_from_detection(res)
+        n_px = int(np.asarray(image).shape[0] * np.asarray(image).shape[1]) if mask is None else int(np.sum(mask))
+        st = GrainStatus(None, n_px, len(obs), "analysed" if obs else "no families",
+                         "" if obs else "no band family passed the detector's tests")
+        return FamilyDetection(obs, list(res.families), [st], list(res.notes))
+
+    present = [int(x) for x in np.unique(labels)]
+    ids = [g for g in present if orientations is None or g in orientations]
+    dets = detect_grains(image, labels, mask, pixel_size_um, path=path, min_pixels=min_px, grains=ids, **detect)
+    observed, bands, grains, notes = [], [], [], []
+    for gid in ids:
+        det = dets[gid]
+        notes.extend(det.notes)
+        fams = observed_from_detection(det, grain=gid)
+        for o, f in zip(fams, det.families):
+            o.boundary_continuation = line_continuation(image, labels, gid, getattr(f, "lines", []))
+        observed.extend(fams)
+        bands.extend(det.families)
+        region = labels == gid
+        n_px = int(region.sum() if mask is None else (region & mask).sum())
+        too_small = any("too few to analyse" in n for n in det.notes)
+        status = "analysed" if fams else ("too small" if too_small else "no families")
+        reason = "" if fams else (f"fewer than {min_px} analysable pixels" if too_small
+                                  else "no band family passed the detector's tests")
+        grains.append(GrainStatus(gid, n_px, len(fams), status, reason))
     if orientations is not None:
-        ids = [k for k in sorted(int(k) for k in orientations) if k in present]
-        if not ids:
-            raise TracefitInputError("no grain id of the orientation table occurs in the grain label image")
-    res = detect_grains(img, labels, pixel_size_um=pixel_size_um, min_pixels=min_grain_px, grains=ids)
-    obs = []
-    for gid in sorted(res):
-        fams = observed_from_detection(res[gid], grain=int(gid))
-        for o, f in zip(fams, res[gid].families):
-            o.boundary_continuation = line_continuation(img, labels, int(gid), getattr(f, "lines", []))
-        obs.extend(fams)
-    notes = list(notes)
-    if orientations is not None:
-        missing = sorted(present - set(int(k) for k in orientations))
+        missing = [g for g in present if g not in orientations]
+        for gid in missing:
+            grains.append(GrainStatus(gid, int((labels == gid).sum()), 0, "no orientation",
+                                      "the orientation table has no row for this grain"))
         if missing:
             notes.append(f"{len(missing)} grain id(s) of the label image have no orientation and were skipped")
-    return obs, img, labels, notes
+    return FamilyDetection(observed, bands, grains, notes)
+
+
+# --------------------------------------------------------------------------- stage 3: identification
+@dataclass
+class Identification:
+    """Identifications of observed families, with the map-level checks.
+
+    Attributes
+    ----------
+    families : list of FamilyIdentification
+        Same order as the observed families given.
+    frame_check : dict or None
+        The frame-rotation fit on grain maps (:func:`tracefit.identify.fit_frame`), when run.
+    artefacts : list of dict or None
+        Surface-artefact directions found on grain maps (angle, grains, families), when tested.
+    warnings : list of str
+    """
+
+    families: list
+    frame_check: dict | None = None
+    artefacts: list | None = None
+    warnings: list = field(default_factory=list)
+
+
+def _candidates(lattice, systems, modes, families):
+    from tracefit.crystal import catalogue, filter_systems
+
+    if systems is None:
+        systems = catalogue(lattice, modes=list(modes), families=list(families) if families else None)
+    else:
+        systems = filter_systems(list(systems), lattice, modes=list(modes), families=list(families) if families else None)
+    if not systems:
+        raise TracefitInputError(f"no candidate systems for this lattice with modes {', '.join(modes)}"
+                                 + (f" and families {', '.join(families)}" if families else ""))
+    return systems
+
+
+def identify(observed: Sequence, lattice, *, orientation=None, orientations: dict | None = None, systems=None,
+             modes: Sequence[str] = DEFAULT_MODES, families: Sequence[str] | None = None, frame=None, load=None,
+             **settings: Any) -> Identification:
+    """Identify the plane and system behind each observed family, with probabilities.
+
+    Parameters
+    ----------
+    observed : sequence of ObservedFamily (or angles in degrees)
+        Detected and/or hand-measured families; on grain maps each carries its ``grain``.
+    lattice : Lattice or str
+    orientation : Orientation or ndarray (3, 3), optional
+        One orientation for every family (a single crystal or one grain).
+    orientations : dict, optional
+        Grain id -> GrainOrientation (or Orientation / matrix g); a grain's own ``sigma_deg``
+        overrides ``orientation_sigma_deg`` for it.
+    systems : list of DeformationSystem, optional
+        Candidates (default: the lattice's built-in catalogue), filtered by ``modes`` and ``families``.
+    modes : sequence of {"slip", "twin"}
+    families : sequence of str, optional
+        Only these families, e.g. ``["{111}<1-10>"]``.
+    frame : FrameSettings, optional
+        How the orientation data's frame sits on the image, and stage tilt.
+    load : LoadAxis, str or stress tensor, optional
+        Uniaxial load axis (``"y"``, ``"[001]"``) or stress (Schmid factors, resolved shear).
+    **settings
+        The ``identify`` and ``analysis`` groups of :mod:`tracefit.options`.
+
+    Returns
+    -------
+    Identification
+
+    Raises
+    ------
+    TracefitInputError
+        Neither or both of ``orientation`` and ``orientations``; bad settings.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from tracefit.identify import ObservedFamily
+    >>> res = identify([ObservedFamily(135.2, 0.2)], "fcc", orientation=np.eye(3), modes=["slip"])
+    >>> best = res.families[0].best
+    >>> best.plane, round(best.probability, 2)
+    ((1, 1, 1), 0.95)
+    """
+    from tracefit.identify import identify_observed
+
+    s, _ = resolve_settings(settings)
+    if (orientation is None) == (orientations is None):
+        raise TracefitInputError("give one orientation (orientation=...) or a grain table (orientations=...), not "
+                                 + ("both" if orientation is not None else "neither"))
+    lat = _as_lattice(lattice)
+    cands = _candidates(lat, systems, modes, families)
+    ld = _as_load(load, lat)
+    match = {k: s[k] for k in ("frame_sigma_deg", "p_none", "schmid_weight", "allow_shared_planes",
+                               "report_threshold", "ambiguity_ratio")}
+    if orientation is not None:
+        results = identify_observed(list(observed), lat, cands, g=_as_matrix(orientation), frame=frame, load=ld,
+                                    orientation_sigma_deg=s["orientation_sigma_deg"], crack_k_sigma=s["crack_k_sigma"],
+                                    **match)
+        return Identification(results)
+    ori = {k: (v.g if hasattr(v, "g") else _as_matrix(v)) for k, v in orientations.items()}
+    sig = {k: v.sigma_deg for k, v in orientations.items() if getattr(v, "sigma_deg", None) is not None}
+    results = identify_observed(list(observed), lat, cands, orientations=ori, frame=frame, load=ld,
+                                orientation_sigma_deg=s["orientation_sigma_deg"], grain_sigma_deg=sig or None,
+                                crack_k_sigma=s["crack_k_sigma"], artefacts=s["artefacts"], **match)
+    out = Identification(results, artefacts=_artefact_summary(results) if s["artefacts"] else None)
+    if s["frame_check"]:
+        out.frame_check = _frame_check(observed, lat, ori, cands, frame, s, out.warnings)
+    return out
+
+
+def _artefact_summary(results) -> list:
+    """Surface-artefact directions of the map: their angle and the grains of the families called artefacts."""
+    by: dict = {}
+    for r in results:
+        a = getattr(r, "artefact_angle_deg", None)
+        if r.unexplained and a is not None and getattr(r, "p_artefact", 0.0) > r.p_none:
+            d = by.setdefault(round(float(a), 2), {"angle_deg": round(float(a), 2), "grains": [], "n_families": 0})
+            d["grains"].append(int(r.grain) if r.grain is not None else None)
+            d["n_families"] += 1
+    return list(by.values())
+
+
+def _frame_check(observed, lattice, ori_map, systems, frame, s, warn_out) -> dict | None:
+    """On a grain map, test the frame against the traces (a wrong frame is a common source of wrong answers)."""
+    from tracefit.identify import fit_frame, is_crack
+
+    use = [o for o in observed if o.grain in ori_map and not is_crack(o)]
+    if len({o.grain for o in use}) < 3 or len(use) < 4:
+        return None
+    fit = fit_frame(use, lattice, ori_map, systems, frame=frame, orientation_sigma_deg=s["orientation_sigma_deg"],
+                    p_none=s["p_none"], n_bootstrap=50, coarse_step_deg=1.0)
+    warn_out.extend(f"frame check: {w}" for w in fit.warnings)
+    return fit.to_dict()
+
+
+# --------------------------------------------------------------------------- stage 4: one image
+@dataclass
+class ImageResult:
+    """Everything the chain found in one micrograph; tables, figures and the report read this.
+
+    Attributes
+    ----------
+    path : str or None
+        The image file.
+    image : ndarray (H, W) or None
+        The micrograph as analysed (float grey); None for hand-measured traces alone.
+    labels : ndarray (H, W) or None
+        Grain label image (grains without an orientation set to -1).
+    lattice, frame, load
+        The geometry used.
+    systems : list of DeformationSystem
+        The candidates.
+    orientations : dict
+        Grain id (None for a single orientation) -> orientation matrix g (3, 3).
+    detection : FamilyDetection or None
+    observed : list of ObservedFamily
+        Detected families, then hand-measured ones.
+    identification : Identification
+    settings : dict
+        Every identification/analysis setting as used, plus the detection settings given.
+    notes, warnings : list of str
+    """
+
+    path: str | None
+    image: np.ndarray | None
+    labels: np.ndarray | None
+    lattice: Any
+    frame: Any
+    load: Any
+    systems: list
+    orientations: dict
+    detection: FamilyDetection | None
+    observed: list
+    identification: Identification
+    settings: dict
+    notes: list = field(default_factory=list)
+    warnings: list = field(default_factory=list)
+
+    @property
+    def families(self) -> list:
+        """The identifications, one per observed family (FamilyIdentification)."""
+        return self.identification.families
+
+    @property
+    def grains(self) -> list:
+        """What happened to each grain (:class:`GrainStatus`)."""
+        return [] if self.detection is None else self.detection.grains
+
+    def family_records(self) -> list[dict]:
+        """One plain dict per family: detection details plus its identification (JSON-ready)."""
+        from tracefit.results import family_record
+
+        bands = [] if self.detection is None else self.detection.bands
+        out = []
+        for i, (o, r) in enumerate(zip(self.observed, self.families)):
+            out.append(family_record(o, bands[i] if i < len(bands) else None, r, index=i + 1,
+                                     pixel_size_um=self.settings.get("pixel_size_um")))
+        return out
+
+    def to_dict(self) -> dict:
+        """The JSON object of ``tracefit identify --json``."""
+        from tracefit.identify import identifications_to_json
+        from tracefit.results import jsonable
+
+        d = identifications_to_json(self.families)
+        d.update({
+            "lattice": lattice_summary(self.lattice),
+            "frame": self.frame.to_dict(),
+            "load": self.load.to_dict() if hasattr(self.load, "to_dict") else (
+                None if self.load is None else np.asarray(self.load, float).tolist()),
+            "notes": list(self.notes),
+            "settings": {k: self.settings[k] for k in ("orientation_sigma_deg", "frame_sigma_deg", "p_none",
+                                                         "schmid_weight", "allow_shared_planes")},
+            "grain_status": [g.to_dict() for g in self.grains],
+        })
+        if self.labels is not None or len(self.orientations) > 1 or None not in self.orientations:
+            d["grains"] = {"n_table": len(self.orientations),
+                           "n_with_families": len({o.grain for o in self.observed})}
+            d["artefacts"] = self.identification.artefacts
+            d["frame_check"] = self.identification.frame_check
+        return jsonable(d)
+
+    def to_frame(self):
+        """A pandas DataFrame with one row per family (the columns of ``results.csv``)."""
+        import pandas as pd
+
+        from tracefit.results import CSV_COLUMNS, family_rows
+
+        rows = family_rows(Path(self.path).stem if self.path else "", self.family_records())
+        return pd.DataFrame(rows, columns=[c for c in CSV_COLUMNS if c not in ("status", "error")])
+
+
+def lattice_summary(lat) -> dict:
+    """A lattice's parameters as plain values (for ``--json`` and reports)."""
+    return {"name": lat.name, "a": lat.a, "b": lat.b, "c": lat.c, "alpha": lat.alpha, "beta": lat.beta,
+            "gamma": lat.gamma, "laue": lat.laue, "hex_setting": lat.hex_setting}
+
+
+def _read(image, path):
+    from tracefit.image import read_image
+
+    if isinstance(image, (str, Path)):
+        if not Path(image).is_file():
+            raise TracefitInputError(f"image file {str(image)!r} not found")
+        img, notes = read_image(image)
+        return np.asarray(img, float), list(notes), str(image)
+    arr = np.asarray(image, float)
+    if arr.ndim != 2:
+        raise TracefitInputError(f"image must be a 2-D grey array (H, W), got shape {arr.shape}")
+    return arr, [], path
+
+
+def analyse_image(image, lattice, *, orientation=None, labels=None, orientations=None, systems=None,
+                  modes: Sequence[str] = DEFAULT_MODES, families: Sequence[str] | None = None, frame=None, load=None,
+                  pixel_size_um: float | None = None, mask=None, measured: Sequence = (), detect: dict | None = None,
+                  path: str | None = None, **settings: Any) -> ImageResult:
+    """Detect the band families of one micrograph and identify their planes: the whole chain.
+
+    Parameters
+    ----------
+    image : str, Path or ndarray (H, W)
+        Micrograph file (PNG/TIFF/JPEG/BMP) or grey array; None with ``measured`` traces only.
+    lattice : Lattice or str
+        The crystal (``"fcc"``, ``tracefit.Lattice.hcp(c_over_a=1.587)``, ...).
+    orientation : Orientation or ndarray (3, 3), optional
+        One orientation for the whole image (single crystal).
+    labels : str, Path or ndarray (H, W), optional
+        Grain label image, with ``orientations``.
+    orientations : str, Path or dict, optional
+        Orientation table of the grains (see :func:`read_grain_map`); without ``labels`` the
+        measured traces carry their grain ids.
+    systems, modes, families, frame, load
+        As :func:`identify`.
+    pixel_size_um : float, optional
+        Micrometres per pixel.
+    mask : str, Path or ndarray (H, W) of bool, optional
+        Pixels to analyse.
+    measured : sequence of ObservedFamily
+        Hand-measured traces (and cracks) to identify beside the detected ones.
+    detect : dict, optional
+        Detection settings (the ``detect`` group of :mod:`tracefit.options`).
+    path : str, optional
+        A name for an array image, used in notes and tables.
+    **settings
+        The ``identify`` and ``analysis`` groups of :mod:`tracefit.options`.
+
+    Returns
+    -------
+    ImageResult
+
+    Raises
+    ------
+    TracefitInputError
+        Missing or unreadable files, sizes that do not match, bad settings, no orientation.
+
+    Examples
+    --------
+    >>> import numpy as np, tracefit as tf
+    >>> from tracefit.image import BandFamilySpec, render_micrograph
+    >>> img, truth = render_micrograph((256, 256), [BandFamilySpec(angle_deg=135.0, spacing_px=20)], seed=1)
+    >>> res = tf.analyse_image(img, "fcc", orientation=np.eye(3), modes=["slip"])
+    >>> res.families[0].best.plane
+    (1, 1, 1)
+    """
+    s, det = resolve_settings({**settings, **({"min_grain_px": settings["min_grain_px"]}
+                                              if "min_grain_px" in settings else {})}, detect)
+    if orientation is None and orientations is None:
+        raise TracefitInputError("no orientation: give orientation=... (one crystal) or labels=... with "
+                                 "orientations=... (a grain map)")
+    if labels is not None and orientations is None:
+        raise TracefitInputError("labels and orientations go together: a label image and its orientation table")
+    if image is None and not measured:
+        raise TracefitInputError("no image and no measured traces: give an image or measured families")
+    caught: list[str] = []
+    with warnings.catch_warnings(record=True) as wlist:
+        warnings.simplefilter("always")
+        lat = _as_lattice(lattice)
+        cands = _candidates(lat, systems, modes, families)
+        from tracefit.conventions import FrameSettings
+
+        frame = frame or FrameSettings()
+        ld = _as_load(load, lat)
+        img = lab = table = detection = None
+        notes: list[str] = []
+        if image is not None:
+            img, notes, path = _read(image, path)
+        if orientations is not None:
+            if labels is not None:
+                lab, table = read_grain_map(labels, orientations, None if img is None else img.shape)
+            else:  # hand-measured traces carry their grain ids
+                table = orientation_table(orientations)
+        msk = _read_mask(mask, None if img is None else img.shape)
+        if img is not None:
+            detection = detect_families(img, labels=lab, orientations=table, mask=msk, pixel_size_um=pixel_size_um,
+                                        min_grain_px=s["min_grain_px"], path=path, **det)
+            notes += detection.notes
+            _fill_grain_orientations(detection.grains, table, orientation)
+        observed = (detection.observed if detection is not None else []) + list(measured)
+        if table is not None and any(o.grain is None for o in measured):
+            raise TracefitInputError("with a grain table every measured trace needs a grain id (the CSV's grain column)")
+        ident_kw = {k: s[k] for k in s if k != "min_grain_px"}
+        if table is not None:
+            ident = identify(observed, lat, orientations=table, systems=cands, modes=modes, families=families,
+                             frame=frame, load=ld, **ident_kw)
+            ori = {k: v.g for k, v in table.items()}
+        else:
+            ident = identify(observed, lat, orientation=orientation, systems=cands, modes=modes, families=families,
+                             frame=frame, load=ld, **ident_kw)
+            ori = {None: _as_matrix(orientation)}
+    caught = list(dict.fromkeys(str(w.message) for w in wlist))
+    if lab is not None and table is not None:  # only analysed grains keep their label (figures)
+        lab = np.where(np.isin(lab, list(table)), lab, -1)
+    settings_used = {**s, "detect": det, "modes": list(modes), "families": None if not families else list(families),
+                     "pixel_size_um": pixel_size_um}
+    return ImageResult(path=None if path is None else str(path), image=img, labels=lab, lattice=lat, frame=frame,
+                       load=ld, systems=cands, orientations=ori, detection=detection, observed=observed,
+                       identification=ident, settings=settings_used, notes=list(dict.fromkeys(notes)),
+                       warnings=caught + ident.warnings)
+
+
+def observe_image(image, labels=None, orientations=None, pixel_size_um: float | None = None,
+                  min_grain_px: int | None = None, **detect: Any):
+    """Read a micrograph (and its grain map) and detect its band families: the chain's first half.
+
+    Parameters
+    ----------
+    image : str, Path or ndarray (H, W)
+    labels : str, Path or ndarray (H, W), optional
+        Grain label image; with ``orientations``, only grains in the table are analysed.
+    orientations : str, Path or dict, optional
+    pixel_size_um : float, optional
+    min_grain_px : int, optional
+    **detect
+        Detection settings.
+
+    Returns
+    -------
+    observed : list of ObservedFamily
+    image : ndarray (H, W)
+    labels : ndarray (H, W) or None
+    notes : list of str
+    """
+    img, notes, path = _read(image, None)
+    lab = table = None
+    if labels is not None:
+        lab, table = (read_grain_map(labels, orientations, img.shape) if orientations is not None
+                      else (read_label_map(labels, img.shape), None))
+    det = detect_families(img, labels=lab, orientations=table, pixel_size_um=pixel_size_um, min_grain_px=min_grain_px,
+                          path=path, **detect)
+    return det.observed, img, lab, notes + det.notes
+
+
+def _read_mask(mask, shape):
+    if mask is None or shape is None:
+        return None
+    if isinstance(mask, (str, Path)):
+        from tracefit.image import read_mask
+
+        return read_mask(mask, shape)
+    m = np.asarray(mask, bool)
+    if m.shape != tuple(shape[:2]):
+        raise TracefitInputError(f"mask is {m.shape[1]}x{m.shape[0]} px but the image is {shape[1]}x{shape[0]} px")
+    return m
+
+
+def _fill_grain_orientations(grains, table, orientation) -> None:
+    if table is None:
+        from tracefit.crystal import to_euler
+
+        for gs in grains:
+            gs.euler_deg = [float(x) for x in to_euler(_as_matrix(orientation))]
+        return
+    for gs in grains:
+        row = table.get(gs.grain)
+        if row is not None:
+            gs.euler_deg = None if row.euler_deg is None else [float(x) for x in row.euler_deg]
+            gs.sigma_deg = row.sigma_deg

@@ -43,6 +43,21 @@ def _register() -> None:
 _COMMAND_MODULES: list[str] = ["demo", "survey", "identify", "detect", "predict", "systems", "align", "orient", "twoface"]
 
 
+def _in_flag_terms(exc) -> str:
+    """A library message about a setting, with the setting's name replaced by its command-line flag."""
+    from tracefit.options import OptionError, option
+
+    msg = str(exc)
+    if isinstance(exc, OptionError):
+        try:
+            flag = option(exc.name).flag
+        except KeyError:
+            flag = None
+        if flag:
+            msg = msg.replace(exc.name, flag, 1)
+    return msg
+
+
 def main(argv: list[str] | None = None) -> int:
     """Entry point of the ``tracefit`` console script."""
     from tracefit.errors import TracefitInputError
@@ -51,7 +66,7 @@ def main(argv: list[str] | None = None) -> int:
     try:
         code = app(args=argv, standalone_mode=False)
     except TracefitInputError as exc:
-        print(f"tracefit: error: {exc}", file=sys.stderr)
+        print(f"tracefit: error: {_in_flag_terms(exc)}", file=sys.stderr)
         return 2
     except typer.Exit as exc:  # raised by commands for a chosen exit code
         return int(exc.exit_code or 0)

@@ -56,7 +56,7 @@ def align_frame(
     whether the traces agree with it, and if not, which rotation they prefer and how sure that is.
     """
     from tracefit.identify import fit_frame
-    from tracefit.cli.identify import observed_from_image
+    from tracefit.pipeline import observe_image
     from tracefit.maps import read_orientation_table
 
     with cli_warnings():
@@ -64,7 +64,7 @@ def align_frame(
         systems = build_systems(lat, file_systems, modes, families)
         frame = build_frame(frame_rotation, flip_x, flip_y, tilt, tilt_axis)
         table = read_orientation_table(orientations)
-        obs, _, _, notes = observed_from_image(image, grains, table, None, min_grain_px)
+        obs, _, _, notes = observe_image(image, grains, table, None, min_grain_px)
         fit = fit_frame(obs, lat, {k: v.g for k, v in table.items()}, systems, frame=frame,
                         orientation_sigma_deg=orientation_sigma, fit_mirror=not no_mirror)
     if json_out:

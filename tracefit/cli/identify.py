@@ -35,18 +35,15 @@ from tracefit.cli.common import (
     build_orientation,
     build_systems,
     cli_warnings,
-    lattice_dict,
+    parse_modes,
     print_json,
 )
 from tracefit.errors import TracefitInputError
+from tracefit.options import option
 
 
-def observed_from_image(image_path: Path, grains_path: Path | None = None, orientations=None,
-                        pixel_size_um: float | None = None, min_grain_px: int = 2500):
-    """Detect band families in an image (per grain with a label image); see :func:`tracefit.pipeline.observe_image`."""
-    from tracefit.pipeline import observe_image
-
-    return observe_image(image_path, grains_path, orientations, pixel_size_um, min_grain_px)
+def _default(name):
+    return option(name).default
 
 
 @app.command("identify")
@@ -69,20 +66,20 @@ def identify(
     families: FamiliesOpt = None,
     load: LoadOpt = None,
     compression: CompressionOpt = False,
-    orientation_sigma: float = typer.Option(1.0, "--orientation-sigma", help="Orientation uncertainty per sample axis, degrees."),
-    frame_sigma: float = typer.Option(0.5, "--frame-sigma", help="Uncertainty of the frame rotation, degrees."),
+    orientation_sigma: float = typer.Option(_default("orientation_sigma_deg"), "--orientation-sigma", help="Orientation uncertainty per sample axis, degrees."),
+    frame_sigma: float = typer.Option(_default("frame_sigma_deg"), "--frame-sigma", help="Uncertainty of the frame rotation, degrees."),
     frame_rotation: FrameRotationOpt = 0.0,
     flip_x: FlipXOpt = False,
     flip_y: FlipYOpt = False,
     tilt: TiltOpt = 0.0,
     tilt_axis: TiltAxisOpt = "x",
-    p_none: float = typer.Option(0.05, "--p-none", help="Prior probability that a family matches no candidate (scratch, wrong data)."),
+    p_none: float = typer.Option(_default("p_none"), "--p-none", help="Prior probability that a family matches no candidate (scratch, wrong data)."),
     schmid_weight: float = typer.Option(
-        0.0, "--schmid-weight", help="Weight planes by Schmid factor^k under --load (0 = off, 1 = mild)."
+        _default("schmid_weight"), "--schmid-weight", help="Weight planes by Schmid factor^k under --load (0 = off, 1 = mild)."
     ),
-    allow_shared_planes: bool = typer.Option(False, "--allow-shared-planes", help="Let two families of one grain take the same plane."),
+    allow_shared_planes: bool = typer.Option(_default("allow_shared_planes"), "--allow-shared-planes", help="Let two families of one grain take the same plane."),
     pixel_size: Optional[float] = typer.Option(None, "--pixel-size", help="Pixel size in micrometres (for band spacings)."),
-    min_grain_px: int = typer.Option(2500, "--min-grain-px", help="Grains with fewer pixels are skipped."),
+    min_grain_px: int = typer.Option(_default("min_grain_px"), "--min-grain-px", help="Grains with fewer pixels are skipped."),
     overlay: Optional[Path] = typer.Option(None, "--overlay", help="Write the image with observed and identified traces (PNG)."),
     angle: Optional[List[str]] = typer.Option(
         None, "--angle", help="A hand-measured trace angle, deg ccw from image x: 37.5, 37.5+-0.5 or 37.5:0.5 (repeatable)."
@@ -93,7 +90,7 @@ def identify(
     measured: Optional[Path] = typer.Option(
         None, "--measured", help="CSV of hand-measured lines: angles or pixel endpoints (docs/measured-traces.md)."
     ),
-    crack_k_sigma: float = typer.Option(2.0, "--crack-k-sigma", help="A crack is consistent with a plane within this many sigma."),
+    crack_k_sigma: float = typer.Option(_default("crack_k_sigma"), "--crack-k-sigma", help="A crack is consistent with a plane within this many sigma."),
     no_frame_check: bool = typer.Option(False, "--no-frame-check", help="Skip the automatic frame-alignment check on grain maps."),
     no_artefacts: bool = typer.Option(
         False, "--no-artefacts", help="On grain maps, skip the surface-artefact test (one image angle continuing across grains)."
@@ -108,16 +105,14 @@ def identify(
     --crack, --measured) are identified the same way; cracks get the planes they are
     consistent with.
     """
-    from tracefit.identify import identifications_to_json
-    from tracefit.identify import MEASURED_CONVENTION, identify_observed, is_crack, parse_angle_option, read_measured_csv
+    from tracefit.identify import is_crack, MEASURED_CONVENTION, parse_angle_option, read_measured_csv
+    from tracefit.pipeline import analyse_image
 
     with cli_warnings():
         lat, file_systems = build_lattice(lattice, c_over_a, hex_setting, systems_file)
         systems = build_systems(lat, file_systems, modes, families)
         frame = build_frame(frame_rotation, flip_x, flip_y, tilt, tilt_axis)
         ld = build_load(load, lat, compression)
-        if orientation_sigma < 0 or frame_sigma < 0:
-            raise TracefitInputError("--orientation-sigma and --frame-sigma must be >= 0 degrees")
         m_notes: list = []
         m_obs = [parse_angle_option(t, notes=m_notes) for t in (angle or [])]
         m_obs += [parse_angle_option(t, label="crack", notes=m_notes, option="--crack") for t in (crack or [])]
@@ -136,41 +131,29 @@ def identify(
             raise TracefitInputError("--grains and --orientations go together: a label image and its orientation table")
         if not per_grain and not one:
             raise TracefitInputError("no orientation: give --euler phi1,Phi,phi2 (or --quaternion, --matrix, --axis-angle, --align), "
-                                     "or --grains LABELS --orientations TABLE.csv")
+                                     "or --grains LABELS --orientations TABLE.csv; without one, `tracefit detect` measures "
+                                     "the bands and `tracefit find-orientation` searches orientations that fit them")
         if image is None and not m_obs:
             raise TracefitInputError("no image and no measured traces: give IMAGE, or --angle A[+-S], --crack A[+-S] "
                                      "or --measured FILE.csv")
         if image is None and overlay is not None:
             raise TracefitInputError("--overlay draws on IMAGE; without an image use tracefit predict --canvas WxH --out OUT.png")
-        common = dict(frame=frame, load=ld, orientation_sigma_deg=orientation_sigma, frame_sigma_deg=frame_sigma,
-                      p_none=p_none, schmid_weight=schmid_weight, allow_shared_planes=allow_shared_planes)
+        if per_grain and m_obs and any(o.grain is None for o in m_obs):
+            raise TracefitInputError("with --orientations every measured trace needs a grain id (the CSV's grain column); "
+                                     "--angle and --crack give none")
         extra = {}
-        if per_grain:
-            from tracefit.maps import read_orientation_table
-
-            table = read_orientation_table(orientations)
-            obs, img, labels, notes = (observed_from_image(image, grains, table, pixel_size, min_grain_px)
-                                       if image is not None else ([], None, None, []))
-            if m_obs and any(o.grain is None for o in m_obs):
-                raise TracefitInputError("with --orientations every measured trace needs a grain id (the CSV's grain column); "
-                                         "--angle and --crack give none")
-            obs = obs + m_obs
-            ori_map = {k: v.g for k, v in table.items()}
-            sig_map = {k: v.sigma_deg for k, v in table.items() if v.sigma_deg is not None}
-            results = identify_observed(obs, lat, systems, orientations=ori_map, grain_sigma_deg=sig_map or None,
-                                        crack_k_sigma=crack_k_sigma, artefacts=not no_artefacts, **common)
-            extra["grains"] = {"n_table": len(table), "n_with_families": len({o.grain for o in obs})}
-            extra["artefacts"] = None if no_artefacts else _artefact_summary(results)
-            extra["frame_check"] = _frame_check(obs, lat, ori_map, systems, frame, orientation_sigma, p_none, no_frame_check)
-        else:
-            g, ori = build_orientation(lat, euler, quaternion, matrix, axis_angle, align)
-            obs, img, labels, notes = (observed_from_image(image, None, None, pixel_size, min_grain_px)
-                                       if image is not None else ([], None, None, []))
-            obs = obs + m_obs
-            results = identify_observed(obs, lat, systems, g=g, crack_k_sigma=crack_k_sigma, **common)
-            extra["orientation"] = ori
-            ori_map = {None: g}
-        notes = list(notes) + m_notes
+        g = None
+        if not per_grain:
+            g, extra["orientation"] = build_orientation(lat, euler, quaternion, matrix, axis_angle, align)
+        res = analyse_image(image, lat, orientation=g, labels=grains, orientations=orientations, systems=systems,
+                            modes=parse_modes(modes), frame=frame, load=ld, pixel_size_um=pixel_size, measured=m_obs,
+                            orientation_sigma_deg=orientation_sigma, frame_sigma_deg=frame_sigma, p_none=p_none,
+                            schmid_weight=schmid_weight, allow_shared_planes=allow_shared_planes,
+                            crack_k_sigma=crack_k_sigma, min_grain_px=min_grain_px, artefacts=not no_artefacts,
+                            frame_check=not no_frame_check)
+        for w in res.warnings:
+            hint = " (see tracefit align-frame)" if w.startswith("frame check:") else ""
+            print(f"tracefit: warning: {w}{hint}", file=sys.stderr)
         if m_obs:
             extra["measured"] = {"convention": MEASURED_CONVENTION, "n_families": len(m_obs),
                                  "n_cracks": sum(is_crack(o) for o in m_obs),
@@ -180,51 +163,18 @@ def identify(
 
             extra["caution"] = CAUTION
         if overlay is not None:
-            _write_overlay(overlay, img, results, labels)
+            _write_overlay(overlay, res.image, res.families, res.labels)
     if json_out:
-        d = identifications_to_json(results)
-        d.update({"lattice": lattice_dict(lat), "frame": frame.to_dict(),
-                  "load": ld.to_dict() if ld is not None else None, "notes": notes,
-                  "settings": {"orientation_sigma_deg": orientation_sigma, "frame_sigma_deg": frame_sigma,
-                               "p_none": p_none, "schmid_weight": schmid_weight,
-                               "allow_shared_planes": allow_shared_planes}})
+        d = res.to_dict()
+        d["notes"] = list(d["notes"]) + m_notes
         d.update(extra)
         print_json(d)
         return
-    _print_text(results, lat, ld)
+    _print_text(res.families, lat, ld)
     if "measured" in extra:
         typer.echo(f"measured traces read as: {MEASURED_CONVENTION}")
     if "caution" in extra:
         typer.echo(extra["caution"])
-
-
-def _artefact_summary(results) -> list:
-    """Surface-artefact directions of the map: their angle and the grains of the families called artefacts."""
-    by: dict = {}
-    for r in results:
-        a = getattr(r, "artefact_angle_deg", None)
-        if r.unexplained and a is not None and getattr(r, "p_artefact", 0.0) > r.p_none:
-            d = by.setdefault(round(float(a), 2), {"angle_deg": round(float(a), 2), "grains": [], "n_families": 0})
-            d["grains"].append(int(r.grain) if r.grain is not None else None)
-            d["n_families"] += 1
-    return list(by.values())
-
-
-def _frame_check(obs, lat, ori_map, systems, frame, osig, p_none, skip):
-    """On a grain map, test the frame against the traces (a wrong frame is a common source of wrong answers)."""
-    if skip:
-        return None
-    from tracefit.identify import fit_frame
-    from tracefit.identify import is_crack
-
-    use = [o for o in obs if o.grain in ori_map and not is_crack(o)]
-    if len({o.grain for o in use}) < 3 or len(use) < 4:
-        return None
-    fit = fit_frame(use, lat, ori_map, systems, frame=frame, orientation_sigma_deg=osig, p_none=p_none, n_bootstrap=50,
-                    coarse_step_deg=1.0)
-    for w in fit.warnings:
-        print(f"tracefit: warning: frame check: {w} (see tracefit align-frame)", file=sys.stderr)
-    return fit.to_dict()
 
 
 def _print_text(results, lat, ld) -> None:

@@ -69,9 +69,9 @@ def find_orientation(
         obs = [ObservedFamily(a, sigma, source="measured", label=f"A{k + 1}") for k, a in enumerate(angle)]
         notes = []
         if image is not None:
-            from tracefit.cli.identify import observed_from_image
+            from tracefit.pipeline import observe_image
 
-            det, _, _, notes = observed_from_image(image)
+            det, _, _, notes = observe_image(image)
             obs = det + obs
         if len(obs) < 2:
             raise TracefitInputError(f"need at least two band families (from IMAGE or --angle), got {len(obs)}")

@@ -37,12 +37,12 @@ from pathlib import Path
 from typing import Any
 
 from tracefit.errors import TracefitInputError
+from tracefit.options import DEFAULT_MODES, MODES
 
 __all__ = ["Job", "ImageJob", "load_job", "parse_job", "key_lines", "JOB_FORMAT"]
 
 JOB_FORMAT = 1
 
-MODES = ("slip", "twin")
 LATTICES = ("fcc", "bcc", "hcp", "tetragonal")
 
 # Keys an image may set itself or inherit from [defaults].
@@ -54,8 +54,8 @@ _SHARED_KEYS = {
     "load": 'the load axis: "x", "0,1,0" or a crystal direction "[001]"; or a table { axis = "[001]", sense = "compression" }',
     "pixel_size_um": "a positive number of micrometres per pixel",
     "frame": "a table of frame settings (rotation_deg, ...)",
-    "detect": "a table of band-detection options",
-    "match": "a table of matching options",
+    "detect": "a table of band-detection settings (docs/job-file.md lists them)",
+    "match": "a table of identification settings (docs/job-file.md lists them)",
     "mask": "a mask image file name",
 }
 _IMAGE_ONLY_KEYS = {
@@ -89,7 +89,7 @@ class ImageJob:
     file: Path
     lattice: str
     c_over_a: float | None = None
-    modes: tuple[str, ...] = ("slip",)
+    modes: tuple[str, ...] = DEFAULT_MODES
     families: tuple[str, ...] | None = None
     load: str | None = None
     load_sense: str = "tension"
@@ -407,27 +407,17 @@ def _check_with_geometry(ctx: _Ctx, key_of: dict, im: dict) -> None:
                 raise ctx.fail(key_of["frame"], f"is not valid: {exc}") from None
 
 
-# Arguments the survey itself passes; a job's detect/match tables may not set them.
-_DETECT_RESERVED = {"image", "mask", "pixel_size_um", "labels", "grain", "path", "notes", "grains"}
-_MATCH_RESERVED = {"observed", "lattice", "g", "systems", "frame", "load", "modes", "families", "grain"}
+def _check_options(ctx: _Ctx, key: tuple, opts: dict, groups) -> dict:
+    """A detect/match table checked against the declared settings (:mod:`tracefit.options`)."""
+    from tracefit.options import OptionError, check_options
 
-
-def _check_options(ctx: _Ctx, key: tuple, opts: dict, module: str, func_name: str, reserved: set) -> None:
-    """Keys of a detect/match table must be keyword options of the function they go to."""
-    import importlib
-    import inspect
-
-    try:
-        func = getattr(importlib.import_module(module), func_name)
-    except (ImportError, AttributeError):
-        return  # that module has not landed; the analysis reports any bad option itself
-    kinds = (inspect.Parameter.KEYWORD_ONLY, inspect.Parameter.POSITIONAL_OR_KEYWORD)
-    allowed = {n: 1 for n, p in inspect.signature(func).parameters.items() if p.kind in kinds and n not in reserved}
     for k in opts:
-        if k in reserved:
-            raise ctx.fail(key + (k,), f"is set by the survey itself and cannot be given in '{key[-1]}'")
-        if k not in allowed:
-            raise _unknown(ctx, key + (k,), allowed)
+        if k in _SHARED_KEYS or k in _IMAGE_ONLY_KEYS:
+            raise ctx.fail(key + (k,), f"is an image setting: write it in [defaults] or [[image]], not inside '{key[-1]}'")
+    try:
+        return check_options(opts, groups)
+    except OptionError as exc:
+        raise ctx.fail(key + (exc.name,), f"is not valid: {exc}") from None
 
 
 def parse_job(text: str, path: str | Path = "job.toml") -> Job:
@@ -503,7 +493,7 @@ def parse_job(text: str, path: str | Path = "job.toml") -> Job:
             raise ctx.fail(key + ("lattice",), "is missing: set it in [defaults] or in this [[image]] "
                            f"({_SHARED_KEYS['lattice']})")
         if "modes" not in im:
-            im["modes"] = ("slip",)
+            im["modes"] = DEFAULT_MODES
         file = _file(ctx, key + ("file",), raw["file"], base)
 
         has_euler = "euler_deg" in raw
@@ -532,9 +522,9 @@ def parse_job(text: str, path: str | Path = "job.toml") -> Job:
             raise ctx.fail(key + ("notes",), "must be a string")
         _check_with_geometry(ctx, {**key_of, "lattice": key_of.get("lattice", key)}, im)
         if im.get("detect"):
-            _check_options(ctx, key_of["detect"], im["detect"], "tracefit.image.detect", "detect_bands", _DETECT_RESERVED)
+            im["detect"] = _check_options(ctx, key_of["detect"], im["detect"], "detect")
         if im.get("match"):
-            _check_options(ctx, key_of["match"], im["match"], "tracefit.identify.matching", "identify_families", _MATCH_RESERVED)
+            im["match"] = _check_options(ctx, key_of["match"], im["match"], ("identify", "analysis"))
         images.append(
             ImageJob(
                 name=name,

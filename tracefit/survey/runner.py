@@ -37,6 +37,7 @@ import numpy as np
 import tracefit
 from tracefit.atomic import write_text
 from tracefit.errors import TracefitInputError
+from tracefit.results import CSV_COLUMNS, family_rows, jsonable
 from tracefit.survey.jobs import ImageJob, Job
 
 __all__ = [
@@ -59,11 +60,6 @@ __all__ = [
 
 EXIT_OK, EXIT_SOME_FAILED, EXIT_BAD_JOB = 0, 1, 2
 
-CSV_COLUMNS = [
-    "image", "status", "grain", "family", "angle_deg", "angle_sigma_deg", "n_bands", "spacing_um",
-    "strength", "verdict", "plane", "plane_family", "mode", "predicted_deg", "residual_deg",
-    "probability", "schmid_factor", "direction", "second_plane", "second_probability", "p_none", "error",
-]
 
 
 # --------------------------------------------------------------------------- analysis of one image
@@ -98,48 +94,7 @@ class ImageAnalysis:
     warnings: list = field(default_factory=list)
     labels: np.ndarray | None = None
     notes: list = field(default_factory=list)
-
-
-def _jsonable(x):
-    if isinstance(x, dict):
-        return {str(k): _jsonable(v) for k, v in x.items()}
-    if isinstance(x, (list, tuple)):
-        return [_jsonable(v) for v in x]
-    if isinstance(x, np.ndarray):
-        return _jsonable(x.tolist())
-    if isinstance(x, (np.integer,)):
-        return int(x)
-    if isinstance(x, (np.floating, float)):
-        v = float(x)
-        return v if np.isfinite(v) else None
-    if isinstance(x, (np.bool_,)):
-        return bool(x)
-    if isinstance(x, Path):
-        return str(x)
-    return x
-
-
-def _family_dict(f, grain, pixel_size_um) -> dict:
-    """A detected BandFamily as plain data."""
-    lines = []
-    for ln in getattr(f, "lines", None) or []:
-        from tracefit.viz.plots import _line_endpoints
-
-        lines.append([round(v, 2) for v in _line_endpoints(ln)])
-    sp_px = getattr(f, "spacing_px", None)
-    sp_um = getattr(f, "spacing_um", None)
-    if sp_um is None and sp_px is not None and pixel_size_um:
-        sp_um = float(sp_px) * float(pixel_size_um)
-    return _jsonable({
-        "grain": grain,
-        "angle_deg": float(f.angle_deg),
-        "angle_sigma_deg": getattr(f, "angle_sigma_deg", None),
-        "n_bands": getattr(f, "n_bands", None),
-        "spacing_px": sp_px,
-        "spacing_um": sp_um,
-        "strength": getattr(f, "strength", None),
-        "lines": lines,
-    })
+    extra: dict = field(default_factory=dict)
 
 
 def _predicted_dicts(lattice, g, systems, frame, load) -> list[dict]:
@@ -153,103 +108,77 @@ def _predicted_dicts(lattice, g, systems, frame, load) -> list[dict]:
         d = t.to_dict() if hasattr(t, "to_dict") else dict(t)
         n = np.asarray(d.get("normal_sample"), float).reshape(-1)[:3]
         d["normal_image"] = (M @ n).tolist()
-        out.append(_jsonable(d))
+        out.append(jsonable(d))
     return out
 
 
-def analyse_image(im: ImageJob) -> ImageAnalysis:
-    """Detect the band families of one image and identify their planes.
+def chain_inputs(im: ImageJob) -> dict:
+    """The arguments of :func:`tracefit.analyse_image` that a job's image stands for.
 
-    Uses the detector (:mod:`tracefit.image.detect`), the candidate catalogue
-    (:mod:`tracefit.crystal.systems`) and the matcher (:mod:`tracefit.identify.matching`) with the
-    image's settings from the job. Per-grain images (label image + orientation table)
-    are analysed grain by grain.
+    The survey runs the same chain as ``tracefit identify`` and the library; this is the only
+    translation from job-file fields to its arguments.
+    """
+    from tracefit.conventions import FrameSettings
+    from tracefit.crystal import from_euler, lattice_preset
+    from tracefit.predict import parse_load
+
+    lattice = lattice_preset(im.lattice, im.c_over_a)
+    kw = dict(lattice=lattice, modes=tuple(im.modes), families=tuple(im.families) if im.families else None,
+              frame=FrameSettings(**im.frame), load=parse_load(im.load, lattice, im.load_sense) if im.load else None,
+              pixel_size_um=im.pixel_size_um, mask=im.mask, detect=dict(im.detect), path=str(im.file), **dict(im.match))
+    if im.euler_deg is not None:
+        kw["orientation"] = from_euler(np.asarray(im.euler_deg, float))
+    else:
+        kw.update(labels=im.labels, orientations=im.orientations)
+    return kw
+
+
+def analyse_image(im: ImageJob) -> ImageAnalysis:
+    """Detect the band families of one job image and identify their planes.
+
+    Runs :func:`tracefit.pipeline.analyse_image` (the one chain) with the image's settings and
+    turns its result into the survey's plain records.
 
     Raises
     ------
     TracefitInputError
         For a missing or unreadable file, or inconsistent settings.
     """
-    from tracefit.conventions import FrameSettings
-    from tracefit.image import detect_bands, detect_grains
-    from tracefit.image import read_image, read_mask
-    from tracefit.crystal import lattice_preset
-    from tracefit.identify import identify_families, observed_from_detection
-    from tracefit.crystal import from_euler
-    from tracefit.crystal import catalogue
-    from tracefit.predict import parse_load
+    from tracefit.pipeline import analyse_image as run_chain
 
-    caught: list[str] = []
-    with warnings.catch_warnings(record=True) as wlist:
-        warnings.simplefilter("always")
-        if not im.file.is_file():
-            raise TracefitInputError(f"image file {str(im.file)!r} not found")
-        image, notes = read_image(im.file)
-        image = np.asarray(image, float)
-        mask = read_mask(im.mask, image.shape) if im.mask is not None else None
-        lattice = lattice_preset(im.lattice, im.c_over_a)
-        systems = catalogue(lattice, modes=list(im.modes), families=list(im.families) if im.families else None)
-        if not systems:
-            raise TracefitInputError(f"no candidate systems for lattice {im.lattice} with modes {', '.join(im.modes)}")
-        frame = FrameSettings(**im.frame)
-        load = parse_load(im.load, lattice, im.load_sense) if im.load else None
+    if not im.file.is_file():
+        raise TracefitInputError(f"image file {str(im.file)!r} not found")
+    kw = chain_inputs(im)
+    res = run_chain(im.file, kw.pop("lattice"), **kw)
+    return analysis_from_result(res)
 
-        labels = None
-        grain_list = []  # (grain id, g, region mask or None, euler)
-        if im.euler_deg is not None:
-            grain_list.append((None, from_euler(np.asarray(im.euler_deg, float)), None, list(im.euler_deg)))
-        else:
-            from tracefit.maps import read_label_image, read_orientation_table
 
-            labels = read_label_image(im.labels)
-            if labels.shape != image.shape[:2]:
-                raise TracefitInputError(
-                    f"label image {im.labels.name} is {labels.shape[1]}x{labels.shape[0]} px but the image is "
-                    f"{image.shape[1]}x{image.shape[0]} px; they must match")
-            table = read_orientation_table(im.orientations)
-            for gid in sorted(int(x) for x in np.unique(labels)):
-                if gid not in table:
-                    continue  # background or a grain without orientation: not analysed
-                row = table[gid]
-                region = labels == gid
-                if mask is not None:
-                    region &= mask
-                grain_list.append((gid, np.asarray(row.g, float), region, None if row.euler_deg is None else list(row.euler_deg)))
-            if not grain_list:
-                raise TracefitInputError(
-                    f"no grain id of label image {im.labels.name} appears in orientation table {im.orientations.name}")
-
-        families, idents, grains = [], [], []
-        det_kw = dict(im.detect)
-        match_kw = dict(im.match)
-        det_notes: list[str] = []
-        if labels is None:
-            dets = {None: detect_bands(image, mask, im.pixel_size_um, path=str(im.file), **det_kw)}
-        else:
-            dets = detect_grains(image, labels, mask, im.pixel_size_um, path=str(im.file),
-                                 grains=[gid for gid, *_ in grain_list], **det_kw)
-        for gid, g, region, euler in grain_list:
-            det = dets[gid]
-            det_notes.extend(getattr(det, "notes", []) or [])
-            fams = list(getattr(det, "families", det))
-            observed = observed_from_detection(fams, grain=gid)
-            res = identify_families(observed, lattice, g, systems, frame=frame, load=load, grain=gid, **match_kw)
-            for f, r in zip(fams, res):
-                families.append(_family_dict(f, gid, im.pixel_size_um))
-                idents.append(_jsonable(r.to_dict()))
-            grains.append({
-                "grain": gid,
-                "euler_deg": euler,
-                "n_pixels": None if region is None else int(region.sum()),
-                "predicted": _predicted_dicts(lattice, g, systems, frame, load),
-            })
-    for w in wlist:
-        caught.append(str(w.message))
-    if labels is not None:  # only the analysed grains get a label on the overlay
-        labels = np.where(np.isin(labels, [gid for gid, *_ in grain_list]), labels, -1)
-    return ImageAnalysis(image=image, families=families, identifications=idents, grains=grains,
-                         warnings=list(dict.fromkeys(caught)), labels=labels,
-                         notes=list(dict.fromkeys(list(notes) + det_notes)))
+def analysis_from_result(res) -> ImageAnalysis:
+    """The survey's plain view of a :class:`tracefit.pipeline.ImageResult`."""
+    recs = res.family_records()
+    families = [{k: v for k, v in r.items() if k not in ("identification", "index")} for r in recs]
+    idents = [r["identification"] for r in recs]
+    status = {g.grain: g for g in res.grains}
+    grains = []
+    for gid, g in res.orientations.items():
+        gs = status.get(gid)
+        if gs is not None and gs.status == "no orientation":
+            continue
+        grains.append(jsonable({
+            "grain": gid,
+            "euler_deg": None if gs is None else gs.euler_deg,
+            "n_pixels": None if gs is None or gid is None else gs.n_pixels,
+            "status": None if gs is None else gs.status,
+            "reason": None if gs is None else gs.reason,
+            "predicted": _predicted_dicts(res.lattice, g, res.systems, res.frame, res.load),
+        }))
+    for gs in res.grains:  # grains the chain could not analyse keep a line in the record
+        if gs.grain not in res.orientations:
+            grains.append(jsonable({**gs.to_dict(), "predicted": []}))
+    warns = list(res.warnings)
+    extra = {"frame_check": res.identification.frame_check, "artefacts": res.identification.artefacts}
+    return ImageAnalysis(image=res.image, families=families, identifications=idents, grains=grains,
+                         warnings=warns, labels=res.labels, notes=list(res.notes), extra=jsonable(extra))
 
 
 # --------------------------------------------------------------------------- figures and record
@@ -363,7 +292,7 @@ def process_image(im: ImageJob, out_dir, analyse: Callable[[ImageJob], ImageAnal
         "inputs_sha256": {k: _file_digest(getattr(im, k)) for k in ("file", "mask", "labels", "orientations")
                           if getattr(im, k) is not None},
         "tracefit_version": tracefit.__version__,
-        "settings": _jsonable(im.settings()),
+        "settings": jsonable(im.settings()),
         "started_utc": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
     }
     try:
@@ -372,9 +301,10 @@ def process_image(im: ImageJob, out_dir, analyse: Callable[[ImageJob], ImageAnal
             "image_shape": list(np.asarray(a.image).shape[:2]),
             "families": [dict(f, index=i + 1, identification=ident)
                          for i, (f, ident) in enumerate(zip(a.families, a.identifications))],
-            "grains": _jsonable(a.grains),
+            "grains": jsonable(a.grains),
             "warnings": list(a.warnings),
             "notes": list(getattr(a, "notes", []) or []),
+            **(getattr(a, "extra", None) or {}),
         })
         rec["figures"] = _draw_figures(im, a, img_dir) if figures else {}
     except TracefitInputError as exc:
@@ -386,7 +316,7 @@ def process_image(im: ImageJob, out_dir, analyse: Callable[[ImageJob], ImageAnal
         where = f" (in {Path(tb[-1].filename).name}:{tb[-1].lineno})" if tb else ""
         rec.update(status="failed", error=f"{type(exc).__name__}: {exc}{where}")
     rec["elapsed_s"] = round(time.perf_counter() - t0, 3)
-    rec = _jsonable(rec)
+    rec = jsonable(rec)
     write_text(img_dir / f"{im.name}.json", json.dumps(rec, indent=1))
     return rec
 
@@ -609,7 +539,7 @@ def run_survey(job: Job, out_dir, workers: int | None = None, resume: bool = Fal
                     except Exception as exc:  # the worker process itself died
                         rec = {"name": im.name, "file": str(im.file), "line": im.line, "status": "failed",
                                "error": f"worker process failed: {type(exc).__name__}: {exc}",
-                               "fingerprint": image_fingerprint(im), "settings": _jsonable(im.settings()),
+                               "fingerprint": image_fingerprint(im), "settings": jsonable(im.settings()),
                                "tracefit_version": tracefit.__version__}
                         write_text(out_dir / "images" / f"{im.name}.json", json.dumps(rec, indent=1))
                     records[im.name] = rec
@@ -620,7 +550,7 @@ def run_survey(job: Job, out_dir, workers: int | None = None, resume: bool = Fal
     ordered = [records[im.name] for im in job.images]
     result = SurveyResult(job=job, out_dir=out_dir, records=ordered, reused=reused)
     result.csv_path = write_results_csv(ordered, out_dir / "results.csv")
-    result.json_path = write_text(out_dir / "results.json", json.dumps(_jsonable(result.to_dict()), indent=1))
+    result.json_path = write_text(out_dir / "results.json", json.dumps(jsonable(result.to_dict()), indent=1))
     if report:
         from tracefit.viz.report import write_report
 
@@ -631,58 +561,20 @@ def run_survey(job: Job, out_dir, workers: int | None = None, resume: bool = Fal
 def csv_rows(records: list[dict]) -> list[dict]:
     """Results table rows: one per family; a failed image gives one row with its error, and an
     image without any band family one row with verdict "no bands found"."""
-    from tracefit.viz.plots import plane_label
-
     rows = []
     for rec in records:
         if rec.get("status") != "ok":
             rows.append({"image": rec["name"], "status": "failed", "error": rec.get("error")})
             continue
-        if not rec.get("families"):  # keep the image in the table: no family was found in it
-            rows.append({"image": rec["name"], "status": "ok", "verdict": "no bands found", "error": ""})
-            continue
-        for fam in rec.get("families") or []:
-            ident = fam.get("identification") or {}
-            cands = ident.get("candidates") or []
-            best = cands[0] if cands else {}
-            second = next((c for c in cands[1:] if c.get("plane") != best.get("plane")), {})
-            bs = best.get("best_system") or {}
-            verdict = "unexplained" if ident.get("unexplained") or not cands else (
-                "ambiguous" if ident.get("ambiguous") else "identified")
-            rows.append({
-                "image": rec["name"],
-                "status": "ok",
-                "grain": "" if fam.get("grain") is None else fam["grain"],
-                "family": f"F{fam.get('index', len(rows) + 1)}",
-                "angle_deg": fam.get("angle_deg"),
-                "angle_sigma_deg": fam.get("angle_sigma_deg"),
-                "n_bands": fam.get("n_bands"),
-                "spacing_um": fam.get("spacing_um"),
-                "strength": fam.get("strength"),
-                "verdict": verdict,
-                "plane": plane_label(tuple(best["plane"])) if best else "",
-                "plane_family": best.get("family", ""),
-                "mode": best.get("mode", ""),
-                "predicted_deg": best.get("predicted_deg"),
-                "residual_deg": best.get("residual_deg"),
-                "probability": best.get("probability"),
-                "schmid_factor": bs.get("schmid_factor"),
-                "direction": "" if not bs.get("direction") else plane_label_direction(bs["direction"]),
-                "second_plane": plane_label(tuple(second["plane"])) if second else "",
-                "second_probability": second.get("probability") if second else "",
-                "p_none": ident.get("p_none"),
-                "error": "",
-            })
+        rows.extend(family_rows(rec["name"], rec.get("families") or []))
     return rows
 
 
 def plane_label_direction(d) -> str:
-    try:
-        from tracefit.crystal import format_index
+    """A direction's indices in the project's notation (kept for the report)."""
+    from tracefit.results import direction_label
 
-        return format_index(tuple(int(x) for x in d), kind="direction")
-    except Exception:
-        return "[" + " ".join(str(x) for x in d) + "]"
+    return direction_label(d)
 
 
 def write_results_csv(records: list[dict], path) -> Path:
