@@ -208,3 +208,32 @@ def test_detect_and_match_options_must_be_known_keywords():
     reserved = GOOD.replace('euler_deg = [10, 20, 30]', 'euler_deg = [10, 20, 30]\nmatch = { lattice = "bcc" }')
     msg = _err(reserved)
     assert "image[1].match.lattice" in msg and "is an image setting" in msg
+
+
+# Every detect/match setting is checked once, at the door, against the declared schema
+# (tracefit.options): type and range, with the field and its line (common practice, no source).
+@pytest.mark.parametrize("table,words", [
+    ('detect = { min_bands = "three" }', ["detect.min_bands", "whole number"]),
+    ("detect = { working_size = 0 }", ["detect.working_size", ">= 64"]),
+    ("detect = { scales = [] }", ["detect.scales", "at least one"]),
+    ("detect = { min_bands = 0 }", ["detect.min_bands", ">= 1"]),
+    ("detect = { min_bands = -5 }", ["detect.min_bands", ">= 1"]),
+    ("detect = { max_families = 0 }", ["detect.max_families", ">= 1"]),
+    ("match = { p_none = 2.0 }", ["match.p_none", "[0, 1)"]),
+    ("match = { orientation_sigma_deg = -1 }", ["match.orientation_sigma_deg", "[0, 45]"]),
+    ("match = { allow_shared_planes = 1 }", ["match.allow_shared_planes", "true or false"]),
+    ("match = { min_grain_px = 2.5 }", ["match.min_grain_px", "whole number"]),
+])
+def test_setting_tables_are_validated_with_their_line(table, words):
+    bad = GOOD.replace("[[image]]", table + "\n\n[[image]]", 1)
+    msg = _err(bad)
+    for w in words:
+        assert w in msg, msg
+    assert f"line {_line_of(bad, table)}" in msg
+
+
+def test_bad_setting_in_a_job_is_exit_2_with_one_line(tmp_path, run_cli):
+    job = tmp_path / "job.toml"
+    job.write_text(GOOD.replace("[[image]]", "match = { p_none = 2.0 }\n\n[[image]]", 1), encoding="utf-8")
+    code, out, err = run_cli("survey", str(job), "--out", str(tmp_path / "out"))
+    assert code == 2 and err.count("\n") == 1 and "p_none" in err and "Traceback" not in err

@@ -25,8 +25,10 @@ from typing import Any, Sequence
 
 import numpy as np
 
+from tracefit.conventions import FrameSettings
 from tracefit.errors import TracefitInputError
 from tracefit.options import DEFAULT_MODES, check_options, defaults
+from tracefit.results import FamilyDetection, GrainStatus, Identification, ImageResult
 
 __all__ = [
     "GrainStatus",
@@ -187,60 +189,6 @@ def read_grain_map(labels, orientations, shape: tuple[int, int] | None = None):
 
 
 # --------------------------------------------------------------------------- stage 2: detection
-@dataclass
-class GrainStatus:
-    """What happened to one grain (or to the whole image when there is no grain map).
-
-    Attributes
-    ----------
-    grain : int or None
-    n_pixels : int
-        Pixels analysed (inside the mask, outside any data bar).
-    n_families : int
-        Band families found.
-    status : str
-        ``"analysed"``, ``"too small"``, ``"no orientation"`` or ``"no families"``.
-    reason : str
-        Why a grain has no families, in words ("" when it has some).
-    euler_deg : list of float or None
-        Its orientation as Bunge angles (degrees), where known.
-    sigma_deg : float or None
-        Its own orientation uncertainty from the orientation table, where given.
-    """
-
-    grain: int | None
-    n_pixels: int
-    n_families: int = 0
-    status: str = "analysed"
-    reason: str = ""
-    euler_deg: list | None = None
-    sigma_deg: float | None = None
-
-    def to_dict(self) -> dict:
-        return {"grain": self.grain, "n_pixels": self.n_pixels, "n_families": self.n_families, "status": self.status,
-                "reason": self.reason, "euler_deg": self.euler_deg, "sigma_deg": self.sigma_deg}
-
-
-@dataclass
-class FamilyDetection:
-    """Band families found in one image, grain by grain.
-
-    Attributes
-    ----------
-    observed : list of ObservedFamily
-        One per family, in grain order then strength order; ``grain`` set on grain maps.
-    bands : list of BandFamily
-        The detector's families, aligned with ``observed`` (lines, spacing, strength).
-    grains : list of GrainStatus
-    notes : list of str
-    """
-
-    observed: list
-    bands: list
-    grains: list
-    notes: list = field(default_factory=list)
-
-
 def detect_families(image, *, labels=None, orientations: dict | None = None, mask=None,
                     pixel_size_um: float | None = None, min_grain_px: int | None = None, path: str | None = None,
                     **detect: Any) -> FamilyDetection:
@@ -319,27 +267,6 @@ def detect_families(image, *, labels=None, orientations: dict | None = None, mas
 
 
 # --------------------------------------------------------------------------- stage 3: identification
-@dataclass
-class Identification:
-    """Identifications of observed families, with the map-level checks.
-
-    Attributes
-    ----------
-    families : list of FamilyIdentification
-        Same order as the observed families given.
-    frame_check : dict or None
-        The frame-rotation fit on grain maps (:func:`tracefit.identify.fit_frame`), when run.
-    artefacts : list of dict or None
-        Surface-artefact directions found on grain maps (angle, grains, families), when tested.
-    warnings : list of str
-    """
-
-    families: list
-    frame_check: dict | None = None
-    artefacts: list | None = None
-    warnings: list = field(default_factory=list)
-
-
 def _candidates(lattice, systems, modes, families):
     from tracefit.crystal import catalogue, filter_systems
 
@@ -391,12 +318,15 @@ def identify(observed: Sequence, lattice, *, orientation=None, orientations: dic
 
     Examples
     --------
-    >>> import numpy as np
+    An fcc crystal at Bunge (10, 20, 30) deg predicts the (1-11) trace at 73.34 deg; a family
+    seen at 73.2 +- 0.3 deg is that plane:
+
+    >>> from tracefit.crystal import from_euler
     >>> from tracefit.identify import ObservedFamily
-    >>> res = identify([ObservedFamily(135.2, 0.2)], "fcc", orientation=np.eye(3), modes=["slip"])
+    >>> res = identify([ObservedFamily(73.2, 0.3)], "fcc", orientation=from_euler([10, 20, 30]), modes=["slip"])
     >>> best = res.families[0].best
-    >>> best.plane, round(best.probability, 2)
-    ((1, 1, 1), 0.95)
+    >>> best.plane, round(best.predicted_deg, 2), round(best.probability, 2)
+    ((1, -1, 1), 73.34, 1.0)
     """
     from tracefit.identify import identify_observed
 
@@ -451,108 +381,6 @@ def _frame_check(observed, lattice, ori_map, systems, frame, s, warn_out) -> dic
 
 
 # --------------------------------------------------------------------------- stage 4: one image
-@dataclass
-class ImageResult:
-    """Everything the chain found in one micrograph; tables, figures and the report read this.
-
-    Attributes
-    ----------
-    path : str or None
-        The image file.
-    image : ndarray (H, W) or None
-        The micrograph as analysed (float grey); None for hand-measured traces alone.
-    labels : ndarray (H, W) or None
-        Grain label image (grains without an orientation set to -1).
-    lattice, frame, load
-        The geometry used.
-    systems : list of DeformationSystem
-        The candidates.
-    orientations : dict
-        Grain id (None for a single orientation) -> orientation matrix g (3, 3).
-    detection : FamilyDetection or None
-    observed : list of ObservedFamily
-        Detected families, then hand-measured ones.
-    identification : Identification
-    settings : dict
-        Every identification/analysis setting as used, plus the detection settings given.
-    notes, warnings : list of str
-    """
-
-    path: str | None
-    image: np.ndarray | None
-    labels: np.ndarray | None
-    lattice: Any
-    frame: Any
-    load: Any
-    systems: list
-    orientations: dict
-    detection: FamilyDetection | None
-    observed: list
-    identification: Identification
-    settings: dict
-    notes: list = field(default_factory=list)
-    warnings: list = field(default_factory=list)
-
-    @property
-    def families(self) -> list:
-        """The identifications, one per observed family (FamilyIdentification)."""
-        return self.identification.families
-
-    @property
-    def grains(self) -> list:
-        """What happened to each grain (:class:`GrainStatus`)."""
-        return [] if self.detection is None else self.detection.grains
-
-    def family_records(self) -> list[dict]:
-        """One plain dict per family: detection details plus its identification (JSON-ready)."""
-        from tracefit.results import family_record
-
-        bands = [] if self.detection is None else self.detection.bands
-        out = []
-        for i, (o, r) in enumerate(zip(self.observed, self.families)):
-            out.append(family_record(o, bands[i] if i < len(bands) else None, r, index=i + 1,
-                                     pixel_size_um=self.settings.get("pixel_size_um")))
-        return out
-
-    def to_dict(self) -> dict:
-        """The JSON object of ``tracefit identify --json``."""
-        from tracefit.identify import identifications_to_json
-        from tracefit.results import jsonable
-
-        d = identifications_to_json(self.families)
-        d.update({
-            "lattice": lattice_summary(self.lattice),
-            "frame": self.frame.to_dict(),
-            "load": self.load.to_dict() if hasattr(self.load, "to_dict") else (
-                None if self.load is None else np.asarray(self.load, float).tolist()),
-            "notes": list(self.notes),
-            "settings": {k: self.settings[k] for k in ("orientation_sigma_deg", "frame_sigma_deg", "p_none",
-                                                         "schmid_weight", "allow_shared_planes")},
-            "grain_status": [g.to_dict() for g in self.grains],
-        })
-        if self.labels is not None or len(self.orientations) > 1 or None not in self.orientations:
-            d["grains"] = {"n_table": len(self.orientations),
-                           "n_with_families": len({o.grain for o in self.observed})}
-            d["artefacts"] = self.identification.artefacts
-            d["frame_check"] = self.identification.frame_check
-        return jsonable(d)
-
-    def to_frame(self):
-        """A pandas DataFrame with one row per family (the columns of ``results.csv``)."""
-        import pandas as pd
-
-        from tracefit.results import CSV_COLUMNS, family_rows
-
-        rows = family_rows(Path(self.path).stem if self.path else "", self.family_records())
-        return pd.DataFrame(rows, columns=[c for c in CSV_COLUMNS if c not in ("status", "error")])
-
-
-def lattice_summary(lat) -> dict:
-    """A lattice's parameters as plain values (for ``--json`` and reports)."""
-    return {"name": lat.name, "a": lat.a, "b": lat.b, "c": lat.c, "alpha": lat.alpha, "beta": lat.beta,
-            "gamma": lat.gamma, "laue": lat.laue, "hex_setting": lat.hex_setting}
-
-
 def _read(image, path):
     from tracefit.image import read_image
 
@@ -612,15 +440,18 @@ def analyse_image(image, lattice, *, orientation=None, labels=None, orientations
 
     Examples
     --------
-    >>> import numpy as np, tracefit as tf
+    A synthetic micrograph of an fcc crystal at Bunge (10, 20, 30) deg with bands along the
+    predicted (1-11) trace (73.34 deg):
+
+    >>> import tracefit as tf
     >>> from tracefit.image import BandFamilySpec, render_micrograph
-    >>> img, truth = render_micrograph((256, 256), [BandFamilySpec(angle_deg=135.0, spacing_px=20)], seed=1)
-    >>> res = tf.analyse_image(img, "fcc", orientation=np.eye(3), modes=["slip"])
-    >>> res.families[0].best.plane
-    (1, 1, 1)
+    >>> img, truth = render_micrograph((256, 256), [BandFamilySpec(angle_deg=73.34, spacing_px=20)], seed=1)
+    >>> res = tf.analyse_image(img, "fcc", orientation=tf.crystal.from_euler([10, 20, 30]), modes=["slip"])
+    >>> fam = res.families[0]
+    >>> round(fam.angle_deg, 1), fam.best.plane
+    (73.3, (1, -1, 1))
     """
-    s, det = resolve_settings({**settings, **({"min_grain_px": settings["min_grain_px"]}
-                                              if "min_grain_px" in settings else {})}, detect)
+    s, det = resolve_settings(settings, detect)
     if orientation is None and orientations is None:
         raise TracefitInputError("no orientation: give orientation=... (one crystal) or labels=... with "
                                  "orientations=... (a grain map)")
@@ -628,41 +459,28 @@ def analyse_image(image, lattice, *, orientation=None, labels=None, orientations
         raise TracefitInputError("labels and orientations go together: a label image and its orientation table")
     if image is None and not measured:
         raise TracefitInputError("no image and no measured traces: give an image or measured families")
-    caught: list[str] = []
     with warnings.catch_warnings(record=True) as wlist:
         warnings.simplefilter("always")
         lat = _as_lattice(lattice)
         cands = _candidates(lat, systems, modes, families)
-        from tracefit.conventions import FrameSettings
-
         frame = frame or FrameSettings()
         ld = _as_load(load, lat)
-        img = lab = table = detection = None
-        notes: list[str] = []
-        if image is not None:
-            img, notes, path = _read(image, path)
-        if orientations is not None:
-            if labels is not None:
-                lab, table = read_grain_map(labels, orientations, None if img is None else img.shape)
-            else:  # hand-measured traces carry their grain ids
-                table = orientation_table(orientations)
-        msk = _read_mask(mask, None if img is None else img.shape)
+        img, notes, path, lab, table = _inputs(image, path, labels, orientations)
+        detection = None
         if img is not None:
-            detection = detect_families(img, labels=lab, orientations=table, mask=msk, pixel_size_um=pixel_size_um,
-                                        min_grain_px=s["min_grain_px"], path=path, **det)
+            detection = detect_families(img, labels=lab, orientations=table, mask=_read_mask(mask, img.shape),
+                                        pixel_size_um=pixel_size_um, min_grain_px=s["min_grain_px"], path=path, **det)
             notes += detection.notes
             _fill_grain_orientations(detection.grains, table, orientation)
         observed = (detection.observed if detection is not None else []) + list(measured)
         if table is not None and any(o.grain is None for o in measured):
             raise TracefitInputError("with a grain table every measured trace needs a grain id (the CSV's grain column)")
-        ident_kw = {k: s[k] for k in s if k != "min_grain_px"}
+        common = dict(systems=cands, modes=modes, families=families, frame=frame, load=ld, **s)
         if table is not None:
-            ident = identify(observed, lat, orientations=table, systems=cands, modes=modes, families=families,
-                             frame=frame, load=ld, **ident_kw)
+            ident = identify(observed, lat, orientations=table, **common)
             ori = {k: v.g for k, v in table.items()}
         else:
-            ident = identify(observed, lat, orientation=orientation, systems=cands, modes=modes, families=families,
-                             frame=frame, load=ld, **ident_kw)
+            ident = identify(observed, lat, orientation=orientation, **common)
             ori = {None: _as_matrix(orientation)}
     caught = list(dict.fromkeys(str(w.message) for w in wlist))
     if lab is not None and table is not None:  # only analysed grains keep their label (figures)
@@ -705,6 +523,20 @@ def observe_image(image, labels=None, orientations=None, pixel_size_um: float | 
     det = detect_families(img, labels=lab, orientations=table, pixel_size_um=pixel_size_um, min_grain_px=min_grain_px,
                           path=path, **detect)
     return det.observed, img, lab, notes + det.notes
+
+
+def _inputs(image, path, labels, orientations):
+    """Read the micrograph and the grain map: (image, notes, path, labels, table); image None allowed."""
+    img = lab = table = None
+    notes: list[str] = []
+    if image is not None:
+        img, notes, path = _read(image, path)
+    if orientations is not None:
+        if labels is not None:
+            lab, table = read_grain_map(labels, orientations, None if img is None else img.shape)
+        else:  # hand-measured traces carry their grain ids
+            table = orientation_table(orientations)
+    return img, notes, path, lab, table
 
 
 def _read_mask(mask, shape):

@@ -6,11 +6,16 @@ per-image records all come from here, so a family is written the same way everyw
 
 from __future__ import annotations
 
+from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
-__all__ = ["CSV_COLUMNS", "jsonable", "family_record", "family_rows", "direction_label", "plane_text"]
+__all__ = [
+    "GrainStatus", "FamilyDetection", "Identification", "ImageResult", "lattice_summary",
+    "CSV_COLUMNS", "jsonable", "family_record", "family_rows", "direction_label", "plane_text",
+]
 
 CSV_COLUMNS = [
     "image", "status", "grain", "family", "angle_deg", "angle_sigma_deg", "n_bands", "spacing_um",
@@ -145,3 +150,176 @@ def family_rows(image_name: str, families: list[dict]) -> list[dict]:
             "error": "",
         })
     return rows
+
+
+# --------------------------------------------------------------------------- result objects
+@dataclass
+class GrainStatus:
+    """What happened to one grain (or to the whole image when there is no grain map).
+
+    Attributes
+    ----------
+    grain : int or None
+    n_pixels : int
+        Pixels analysed (inside the mask, outside any data bar).
+    n_families : int
+        Band families found.
+    status : str
+        ``"analysed"``, ``"too small"``, ``"no orientation"`` or ``"no families"``.
+    reason : str
+        Why a grain has no families, in words ("" when it has some).
+    euler_deg : list of float or None
+        Its orientation as Bunge angles (degrees), where known.
+    sigma_deg : float or None
+        Its own orientation uncertainty from the orientation table, where given.
+    """
+
+    grain: int | None
+    n_pixels: int
+    n_families: int = 0
+    status: str = "analysed"
+    reason: str = ""
+    euler_deg: list | None = None
+    sigma_deg: float | None = None
+
+    def to_dict(self) -> dict:
+        return {"grain": self.grain, "n_pixels": self.n_pixels, "n_families": self.n_families, "status": self.status,
+                "reason": self.reason, "euler_deg": self.euler_deg, "sigma_deg": self.sigma_deg}
+
+
+@dataclass
+class FamilyDetection:
+    """Band families found in one image, grain by grain.
+
+    Attributes
+    ----------
+    observed : list of ObservedFamily
+        One per family, in grain order then strength order; ``grain`` set on grain maps.
+    bands : list of BandFamily
+        The detector's families, aligned with ``observed`` (lines, spacing, strength).
+    grains : list of GrainStatus
+    notes : list of str
+    """
+
+    observed: list
+    bands: list
+    grains: list
+    notes: list = field(default_factory=list)
+
+
+@dataclass
+class Identification:
+    """Identifications of observed families, with the map-level checks.
+
+    Attributes
+    ----------
+    families : list of FamilyIdentification
+        Same order as the observed families given.
+    frame_check : dict or None
+        The frame-rotation fit on grain maps (:func:`tracefit.identify.fit_frame`), when run.
+    artefacts : list of dict or None
+        Surface-artefact directions found on grain maps (angle, grains, families), when tested.
+    warnings : list of str
+    """
+
+    families: list
+    frame_check: dict | None = None
+    artefacts: list | None = None
+    warnings: list = field(default_factory=list)
+
+
+@dataclass
+class ImageResult:
+    """Everything the chain found in one micrograph; tables, figures and the report read this.
+
+    Attributes
+    ----------
+    path : str or None
+        The image file.
+    image : ndarray (H, W) or None
+        The micrograph as analysed (float grey); None for hand-measured traces alone.
+    labels : ndarray (H, W) or None
+        Grain label image (grains without an orientation set to -1).
+    lattice, frame, load
+        The geometry used.
+    systems : list of DeformationSystem
+        The candidates.
+    orientations : dict
+        Grain id (None for a single orientation) -> orientation matrix g (3, 3).
+    detection : FamilyDetection or None
+    observed : list of ObservedFamily
+        Detected families, then hand-measured ones.
+    identification : Identification
+    settings : dict
+        Every identification/analysis setting as used, plus the detection settings given.
+    notes, warnings : list of str
+    """
+
+    path: str | None
+    image: np.ndarray | None
+    labels: np.ndarray | None
+    lattice: Any
+    frame: Any
+    load: Any
+    systems: list
+    orientations: dict
+    detection: FamilyDetection | None
+    observed: list
+    identification: Identification
+    settings: dict
+    notes: list = field(default_factory=list)
+    warnings: list = field(default_factory=list)
+
+    @property
+    def families(self) -> list:
+        """The identifications, one per observed family (FamilyIdentification)."""
+        return self.identification.families
+
+    @property
+    def grains(self) -> list:
+        """What happened to each grain (:class:`GrainStatus`)."""
+        return [] if self.detection is None else self.detection.grains
+
+    def family_records(self) -> list[dict]:
+        """One plain dict per family: detection details plus its identification (JSON-ready)."""
+        bands = [] if self.detection is None else self.detection.bands
+        out = []
+        for i, (o, r) in enumerate(zip(self.observed, self.families)):
+            out.append(family_record(o, bands[i] if i < len(bands) else None, r, index=i + 1,
+                                     pixel_size_um=self.settings.get("pixel_size_um")))
+        return out
+
+    def to_dict(self) -> dict:
+        """The JSON object of ``tracefit identify --json``."""
+        from tracefit.identify import identifications_to_json
+
+        d = identifications_to_json(self.families)
+        d.update({
+            "lattice": lattice_summary(self.lattice),
+            "frame": self.frame.to_dict(),
+            "load": self.load.to_dict() if hasattr(self.load, "to_dict") else (
+                None if self.load is None else np.asarray(self.load, float).tolist()),
+            "notes": list(self.notes),
+            "settings": {k: self.settings[k] for k in ("orientation_sigma_deg", "frame_sigma_deg", "p_none",
+                                                         "schmid_weight", "allow_shared_planes")},
+            "grain_status": [g.to_dict() for g in self.grains],
+        })
+        if self.labels is not None or len(self.orientations) > 1 or None not in self.orientations:
+            d["grains"] = {"n_table": len(self.orientations),
+                           "n_with_families": len({o.grain for o in self.observed})}
+            d["artefacts"] = self.identification.artefacts
+            d["frame_check"] = self.identification.frame_check
+        return jsonable(d)
+
+    def to_frame(self):
+        """A pandas DataFrame with one row per family (the columns of ``results.csv``)."""
+        import pandas as pd
+
+        rows = family_rows(Path(self.path).stem if self.path else "", self.family_records())
+        return pd.DataFrame(rows, columns=[c for c in CSV_COLUMNS if c not in ("status", "error")])
+
+
+def lattice_summary(lat) -> dict:
+    """A lattice's parameters as plain values (for ``--json`` and reports)."""
+    return {"name": lat.name, "a": lat.a, "b": lat.b, "c": lat.c, "alpha": lat.alpha, "beta": lat.beta,
+            "gamma": lat.gamma, "laue": lat.laue, "hex_setting": lat.hex_setting}
