@@ -46,6 +46,8 @@ def _default(name):
     return option(name).default
 
 
+# Long only because typer declares every option as a parameter; the body parses, calls the
+# library once and prints.
 @app.command("identify")
 def identify(
     image: Optional[Path] = typer.Argument(None, help="Micrograph (PNG/TIFF/JPEG/BMP); optional with --angle/--crack/--measured."),

@@ -29,6 +29,8 @@ from tracefit.cli.common import (
 from tracefit.errors import TracefitInputError
 
 
+# Long only because typer declares every option as a parameter; the body parses, calls the
+# library once and prints.
 @app.command("find-orientation")
 def find_orientation(
     image: Optional[Path] = typer.Argument(None, help="Micrograph of one grain (optional if --angle is given)."),

@@ -30,6 +30,8 @@ from tracefit.cli.common import (
 )
 
 
+# Long only because typer declares every option as a parameter; the body parses, calls the
+# library once and prints.
 @app.command("systems")
 def systems_command(
     lattice: LatticeOpt = None,

@@ -420,6 +420,86 @@ def _check_options(ctx: _Ctx, key: tuple, opts: dict, groups) -> dict:
         raise ctx.fail(key + (exc.name,), f"is not valid: {exc}") from None
 
 
+def _parse_image(ctx: _Ctx, i: int, raw: dict, defaults: dict, base: Path, seen: dict) -> ImageJob:
+    """One [[image]] table, with the [defaults] applied, validated into an :class:`ImageJob`."""
+    allowed = {**_SHARED_KEYS, **_IMAGE_ONLY_KEYS}
+    key = ("image", i)
+    for k in raw:
+        if k not in allowed:
+            raise _unknown(ctx, key + (k,), allowed)
+    for req in ("name", "file"):
+        if req not in raw:
+            raise ctx.fail(key + (req,), f"is missing: every [[image]] needs '{req}' ({allowed[req]})")
+    name = _string(ctx, key + ("name",), raw["name"])
+    if not _NAME_RE.match(name):
+        raise ctx.fail(key + ("name",), f"must use letters, digits, '-', '_' or '.', got {name!r}")
+    if name in seen:
+        raise ctx.fail(key + ("name",), f"repeats the name {name!r} of image {seen[name] + 1}; names must be unique")
+    seen[name] = i
+    im: dict = dict(defaults)
+    key_of = {k: ("defaults", k) for k in defaults}
+    for k, v in raw.items():
+        if k in _SHARED_KEYS:
+            im[k] = _check_shared(ctx, key, k, v, base)
+            key_of[k] = key + (k,)
+    if "lattice" not in im:
+        raise ctx.fail(key + ("lattice",), "is missing: set it in [defaults] or in this [[image]] "
+                       f"({_SHARED_KEYS['lattice']})")
+    if "modes" not in im:
+        im["modes"] = DEFAULT_MODES
+    file = _file(ctx, key + ("file",), raw["file"], base)
+
+    has_euler = "euler_deg" in raw
+    has_labels = "labels" in raw or "orientations" in raw
+    if has_euler and has_labels:
+        raise ctx.fail(key + ("euler_deg",), "conflicts with labels/orientations: give one orientation source")
+    euler = None
+    labels = orient = None
+    if has_euler:
+        e = raw["euler_deg"]
+        if not isinstance(e, list) or len(e) != 3:
+            raise ctx.fail(key + ("euler_deg",), f"must be three angles [phi1, Phi, phi2] in degrees, got {e!r}")
+        euler = tuple(_number(ctx, key + ("euler_deg",), x) for x in e)
+    elif has_labels:
+        for need in ("labels", "orientations"):
+            if need not in raw:
+                other = "orientations" if need == "labels" else "labels"
+                raise ctx.fail(key + (other,), f"needs '{need}' beside it ({_IMAGE_ONLY_KEYS[need]})")
+        labels = _file(ctx, key + ("labels",), raw["labels"], base)
+        orient = _file(ctx, key + ("orientations",), raw["orientations"], base)
+    else:
+        raise ctx.fail(key, "has no orientation: give euler_deg = [phi1, Phi, phi2], "
+                       "or labels = \"...\" with orientations = \"...\"")
+    inote = raw.get("notes", "")
+    if not isinstance(inote, str):
+        raise ctx.fail(key + ("notes",), "must be a string")
+    _check_with_geometry(ctx, {**key_of, "lattice": key_of.get("lattice", key)}, im)
+    if im.get("detect"):
+        im["detect"] = _check_options(ctx, key_of["detect"], im["detect"], "detect")
+    if im.get("match"):
+        im["match"] = _check_options(ctx, key_of["match"], im["match"], ("identify", "analysis"))
+    return ImageJob(
+        name=name,
+        file=file,
+        lattice=im["lattice"],
+        c_over_a=im.get("c_over_a"),
+        modes=tuple(im["modes"]),
+        families=im.get("families"),
+        load=im["load"]["axis"] if im.get("load") else None,
+        load_sense=im["load"]["sense"] if im.get("load") else "tension",
+        pixel_size_um=im.get("pixel_size_um"),
+        frame=dict(im.get("frame", {})),
+        detect=dict(im.get("detect", {})),
+        match=dict(im.get("match", {})),
+        mask=im.get("mask"),
+        euler_deg=euler,
+        labels=labels,
+        orientations=orient,
+        notes=inote,
+        line=ctx.line(key) or 0,
+    )
+
+
 def parse_job(text: str, path: str | Path = "job.toml") -> Job:
     """Parse and validate job-file text; ``path`` sets the name in messages and the base for files.
 
@@ -468,85 +548,8 @@ def parse_job(text: str, path: str | Path = "job.toml") -> Job:
 
     images: list[ImageJob] = []
     seen: dict[str, int] = {}
-    allowed = {**_SHARED_KEYS, **_IMAGE_ONLY_KEYS}
     for i, raw in enumerate(images_raw):
-        key = ("image", i)
-        for k in raw:
-            if k not in allowed:
-                raise _unknown(ctx, key + (k,), allowed)
-        for req in ("name", "file"):
-            if req not in raw:
-                raise ctx.fail(key + (req,), f"is missing: every [[image]] needs '{req}' ({allowed[req]})")
-        name = _string(ctx, key + ("name",), raw["name"])
-        if not _NAME_RE.match(name):
-            raise ctx.fail(key + ("name",), f"must use letters, digits, '-', '_' or '.', got {name!r}")
-        if name in seen:
-            raise ctx.fail(key + ("name",), f"repeats the name {name!r} of image {seen[name] + 1}; names must be unique")
-        seen[name] = i
-        im: dict = dict(defaults)
-        key_of = {k: ("defaults", k) for k in defaults}
-        for k, v in raw.items():
-            if k in _SHARED_KEYS:
-                im[k] = _check_shared(ctx, key, k, v, base)
-                key_of[k] = key + (k,)
-        if "lattice" not in im:
-            raise ctx.fail(key + ("lattice",), "is missing: set it in [defaults] or in this [[image]] "
-                           f"({_SHARED_KEYS['lattice']})")
-        if "modes" not in im:
-            im["modes"] = DEFAULT_MODES
-        file = _file(ctx, key + ("file",), raw["file"], base)
-
-        has_euler = "euler_deg" in raw
-        has_labels = "labels" in raw or "orientations" in raw
-        if has_euler and has_labels:
-            raise ctx.fail(key + ("euler_deg",), "conflicts with labels/orientations: give one orientation source")
-        euler = None
-        labels = orient = None
-        if has_euler:
-            e = raw["euler_deg"]
-            if not isinstance(e, list) or len(e) != 3:
-                raise ctx.fail(key + ("euler_deg",), f"must be three angles [phi1, Phi, phi2] in degrees, got {e!r}")
-            euler = tuple(_number(ctx, key + ("euler_deg",), x) for x in e)
-        elif has_labels:
-            for need in ("labels", "orientations"):
-                if need not in raw:
-                    other = "orientations" if need == "labels" else "labels"
-                    raise ctx.fail(key + (other,), f"needs '{need}' beside it ({_IMAGE_ONLY_KEYS[need]})")
-            labels = _file(ctx, key + ("labels",), raw["labels"], base)
-            orient = _file(ctx, key + ("orientations",), raw["orientations"], base)
-        else:
-            raise ctx.fail(key, "has no orientation: give euler_deg = [phi1, Phi, phi2], "
-                           "or labels = \"...\" with orientations = \"...\"")
-        inote = raw.get("notes", "")
-        if not isinstance(inote, str):
-            raise ctx.fail(key + ("notes",), "must be a string")
-        _check_with_geometry(ctx, {**key_of, "lattice": key_of.get("lattice", key)}, im)
-        if im.get("detect"):
-            im["detect"] = _check_options(ctx, key_of["detect"], im["detect"], "detect")
-        if im.get("match"):
-            im["match"] = _check_options(ctx, key_of["match"], im["match"], ("identify", "analysis"))
-        images.append(
-            ImageJob(
-                name=name,
-                file=file,
-                lattice=im["lattice"],
-                c_over_a=im.get("c_over_a"),
-                modes=tuple(im["modes"]),
-                families=im.get("families"),
-                load=im["load"]["axis"] if im.get("load") else None,
-                load_sense=im["load"]["sense"] if im.get("load") else "tension",
-                pixel_size_um=im.get("pixel_size_um"),
-                frame=dict(im.get("frame", {})),
-                detect=dict(im.get("detect", {})),
-                match=dict(im.get("match", {})),
-                mask=im.get("mask"),
-                euler_deg=euler,
-                labels=labels,
-                orientations=orient,
-                notes=inote,
-                line=ctx.line(key) or 0,
-            )
-        )
+        images.append(_parse_image(ctx, i, raw, defaults, base, seen))
     jdefaults = {k: (list(v) if isinstance(v, tuple) else str(v) if isinstance(v, Path) else v) for k, v in defaults.items()}
     return Job(path=path.resolve(), title=title, images=tuple(images), notes=notes, defaults=jdefaults, text=text)
 

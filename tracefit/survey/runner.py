@@ -467,6 +467,28 @@ def _previous(out_dir: Path, im: ImageJob, figures: bool) -> dict | None:
     return rec
 
 
+def _run_in_pool(todo, out_dir, analyse, figures, n_workers, records, bar) -> None:
+    """Analyse ``todo`` in worker processes, recording each image as it finishes."""
+    with ProcessPoolExecutor(max_workers=n_workers, mp_context=_mp_context(), initializer=_init_worker) as pool:
+        futs = {pool.submit(_worker, (im, out_dir, analyse, figures)): im for im in todo}
+        try:
+            for fut in as_completed(futs):
+                im = futs[fut]
+                try:
+                    rec = fut.result()
+                except Exception as exc:  # the worker process itself died
+                    rec = {"name": im.name, "file": str(im.file), "line": im.line, "status": "failed",
+                           "error": f"worker process failed: {type(exc).__name__}: {exc}",
+                           "fingerprint": image_fingerprint(im), "settings": jsonable(im.settings()),
+                           "tracefit_version": tracefit.__version__}
+                    write_text(out_dir / "images" / f"{im.name}.json", json.dumps(rec, indent=1))
+                records[im.name] = rec
+                bar.step(im.name, rec["status"] if rec["status"] == "ok" else "FAILED")
+        except KeyboardInterrupt:
+            pool.shutdown(wait=False, cancel_futures=True)
+            raise
+
+
 def run_survey(job: Job, out_dir, workers: int | None = None, resume: bool = False, progress: bool = True,
                analyse: Callable[[ImageJob], ImageAnalysis] | None = None, report: bool = True,
                figures: bool = True) -> SurveyResult:
@@ -529,24 +551,7 @@ def run_survey(job: Job, out_dir, workers: int | None = None, resume: bool = Fal
             records[im.name] = rec
             bar.step(im.name, rec["status"] if rec["status"] == "ok" else "FAILED")
     elif todo:
-        with ProcessPoolExecutor(max_workers=n_workers, mp_context=_mp_context(), initializer=_init_worker) as pool:
-            futs = {pool.submit(_worker, (im, out_dir, analyse, figures)): im for im in todo}
-            try:
-                for fut in as_completed(futs):
-                    im = futs[fut]
-                    try:
-                        rec = fut.result()
-                    except Exception as exc:  # the worker process itself died
-                        rec = {"name": im.name, "file": str(im.file), "line": im.line, "status": "failed",
-                               "error": f"worker process failed: {type(exc).__name__}: {exc}",
-                               "fingerprint": image_fingerprint(im), "settings": jsonable(im.settings()),
-                               "tracefit_version": tracefit.__version__}
-                        write_text(out_dir / "images" / f"{im.name}.json", json.dumps(rec, indent=1))
-                    records[im.name] = rec
-                    bar.step(im.name, rec["status"] if rec["status"] == "ok" else "FAILED")
-            except KeyboardInterrupt:
-                pool.shutdown(wait=False, cancel_futures=True)
-                raise
+        _run_in_pool(todo, out_dir, analyse, figures, n_workers, records, bar)
     ordered = [records[im.name] for im in job.images]
     result = SurveyResult(job=job, out_dir=out_dir, records=ordered, reused=reused)
     result.csv_path = write_results_csv(ordered, out_dir / "results.csv")
