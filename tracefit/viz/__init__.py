@@ -10,32 +10,10 @@ the overlay and report modules (OpenCV, the identify chain) load only when impor
 ``from tracefit.viz.overlay import draw_predicted``, ``from tracefit.viz.report import write_report``.
 """
 
+from tracefit.viz import labels, plots
 from tracefit.viz.labels import direction_label, family_label, plane_label
-from tracefit.viz.plots import (
-    family_colors,
-    figure_png_bytes,
-    great_circle,
-    line_endpoints,
-    overlay_figure,
-    rose_diagram,
-    save_figure,
-    stereogram,
-    stereogram_for,
-    wulff_project,
-)
+from tracefit.viz.plots import (family_colors, figure_png_bytes, great_circle, line_endpoints, overlay_figure,
+                                rose_diagram, save_figure, stereogram, stereogram_for, wulff_project)
 
-__all__ = [
-    "plane_label",
-    "direction_label",
-    "family_label",
-    "family_colors",
-    "wulff_project",
-    "great_circle",
-    "stereogram",
-    "stereogram_for",
-    "rose_diagram",
-    "overlay_figure",
-    "line_endpoints",
-    "figure_png_bytes",
-    "save_figure",
-]
+# the light modules' public names, each listed once in its own module
+__all__ = list(dict.fromkeys(labels.__all__ + plots.__all__))

@@ -47,7 +47,7 @@ def plane_label(plane: Sequence[int] | str | None) -> str:
     return format_index(tuple(int(x) for x in plane), kind="plane")
 
 
-def direction_label(direction) -> str:
+def direction_label(direction: Sequence[int]) -> str:
     """Printable direction label, e.g. ``"[11-20]"``.
 
     Parameters

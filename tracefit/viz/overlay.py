@@ -16,13 +16,14 @@ trace ``i`` of a grain (in the order given) gets ``FAMILY_COLOURS[i % 8]``. Angl
 from __future__ import annotations
 
 import math
+import os
 from collections.abc import Mapping, Sequence
 from pathlib import Path
 
 import cv2
 import numpy as np
 
-from tracefit.conventions import angle_to_pixel_direction, apparent_angle, axial_difference
+from tracefit.conventions import FrameSettings, angle_to_pixel_direction, apparent_angle, axial_difference
 from tracefit.errors import TracefitInputError
 from tracefit.identify import predicted_trace_sigma
 from tracefit.image import FAMILY_COLOURS
@@ -66,7 +67,7 @@ def _to_display_rgb8(image: np.ndarray) -> np.ndarray:
     return np.repeat(g[..., None], 3, axis=2)
 
 
-def trace_sigma_deg(traces: Sequence, orientation_sigma_deg: float, frame=None) -> np.ndarray:
+def trace_sigma_deg(traces: Sequence, orientation_sigma_deg: float, frame: FrameSettings | None = None) -> np.ndarray:
     """Spread (deg) of each predicted trace's angle from the orientation uncertainty.
 
     Parameters
@@ -338,7 +339,7 @@ def draw_predicted(
     image: np.ndarray | None = None,
     canvas_size: tuple[int, int] | None = None,
     orientation_sigma_deg: float = 1.0,
-    frame=None,
+    frame: FrameSettings | None = None,
     k_sigma: float = DEFAULT_K_SIGMA,
     labels: np.ndarray | None = None,
     line_width: int | None = None,
@@ -414,7 +415,7 @@ def draw_predicted(
     return _with_legend(base, head, entries, scale, th, lw)
 
 
-def write_overlay(path, rgb: np.ndarray) -> Path:
+def write_overlay(path: str | os.PathLike, rgb: np.ndarray) -> Path:
     """Write an RGB uint8 drawing (e.g. from :func:`draw_predicted`) to PNG/TIFF/JPEG/BMP.
 
     Parameters

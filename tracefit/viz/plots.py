@@ -13,19 +13,24 @@ circle at the same angle as its trace in the image.
 from __future__ import annotations
 
 import io
+import os
 from collections.abc import Sequence
 from pathlib import Path
 from typing import TYPE_CHECKING
 
 import numpy as np
+from numpy.typing import ArrayLike
 
-from tracefit.conventions import data_to_image_matrix, fold_axial
+from tracefit.conventions import FrameSettings, data_to_image_matrix, fold_axial
 from tracefit.errors import TracefitInputError
 from tracefit.viz.labels import plane_label
 
 if TYPE_CHECKING:  # annotations only: matplotlib is imported when a figure is made
     from matplotlib.axes import Axes
     from matplotlib.figure import Figure
+
+    from tracefit.crystal import Lattice
+    from tracefit.predict import LoadAxis
 
 __all__ = [
     "wulff_project",
@@ -84,7 +89,7 @@ def _new_figure(size_in=(5.0, 5.0), dpi=100) -> Figure:
 
 
 # --------------------------------------------------------------------------- projection
-def wulff_project(v) -> np.ndarray:
+def wulff_project(v: ArrayLike) -> np.ndarray:
     """Equal-angle (Wulff, stereographic) projection of directions onto the surface plane.
 
     Vectors are first turned into the upper hemisphere (z >= 0; an axis has no sense),
@@ -114,7 +119,7 @@ def wulff_project(v) -> np.ndarray:
     return v[..., :2] / (1.0 + v[..., 2:3])
 
 
-def great_circle(normal, n_points: int = 181) -> np.ndarray:
+def great_circle(normal: ArrayLike, n_points: int = 181) -> np.ndarray:
     """Upper-hemisphere half of the great circle of the plane with the given normal.
 
     The arc runs from one end of the plane's surface trace (direction Z x n, on the
@@ -265,7 +270,8 @@ def stereogram(planes: Sequence, matched: Sequence | None = None, observed_deg: 
     return fig
 
 
-def stereogram_for(lattice, g, systems: Sequence, frame=None, load=None, observed_deg: Sequence[float] | None = None,
+def stereogram_for(lattice: Lattice, g: ArrayLike, systems: Sequence, frame: FrameSettings | None = None,
+                   load: LoadAxis | str | None = None, observed_deg: Sequence[float] | None = None,
                    matched: Sequence | None = None, title: str | None = None, ax: Axes | None = None) -> Figure:
     """Stereogram of every candidate plane of one orientation (a notebook convenience).
 
@@ -310,7 +316,7 @@ def stereogram_for(lattice, g, systems: Sequence, frame=None, load=None, observe
 
 
 # --------------------------------------------------------------------------- rose diagram
-def rose_diagram(angles_deg, weights=None, bin_deg: float = 5.0, title: str | None = None, ax: Axes | None = None,
+def rose_diagram(angles_deg: ArrayLike, weights: ArrayLike | None = None, bin_deg: float = 5.0, title: str | None = None, ax: Axes | None = None,
                  labels: Sequence[str] | None = None) -> Figure:
     """Axial rose diagram of band angles: 0-180 deg histogram, mirrored onto 180-360.
 
@@ -369,7 +375,7 @@ def rose_diagram(angles_deg, weights=None, bin_deg: float = 5.0, title: str | No
 
 
 # --------------------------------------------------------------------------- overlay figure
-def line_endpoints(line) -> tuple[float, float, float, float]:
+def line_endpoints(line: object) -> tuple[float, float, float, float]:
     """Pixel endpoints (col0, row0, col1, row1) of one band line, however it is stored.
 
     Parameters
@@ -548,7 +554,7 @@ def figure_png_bytes(fig: Figure, dpi: int = 100) -> bytes:
     return buf.getvalue()
 
 
-def save_figure(fig: Figure, path, dpi: int = 100) -> Path:
+def save_figure(fig: Figure, path: str | os.PathLike, dpi: int = 100) -> Path:
     """Write a figure as PNG atomically (temporary file in the same folder, then rename).
 
     Parameters

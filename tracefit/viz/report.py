@@ -13,13 +13,26 @@ from __future__ import annotations
 import base64
 import html
 import json
+import os
 import time
 from pathlib import Path
+from typing import Protocol, Union
 
 import tracefit
 from tracefit.atomic import write_text
 from tracefit.errors import TracefitInputError
 from tracefit.viz.labels import direction_label, family_label, plane_label
+
+class _ResultsLike(Protocol):
+    """What the report needs of a survey result (e.g. tracefit.survey.SurveyResult): records and to_dict()."""
+
+    records: list
+
+    def to_dict(self) -> dict: ...
+
+
+_Results = Union[_ResultsLike, dict, list]  # a survey result, its results.json content, or its image records
+_PathLike = Union[str, os.PathLike]
 
 __all__ = ["write_report", "render_report", "CONVENTIONS_SUMMARY"]
 
@@ -368,7 +381,7 @@ _EXAMPLE = {"job": {"title": "Coupon X"}, "images": [{
         "candidates": [{"plane": [1, -1, 1], "mode": "slip", "probability": 0.97, "residual_deg": 0.2}]}}]}]}
 
 
-def render_report(result, img_dir, generated_utc: str | None = None) -> str:
+def render_report(result: _Results, img_dir: _PathLike, generated_utc: str | None = None) -> str:
     """The report HTML as a string (see :func:`write_report`).
 
     Parameters
@@ -414,7 +427,7 @@ def render_report(result, img_dir, generated_utc: str | None = None) -> str:
     return "\n".join(parts)
 
 
-def write_report(result, path, img_dir=None) -> Path:
+def write_report(result: _Results, path: _PathLike, img_dir: _PathLike | None = None) -> Path:
     """Write the self-contained HTML report.
 
     Parameters
