@@ -163,3 +163,21 @@ def test_overlay_of_a_large_image_keeps_full_resolution_coordinates():
     assert tuple(shown.get_extent()) == (-0.5, 3999.5, 2999.5, -0.5)
     assert np.allclose(ax.lines[0].get_xydata(), [[100, 2900], [3900, 2900]])
     assert sorted(t.get_text() for t in ax.texts) == ["F1: x", "G0", "G1"]
+
+
+def test_matplotlib_loads_only_when_a_figure_is_made():
+    # matplotlib is heavy: `import tracefit.viz` (and the projection helpers) must not load it;
+    # the first figure does. A fresh interpreter shows what loads.
+    import subprocess
+    import sys
+
+    code = (
+        "import sys\n"
+        "import tracefit.viz, tracefit.viz.overlay\n"
+        "tracefit.viz.wulff_project([0, 0, 1])\n"
+        "a = 'matplotlib' in sys.modules\n"
+        "tracefit.viz.rose_diagram([30.0])\n"
+        "print(a, 'matplotlib' in sys.modules)\n"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.split() == ["False", "True"]

@@ -149,3 +149,57 @@ def test_report_keeps_the_job_file_as_run(survey, page):
     assert 'name = "bad-two"' in pre  # the job text, shown verbatim (escaped)
     html = survey.report_path.read_text(encoding="utf-8")
     assert 'title = &quot;Report &lt;test&gt; &amp; check&quot;' in html
+
+
+def test_report_needs_neither_the_survey_nor_matplotlib():
+    # The report renders plain records: importing and running it must not pull in the survey
+    # (that was an import cycle) nor matplotlib (heavy). A fresh interpreter shows what loads.
+    import subprocess
+    import sys
+
+    code = (
+        "import sys\n"
+        "from tracefit.viz.report import render_report, _EXAMPLE\n"
+        "render_report(_EXAMPLE, '.', generated_utc='T')\n"
+        "print(sorted(m for m in sys.modules if m.startswith(('tracefit.survey', 'matplotlib'))))\n"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == "[]"
+
+
+@pytest.mark.parametrize(
+    "values, kind, text",
+    [
+        # Bracket notation of the trade: () one plane, [] one direction, a bar written as a minus
+        # sign; four indices for hexagonal Miller-Bravais (common practice, no source).
+        ((1, -1, 1), "plane", "(1-11)"),
+        ((1, 0, -1, 2), "plane", "(10-12)"),
+        ((1, 0, -1, 12), "plane", "(1 0 -1 12)"),
+        ((-1, 1, 0), "direction", "[-110]"),
+        ((1, 1, -2, 0), "direction", "[11-20]"),
+    ],
+)
+def test_labels_print_indices_in_bracket_notation(values, kind, text):
+    from tracefit.viz import direction_label, plane_label
+
+    assert (plane_label(values) if kind == "plane" else direction_label(values)) == text
+
+
+def test_verdict_label_names_the_best_plane_or_both_when_ambiguous(survey):
+    from tracefit.viz import family_label
+
+    ok = next(r for r in survey.records if r["status"] == "ok")
+    ident = ok["families"][0]["identification"]
+    best, planes = ident["candidates"][0], [tuple(c["plane"]) for c in ident["candidates"]]
+    assert family_label({**ident, "ambiguous": False}) == f"{plane_label_of(best['plane'])} {best['mode']}"
+    second = next(p for p in planes if plane_label_of(p) != plane_label_of(planes[0]))
+    assert family_label({**ident, "ambiguous": True}) == (
+        f"{plane_label_of(planes[0])} or {plane_label_of(second)} (ambiguous)")
+    assert family_label({**ident, "unexplained": True}) == "unexplained"
+    assert family_label({}) == "not identified"
+
+
+def plane_label_of(p):
+    """The plane as the trade writes it, spelled out here without tracefit (common practice, no source)."""
+    body = "".join(str(int(x)) for x in p) if all(abs(int(x)) < 10 for x in p) else " ".join(str(int(x)) for x in p)
+    return f"({body})"

@@ -1,5 +1,19 @@
 """Figures and the report: overlays, stereograms, rose diagrams, the HTML report.
 
-Not imported eagerly (matplotlib is heavy): use ``tracefit.viz.plots``, ``tracefit.viz.overlay``
-and ``tracefit.viz.report``.
+- :mod:`tracefit.viz.labels` -- how planes, directions and a family's verdict are printed
+- :mod:`tracefit.viz.plots` -- matplotlib figures (stereogram, rose diagram, labelled overlay)
+- :mod:`tracefit.viz.overlay` -- predicted traces drawn on a picture or canvas (OpenCV)
+- :mod:`tracefit.viz.report` -- the self-contained HTML survey report
+
+Importing this package stays light: matplotlib is imported only when a figure is made, and
+the overlay and report modules (OpenCV, the identify chain) load only when imported by name,
+``from tracefit.viz.overlay import draw_predicted``, ``from tracefit.viz.report import write_report``.
 """
+
+from tracefit.viz import labels, plots
+from tracefit.viz.labels import direction_label, family_label, plane_label
+from tracefit.viz.plots import (family_colors, figure_png_bytes, great_circle, line_endpoints, overlay_figure,
+                                rose_diagram, save_figure, stereogram, stereogram_for, wulff_project)
+
+# the light modules' public names, each listed once in its own module
+__all__ = list(dict.fromkeys(labels.__all__ + plots.__all__))

@@ -4,11 +4,11 @@ Every candidate plane's predicted trace is drawn as a line through the image cen
 through each grain's centroid when a grain label image is given, labelled with its plane,
 with a translucent wedge of +- k sigma around it. sigma is the spread of the predicted
 trace angle that the orientation uncertainty causes, propagated exactly as the matcher
-does (:func:`tracefit.identify.matching.predicted_trace_sigma`): sigma_orient / sin(inclination),
+does (:func:`tracefit.identify.predicted_trace_sigma`): sigma_orient / sin(inclination),
 times the stage-tilt foreshortening slope. A legend panel to the right of the picture lists
 each trace's plane, modes and angle; the picture's own pixels keep their coordinates.
 
-Colours are the detection overlay's palette (:data:`tracefit.image.draw.FAMILY_COLOURS`):
+Colours are the detection overlay's palette (:data:`tracefit.image.FAMILY_COLOURS`):
 trace ``i`` of a grain (in the order given) gets ``FAMILY_COLOURS[i % 8]``. Angles follow
 :mod:`tracefit.conventions` (image frame, y up; pixel rows down).
 """
@@ -16,16 +16,19 @@ trace ``i`` of a grain (in the order given) gets ``FAMILY_COLOURS[i % 8]``. Angl
 from __future__ import annotations
 
 import math
+import os
+from collections.abc import Mapping, Sequence
 from pathlib import Path
 
 import cv2
 import numpy as np
 
-from tracefit.conventions import angle_to_pixel_direction
+from tracefit.conventions import FrameSettings, angle_to_pixel_direction, apparent_angle, axial_difference
 from tracefit.errors import TracefitInputError
-from tracefit.image.draw import FAMILY_COLOURS, _to_rgb8
-from tracefit.image import draw_detection as draw_detected
 from tracefit.identify import predicted_trace_sigma
+from tracefit.image import FAMILY_COLOURS
+from tracefit.image import draw_detection as draw_detected
+from tracefit.viz.labels import plane_label
 
 __all__ = [
     "DEFAULT_K_SIGMA",
@@ -43,16 +46,34 @@ DEFAULT_K_SIGMA = 2.0  # wedge half-width in sigmas (about 95 % for a Gaussian)
 WEDGE_ALPHA = 0.28  # wedge opacity over the picture
 CANVAS_BACKGROUND = (32, 32, 32)  # RGB of a blank canvas: dark, so every palette colour shows
 _PANEL_BG = (24, 24, 24)
+_TEXT_COLOUR = (235, 235, 235)
+_FONT = cv2.FONT_HERSHEY_SIMPLEX
 _SHIFT = 4  # cv2 sub-pixel bits
 _MAX_CANVAS = 20000
 
 
-def trace_sigma_deg(traces, orientation_sigma_deg: float, frame=None) -> np.ndarray:
+def _to_display_rgb8(image: np.ndarray) -> np.ndarray:
+    """Grey display copy of a picture as RGB uint8, stretched between its 0.5 and 99.5 percentiles.
+
+    The same stretch as the detection overlay's (``tracefit.image.draw``), written here because
+    the image package keeps its version private.
+    """
+    a = np.asarray(image)
+    if a.ndim == 3:
+        a = a[..., :3].astype(np.float32) @ np.array([0.299, 0.587, 0.114], np.float32)
+    a = a.astype(np.float32)
+    lo, hi = np.percentile(a[:: max(1, a.shape[0] // 512), :: max(1, a.shape[1] // 512)], [0.5, 99.5])
+    g = np.clip((a - lo) / max(hi - lo, 1e-6) * 255.0, 0, 255).astype(np.uint8)
+    return np.repeat(g[..., None], 3, axis=2)
+
+
+def trace_sigma_deg(traces: Sequence, orientation_sigma_deg: float, frame: FrameSettings | None = None) -> np.ndarray:
     """Spread (deg) of each predicted trace's angle from the orientation uncertainty.
 
     Parameters
     ----------
-    traces : sequence of tracefit.predict.traces.PredictedTrace
+    traces : sequence of tracefit.predict.PredictedTrace
+        Each with ``inclination_deg`` and ``true_angle_deg``.
     orientation_sigma_deg : float
         One-sigma orientation error about each sample axis, degrees.
     frame : tracefit.conventions.FrameSettings, optional
@@ -60,7 +81,21 @@ def trace_sigma_deg(traces, orientation_sigma_deg: float, frame=None) -> np.ndar
 
     Returns
     -------
-    ndarray (len(traces),), degrees.
+    ndarray, shape (len(traces),)
+        One-sigma spread of each trace angle, degrees.
+
+    Raises
+    ------
+    TracefitInputError
+        If ``orientation_sigma_deg`` is negative or not finite.
+
+    Examples
+    --------
+    An upright plane's trace moves by the orientation error itself:
+
+    >>> from types import SimpleNamespace as T
+    >>> np.round(trace_sigma_deg([T(inclination_deg=90.0, true_angle_deg=30.0)], 1.0), 3)
+    array([1.])
     """
     if not (math.isfinite(orientation_sigma_deg) and orientation_sigma_deg >= 0):
         raise TracefitInputError(f"the orientation sigma must be >= 0 degrees, got {orientation_sigma_deg!r}")
@@ -68,23 +103,35 @@ def trace_sigma_deg(traces, orientation_sigma_deg: float, frame=None) -> np.ndar
     true = np.array([t.true_angle_deg for t in traces], float)
     slope = np.ones_like(true)
     if frame is not None and float(frame.tilt_deg) != 0.0:
-        from tracefit.conventions import axial_difference
-        from tracefit.conventions import apparent_angle
-
         h = 0.05
         slope = np.asarray(axial_difference(apparent_angle(true + h, frame), apparent_angle(true - h, frame)), float) / (2 * h)
     return np.asarray(predicted_trace_sigma(incl, orientation_sigma_deg, slope), float).reshape(-1)
 
 
-def grain_centres(labels, grains=None) -> dict:
+def grain_centres(labels: np.ndarray, grains: Sequence[int] | None = None) -> dict[int, tuple[float, float, float]]:
     """Centroid (col, row) and equivalent radius (px) of each grain of a label image.
 
     When a grain's centroid falls outside it (a curved grain), its innermost pixel (largest
     distance to the boundary) is used instead, so the drawn traces start inside the grain.
 
+    Parameters
+    ----------
+    labels : ndarray of int, shape (H, W)
+        Grain label image.
+    grains : sequence of int, optional
+        Grain ids to measure (default every id present); absent ids are left out.
+
     Returns
     -------
-    dict grain id -> (col, row, radius_px)
+    dict
+        grain id -> (col, row, radius_px): pixel column and row of the centre, and the radius
+        in pixels of the disc of the grain's area.
+
+    Examples
+    --------
+    >>> lab = np.zeros((10, 20), int); lab[:, 10:] = 1
+    >>> {g: tuple(round(x, 2) for x in v) for g, v in grain_centres(lab).items()}
+    {0: (4.5, 4.5, 5.64), 1: (14.5, 4.5, 5.64)}
     """
     lab = np.asarray(labels)
     ids = sorted(int(x) for x in np.unique(lab)) if grains is None else [int(x) for x in grains]
@@ -105,7 +152,28 @@ def grain_centres(labels, grains=None) -> dict:
 
 
 def parse_canvas_size(text: str) -> tuple[int, int]:
-    """``"800x600"`` -> (width, height) in pixels."""
+    """Read a canvas size written ``WIDTHxHEIGHT`` in pixels.
+
+    Parameters
+    ----------
+    text : str
+        E.g. ``"800x600"`` (``*`` and spaces accepted); each side 16 to 20000 px.
+
+    Returns
+    -------
+    tuple of int
+        (width, height) in pixels.
+
+    Raises
+    ------
+    TracefitInputError
+        If the text is not two whole numbers in range.
+
+    Examples
+    --------
+    >>> parse_canvas_size("800x600"), parse_canvas_size(" 64 * 32 ")
+    ((800, 600), (64, 32))
+    """
     t = str(text).strip().lower().replace(" ", "")
     parts = t.replace("*", "x").split("x")
     try:
@@ -115,12 +183,6 @@ def parse_canvas_size(text: str) -> tuple[int, int]:
     if w is None or not (16 <= w <= _MAX_CANVAS and 16 <= h <= _MAX_CANVAS):
         raise TracefitInputError(f"cannot read the canvas size {text!r}; expected WIDTHxHEIGHT in pixels, e.g. 800x600 (16 to {_MAX_CANVAS})")
     return w, h
-
-
-def _plane_text(plane) -> str:
-    from tracefit.crystal import format_index
-
-    return format_index(tuple(int(x) for x in plane), "plane")
 
 
 def _pt(c, r):
@@ -169,18 +231,117 @@ def _dashed(img, q0, q1, colour, lw, dash_px):
 
 def _text(img, text, org, scale, colour, th):
     # dark outline first so the label reads on bright and dark backgrounds alike
-    cv2.putText(img, text, org, cv2.FONT_HERSHEY_SIMPLEX, scale, (0, 0, 0), th + 2, cv2.LINE_AA)
-    cv2.putText(img, text, org, cv2.FONT_HERSHEY_SIMPLEX, scale, colour, th, cv2.LINE_AA)
+    cv2.putText(img, text, org, _FONT, scale, (0, 0, 0), th + 2, cv2.LINE_AA)
+    cv2.putText(img, text, org, _FONT, scale, colour, th, cv2.LINE_AA)
+
+
+def _base_picture(image, canvas_size) -> np.ndarray:
+    """RGB uint8 copy of the picture, or a blank canvas of ``canvas_size`` (default 800 x 800)."""
+    if image is not None:
+        return _to_display_rgb8(image)
+    w, h = canvas_size if canvas_size is not None else (800, 800)
+    if not (16 <= int(w) <= _MAX_CANVAS and 16 <= int(h) <= _MAX_CANVAS):
+        raise TracefitInputError(f"canvas size must be 16 to {_MAX_CANVAS} px each way, got {w}x{h}")
+    base = np.empty((int(h), int(w), 3), np.uint8)
+    base[:] = CANVAS_BACKGROUND
+    return base
+
+
+def _trace_groups(traces, labels, w: int, h: int) -> list:
+    """(grain id or None, traces, (c0, r0, radius or None)) for each group drawn about one centre."""
+    if isinstance(traces, Mapping):
+        if labels is None:
+            raise TracefitInputError("traces per grain need the grain label image to place them")
+        lab = np.asarray(labels)
+        if lab.shape[:2] != (h, w):
+            raise TracefitInputError(f"the grain label image is {lab.shape[1]}x{lab.shape[0]} px but the picture is {w}x{h} px")
+        centres = grain_centres(lab, list(traces))
+        return [(gid, traces[gid], centres[gid]) for gid in traces if gid in centres]
+    if labels is not None:
+        raise TracefitInputError("with a grain label image give the traces per grain (dict grain -> traces)")
+    return [(None, list(traces), ((w - 1) / 2.0, (h - 1) / 2.0, None))]
+
+
+def _label_trace(base, t, name, end, centre, style) -> None:
+    """Write a trace's plane beside its line near ``end``, pulled inside the picture."""
+    h, w = base.shape[:2]
+    c0, r0 = centre
+    scale, th, lw, col = style
+    (tw, tth), _ = cv2.getTextSize(name, _FONT, scale, th)
+    f = 0.88
+    lc, lr = c0 + f * (end[0] - c0), r0 + f * (end[1] - r0)
+    # beside the line, not on it: step across it, then centre the text there
+    dc, dr = angle_to_pixel_direction(t.angle_deg)
+    off = 0.5 * math.hypot(tw, tth) + 2 * lw
+    lc, lr = lc + off * dr, lr - off * dc
+    org = (int(np.clip(lc - tw / 2, 2, w - tw - 2)), int(np.clip(lr + tth / 2, tth + 2, h - 3)))
+    _text(base, name, org, scale, col, th)
+
+
+def _draw_group(base, gid, trs, centre, sig, k_sigma, lw, scale, th) -> list:
+    """Draw one group's wedges, lines and labels in place; return its legend entries (colour, text)."""
+    h, w = base.shape[:2]
+    c0, r0, rad = centre
+    half = math.hypot(w, h) if rad is None else max(15.0, rad)
+    # wedges first, all lines on top: a line's pixels keep its exact colour
+    for i, (t, s) in enumerate(zip(trs, sig)):
+        col = np.array(FAMILY_COLOURS[i % len(FAMILY_COLOURS)], np.float32)
+        hw = k_sigma * float(s)
+        if 0.0 < hw < 90.0:
+            m = _wedge_mask((h, w), c0, r0, t.angle_deg, hw, half)
+            base[m] = np.clip(base[m].astype(np.float32) * (1 - WEDGE_ALPHA) + col * WEDGE_ALPHA + 0.5, 0, 255).astype(np.uint8)
+    entries = []
+    for i, (t, s) in enumerate(zip(trs, sig)):
+        col = FAMILY_COLOURS[i % len(FAMILY_COLOURS)]
+        seg = _clipped_segment(w, h, c0, r0, t.angle_deg, half)
+        if seg is None:
+            continue
+        q0, q1 = seg
+        if t.near_surface:
+            _dashed(base, q0, q1, col, lw, max(6.0, 8.0 * lw))
+        else:
+            cv2.line(base, _pt(*q0), _pt(*q1), col, lw, cv2.LINE_AA, _SHIFT)
+        name = plane_label(t.plane)
+        # label near one end (alternating)
+        _label_trace(base, t, name, q1 if i % 2 == 0 else q0, (c0, r0), (scale, th, lw, col))
+        g = "" if gid is None else f"grain {gid}: "
+        ns = ", near surface" if t.near_surface else ""
+        entries.append((col, f"{g}{name} {'/'.join(t.modes)}  {t.angle_deg:.2f} +- {k_sigma * float(s):.2f} deg{ns}"))
+    return entries
+
+
+def _with_legend(base, head, entries, scale, th, lw) -> np.ndarray:
+    """The picture with a legend panel to its right: ``head`` lines, then a swatch per entry."""
+    h, w = base.shape[:2]
+    if not entries:
+        entries = [((200, 200, 200), "no traces")]
+    lh = int(26 * scale) + 8
+    sw = int(36 * scale) + 6
+    text_w = max(cv2.getTextSize(t, _FONT, scale, th)[0][0] for t in head + [e[1] for e in entries])
+    pw = text_w + sw + 24
+    ph = max(h, lh * (len(head) + len(entries)) + 16)
+    out = np.empty((ph, w + pw, 3), np.uint8)
+    out[:] = _PANEL_BG
+    out[:h, :w] = base
+    y = 8 + lh // 2
+    for t in head:
+        cv2.putText(out, t, (w + 10, y + int(8 * scale)), _FONT, scale, _TEXT_COLOUR, th, cv2.LINE_AA)
+        y += lh
+    for col, t in entries:
+        cv2.line(out, (w + 10, y), (w + 10 + sw - 6, y), col, max(2, lw), cv2.LINE_AA)
+        cv2.putText(out, t, (w + 10 + sw, y + int(8 * scale)), _FONT, scale, _TEXT_COLOUR, th, cv2.LINE_AA)
+        y += lh
+    return out
 
 
 def draw_predicted(
-    traces,
-    image=None,
+    traces: Sequence | Mapping[int, Sequence],
+    image: np.ndarray | None = None,
     canvas_size: tuple[int, int] | None = None,
     orientation_sigma_deg: float = 1.0,
-    frame=None,
+    frame: FrameSettings | None = None,
     k_sigma: float = DEFAULT_K_SIGMA,
-    labels=None,
+    labels: np.ndarray | None = None,
     line_width: int | None = None,
     legend: bool = True,
     title: str | None = None,
@@ -190,7 +351,7 @@ def draw_predicted(
     Parameters
     ----------
     traces : sequence of PredictedTrace, or dict grain -> sequence of PredictedTrace
-        From :func:`tracefit.predict.traces.predict_traces`. A dict (one entry per grain) needs
+        From :func:`tracefit.predict.predict_traces`. A dict (one entry per grain) needs
         ``labels``; a sequence is drawn through the picture's centre.
     image : ndarray (H, W) or (H, W, 3|4), optional
         The picture (any units; contrast-stretched for display).
@@ -215,99 +376,73 @@ def draw_predicted(
     -------
     ndarray of uint8, (H, W + panel, 3), RGB. Pixel (col, row) of the picture stays at
     ``[row, col]``; the legend panel (if any) lies to the right, from column W.
+
+    Raises
+    ------
+    TracefitInputError
+        If ``k_sigma`` or ``orientation_sigma_deg`` is out of range, the canvas size is out
+        of range, or ``traces`` and ``labels`` do not go together (a dict needs ``labels`` of
+        the picture's size; a sequence takes none).
+
+    Examples
+    --------
+    >>> from tracefit.crystal import catalogue, from_euler, lattice_preset
+    >>> from tracefit.predict import predict_traces
+    >>> fcc = lattice_preset("fcc")
+    >>> trs = predict_traces(fcc, from_euler([0.0, 0.0, 0.0]), catalogue(fcc, ["slip"]))
+    >>> rgb = draw_predicted(trs[:1], canvas_size=(201, 161), legend=False)  # (1-11) at 45 deg
+    >>> rgb.shape, [tuple(int(v) for v in rgb[80 - 30, 100 + k]) for k in (30, -30)]  # on it, off it
+    ((161, 201, 3), [(255, 64, 64), (32, 32, 32)])
     """
     if not (math.isfinite(k_sigma) and k_sigma > 0):
         raise TracefitInputError(f"the wedge width must be a positive number of sigmas, got {k_sigma!r}")
-    if image is not None:
-        base = _to_rgb8(image)
-    else:
-        w, h = canvas_size if canvas_size is not None else (800, 800)
-        if not (16 <= int(w) <= _MAX_CANVAS and 16 <= int(h) <= _MAX_CANVAS):
-            raise TracefitInputError(f"canvas size must be 16 to {_MAX_CANVAS} px each way, got {w}x{h}")
-        base = np.empty((int(h), int(w), 3), np.uint8)
-        base[:] = CANVAS_BACKGROUND
+    base = _base_picture(image, canvas_size)
     h, w = base.shape[:2]
-    if isinstance(traces, dict):
-        if labels is None:
-            raise TracefitInputError("traces per grain need the grain label image to place them")
-        lab = np.asarray(labels)
-        if lab.shape[:2] != (h, w):
-            raise TracefitInputError(f"the grain label image is {lab.shape[1]}x{lab.shape[0]} px but the picture is {w}x{h} px")
-        centres = grain_centres(lab, list(traces))
-        groups = [(gid, traces[gid], centres[gid]) for gid in traces if gid in centres]
-    else:
-        if labels is not None:
-            raise TracefitInputError("with a grain label image give the traces per grain (dict grain -> traces)")
-        groups = [(None, list(traces), ((w - 1) / 2.0, (h - 1) / 2.0, None))]
+    groups = _trace_groups(traces, labels, w, h)
     lw = line_width or max(2, int(round(max(h, w) / 500)))
     scale = max(0.4, min(h, w) / 1100.0)
     th = max(1, int(round(scale * 1.4)))
     entries = []
-    for gid, trs, (c0, r0, rad) in groups:
+    for gid, trs, centre in groups:
         trs = list(trs)
-        if not trs:
-            continue
-        sig = trace_sigma_deg(trs, orientation_sigma_deg, frame)
-        half = math.hypot(w, h) if rad is None else max(15.0, rad)
-        # wedges first, all lines on top: a line's pixels keep its exact colour
-        for i, (t, s) in enumerate(zip(trs, sig)):
-            col = np.array(FAMILY_COLOURS[i % len(FAMILY_COLOURS)], np.float32)
-            hw = k_sigma * float(s)
-            if 0.0 < hw < 90.0:
-                m = _wedge_mask((h, w), c0, r0, t.angle_deg, hw, half)
-                base[m] = np.clip(base[m].astype(np.float32) * (1 - WEDGE_ALPHA) + col * WEDGE_ALPHA + 0.5, 0, 255).astype(np.uint8)
-        for i, (t, s) in enumerate(zip(trs, sig)):
-            col = FAMILY_COLOURS[i % len(FAMILY_COLOURS)]
-            seg = _clipped_segment(w, h, c0, r0, t.angle_deg, half)
-            if seg is None:
-                continue
-            q0, q1 = seg
-            if t.near_surface:
-                _dashed(base, q0, q1, col, lw, max(6.0, 8.0 * lw))
-            else:
-                cv2.line(base, _pt(*q0), _pt(*q1), col, lw, cv2.LINE_AA, _SHIFT)
-            name = _plane_text(t.plane)
-            # label near one end (alternating), pulled inside the picture
-            end = q1 if i % 2 == 0 else q0
-            (tw, tth), _ = cv2.getTextSize(name, cv2.FONT_HERSHEY_SIMPLEX, scale, th)
-            f = 0.88
-            lc, lr = c0 + f * (end[0] - c0), r0 + f * (end[1] - r0)
-            # beside the line, not on it: step across it, then centre the text there
-            dc, dr = angle_to_pixel_direction(t.angle_deg)
-            off = 0.5 * math.hypot(tw, tth) + 2 * lw
-            lc, lr = lc + off * dr, lr - off * dc
-            org = (int(np.clip(lc - tw / 2, 2, w - tw - 2)), int(np.clip(lr + tth / 2, tth + 2, h - 3)))
-            _text(base, name, org, scale, col, th)
-            g = "" if gid is None else f"grain {gid}: "
-            ns = ", near surface" if t.near_surface else ""
-            entries.append((col, f"{g}{name} {'/'.join(t.modes)}  {t.angle_deg:.2f} +- {k_sigma * float(s):.2f} deg{ns}"))
+        if trs:
+            sig = trace_sigma_deg(trs, orientation_sigma_deg, frame)
+            entries += _draw_group(base, gid, trs, centre, sig, k_sigma, lw, scale, th)
     if not legend:
         return base
     head = [title or "predicted traces (deg ccw from image x)",
             f"wedge +-{k_sigma:g} sigma, orientation sigma {orientation_sigma_deg:g} deg"]
-    if not entries:
-        entries = [((200, 200, 200), "no traces")]
-    lh = int(26 * scale) + 8
-    sw = int(36 * scale) + 6
-    text_w = max(cv2.getTextSize(t, cv2.FONT_HERSHEY_SIMPLEX, scale, th)[0][0] for t in head + [e[1] for e in entries])
-    pw = text_w + sw + 24
-    ph = max(h, lh * (len(head) + len(entries)) + 16)
-    out = np.empty((ph, w + pw, 3), np.uint8)
-    out[:] = _PANEL_BG
-    out[:h, :w] = base
-    y = 8 + lh // 2
-    for t in head:
-        cv2.putText(out, t, (w + 10, y + int(8 * scale)), cv2.FONT_HERSHEY_SIMPLEX, scale, (235, 235, 235), th, cv2.LINE_AA)
-        y += lh
-    for col, t in entries:
-        cv2.line(out, (w + 10, y), (w + 10 + sw - 6, y), col, max(2, lw), cv2.LINE_AA)
-        cv2.putText(out, t, (w + 10 + sw, y + int(8 * scale)), cv2.FONT_HERSHEY_SIMPLEX, scale, (235, 235, 235), th, cv2.LINE_AA)
-        y += lh
-    return out
+    return _with_legend(base, head, entries, scale, th, lw)
 
 
-def write_overlay(path, rgb: np.ndarray) -> Path:
-    """Write an RGB uint8 drawing (e.g. from :func:`draw_predicted`) to PNG/TIFF/JPEG/BMP."""
+def write_overlay(path: str | os.PathLike, rgb: np.ndarray) -> Path:
+    """Write an RGB uint8 drawing (e.g. from :func:`draw_predicted`) to PNG/TIFF/JPEG/BMP.
+
+    Parameters
+    ----------
+    path : str or Path
+        Output file ending in .png, .tif, .tiff, .jpg, .jpeg or .bmp; its folder must exist.
+    rgb : ndarray of uint8, shape (H, W, 3)
+        The drawing, RGB order.
+
+    Returns
+    -------
+    Path
+        The image file written (``path``).
+
+    Raises
+    ------
+    TracefitInputError
+        If the suffix is not an image type, the folder does not exist, or writing fails.
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     p = write_overlay(Path(d) / "o.png", np.zeros((4, 5, 3), np.uint8))
+    ...     cv2.imread(str(p)).shape
+    (4, 5, 3)
+    """
     p = Path(path)
     if p.suffix.lower() not in (".png", ".tif", ".tiff", ".jpg", ".jpeg", ".bmp"):
         raise TracefitInputError(f"{str(p)!r}: expected an image file name ending in .png, .tif, .jpg or .bmp")

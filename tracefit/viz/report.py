@@ -13,11 +13,26 @@ from __future__ import annotations
 import base64
 import html
 import json
+import os
 import time
 from pathlib import Path
+from typing import Protocol, Union
 
 import tracefit
 from tracefit.atomic import write_text
+from tracefit.errors import TracefitInputError
+from tracefit.viz.labels import direction_label, family_label, plane_label
+
+class _ResultsLike(Protocol):
+    """What the report needs of a survey result (e.g. tracefit.survey.SurveyResult): records and to_dict()."""
+
+    records: list
+
+    def to_dict(self) -> dict: ...
+
+
+_Results = Union[_ResultsLike, dict, list]  # a survey result, its results.json content, or its image records
+_PathLike = Union[str, os.PathLike]
 
 __all__ = ["write_report", "render_report", "CONVENTIONS_SUMMARY"]
 
@@ -90,15 +105,11 @@ def _num(x, nd=2) -> str:
 
 
 def _plane(p) -> str:
-    from tracefit.viz.plots import plane_label
-
     return plane_label(tuple(p)) if p is not None else ""
 
 
 def _direction(d) -> str:
-    from tracefit.survey.runner import plane_label_direction
-
-    return plane_label_direction(d) if d else ""
+    return direction_label(d) if d else ""
 
 
 def _img_tag(path: Path, alt: str, cls: str) -> str:
@@ -133,8 +144,6 @@ def _settings_rows(s: dict) -> str:
 
 
 def _verdict(ident: dict) -> str:
-    from tracefit.survey import family_label
-
     if not ident or ident.get("unexplained") or not ident.get("candidates"):
         return '<span class="verdict-unexplained">unexplained by the candidates</span>'
     lab = _e(family_label(ident))
@@ -186,7 +195,8 @@ def _candidate_table(rec: dict, fam: dict) -> str:
     return cap + table + extra
 
 
-def _image_section(rec: dict, img_dir: Path) -> str:
+def _image_header(rec: dict) -> list[str]:
+    """Section heading, status line, notes and the settings table of one image."""
     name = rec["name"]
     out = [f'<section class="image" id="image-{_e(name)}">', f"<h2>Image {_e(name)}</h2>"]
     status = rec.get("status")
@@ -199,25 +209,21 @@ def _image_section(rec: dict, img_dir: Path) -> str:
                       for k, v in (rec.get("inputs_sha256") or {}).items())
     out.append(f'<table class="settings" data-image="{_e(name)}">{_settings_rows(rec.get("settings") or {})}'
                f"{digests}</table>")
-    if status != "ok":
-        out.append(f'<div class="error">This image was not analysed: {_e(rec.get("error"))}</div>')
-        out.append("</section>")
-        return "".join(out)
-    if rec.get("warnings"):
-        out.append('<ul class="notes">' + "".join(f"<li>warning: {_e(w)}</li>" for w in rec["warnings"]) + "</ul>")
-    if rec.get("notes"):
-        out.append('<details class="notes"><summary>Reading and detection notes</summary><ul>'
-                   + "".join(f"<li>{_e(n)}</li>" for n in rec["notes"]) + "</ul></details>")
+    return out
+
+
+def _figures(rec: dict, img_dir: Path) -> str:
+    """The image's overlay, stereogram(s) and rose diagram, embedded, with captions."""
+    name = rec["name"]
     figs = rec.get("figures") or {}
     fams = rec.get("families") or []
-    out.append('<div class="figs">')
+    out = ['<div class="figs">']
     if figs.get("overlay"):
         out.append('<figure class="overlay">' + _img_tag(img_dir / figs["overlay"], f"{name}: overlay", "overlay")
                    + f"<figcaption>Detected band families drawn on the micrograph, each labelled with its identified "
                    f"plane (F1 ... F{len(fams)}; G = grain).</figcaption></figure>")
-    st = figs.get("stereograms") or []
     grs = rec.get("grains") or []
-    for k, sname in enumerate(st):
+    for k, sname in enumerate(figs.get("stereograms") or []):
         gr = grs[k] if k < len(grs) else {}
         gtxt = f" of grain {gr['grain']}" if gr.get("grain") is not None else ""
         eul = (" (Bunge Euler " + ", ".join(_num(x, 1) for x in gr["euler_deg"]) + " deg)") if gr.get("euler_deg") else ""
@@ -231,7 +237,12 @@ def _image_section(rec: dict, img_dir: Path) -> str:
                    + "<figcaption>Rose diagram of band angles (axial: 0-180 deg mirrored), weighted by the number of "
                    "bands.</figcaption></figure>")
     out.append("</div>")
-    # summary table of the families
+    return "".join(out)
+
+
+def _families_table(rec: dict) -> str:
+    """One summary row per band family of the image: verdict, best probability and residual."""
+    fams = rec.get("families") or []
     rows = []
     for fam in fams:
         ident = fam.get("identification") or {}
@@ -243,14 +254,40 @@ def _image_section(rec: dict, img_dir: Path) -> str:
             f"<td>{_verdict(ident)}</td><td class=\"num\">{_num(b.get('probability'), 3)}</td>"
             f"<td class=\"num\">{_num(b.get('residual_deg'))}</td></tr>"
         )
-    out.append(f'<h3>Families found: {len(fams)}</h3>')
-    out.append(f'<table class="families" data-image="{_e(name)}" data-rows="{len(fams)}"><thead><tr><th>family</th>'
-               "<th>grain</th><th>angle (deg)</th><th>bands</th><th>identified as</th><th>probability</th>"
-               f"<th>residual (deg)</th></tr></thead><tbody>{''.join(rows)}</tbody></table>")
-    for fam in fams:
+    return (f'<h3>Families found: {len(fams)}</h3>'
+            f'<table class="families" data-image="{_e(rec["name"])}" data-rows="{len(fams)}"><thead><tr><th>family</th>'
+            "<th>grain</th><th>angle (deg)</th><th>bands</th><th>identified as</th><th>probability</th>"
+            f"<th>residual (deg)</th></tr></thead><tbody>{''.join(rows)}</tbody></table>")
+
+
+def _image_section(rec: dict, img_dir: Path) -> str:
+    out = _image_header(rec)
+    if rec.get("status") != "ok":
+        out.append(f'<div class="error">This image was not analysed: {_e(rec.get("error"))}</div>')
+        out.append("</section>")
+        return "".join(out)
+    if rec.get("warnings"):
+        out.append('<ul class="notes">' + "".join(f"<li>warning: {_e(w)}</li>" for w in rec["warnings"]) + "</ul>")
+    if rec.get("notes"):
+        out.append('<details class="notes"><summary>Reading and detection notes</summary><ul>'
+                   + "".join(f"<li>{_e(n)}</li>" for n in rec["notes"]) + "</ul></details>")
+    out.append(_figures(rec, img_dir))
+    out.append(_families_table(rec))
+    for fam in rec.get("families") or []:
         out.append(_candidate_table(rec, fam))
     out.append("</section>")
     return "".join(out)
+
+
+_HOW_TO_READ = (
+    '<p class="notes"><strong>How to read this report.</strong> For every family of parallel bands found '
+    "in an image, tracefit lists the candidate planes whose predicted surface trace fits the measured "
+    "angle, with the residual (measured minus predicted, degrees) and the probability of each, given the "
+    "angle's uncertainty and the orientation's. <em>Identified</em>: one plane holds most of the "
+    "probability. <em>Ambiguous</em>: a second plane holds at least a tenth of the best one's "
+    "probability; other evidence is needed. <em>Unexplained</em>: \"none of these\" is the likeliest "
+    "answer (a scratch, a wrong orientation or frame, or a system outside the chosen modes). The Schmid "
+    "factor of the best system on a plane is given when the load is known.</p>")
 
 
 def _as_payload(result) -> dict:
@@ -260,21 +297,13 @@ def _as_payload(result) -> dict:
         return result
     if isinstance(result, list):
         return {"images": result, "job": {}}
-    raise TypeError("write_report takes a SurveyResult, its to_dict(), or a list of image records")
+    raise TracefitInputError("result must be a SurveyResult, its to_dict(), or a list of image records, "
+                             f"not {type(result).__name__}")
 
 
-def render_report(result, img_dir, generated_utc: str | None = None) -> str:
-    """The report HTML as a string (see :func:`write_report`)."""
-    d = _as_payload(result)
-    img_dir = Path(img_dir)
-    job = d.get("job") or {}
-    images = d.get("images") or []
-    title = job.get("title") or "tracefit survey"
-    when = generated_utc or time.strftime("%Y-%m-%d %H:%M UTC", time.gmtime())
-    n_ok = sum(r.get("status") == "ok" for r in images)
-    n_fail = len(images) - n_ok
-    caution = tracefit.CAUTION
-    parts = [
+def _page_head(title: str, when: str, job: dict) -> list[str]:
+    """Document head (inline style, no scripts), the page header and the caution box."""
+    return [
         "<!DOCTYPE html>",
         '<html lang="en"><head><meta charset="utf-8">',
         '<meta name="viewport" content="width=device-width, initial-scale=1">',
@@ -286,46 +315,40 @@ def render_report(result, img_dir, generated_utc: str | None = None) -> str:
         f"&middot; generated {_e(when)}</p>"
         + (f"<p>Job file: <code>{_e(Path(job['path']).name)}</code></p>" if job.get("path") else "")
         + "</header><main>",
-        f'<div class="caution" id="caution"><strong>Caution.</strong> {_e(caution)}</div>',
+        f'<div class="caution" id="caution"><strong>Caution.</strong> {_e(tracefit.CAUTION)}</div>',
     ]
-    if job.get("notes"):
-        parts.append(f"<p>{_e(job['notes'])}</p>")
-    parts.append(
-        '<p class="notes"><strong>How to read this report.</strong> For every family of parallel bands found '
-        "in an image, tracefit lists the candidate planes whose predicted surface trace fits the measured "
-        "angle, with the residual (measured minus predicted, degrees) and the probability of each, given the "
-        "angle's uncertainty and the orientation's. <em>Identified</em>: one plane holds most of the "
-        "probability. <em>Ambiguous</em>: a second plane holds at least a tenth of the best one's "
-        "probability; other evidence is needed. <em>Unexplained</em>: \"none of these\" is the likeliest "
-        "answer (a scratch, a wrong orientation or frame, or a system outside the chosen modes). The Schmid "
-        "factor of the best system on a plane is given when the load is known.</p>")
-    # summary
-    srows = []
-    for r in images:
-        fams = r.get("families") or []
-        n_id = sum(1 for f in fams if (f.get("identification") or {}).get("candidates")
-                   and not f["identification"].get("unexplained") and not f["identification"].get("ambiguous"))
-        n_amb = sum(1 for f in fams if (f.get("identification") or {}).get("ambiguous"))
-        n_un = len(fams) - n_id - n_amb
-        planes = ", ".join(dict.fromkeys(
-            _plane(f["identification"]["candidates"][0]["plane"]) for f in fams
-            if (f.get("identification") or {}).get("candidates") and not f["identification"].get("unexplained")))
-        st = r.get("status")
-        srows.append(
-            f'<tr><td><a href="#image-{_e(r["name"])}">{_e(r["name"])}</a></td><td class="status-{_e(st)}">{_e(st)}</td>'
-            f"<td>{_e((r.get('settings') or {}).get('lattice', ''))}</td>"
-            f"<td class=\"num\">{len(fams) if st == 'ok' else ''}</td><td class=\"num\">{n_id if st == 'ok' else ''}</td>"
-            f"<td class=\"num\">{n_amb if st == 'ok' else ''}</td><td class=\"num\">{n_un if st == 'ok' else ''}</td>"
-            f"<td>{_e(planes) if st == 'ok' else _e(r.get('error'))}</td></tr>"
-        )
-    parts.append(f"<h2>Summary</h2><p>{len(images)} image(s): {n_ok} analysed, {n_fail} failed.</p>")
-    parts.append('<table class="summary" data-rows="%d"><thead><tr><th>image</th><th>status</th><th>lattice</th>'
-                 "<th>families</th><th>identified</th><th>ambiguous</th><th>unexplained</th>"
-                 "<th>planes / error</th></tr></thead><tbody>%s</tbody></table>" % (len(images), "".join(srows)))
-    for r in images:
-        parts.append(_image_section(r, img_dir))
-    # settings and conventions
-    parts.append("<h2>Settings and conventions</h2>")
+
+
+def _summary_row(r: dict) -> str:
+    """One image's summary row: status, family counts by verdict and its identified planes (or error)."""
+    fams = r.get("families") or []
+    idents = [f.get("identification") or {} for f in fams]
+    n_id = sum(1 for i in idents if i.get("candidates") and not i.get("unexplained") and not i.get("ambiguous"))
+    n_amb = sum(1 for i in idents if i.get("ambiguous"))
+    n_un = len(fams) - n_id - n_amb
+    planes = ", ".join(dict.fromkeys(
+        _plane(i["candidates"][0]["plane"]) for i in idents if i.get("candidates") and not i.get("unexplained")))
+    st = r.get("status")
+    ok = st == "ok"
+    counts = "".join(f"<td class=\"num\">{n if ok else ''}</td>" for n in (len(fams), n_id, n_amb, n_un))
+    return (f'<tr><td><a href="#image-{_e(r["name"])}">{_e(r["name"])}</a></td><td class="status-{_e(st)}">{_e(st)}</td>'
+            f"<td>{_e((r.get('settings') or {}).get('lattice', ''))}</td>{counts}"
+            f"<td>{_e(planes) if ok else _e(r.get('error'))}</td></tr>")
+
+
+def _summary(images: list) -> list[str]:
+    n_ok = sum(r.get("status") == "ok" for r in images)
+    return [
+        f"<h2>Summary</h2><p>{len(images)} image(s): {n_ok} analysed, {len(images) - n_ok} failed.</p>",
+        '<table class="summary" data-rows="%d"><thead><tr><th>image</th><th>status</th><th>lattice</th>'
+        "<th>families</th><th>identified</th><th>ambiguous</th><th>unexplained</th>"
+        "<th>planes / error</th></tr></thead><tbody>%s</tbody></table>" % (len(images), "".join(map(_summary_row, images))),
+    ]
+
+
+def _settings_and_conventions(d: dict, job: dict) -> list[str]:
+    """Job defaults, the conventions, the software versions and the job file as run."""
+    parts = ["<h2>Settings and conventions</h2>"]
     if job.get("defaults"):
         parts.append("<h3>Job defaults</h3><table class=\"defaults\">" + "".join(
             f"<tr><th>{_e(k)}</th><td><code>{_e(json.dumps(v))}</code></td></tr>" for k, v in job["defaults"].items())
@@ -339,23 +362,78 @@ def render_report(result, img_dir, generated_utc: str | None = None) -> str:
     if job.get("text"):
         parts.append("<details><summary>The job file as run</summary><pre class=\"jobtext\">"
                      f"{_e(job['text'])}</pre></details>")
-    parts.append(
-        f"<footer><p><strong>Caution.</strong> {_e(caution)}</p><p>Made with tracefit {_e(tracefit.__version__)}. "
+    return parts
+
+
+def _footer() -> str:
+    return (
+        f"<footer><p><strong>Caution.</strong> {_e(tracefit.CAUTION)}</p><p>Made with tracefit {_e(tracefit.__version__)}. "
         "Each image's full record (detection, every candidate, settings, input fingerprint) is in "
         "<code>results.json</code> beside this report; one row per family in <code>results.csv</code>.</p>"
         "</footer></main></body></html>"
     )
+
+
+# An example record for the doctests: one image, one family identified as (1-11) slip.
+_EXAMPLE = {"job": {"title": "Coupon X"}, "images": [{
+    "name": "x1", "status": "ok", "settings": {"lattice": "fcc"},
+    "families": [{"index": 1, "angle_deg": 45.0, "n_bands": 3, "identification": {
+        "candidates": [{"plane": [1, -1, 1], "mode": "slip", "probability": 0.97, "residual_deg": 0.2}]}}]}]}
+
+
+def render_report(result: _Results, img_dir: _PathLike, generated_utc: str | None = None) -> str:
+    """The report HTML as a string (see :func:`write_report`).
+
+    Parameters
+    ----------
+    result : SurveyResult, dict or list of dict
+        A :class:`tracefit.survey.SurveyResult`, its ``to_dict()`` (the content of
+        ``results.json``), or a list of per-image records.
+    img_dir : str or Path
+        Folder of the figure PNGs named in the records (they are embedded as base64).
+    generated_utc : str, optional
+        Time stamp printed in the header (default now, UTC).
+
+    Returns
+    -------
+    str
+        One self-contained HTML document.
+
+    Raises
+    ------
+    TracefitInputError
+        If ``result`` is none of the accepted forms.
+
+    Examples
+    --------
+    >>> page = render_report(_EXAMPLE, ".", generated_utc="2024-01-01 00:00 UTC")
+    >>> page.startswith("<!DOCTYPE html>"), "<strong>(1-11) slip</strong>" in page, "<script" in page
+    (True, True, False)
+    """
+    d = _as_payload(result)
+    img_dir = Path(img_dir)
+    job = d.get("job") or {}
+    images = d.get("images") or []
+    title = job.get("title") or "tracefit survey"
+    when = generated_utc or time.strftime("%Y-%m-%d %H:%M UTC", time.gmtime())
+    parts = _page_head(title, when, job)
+    if job.get("notes"):
+        parts.append(f"<p>{_e(job['notes'])}</p>")
+    parts.append(_HOW_TO_READ)
+    parts += _summary(images)
+    parts += [_image_section(r, img_dir) for r in images]
+    parts += _settings_and_conventions(d, job)
+    parts.append(_footer())
     return "\n".join(parts)
 
 
-def write_report(result, path, img_dir=None) -> Path:
+def write_report(result: _Results, path: _PathLike, img_dir: _PathLike | None = None) -> Path:
     """Write the self-contained HTML report.
 
     Parameters
     ----------
     result : SurveyResult, dict or list of dict
-        A :class:`tracefit.survey.runner.SurveyResult`, its ``to_dict()`` (the content of
-        ``results.json``), or a list of per-image records.
+        The survey's results, in any form :func:`render_report` takes.
     path : str or Path
         Output HTML file (written atomically).
     img_dir : str or Path, optional
@@ -364,6 +442,20 @@ def write_report(result, path, img_dir=None) -> Path:
     Returns
     -------
     Path
+        The HTML file written, ``path``.
+
+    Raises
+    ------
+    TracefitInputError
+        As :func:`render_report`: ``result`` is not a SurveyResult, a dict or a list.
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     p = write_report(_EXAMPLE, Path(d) / "report.html")
+    ...     p.name, "Coupon X" in p.read_text(encoding="utf-8")
+    ('report.html', True)
     """
     path = Path(path)
     img_dir = Path(img_dir) if img_dir is not None else path.parent / "images"
