@@ -49,7 +49,6 @@ __all__ = [
     "image_fingerprint",
     "csv_rows",
     "write_results_csv",
-    "family_label",
     "software_versions",
     "available_cores",
     "CSV_COLUMNS",
@@ -182,30 +181,8 @@ def analysis_from_result(res) -> ImageAnalysis:
 
 
 # --------------------------------------------------------------------------- figures and record
-def family_label(ident: dict | None) -> str:
-    """Short verdict label for a family: its identified plane and mode, or why not."""
-    from tracefit.viz.plots import plane_label
-
-    if not ident:
-        return "not identified"
-    cands = ident.get("candidates") or []
-    if ident.get("unexplained") or not cands:
-        return "unexplained"
-    best = cands[0]
-    lab = f"{plane_label(tuple(best['plane']))} {best.get('mode', '')}".strip()
-    if ident.get("ambiguous"):
-        seen = [plane_label(tuple(best["plane"]))]
-        for c in cands[1:]:
-            p = plane_label(tuple(c["plane"]))
-            if p not in seen:
-                seen.append(p)
-                break
-        lab = " or ".join(seen) + " (ambiguous)"
-    return lab
-
-
 def _draw_figures(im: ImageJob, a: ImageAnalysis, img_dir: Path) -> dict:
-    from tracefit.viz import plots
+    from tracefit.viz import family_label, plots
 
     figs = {}
     labels = []
@@ -446,7 +423,8 @@ def _mp_context():
         return mp.get_context("spawn")
     ctx = mp.get_context("forkserver")
     # the server imports the heavy modules once; each worker forked from it starts warm
-    ctx.set_forkserver_preload(["tracefit.survey.runner", "tracefit.image.detect", "tracefit.identify.matching", "tracefit.viz.plots"])
+    ctx.set_forkserver_preload(["tracefit.survey.runner", "tracefit.pipeline", "tracefit.image", "tracefit.identify",
+                                "tracefit.viz.plots", "matplotlib.figure", "matplotlib.backends.backend_agg"])
     return ctx
 
 
@@ -573,13 +551,6 @@ def csv_rows(records: list[dict]) -> list[dict]:
             continue
         rows.extend(family_rows(rec["name"], rec.get("families") or []))
     return rows
-
-
-def plane_label_direction(d) -> str:
-    """A direction's indices in the project's notation (kept for the report)."""
-    from tracefit.results import direction_label
-
-    return direction_label(d)
 
 
 def write_results_csv(records: list[dict], path) -> Path:
