@@ -100,3 +100,24 @@ def test_bad_input_exit_2_one_line(run_cli, tmp_path, banded, kind):
 def test_bad_pixel_size(run_cli, banded):
     code, _, err = run_cli("detect", str(banded[0]), "--pixel-size", "-1")
     assert code == 2 and "pixel-size" in err
+
+
+@pytest.mark.parametrize("args", [
+    ("identify", "x.png", "--lattice", "fcc", "--euler", "1,2,3", "--orientation-sigma", "abc"),
+    ("identify", "--bogus"),
+    ("survey",),
+    ("detect", "x.png", "--working-size", "many"),
+])
+def test_usage_errors_are_one_line_with_exit_2(run_cli, args):
+    # A user's typo gets one line on stderr, like every other error (common practice, no source).
+    code, out, err = run_cli(*args)
+    assert code == 2
+    assert err.startswith("tracefit: error: ") and err.count("\n") == 1, err
+    assert "Traceback" not in err and "Usage:" not in err
+
+
+def test_version(run_cli):
+    import tracefit
+
+    code, out, err = run_cli("--version")
+    assert code == 0 and out.strip() == f"tracefit {tracefit.__version__}"

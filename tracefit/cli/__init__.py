@@ -20,8 +20,19 @@ app = typer.Typer(
 )
 
 
+def _print_version(value: bool) -> None:
+    if value:
+        from tracefit import __version__
+
+        typer.echo(f"tracefit {__version__}")
+        raise typer.Exit(0)
+
+
 @app.callback()
-def _root() -> None:
+def _root(
+    version: bool = typer.Option(False, "--version", help="Print the version and exit.", callback=_print_version,
+                                 is_eager=True),
+) -> None:
     """tracefit: slip- and twin-trace analysis of micrographs."""
 
 
@@ -77,7 +88,9 @@ def main(argv: list[str] | None = None) -> int:
         # Usage errors from the click layer (typer may vendor its own copy of click,
         # so match by class name rather than by importing click).
         if any(k.__name__ == "ClickException" for k in type(exc).__mro__):
-            exc.show()
+            # One line like every other error (click's own usage block is several).
+            msg = " ".join(str(exc.format_message()).split())
+            print(f"tracefit: error: {msg} (see tracefit --help)", file=sys.stderr)
             return int(getattr(exc, "exit_code", 2) or 2)
         raise
     return int(code) if isinstance(code, int) else 0
