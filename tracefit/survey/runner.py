@@ -299,6 +299,11 @@ def process_image(im: ImageJob, out_dir, analyse: Callable[[ImageJob], ImageAnal
 
 
 def _init_worker() -> None:
+    # Ctrl-C reaches the whole process group: the parent stops the survey and ends the workers, so
+    # a worker must not die on its own mid-image with a traceback of its own.
+    import signal
+
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
     # One process per core already: keep OpenCV from starting a thread per core in each worker.
     try:
         import cv2
@@ -412,6 +417,20 @@ def available_cores() -> int:
         return os.cpu_count() or 1
 
 
+def default_workers(memory_per_worker_gb: float = 1.2) -> int:
+    """Workers to start by default: one per core, fewer when memory would not hold them.
+
+    A worker on a 64-megapixel image holds about 1 GB (benchmarks/detect.py measures it), so
+    the count is also capped at the available memory over ``memory_per_worker_gb``.
+    """
+    cores = available_cores()
+    try:
+        avail = os.sysconf("SC_AVPHYS_PAGES") * os.sysconf("SC_PAGE_SIZE") / 1e9
+    except (ValueError, OSError, AttributeError):  # pragma: no cover - no sysconf
+        return cores
+    return max(1, min(cores, int(avail // memory_per_worker_gb)))
+
+
 def _mp_context():
     # Workers come from a fresh server process ("forkserver"), not from a fork of this
     # possibly multi-threaded process (BLAS, OpenCV and GUI threads do not survive a fork
@@ -446,25 +465,128 @@ def _previous(out_dir: Path, im: ImageJob, figures: bool) -> dict | None:
 
 
 def _run_in_pool(todo, out_dir, analyse, figures, n_workers, records, bar) -> None:
-    """Analyse ``todo`` in worker processes, recording each image as it finishes."""
-    with ProcessPoolExecutor(max_workers=n_workers, mp_context=_mp_context(), initializer=_init_worker) as pool:
+    """Analyse ``todo`` in worker processes, recording each image as it finishes.
+
+    On an interrupt (Ctrl-C, or SIGTERM turned into one) no new image starts, the workers and
+    their server process are ended at once (their images are abandoned, not half-written: every
+    file is written atomically) and the interrupt goes on to the caller.
+    """
+    pool = ProcessPoolExecutor(max_workers=n_workers, mp_context=_mp_context(), initializer=_init_worker)
+    try:
         futs = {pool.submit(_worker, (im, out_dir, analyse, figures)): im for im in todo}
+        for fut in as_completed(futs):
+            im = futs[fut]
+            try:
+                rec = fut.result()
+            except Exception as exc:  # the worker process itself died
+                rec = {"name": im.name, "file": str(im.file), "line": im.line, "status": "failed",
+                       "error": f"worker process failed: {type(exc).__name__}: {exc}",
+                       "fingerprint": image_fingerprint(im), "settings": jsonable(im.settings()),
+                       "tracefit_version": tracefit.__version__}
+                write_text(out_dir / "images" / f"{im.name}.json", json.dumps(rec, indent=1))
+            records[im.name] = rec
+            bar.step(im.name, rec["status"] if rec["status"] == "ok" else "FAILED")
+    except BaseException:
+        _stop_pool(pool)
+        raise
+    pool.shutdown(wait=True)
+
+
+def _stop_pool(pool) -> None:
+    """End a process pool now: cancel what has not started, terminate the workers and the fork server."""
+    procs = list((getattr(pool, "_processes", None) or {}).values())
+    pool.shutdown(wait=False, cancel_futures=True)
+    for proc in procs:
         try:
-            for fut in as_completed(futs):
-                im = futs[fut]
-                try:
-                    rec = fut.result()
-                except Exception as exc:  # the worker process itself died
-                    rec = {"name": im.name, "file": str(im.file), "line": im.line, "status": "failed",
-                           "error": f"worker process failed: {type(exc).__name__}: {exc}",
-                           "fingerprint": image_fingerprint(im), "settings": jsonable(im.settings()),
-                           "tracefit_version": tracefit.__version__}
-                    write_text(out_dir / "images" / f"{im.name}.json", json.dumps(rec, indent=1))
-                records[im.name] = rec
-                bar.step(im.name, rec["status"] if rec["status"] == "ok" else "FAILED")
-        except KeyboardInterrupt:
-            pool.shutdown(wait=False, cancel_futures=True)
-            raise
+            proc.terminate()
+        except Exception:  # pragma: no cover - already gone
+            pass
+    for proc in procs:
+        proc.join(timeout=3)
+        if proc.is_alive():  # pragma: no cover - a worker stuck in native code
+            proc.kill()
+    try:  # the fork server outlives the pool otherwise (its workers are gone, it is not needed)
+        from multiprocessing import forkserver
+
+        forkserver._forkserver._stop()
+    except Exception:  # pragma: no cover - private API moved, or spawn was used
+        pass
+
+
+class _SurveyLock:
+    """``OUT/.survey.lock`` holding the owner's pid: one survey per output folder at a time.
+
+    A lock whose process no longer runs (a crash, a kill -9) is stale and taken over.
+    """
+
+    def __init__(self, out_dir: Path):
+        self.path = out_dir / ".survey.lock"
+
+    def __enter__(self):
+        try:
+            owner = int(self.path.read_text().strip() or 0)
+        except (OSError, ValueError):
+            owner = 0
+        if owner and owner != os.getpid() and _process_alive(owner):
+            raise TracefitInputError(f"another survey (process {owner}) is writing to {self.path.parent}; wait for it "
+                                     f"to finish or choose another output folder")
+        write_text(self.path, f"{os.getpid()}\n")
+        return self
+
+    def __exit__(self, *exc):
+        self.path.unlink(missing_ok=True)
+        return False
+
+
+def _process_alive(pid: int) -> bool:
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:  # someone else's process with that pid
+        return True
+    return True
+
+
+def _remove_stale_temporaries(out_dir: Path) -> None:
+    """Temporary files an earlier run left when it was killed mid-write (``.NAME.XXXX.tmp``)."""
+    for folder in (out_dir, out_dir / "images"):
+        for tmp in folder.glob(".*.tmp"):
+            tmp.unlink(missing_ok=True)
+
+
+def _prepare_output(out_dir: Path) -> None:
+    if out_dir.exists() and not out_dir.is_dir():
+        raise TracefitInputError(f"the output folder {str(out_dir)!r} is an existing file; give a folder")
+    try:
+        (out_dir / "images").mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise TracefitInputError(f"cannot create the output folder {str(out_dir)!r}: {exc.strerror or exc}") from None
+    if not os.access(out_dir, os.W_OK) or not os.access(out_dir / "images", os.W_OK):
+        raise TracefitInputError(f"the output folder {str(out_dir)!r} is not writable")
+
+
+class _TermAsInterrupt:
+    """While running, SIGTERM (``kill PID``) stops the survey as Ctrl-C does: cleanly, resumable."""
+
+    def __enter__(self):
+        import signal
+        import threading
+
+        self.old = None
+        if threading.current_thread() is threading.main_thread():
+            def _raise(signum, frame):
+                raise KeyboardInterrupt
+
+            self.old = signal.signal(signal.SIGTERM, _raise)
+        return self
+
+    def __exit__(self, *exc):
+        if self.old is not None:
+            import signal
+
+            signal.signal(signal.SIGTERM, self.old)
+        return False
 
 
 def run_survey(job: Job, out_dir, workers: int | None = None, resume: bool = False, progress: bool = True,
@@ -504,10 +626,16 @@ def run_survey(job: Job, out_dir, workers: int | None = None, resume: bool = Fal
         ``exit_code`` is 0 when every image succeeded and 1 when some failed.
     """
     out_dir = Path(out_dir)
-    (out_dir / "images").mkdir(parents=True, exist_ok=True)
-    n_workers = int(workers) if workers else available_cores()
+    n_workers = int(workers) if workers else default_workers()
     if n_workers < 1:
-        raise TracefitInputError(f"--workers must be at least 1, got {workers}")
+        raise TracefitInputError(f"workers must be at least 1, got {workers}")
+    _prepare_output(out_dir)
+    with _SurveyLock(out_dir), _TermAsInterrupt():
+        _remove_stale_temporaries(out_dir)
+        return _survey(job, out_dir, n_workers, resume, progress, analyse, report, figures)
+
+
+def _survey(job, out_dir, n_workers, resume, progress, analyse, report, figures) -> SurveyResult:
     records: dict[str, dict] = {}
     reused = []
     todo = []
@@ -532,12 +660,17 @@ def run_survey(job: Job, out_dir, workers: int | None = None, resume: bool = Fal
         _run_in_pool(todo, out_dir, analyse, figures, n_workers, records, bar)
     ordered = [records[im.name] for im in job.images]
     result = SurveyResult(job=job, out_dir=out_dir, records=ordered, reused=reused)
-    result.csv_path = write_results_csv(ordered, out_dir / "results.csv")
-    result.json_path = write_text(out_dir / "results.json", json.dumps(jsonable(result.to_dict()), indent=1))
-    if report:
-        from tracefit.viz.report import write_report
+    try:
+        result.csv_path = write_results_csv(ordered, out_dir / "results.csv")
+        result.json_path = write_text(out_dir / "results.json", json.dumps(jsonable(result.to_dict()), indent=1))
+        if report:
+            from tracefit.viz.report import write_report
 
-        result.report_path = write_report(result, out_dir / "report.html")
+            result.report_path = write_report(result, out_dir / "report.html")
+    except OSError as exc:  # a full disk or a folder made read-only under us: the images are safe
+        raise TracefitInputError(f"could not write the survey's tables or report in {str(out_dir)!r}: "
+                                 f"{exc.strerror or exc}; every finished image is kept, so free the space and "
+                                 f"run again with --resume") from None
     return result
 
 
