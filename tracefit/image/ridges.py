@@ -90,14 +90,6 @@ class RidgePixels:
         return len(self.col)
 
 
-def _hessian(flat, sigma):
-    s = cv2.GaussianBlur(flat, (0, 0), sigma, borderType=cv2.BORDER_REFLECT)
-    dxx = cv2.Sobel(s, cv2.CV_32F, 2, 0, ksize=3, scale=0.25)
-    dyy = cv2.Sobel(s, cv2.CV_32F, 0, 2, ksize=3, scale=0.25)
-    dxy = cv2.Sobel(s, cv2.CV_32F, 1, 1, ksize=3, scale=0.25)
-    return dxx, dyy, dxy
-
-
 _WHITE: dict[float, float] = {}
 
 
