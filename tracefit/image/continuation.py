@@ -13,6 +13,8 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
+from tracefit.errors import TracefitInputError
+
 if TYPE_CHECKING:
     from tracefit.image.results import BandLine
 
@@ -52,6 +54,11 @@ def line_continuation(image: np.ndarray, labels: np.ndarray, grain: int, lines: 
         Share of the tested line ends that continue, 0..1 (None when no end meets a
         neighbouring grain, e.g. lines ending at the image edge or inside the grain).
 
+    Raises
+    ------
+    TracefitInputError
+        ``image`` not 2-D (or 3-D colour), or ``labels`` of another size.
+
     Examples
     --------
     A dark line drawn across two grains, seen only in grain 0, runs on into grain 1:
@@ -65,12 +72,17 @@ def line_continuation(image: np.ndarray, labels: np.ndarray, grain: int, lines: 
     >>> line_continuation(img, labels, 0, [BandLine(20.0, 32.0, 62.0, 32.0, 0.0)])
     1.0
     """
+    # Over 80 lines only through its docstring (numpydoc with a runnable example); the code is short.
     from scipy.ndimage import map_coordinates
 
     img = np.asarray(image, float)
     if img.ndim == 3:
         img = img[..., :3].mean(axis=2)
     lab = np.asarray(labels)
+    if img.ndim != 2:
+        raise TracefitInputError(f"image has shape {np.shape(image)}; expected a 2-D grey or 3-D colour image")
+    if lab.shape != img.shape:
+        raise TracefitInputError(f"labels has shape {lab.shape}; expected the image's {img.shape}")
     H, W = img.shape
     tested = cont = 0
 

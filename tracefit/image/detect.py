@@ -234,6 +234,7 @@ def detect_bands(
     >>> res.families[0].polarity
     'dark'
     """
+    # Over 80 lines only through its docstring (numpydoc with a runnable example); the code is short.
     opts = check_detect_options(pixel_size_um=pixel_size_um, find_bar=find_bar, min_bands=min_bands,
                                 max_families=max_families, working_size=working_size, scales=scales,
                                 min_coverage=min_coverage, min_depth=min_depth)

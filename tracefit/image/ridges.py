@@ -72,16 +72,17 @@ def flatten_background(image: np.ndarray, mask: np.ndarray | None, sigma: float)
 class RidgePixels:
     """Thin ridge (band-centre) pixels of one polarity.
 
-    Attributes
+    Parameters
     ----------
-    col, row : ndarray of int16
+    col, row : ndarray of int16, (n,)
         Pixel coordinates (working resolution, at most 32767).
-    strength : ndarray of float32
+    strength : ndarray of float32, (n,)
         Ridge strength in threshold units (>= 1).
     polarity : int
         -1 dark bands, +1 bright bands.
     shape : (int, int)
-    sector : ndarray of int16
+        (rows, columns) of the image the pixels belong to.
+    sector : ndarray of int16, (n,)
         Orientation sector of each pixel (pixels are stored sector by sector).
     sector_deg : float
         Sector width, degrees; sector k holds bands at about ``k * sector_deg``.

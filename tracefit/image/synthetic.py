@@ -508,6 +508,7 @@ def render_micrograph(
     >>> truth.families[0].n_bands > 5
     True
     """
+    # Over 80 lines only through its docstring (numpydoc with a runnable example); the code is short.
     rng = np.random.default_rng(seed)
     h, w = int(shape[0]), int(shape[1])
     _check_render_arguments(h, w, bit_depth, jpeg_quality)
