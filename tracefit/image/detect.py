@@ -28,6 +28,12 @@ label image. The pipeline, one concern per stage and module:
 Angles are image-frame, axial, degrees ccw from +x (:mod:`tracefit.conventions`); pixel
 coordinates are (column, row), rows down. The options and their ranges are declared in
 :mod:`tracefit.image.options`.
+
+Where a change goes: how masks and small regions are handled -- ``_working_copy`` (the
+erosion) and ``hough._chord_lengths`` (vote normalisation); float maps with holes --
+``prepare._as_grey``; more families per region -- ``_fit_candidates`` and
+``_distinct_families``; a significance per family -- a stage between
+``families._build_family`` and ``_distinct_families``.
 """
 
 from __future__ import annotations
