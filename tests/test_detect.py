@@ -203,3 +203,110 @@ def test_agrees_with_skimage_hough_line_and_opencv_on_a_clean_single_line():
     # and the refined angle is closer to the drawn line than the bin width
     expect = math.degrees(math.atan2(r0 - r1, c1 - c0))
     assert abs(a - expect) < 0.1
+
+
+# --------------------------------------------------------------------------- arguments at the door
+# Regression tests for the faults found by fuzzing (issue 16, item 1) and the option
+# ranges of tracefit.image.options.DETECT_OPTIONS: each bad value gives one line that
+# names the library parameter, never a raw NumPy / OpenCV error.
+
+_SMALL = render_micrograph((96, 96), [BandFamilySpec(30.0, 16, 3, -0.3)], seed=1)[0]
+_RGBA_STRIP = np.dstack([np.tile(np.arange(2000, dtype=np.uint8), (40, 1))] * 3 + [np.full((40, 2000), 255, np.uint8)])
+
+BAD_OPTIONS = [
+    (_SMALL, dict(working_size=0), "working_size"),  # was ZeroDivisionError
+    (_RGBA_STRIP, dict(working_size=1), "working_size"),  # was cv2.error
+    (_RGBA_STRIP, dict(working_size=16), "working_size=16 would reduce"),  # valid alone, too small for this image
+    (_SMALL, dict(scales=()), "scales"),  # was "max() arg is an empty sequence"
+    (_SMALL > 128, dict(min_bands=0), "min_bands"),  # bool image; was "zero-size array"
+    (_SMALL, dict(min_bands=-5), "min_bands"),
+    (_SMALL, dict(max_families=0), "max_families"),
+    (_SMALL, dict(min_bands="three"), "min_bands"),
+    (_SMALL, dict(min_bands=2.5), "min_bands"),
+    (_SMALL, dict(min_bands=True), "min_bands"),
+    (_SMALL, dict(working_size="big"), "working_size"),
+    (_SMALL, dict(working_size=float("nan")), "working_size"),
+    (_SMALL, dict(scales=2.0), "scales"),
+    (_SMALL, dict(scales=[1.0, float("nan")]), "scales"),
+    (_SMALL, dict(scales=[1.0, -1.0]), "scales"),
+    (_SMALL, dict(min_depth=float("nan")), "min_depth"),
+    (_SMALL, dict(min_depth=-0.1), "min_depth"),
+    (_SMALL, dict(min_coverage="0.3"), "min_coverage"),
+    (_SMALL, dict(min_coverage=float("inf")), "min_coverage"),
+    (_SMALL, dict(pixel_size_um=float("nan")), "pixel_size_um"),
+    (_SMALL, dict(pixel_size_um=0.0), "pixel_size_um"),
+    (_SMALL, dict(find_bar="yes"), "find_bar"),
+    (_SMALL, dict(grain=1), "grain=1 needs labels"),
+]
+
+
+@pytest.mark.parametrize("img,kw,name", BAD_OPTIONS, ids=[f"{k}" for _, k, _ in BAD_OPTIONS])
+def test_bad_options_fail_at_the_door_with_one_line(img, kw, name):
+    with pytest.raises(TracefitInputError, match=name) as info:
+        detect_bands(img, **kw)
+    assert "\n" not in str(info.value)
+
+
+def test_working_size_message_names_a_size_that_works():
+    with pytest.raises(TracefitInputError) as info:
+        detect_bands(_RGBA_STRIP, working_size=16)
+    need = int(str(info.value).rsplit("at least ", 1)[1].split()[0])
+    res = detect_bands(_RGBA_STRIP, working_size=need)  # runs; the strip's copy keeps 16 rows
+    assert res.width == 2000 and res.height == 40
+    with pytest.raises(TracefitInputError):
+        detect_bands(_RGBA_STRIP, working_size=need - 1)
+
+
+def test_option_table_defaults_are_the_signature_defaults():
+    import inspect
+
+    from tracefit.image import DETECT_OPTIONS
+
+    params = dict(inspect.signature(detect_bands).parameters)
+    params.update(inspect.signature(detect_grains).parameters)
+    for name, opt in DETECT_OPTIONS.items():
+        assert params[name].default == opt.default, name
+        opt.check(opt.default)  # every default passes its own rule
+
+
+def test_detect_grains_checks_its_arguments():
+    labels = np.zeros(_SMALL.shape, int)
+    labels[:, 48:] = 1
+    with pytest.raises(TracefitInputError, match="min_bands"):
+        detect_grains(_SMALL, labels, min_bands=0)
+    with pytest.raises(TracefitInputError, match="min_pixels"):
+        detect_grains(_SMALL, labels, min_pixels=-1)
+    with pytest.raises(TracefitInputError, match="grains must hold integer"):
+        detect_grains(_SMALL, labels, grains=["a"])
+    with pytest.raises(TracefitInputError, match="grain id 7 does not occur"):
+        detect_grains(_SMALL, labels, grains=[0, 7])
+    with pytest.raises(TypeError, match="unexpected keyword argument 'min_band'"):
+        detect_grains(_SMALL, labels, min_band=2)
+    # every keyword-only option of detect_bands but the path passes through detect_grains
+    import inspect
+
+    opts = {n: p.default for n, p in inspect.signature(detect_bands).parameters.items()
+            if p.kind is inspect.Parameter.KEYWORD_ONLY and n != "path"}
+    out = detect_grains(_SMALL, labels, min_pixels=10**6, **opts)
+    assert set(out) == {0, 1} and all("too few" in r.notes[0] for r in out.values())
+
+
+def test_grain_id_minus_one_is_cropped_to_its_own_pixels():
+    # find_objects numbers labels from 1; grain -1 once took the box of the largest id
+    labels = np.full((256, 256), -1, int)
+    labels[:, 128:] = 1
+    labels[200:, 150:] = 0
+    img, _ = render_micrograph((256, 256), labels=labels, seed=6,
+                               grain_families={-1: [BandFamilySpec(60.0, 16, 3, -0.35)]})
+    out = detect_grains(img, labels, grains=[-1])
+    assert [round(f.angle_deg) for f in out[-1].families] == [60]
+    for ln in out[-1].families[0].lines:
+        assert max(ln.col0, ln.col1) < 136
+
+
+def test_overlay_with_an_unknown_suffix_is_an_input_error(tmp_path):
+    # OpenCV raises its own error for a suffix it has no writer for (issue 16, item 1)
+    from tracefit.image import write_detection_overlay
+
+    with pytest.raises(TracefitInputError, match="could not write the overlay"):
+        write_detection_overlay(tmp_path / "out.xyz", _SMALL, detect_bands(_SMALL))

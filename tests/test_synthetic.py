@@ -5,6 +5,7 @@ import pytest
 from skimage.draw import line as sk_line
 
 from tracefit.conventions import axial_difference, pixel_endpoints_angle
+from tracefit.errors import TracefitInputError
 from tracefit.image import BandFamilySpec, render_micrograph, standard_suite, voronoi_labels
 
 
@@ -79,7 +80,24 @@ def test_standard_suite_is_deterministic_and_varied():
 
 
 def test_bad_arguments():
-    with pytest.raises(ValueError):
+    # one-line input errors naming the parameter (TracefitInputError is a ValueError)
+    with pytest.raises(TracefitInputError, match="shape must be at least 8 x 8"):
         render_micrograph((4, 4))
-    with pytest.raises(ValueError):
+    with pytest.raises(TracefitInputError, match="bit_depth must be 8 or 16"):
         render_micrograph((64, 64), bit_depth=12)
+    with pytest.raises(TracefitInputError, match="jpeg_quality"):
+        render_micrograph((64, 64), jpeg_quality=101)
+    with pytest.raises(TracefitInputError, match="labels has shape"):
+        render_micrograph((64, 64), labels=np.zeros((32, 32), int))
+    with pytest.raises(TracefitInputError, match="grain_families needs labels"):
+        render_micrograph((64, 64), grain_families={0: [BandFamilySpec(10.0)]})
+    with pytest.raises(TracefitInputError, match="n_grains"):
+        voronoi_labels((64, 64), 0)
+
+
+def test_suite_still_importable_from_the_synthetic_module():
+    import tracefit.image.synthetic as synthetic
+
+    assert synthetic.standard_suite is standard_suite
+    with pytest.raises(AttributeError):
+        synthetic.no_such_name

@@ -6,14 +6,23 @@ frame, degrees) with its uncertainty and number of bands.
 
 from __future__ import annotations
 
+import os
+from collections.abc import Iterable
+from typing import TYPE_CHECKING, Any
+
 import cv2
 import numpy as np
 
 from tracefit.errors import TracefitInputError
+from tracefit.image.io import _LUMA
+
+if TYPE_CHECKING:
+    from tracefit.image.results import DetectionResult
 
 __all__ = ["FAMILY_COLOURS", "draw_detection", "write_detection_overlay"]
 
-# Our own palette (RGB), chosen for contrast against grey micrographs.
+#: Our own palette (RGB, 0-255), chosen for contrast against grey micrographs; family k
+#: is drawn in ``FAMILY_COLOURS[k % len(FAMILY_COLOURS)]``.
 FAMILY_COLOURS = [
     (255, 64, 64), (40, 170, 255), (255, 200, 0), (60, 220, 90),
     (220, 80, 255), (255, 128, 0), (0, 230, 210), (255, 105, 180),
@@ -21,16 +30,18 @@ FAMILY_COLOURS = [
 
 
 def _to_rgb8(image: np.ndarray) -> np.ndarray:
+    """Grey 8-bit RGB copy for display: luminance, stretched between the 0.5 and 99.5 percentiles."""
     a = np.asarray(image)
     if a.ndim == 3:
-        a = a[..., :3].astype(np.float32) @ np.array([0.299, 0.587, 0.114], np.float32)
+        a = a[..., :3].astype(np.float32) @ _LUMA
     a = a.astype(np.float32)
     lo, hi = np.percentile(a[:: max(1, a.shape[0] // 512), :: max(1, a.shape[1] // 512)], [0.5, 99.5])
     g = np.clip((a - lo) / max(hi - lo, 1e-6) * 255.0, 0, 255).astype(np.uint8)
     return np.repeat(g[..., None], 3, axis=2)
 
 
-def draw_detection(image: np.ndarray, result, line_width: int | None = None, legend: bool = True) -> np.ndarray:
+def draw_detection(image: np.ndarray, result: DetectionResult | Iterable[DetectionResult], line_width: int | None = None,
+                   legend: bool = True) -> np.ndarray:
     """Draw the detected band lines of ``result`` on ``image``.
 
     Parameters
@@ -46,7 +57,17 @@ def draw_detection(image: np.ndarray, result, line_width: int | None = None, leg
 
     Returns
     -------
-    ndarray of uint8, (H, W, 3), RGB
+    ndarray of uint8, (H, W, 3)
+        RGB picture: the image in grey, each family's band lines in its colour
+        (:data:`FAMILY_COLOURS`), data bars framed in yellow.
+
+    Examples
+    --------
+    >>> from tracefit.image import BandFamilySpec, detect_bands, render_micrograph
+    >>> img, _ = render_micrograph((128, 128), [BandFamilySpec(30.0, 16)], seed=1)
+    >>> rgb = draw_detection(img, detect_bands(img))
+    >>> rgb.shape, rgb.dtype.name
+    ((128, 128, 3), 'uint8')
     """
     rgb = _to_rgb8(image)
     h, w = rgb.shape[:2]
@@ -86,9 +107,40 @@ def draw_detection(image: np.ndarray, result, line_width: int | None = None, leg
     return rgb
 
 
-def write_detection_overlay(path, image: np.ndarray, result, **kwargs) -> None:
-    """Write :func:`draw_detection` to an image file (PNG recommended)."""
+def write_detection_overlay(path: str | os.PathLike, image: np.ndarray, result: DetectionResult | Iterable[DetectionResult],
+                            **kwargs: Any) -> None:
+    """Write :func:`draw_detection` to an image file (PNG recommended).
+
+    Parameters
+    ----------
+    path : str or Path
+        Output file; the suffix (.png, .jpg, .tif, .bmp) chooses the format.
+    image : ndarray, (H, W) or (H, W, 3|4)
+        The analysed image.
+    result : DetectionResult or iterable of DetectionResult
+        Detection(s) to draw.
+    **kwargs
+        ``line_width`` and ``legend`` of :func:`draw_detection`.
+
+    Raises
+    ------
+    TracefitInputError
+        The file could not be written (unknown suffix, missing folder, no permission).
+
+    Examples
+    --------
+    >>> import os, tempfile
+    >>> from tracefit.image import BandFamilySpec, detect_bands, render_micrograph
+    >>> img, _ = render_micrograph((128, 128), [BandFamilySpec(30.0, 16)], seed=1)
+    >>> path = os.path.join(tempfile.mkdtemp(), "overlay.png")
+    >>> write_detection_overlay(path, img, detect_bands(img))
+    >>> os.path.getsize(path) > 0
+    True
+    """
     rgb = draw_detection(image, result, **kwargs)
-    ok = cv2.imwrite(str(path), cv2.cvtColor(rgb, cv2.COLOR_RGB2BGR))
+    try:
+        ok = cv2.imwrite(str(path), cv2.cvtColor(rgb, cv2.COLOR_RGB2BGR))
+    except cv2.error:  # OpenCV raises for a suffix it has no writer for
+        ok = False
     if not ok:
         raise TracefitInputError(f"{path}: could not write the overlay; expected a writable path ending in .png, .jpg, .tif or .bmp")

@@ -19,6 +19,7 @@ from tracefit.errors import TracefitInputError
 
 __all__ = ["read_image", "read_mask", "to_gray", "IMAGE_SUFFIXES"]
 
+#: File suffixes :func:`read_image` reads (lower case, with the dot).
 IMAGE_SUFFIXES = (".png", ".tif", ".tiff", ".jpg", ".jpeg", ".bmp")
 _LUMA = np.array([0.299, 0.587, 0.114], np.float32)  # R, G, B (ITU-R BT.601)
 
@@ -33,6 +34,13 @@ def _kind_from_magic(head: bytes) -> str | None:
     if head.startswith(b"BM"):
         return "bmp"
     return None
+
+
+def _bgr_to_rgb(arr: np.ndarray) -> np.ndarray:
+    """OpenCV decodes colour to BGR(A); reorder to RGB(A). Grey arrays pass unchanged."""
+    if arr.ndim == 3 and arr.shape[2] >= 3:
+        arr = arr[..., [2, 1, 0] + ([3] if arr.shape[2] == 4 else [])]
+    return arr
 
 
 def _check_complete(data: bytes, kind: str, path: str) -> None:
@@ -55,17 +63,37 @@ def _check_complete(data: bytes, kind: str, path: str) -> None:
 def to_gray(arr: np.ndarray, notes: list[str] | None = None, channels_last: bool = True) -> np.ndarray:
     """Convert a decoded image array (gray, RGB or RGBA, channels last, RGB order) to float32 grey.
 
+    Colour becomes luminance with the Rec. 601 luma weights (ITU-R BT.601); an RGB image
+    whose three channels are equal is read as grey unchanged; alpha is ignored.
+
     Parameters
     ----------
     arr : ndarray
         (H, W), (H, W, 1), (H, W, 3) or (H, W, 4); any integer or float dtype.
     notes : list of str, optional
         Conversion notes are appended here.
+    channels_last : bool
+        Accepted for compatibility; channels are always last.
 
     Returns
     -------
     ndarray of float32, (H, W)
         Grey values in the input's units (0..255 for 8-bit, 0..65535 for 16-bit).
+
+    Raises
+    ------
+    TracefitInputError
+        Any other layout (e.g. two channels, or 4-D).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> rgb = np.zeros((2, 2, 3), np.uint8)
+    >>> rgb[..., 0] = 200
+    >>> notes = []
+    >>> g = to_gray(rgb, notes)
+    >>> g.dtype.name, round(float(g[0, 0]), 1), notes
+    ('float32', 59.8, ['RGB converted to luminance (0.299 R + 0.587 G + 0.114 B)'])
     """
     notes = notes if notes is not None else []
     a = np.asarray(arr)
@@ -109,10 +137,7 @@ def _read_tiff(path: str, notes: list[str]) -> np.ndarray:
             raise TracefitInputError(f"{path}: cannot read the TIFF file ({exc}); expected a complete TIFF image") from None
         if len(pages) > 1:
             notes.append(f"multi-page TIFF with {len(pages)} pages: the first page was used")
-        arr = pages[0]
-        if arr.ndim == 3 and arr.shape[2] >= 3:  # OpenCV decodes to BGR(A)
-            arr = arr[..., [2, 1, 0] + ([3] if arr.shape[2] == 4 else [])]
-        return arr
+        return _bgr_to_rgb(pages[0])
     if n_pages > 1:
         notes.append(f"multi-page TIFF with {n_pages} pages: the first page was used")
     if arr.ndim == 3 and samples in (3, 4) and arr.shape[0] == samples and arr.shape[-1] != samples:
@@ -122,7 +147,7 @@ def _read_tiff(path: str, notes: list[str]) -> np.ndarray:
     return arr
 
 
-def read_image(path) -> tuple[np.ndarray, list[str]]:
+def read_image(path: str | os.PathLike) -> tuple[np.ndarray, list[str]]:
     """Read a micrograph as a float32 grey array.
 
     Parameters
@@ -142,6 +167,16 @@ def read_image(path) -> tuple[np.ndarray, list[str]]:
     TracefitInputError
         Missing file, empty file, not an image, truncated file, zero-size or
         non-finite image.
+
+    Examples
+    --------
+    >>> import os, tempfile
+    >>> import cv2, numpy as np
+    >>> path = os.path.join(tempfile.mkdtemp(), "grey16.png")
+    >>> _ = cv2.imwrite(path, np.full((32, 48), 40000, np.uint16))
+    >>> gray, notes = read_image(path)
+    >>> gray.shape, gray.dtype.name, float(gray[0, 0]), notes
+    ((32, 48), 'float32', 40000.0, ['16-bit PNG'])
     """
     p = str(path)
     if not os.path.exists(p):
@@ -169,8 +204,7 @@ def read_image(path) -> tuple[np.ndarray, list[str]]:
         del buf, data
         if arr is None:
             raise TracefitInputError(f"{p}: the {kind.upper()} file could not be decoded (damaged?); expected a valid image")
-        if arr.ndim == 3 and arr.shape[2] >= 3:  # OpenCV decodes to BGR(A)
-            arr = arr[..., [2, 1, 0] + ([3] if arr.shape[2] == 4 else [])]
+        arr = _bgr_to_rgb(arr)
     if arr.size == 0 or min(arr.shape[:2]) == 0:
         raise TracefitInputError(f"{p}: the image has zero size {arr.shape}; expected at least 16 x 16 pixels")
     if arr.dtype == np.bool_:
@@ -188,13 +222,37 @@ def read_image(path) -> tuple[np.ndarray, list[str]]:
     return gray, notes
 
 
-def read_mask(path, shape: tuple[int, int]) -> np.ndarray:
-    """Read a binary mask image (non-zero = analyse) that must match ``shape`` (rows, cols).
+def read_mask(path: str | os.PathLike, shape: tuple[int, int]) -> np.ndarray:
+    """Read a binary mask image (non-zero = analyse) that must match ``shape``.
+
+    Parameters
+    ----------
+    path : str or Path
+        Image file read as :func:`read_image` does (any format, grey or colour).
+    shape : (int, int)
+        (rows, columns) of the micrograph the mask belongs to.
+
+    Returns
+    -------
+    ndarray of bool, ``shape``
+        True where the mask's grey level is above zero.
 
     Raises
     ------
     TracefitInputError
         Unreadable file, or a size different from the image's.
+
+    Examples
+    --------
+    >>> import os, tempfile
+    >>> import cv2, numpy as np
+    >>> path = os.path.join(tempfile.mkdtemp(), "mask.png")
+    >>> m = np.zeros((20, 30), np.uint8)
+    >>> m[:, :10] = 255
+    >>> _ = cv2.imwrite(path, m)
+    >>> mask = read_mask(path, (20, 30))
+    >>> mask.dtype.name, int(mask.sum())
+    ('bool', 200)
     """
     m, _ = read_image(path)
     if m.shape != tuple(shape):

@@ -9,6 +9,8 @@ so the weak opposite-sign side lobes beside a band never pose as bands.
 
 from __future__ import annotations
 
+import math
+from collections.abc import Sequence
 from dataclasses import dataclass
 
 import cv2
@@ -29,13 +31,25 @@ def flatten_background(image: np.ndarray, mask: np.ndarray | None, sigma: float)
     Parameters
     ----------
     image : ndarray of float32, (H, W)
-    mask : ndarray of bool or None
+        Grey image, any positive units.
+    mask : ndarray of bool, (H, W), or None
+        Pixels that count (None: all).
     sigma : float
         Background scale, pixels (several band spacings).
 
     Returns
     -------
     ndarray of float32, (H, W)
+        Relative contrast (dimensionless; -0.2 = 20 % darker than the background).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> img = np.full((64, 64), 100.0, np.float32)
+    >>> img[:, 30:33] = 80.0
+    >>> flat = flatten_background(img, None, 24.0)
+    >>> print(round(float(flat[10, 31]), 2), round(float(flat[10, 5]), 2))
+    -0.19 0.01
     """
     h, w = image.shape
     m = np.ones((h, w), np.float32) if mask is None else mask.astype(np.float32)
@@ -58,19 +72,28 @@ def flatten_background(image: np.ndarray, mask: np.ndarray | None, sigma: float)
 class RidgePixels:
     """Thin ridge (band-centre) pixels of one polarity.
 
-    Attributes
+    Parameters
     ----------
-    col, row : ndarray of int16
+    col, row : ndarray of int16, (n,)
         Pixel coordinates (working resolution, at most 32767).
-    strength : ndarray of float32
+    strength : ndarray of float32, (n,)
         Ridge strength in threshold units (>= 1).
     polarity : int
         -1 dark bands, +1 bright bands.
     shape : (int, int)
-    sector : ndarray of int16
+        (rows, columns) of the image the pixels belong to.
+    sector : ndarray of int16, (n,)
         Orientation sector of each pixel (pixels are stored sector by sector).
     sector_deg : float
         Sector width, degrees; sector k holds bands at about ``k * sector_deg``.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> rp = RidgePixels(np.array([3, 4], np.int16), np.array([5, 5], np.int16),
+    ...                  np.array([2.0, 3.0], np.float32), -1, (10, 10), np.array([0, 0], np.int16))
+    >>> len(rp), rp.angle_deg.tolist()
+    (2, [0.0, 0.0])
     """
 
     col: np.ndarray
@@ -88,14 +111,6 @@ class RidgePixels:
 
     def __len__(self) -> int:
         return len(self.col)
-
-
-def _hessian(flat, sigma):
-    s = cv2.GaussianBlur(flat, (0, 0), sigma, borderType=cv2.BORDER_REFLECT)
-    dxx = cv2.Sobel(s, cv2.CV_32F, 2, 0, ksize=3, scale=0.25)
-    dyy = cv2.Sobel(s, cv2.CV_32F, 0, 2, ksize=3, scale=0.25)
-    dxy = cv2.Sobel(s, cv2.CV_32F, 1, 1, ksize=3, scale=0.25)
-    return dxx, dyy, dxy
 
 
 _WHITE: dict[float, float] = {}
@@ -120,14 +135,77 @@ def _white_noise_level(sigma):
     return _WHITE[sigma]
 
 
+def _diagonal_second_difference(a: np.ndarray) -> np.ndarray:
+    """``a[i+1, j+1] - 2 a[i, j] + a[i-1, j-1]`` on the interior, shape (H - 2, W - 2)."""
+    return a[2:, 2:] - 2 * a[1:-1, 1:-1] + a[:-2, :-2]
+
+
+def _white_sigma(d: np.ndarray) -> float:
+    """Standard deviation of white noise from its second differences (robust, via the MAD)."""
+    # var(x[i+1] - 2 x[i] + x[i-1]) = 6 var(x) for white noise
+    return 1.4826 * float(np.median(np.abs(d - np.median(d)))) / math.sqrt(6.0)
+
+
 def noise_sigma(flat: np.ndarray, mask: np.ndarray | None) -> float:
-    """Robust per-pixel noise of a flattened image from its diagonal second differences."""
-    d = flat[2:, 2:] - 2 * flat[1:-1, 1:-1] + flat[:-2, :-2]
+    """Robust per-pixel noise of an image from its diagonal second differences.
+
+    The median absolute deviation of the second differences, scaled to a standard
+    deviation (x 1.4826, exact for Gaussian noise) and divided by sqrt(6) (the variance
+    of a second difference of white noise is six times the pixel variance). Bands and
+    slow background changes barely move the median.
+
+    Parameters
+    ----------
+    flat : ndarray of float, (H, W)
+        Image, typically :func:`flatten_background`'s output.
+    mask : ndarray of bool, (H, W), or None
+        Pixels to use (None: all).
+
+    Returns
+    -------
+    float
+        Noise standard deviation in the image's units (0.0 when no pixel is usable).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> z = np.random.default_rng(0).normal(0.0, 0.05, (256, 256)).astype(np.float32)
+    >>> print(round(noise_sigma(z, None), 2))
+    0.05
+    """
+    d = _diagonal_second_difference(flat)
     if mask is not None:
         d = d[mask[1:-1, 1:-1]]
     d = d.ravel()[:: max(1, d.size // 400000)]
-    # var(x[i+1] - 2 x[i] + x[i-1]) = 6 var(x) for white noise
-    return 1.4826 * float(np.median(np.abs(d - np.median(d)))) / np.sqrt(6.0) if d.size else 0.0
+    return _white_sigma(d) if d.size else 0.0
+
+
+def _pixel_noise(img, m, bars=(), tile=512):
+    """Robust per-pixel noise (image units) of a large image from a few tiles.
+
+    Five tiles of ``tile`` px (centre and the four quarter points); with a data bar
+    (``bars``, see :func:`tracefit.image.databar.find_databar`) and no mask, only the
+    rows between the bars are used. Never below a millionth of the grey range.
+    """
+    h, w = img.shape
+    if bars and m is None:
+        top = max([b["bbox"][3] for b in bars if b["bbox"][1] == 0] or [0])
+        bottom = min([b["bbox"][1] for b in bars if b["bbox"][1] > 0] or [h])
+        if bottom - top >= 32:
+            return _pixel_noise(img[top:bottom], None, (), tile)
+    vals = []
+    for fr, fc in ((0.25, 0.25), (0.25, 0.75), (0.75, 0.25), (0.75, 0.75), (0.5, 0.5)):
+        r0 = int(max(0, min(h - tile, fr * h - tile / 2)))
+        c0 = int(max(0, min(w - tile, fc * w - tile / 2)))
+        t = img[r0 : r0 + tile, c0 : c0 + tile]
+        d = _diagonal_second_difference(t)
+        if m is not None:
+            d = d[m[r0 + 1 : r0 + t.shape[0] - 1, c0 + 1 : c0 + t.shape[1] - 1]]
+        vals.append(d.ravel())
+    v = np.concatenate(vals)
+    if v.size == 0:
+        return 1e-3
+    return max(_white_sigma(v), 1e-6 * float(np.ptp(img[::16, ::16]) + 1e-12))
 
 
 def _hessian(flat, sigma):
@@ -138,8 +216,42 @@ def _hessian(flat, sigma):
     return dxx, dyy, dxy
 
 
+def _thin_across(resp, mask, oc, orow):
+    """(cols, rows) of the pixels above 1 that are maxima across the band (pixel step (oc, orow))."""
+    h, w = resp.shape
+    if mask is not None:
+        resp[~mask] = 0
+    pad = np.pad(resp, 1)
+    fwd = pad[1 + orow : 1 + orow + h, 1 + oc : 1 + oc + w]
+    bwd = pad[1 - orow : 1 - orow + h, 1 - oc : 1 - oc + w]
+    keep = (resp > 1.0) & (resp >= fwd) & (resp > bwd)
+    nz = cv2.findNonZero(keep.view(np.uint8))
+    if nz is None:
+        return np.zeros(0, np.intp), np.zeros(0, np.intp)
+    nz = nz.reshape(-1, 2)
+    return nz[:, 0], nz[:, 1]
+
+
+def _sector_response(derivs, c, s_, sn, k_noise):
+    """Best response over the scales per polarity for bands with unit normal (c, s_), in threshold units."""
+    best = {-1: None, 1: None}
+    for sg, dxx, dyy, dxy, tr in derivs:
+        # curvature across the band, and |along| = |trace - across| (trace is invariant)
+        dnn = cv2.scaleAdd(dxy, float(2 * c * s_), cv2.addWeighted(dxx, float(c * c), dyy, float(s_ * s_), 0.0))
+        dtt = cv2.absdiff(tr, dnn)
+        norm = float(sg * sg / (k_noise * sn * _white_noise_level(sg)))
+        for pol in (-1, 1):
+            resp = cv2.addWeighted(dnn, -pol * norm, dtt, -norm, 0.0)
+            if best[pol] is None:
+                best[pol] = resp
+            else:
+                cv2.max(best[pol], resp, dst=best[pol])
+        del dnn, dtt
+    return best
+
+
 def ridge_pixels(flat: np.ndarray, mask: np.ndarray | None, sector_deg: float = 15.0,
-                 scales=(1.0, 1.7, 2.8, 4.5), k_noise: float = 2.0):
+                 scales: Sequence[float] = (1.0, 1.7, 2.8, 4.5), k_noise: float = 2.0) -> tuple[RidgePixels, RidgePixels]:
     """Thin band-centre pixels per orientation sector and polarity (steered filters).
 
     For each sector (band direction ``k * sector_deg``) the Hessian is steered to the
@@ -165,7 +277,17 @@ def ridge_pixels(flat: np.ndarray, mask: np.ndarray | None, sector_deg: float = 
     Returns
     -------
     (RidgePixels, RidgePixels)
-        Dark then bright band pixels; ``angle_deg`` is the sector's band direction.
+        Dark then bright band pixels (working-resolution coordinates, strength in
+        threshold units); ``angle_deg`` is the sector's band direction.
+
+    Examples
+    --------
+    >>> from tracefit.image import BandFamilySpec, render_micrograph
+    >>> img, _ = render_micrograph((128, 128), [BandFamilySpec(30.0, 16)], seed=1)
+    >>> dark, bright = ridge_pixels(flatten_background(img.astype("float32"), None, 24.0), None)
+    >>> along, across = int((dark.sector == 2).sum()), int((dark.sector == 8).sum())  # 30 and 120 deg
+    >>> along > 5 * across
+    True
     """
     h, w = flat.shape
     sn = max(noise_sigma(flat, mask), 1e-6)
@@ -176,38 +298,14 @@ def ridge_pixels(flat: np.ndarray, mask: np.ndarray | None, sector_deg: float = 
     n_sec = int(round(180.0 / sector_deg))
     acc = {-1: [], 1: []}
     for k in range(n_sec):
-        centre = k * sector_deg
-        dc, dr = angle_to_pixel_direction(centre)  # band direction (col, row)
+        dc, dr = angle_to_pixel_direction(k * sector_deg)  # band direction (col, row)
         c, s_ = -dr, dc  # its normal
-        best = {-1: None, 1: None}
-        for sg, dxx, dyy, dxy, tr in derivs:
-            # curvature across the band, and |along| = |trace - across| (trace is invariant)
-            dnn = cv2.scaleAdd(dxy, float(2 * c * s_), cv2.addWeighted(dxx, float(c * c), dyy, float(s_ * s_), 0.0))
-            dtt = cv2.absdiff(tr, dnn)
-            norm = float(sg * sg / (k_noise * sn * _white_noise_level(sg)))
-            for pol in (-1, 1):
-                resp = cv2.addWeighted(dnn, -pol * norm, dtt, -norm, 0.0)
-                if best[pol] is None:
-                    best[pol] = resp
-                else:
-                    cv2.max(best[pol], resp, dst=best[pol])
-            del dnn, dtt
+        best = _sector_response(derivs, c, s_, sn, k_noise)
         # non-maximum suppression across the band (fixed normal per sector)
         oc, orow = int(np.rint(c)), int(np.rint(s_))
         for pol in (-1, 1):
             resp = best[pol]
-            if mask is not None:
-                resp[~mask] = 0
-            pad = np.pad(resp, 1)
-            fwd = pad[1 + orow : 1 + orow + h, 1 + oc : 1 + oc + w]
-            bwd = pad[1 - orow : 1 - orow + h, 1 - oc : 1 - oc + w]
-            keep = (resp > 1.0) & (resp >= fwd) & (resp > bwd)
-            nz = cv2.findNonZero(keep.view(np.uint8))
-            if nz is None:
-                cc = rr = np.zeros(0, np.intp)
-            else:
-                nz = nz.reshape(-1, 2)
-                cc, rr = nz[:, 0], nz[:, 1]
+            cc, rr = _thin_across(resp, mask, oc, orow)
             acc[pol].append((cc.astype(np.int16), rr.astype(np.int16), resp[rr, cc], np.full(len(rr), k, np.int16)))
         best.clear()
     del derivs

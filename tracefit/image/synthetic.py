@@ -8,8 +8,8 @@ instrument data bar and JPEG compression. It returns the image and a
 :class:`SyntheticTruth` with everything that was drawn, so that the detector can be
 scored against it. Everything is deterministic from ``seed``.
 
-:func:`standard_suite` yields the reference set of images used by the tests and by
-``benchmarks/detect.py``.
+:func:`tracefit.image.suite.standard_suite` (also importable from here) yields the
+reference set of images used by the tests and by ``benchmarks/detect.py``.
 
 Angles follow :mod:`tracefit.conventions`: image frame, x right, y up, degrees ccw from +x,
 axial in [0, 180). Pixel coordinates are (column, row) with rows growing downward.
@@ -18,12 +18,14 @@ axial in [0, 180). Pixel coordinates are (column, row) with rows growing downwar
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Iterator, Sequence
+from typing import Sequence
 
 import cv2
 import numpy as np
 
 from tracefit.conventions import angle_to_pixel_direction, fold_axial
+from tracefit.errors import TracefitInputError
+from tracefit.image.geometry import _clip_line_to_box
 
 __all__ = [
     "BandFamilySpec",
@@ -31,8 +33,6 @@ __all__ = [
     "SyntheticTruth",
     "render_micrograph",
     "voronoi_labels",
-    "standard_suite",
-    "SuiteCase",
 ]
 
 
@@ -57,6 +57,12 @@ class BandFamilySpec:
         Position of the first band along the band normal, pixels; random if None.
     amplitude_jitter : float
         Relative standard deviation of the individual band contrasts.
+
+    Examples
+    --------
+    >>> spec = BandFamilySpec(30.0, spacing_px=20, contrast=0.25)
+    >>> spec.angle_deg, spec.spacing_px, spec.width_px
+    (30.0, 20, 3.0)
     """
 
     angle_deg: float
@@ -70,7 +76,27 @@ class BandFamilySpec:
 
 @dataclass
 class TrueFamily:
-    """A family as rendered: angle, nominal spacing and the band centre lines."""
+    """A family as rendered: angle, nominal spacing and the band centre lines.
+
+    Parameters
+    ----------
+    angle_deg : float
+        Image-frame axial angle, degrees in [0, 180).
+    spacing_px, width_px : float
+        Nominal spacing and band width (FWHM), pixels.
+    contrast : float
+        Relative band depth (negative: dark bands).
+    grain : int or None
+        Grain id the family was drawn in (None: the whole image).
+    lines : list of (col0, row0, col1, row1)
+        Band centre lines clipped to the image (or the grain's bounding box), pixels.
+
+    Examples
+    --------
+    >>> fam = TrueFamily(30.0, 20.0, 3.0, -0.3, None, [(0.0, 10.0, 50.0, 39.0)])
+    >>> fam.n_bands
+    1
+    """
 
     angle_deg: float
     spacing_px: float
@@ -82,6 +108,7 @@ class TrueFamily:
 
     @property
     def n_bands(self) -> int:
+        """Number of band lines drawn (int)."""
         return len(self.lines)
 
 
@@ -89,7 +116,7 @@ class TrueFamily:
 class SyntheticTruth:
     """Everything :func:`render_micrograph` drew.
 
-    Attributes
+    Parameters
     ----------
     shape : (int, int)
         Image (rows, columns).
@@ -99,10 +126,16 @@ class SyntheticTruth:
         Data bar box (col0, row0, col1, row1), pixels, end-exclusive, or None.
     scratches : list of tuple
         Scratch lines (col0, row0, col1, row1), pixels.
-    labels : ndarray or None
+    labels : ndarray of int, (rows, columns), or None
         Integer grain label image (0..n-1) when grains were rendered.
     pixel_size_um : float or None
         Pixel size written into the data bar (um per pixel).
+
+    Examples
+    --------
+    >>> _, truth = render_micrograph((64, 64), [BandFamilySpec(45.0, 16)], seed=0)
+    >>> truth.family_angles, len(truth.families_of_grain(None))
+    ([45.0], 1)
     """
 
     shape: tuple[int, int]
@@ -114,11 +147,21 @@ class SyntheticTruth:
 
     @property
     def family_angles(self) -> list[float]:
-        """True family angles (image frame, degrees)."""
+        """True family angles (image frame, degrees), in drawing order."""
         return [f.angle_deg for f in self.families]
 
     def families_of_grain(self, grain: int | None) -> list[TrueFamily]:
-        """Families rendered in one grain (``None``: families over the whole image)."""
+        """Families rendered in one grain.
+
+        Parameters
+        ----------
+        grain : int or None
+            Grain id; None selects the families drawn over the whole image.
+
+        Returns
+        -------
+        list of TrueFamily
+        """
         return [f for f in self.families if f.grain == grain]
 
 
@@ -126,23 +169,14 @@ class SyntheticTruth:
 
 
 def _clip_line(p0, d, box):
-    """Clip the infinite line p0 + t d to box (c0, r0, c1, r1) (Liang-Barsky).
+    """Clip the infinite line p0 + t d to box (c0, r0, c1, r1).
 
     Returns the endpoints ((c, r), (c, r)) or None when the line misses the box.
     """
-    c0, r0, c1, r1 = box
-    t_lo, t_hi = -np.inf, np.inf
-    for p, dd, lo, hi in ((p0[0], d[0], c0, c1), (p0[1], d[1], r0, r1)):
-        if abs(dd) < 1e-12:
-            if p < lo or p > hi:
-                return None
-            continue
-        ta, tb = (lo - p) / dd, (hi - p) / dd
-        if ta > tb:
-            ta, tb = tb, ta
-        t_lo, t_hi = max(t_lo, ta), min(t_hi, tb)
-    if t_hi <= t_lo:
+    seg = _clip_line_to_box(p0, d, box)
+    if seg is None:
         return None
+    t_lo, t_hi = seg
     return (p0[0] + t_lo * d[0], p0[1] + t_lo * d[1]), (p0[0] + t_hi * d[0], p0[1] + t_hi * d[1])
 
 
@@ -151,7 +185,7 @@ def _band_profile(dist, width):
     return np.exp(-4.0 * np.log(2.0) * (dist / max(width, 0.3)) ** 2, dtype=np.float32)
 
 
-def voronoi_labels(shape, n_grains, seed=0):
+def voronoi_labels(shape: tuple[int, int], n_grains: int, seed: int = 0) -> np.ndarray:
     """Integer label image (0..n-1) of a Voronoi tessellation with random seeds.
 
     Parameters
@@ -166,7 +200,23 @@ def voronoi_labels(shape, n_grains, seed=0):
     Returns
     -------
     ndarray of int32, shape ``shape``
+        Grain id of each pixel.
+
+    Raises
+    ------
+    TracefitInputError
+        ``n_grains`` below 1 or a shape with a side below 1 pixel.
+
+    Examples
+    --------
+    >>> lab = voronoi_labels((64, 96), 4, seed=1)
+    >>> lab.shape, sorted(set(lab.ravel().tolist()))
+    ((64, 96), [0, 1, 2, 3])
     """
+    if int(n_grains) < 1:
+        raise TracefitInputError(f"n_grains must be at least 1, got {n_grains!r}")
+    if len(shape) != 2 or min(int(shape[0]), int(shape[1])) < 1:
+        raise TracefitInputError(f"shape must be (rows, columns) of at least 1 pixel, got {shape!r}")
     rng = np.random.default_rng(seed)
     h, w = shape
     pts = rng.uniform((0, 0), (w, h), size=(n_grains, 2)).astype(np.float32)
@@ -263,11 +313,120 @@ def _draw_databar(img, height, rng, pixel_size_um):
     return (0, r0, w, h)
 
 
+# --------------------------------------------------------------------------- render stages
+# Each stage draws into ``img`` (float32, 0..1 of full scale) in the order of
+# render_micrograph; the order of the random draws is part of the seed's meaning.
+
+
+def _grain_canvas(h, w, labels, base_level, grain_contrast, rng):
+    """The flat starting image and the label image (None for a single crystal)."""
+    img = np.full((h, w), np.float32(base_level), np.float32)
+    if labels is None:
+        return img, None
+    lab = voronoi_labels((h, w), int(labels), seed=int(rng.integers(2**31))) if np.isscalar(labels) else np.asarray(labels)
+    if lab.shape != (h, w):
+        raise TracefitInputError(f"labels has shape {lab.shape}; expected the image shape {(h, w)}")
+    ids = np.unique(lab)
+    levels = base_level * (1.0 + grain_contrast / base_level * rng.standard_normal(ids.max() + 1)).astype(np.float32)
+    return np.clip(levels[lab], 0.1, 0.9).astype(np.float32), lab
+
+
+def _render_families(img, lab, families, grain_families, rng) -> list[TrueFamily]:
+    """Draw the whole-image families, then each grain's, in place; their truth."""
+    h, w = img.shape
+    truth_families = [_render_family(img, spec, None, (0, 0, w, h), rng, None) for spec in families]
+    if grain_families is None:
+        return truth_families
+    if lab is None:
+        raise TracefitInputError("grain_families needs labels (a label image or a number of grains)")
+    items = grain_families.items() if isinstance(grain_families, dict) else enumerate(grain_families)
+    for gid, specs in items:
+        region = lab == gid
+        if not region.any():
+            continue
+        rr, cc = np.nonzero(region)
+        box = (int(cc.min()), int(rr.min()), int(cc.max()) + 1, int(rr.max()) + 1)
+        for spec in specs:
+            truth_families.append(_render_family(img, spec, region, box, rng, int(gid)))
+    return truth_families
+
+
+def _draw_boundaries(img, lab, width, depth) -> None:
+    """Darken grain boundaries as grooves (Gaussian, ``width`` px), in place."""
+    h, w = img.shape
+    edge = np.zeros((h, w), np.uint8)
+    edge[:, 1:] |= (lab[:, 1:] != lab[:, :-1]).astype(np.uint8)
+    edge[1:, :] |= (lab[1:, :] != lab[:-1, :]).astype(np.uint8)
+    groove = cv2.GaussianBlur(edge.astype(np.float32), (0, 0), max(width / 2.0, 0.5))
+    groove /= max(float(groove.max()), 1e-6)
+    img *= 1.0 - np.float32(depth) * groove
+
+
+def _draw_scratches(img, n_scratches, base_level, rng) -> list[tuple[float, float, float, float]]:
+    """Draw isolated straight polishing scratches at random angles, in place; their lines."""
+    h, w = img.shape
+    scratches = []
+    diag = float(np.hypot(h, w))
+    for _ in range(int(n_scratches)):
+        length = rng.uniform(0.3, 0.9) * diag
+        ang = rng.uniform(0, 180)
+        dc, dr = angle_to_pixel_direction(ang)
+        cen = rng.uniform((0.1 * w, 0.1 * h), (0.9 * w, 0.9 * h))
+        p0 = (cen[0] - 0.5 * length * dc, cen[1] - 0.5 * length * dr)
+        p1 = (cen[0] + 0.5 * length * dc, cen[1] + 0.5 * length * dr)
+        seg = _clip_line(p0, (dc, dr), (0, 0, w - 1, h - 1))
+        if seg is None:
+            continue
+        # keep the segment inside its own extent
+        pa = (np.clip(p0[0], 0, w - 1), np.clip(p0[1], 0, h - 1))
+        pb = (np.clip(p1[0], 0, w - 1), np.clip(p1[1], 0, h - 1))
+        amp = rng.choice([-1.0, 1.0]) * rng.uniform(0.15, 0.35) * base_level
+        _draw_segment(img, pa, pb, rng.uniform(0.8, 1.6), amp)
+        scratches.append((float(pa[0]), float(pa[1]), float(pb[0]), float(pb[1])))
+    return scratches
+
+
+def _illuminate(img, amount, rng) -> None:
+    """Multiply in a smooth gradient (random direction) and a vignette, in place."""
+    h, w = img.shape
+    ang = rng.uniform(0, 2 * np.pi)
+    cols = (np.arange(w, dtype=np.float32)[None, :] / w - 0.5)
+    rows = (np.arange(h, dtype=np.float32)[:, None] / h - 0.5)
+    ramp = np.float32(np.cos(ang)) * cols + np.float32(np.sin(ang)) * rows
+    vign = cols**2 + rows**2
+    img *= (1.0 + np.float32(amount) * (ramp - 0.8 * vign)).astype(np.float32)
+
+
+def _to_output(img, jpeg_quality, bit_depth, rgb):
+    """Clip, optionally JPEG round-trip, quantise to ``bit_depth`` bits and tint to RGB."""
+    np.clip(img, 0.0, 1.0, out=img)
+    if jpeg_quality is not None:
+        u8 = np.round(img * 255).astype(np.uint8)
+        ok, buf = cv2.imencode(".jpg", u8, [cv2.IMWRITE_JPEG_QUALITY, int(jpeg_quality)])
+        img = cv2.imdecode(buf, cv2.IMREAD_GRAYSCALE).astype(np.float32) / 255.0
+    full = 255.0 if bit_depth == 8 else 65535.0
+    dtype = np.uint8 if bit_depth == 8 else np.uint16
+    out = np.round(img * np.float32(full)).astype(dtype)
+    if rgb:
+        tint = np.array([1.0, 0.97, 0.9], np.float32)
+        out = np.clip(out[..., None].astype(np.float32) * tint, 0, full).round().astype(dtype)
+    return out
+
+
+def _check_render_arguments(h, w, bit_depth, jpeg_quality) -> None:
+    if h < 8 or w < 8:
+        raise TracefitInputError(f"shape must be at least 8 x 8 pixels, got ({h}, {w})")
+    if bit_depth not in (8, 16):
+        raise TracefitInputError(f"bit_depth must be 8 or 16, got {bit_depth!r}")
+    if jpeg_quality is not None and not 0 <= int(jpeg_quality) <= 100:
+        raise TracefitInputError(f"jpeg_quality must be an integer from 0 to 100 or None, got {jpeg_quality!r}")
+
+
 # --------------------------------------------------------------------------- main entry
 
 
 def render_micrograph(
-    shape=(512, 512),
+    shape: tuple[int, int] = (512, 512),
     families: Sequence[BandFamilySpec] = (),
     *,
     labels: np.ndarray | int | None = None,
@@ -286,13 +445,13 @@ def render_micrograph(
     rgb: bool = False,
     pixel_size_um: float | None = None,
     seed: int = 0,
-):
+) -> tuple[np.ndarray, SyntheticTruth]:
     """Render a synthetic micrograph with band families and known truth.
 
     Parameters
     ----------
     shape : (int, int)
-        Image (rows, columns), pixels.
+        Image (rows, columns), pixels, at least 8 x 8.
     families : sequence of BandFamilySpec
         Families drawn over the whole image (all grains).
     labels : ndarray of int, int or None
@@ -318,7 +477,7 @@ def render_micrograph(
     databar : bool or int
         Draw an instrument data bar at the bottom; an int gives its height in pixels.
     jpeg_quality : int or None
-        Compress and decompress as JPEG at this quality (1-100); None = lossless.
+        Compress and decompress as JPEG at this quality (0-100); None = lossless.
     bit_depth : {8, 16}
         Output sample depth.
     rgb : bool
@@ -330,174 +489,52 @@ def render_micrograph(
 
     Returns
     -------
-    image : ndarray
-        uint8 or uint16, shape ``shape`` or ``shape + (3,)``.
+    image : ndarray of uint8 or uint16, ``shape`` or ``shape + (3,)``
+        The micrograph, full scale 255 or 65535.
     truth : SyntheticTruth
+        What was drawn.
+
+    Raises
+    ------
+    TracefitInputError
+        A shape below 8 x 8, ``bit_depth`` not 8 or 16, ``jpeg_quality`` outside 0-100,
+        ``labels`` of another shape, or ``grain_families`` without ``labels``.
+
+    Examples
+    --------
+    >>> img, truth = render_micrograph((128, 160), [BandFamilySpec(30.0, spacing_px=16)], seed=4)
+    >>> img.shape, img.dtype.name, truth.family_angles
+    ((128, 160), 'uint8', [30.0])
+    >>> truth.families[0].n_bands > 5
+    True
     """
+    # Over 80 lines only through its docstring (numpydoc with a runnable example); the code is short.
     rng = np.random.default_rng(seed)
     h, w = int(shape[0]), int(shape[1])
-    if h < 8 or w < 8:
-        raise ValueError("shape must be at least 8 x 8 pixels")
-    if bit_depth not in (8, 16):
-        raise ValueError("bit_depth must be 8 or 16")
-    img = np.full((h, w), np.float32(base_level), np.float32)
-
-    lab = None
-    if labels is not None:
-        lab = voronoi_labels((h, w), int(labels), seed=int(rng.integers(2**31))) if np.isscalar(labels) else np.asarray(labels)
-        if lab.shape != (h, w):
-            raise ValueError("labels must have the image shape")
-        ids = np.unique(lab)
-        levels = base_level * (1.0 + grain_contrast / base_level * rng.standard_normal(ids.max() + 1)).astype(np.float32)
-        img = np.clip(levels[lab], 0.1, 0.9).astype(np.float32)
-
-    truth_families: list[TrueFamily] = []
-    for spec in families:
-        truth_families.append(_render_family(img, spec, None, (0, 0, w, h), rng, None))
-
-    if grain_families is not None:
-        if lab is None:
-            raise ValueError("grain_families needs labels")
-        items = grain_families.items() if isinstance(grain_families, dict) else enumerate(grain_families)
-        for gid, specs in items:
-            region = lab == gid
-            if not region.any():
-                continue
-            rr, cc = np.nonzero(region)
-            box = (int(cc.min()), int(rr.min()), int(cc.max()) + 1, int(rr.max()) + 1)
-            for spec in specs:
-                truth_families.append(_render_family(img, spec, region, box, rng, int(gid)))
-
+    _check_render_arguments(h, w, bit_depth, jpeg_quality)
+    img, lab = _grain_canvas(h, w, labels, base_level, grain_contrast, rng)
+    truth_families = _render_families(img, lab, families, grain_families, rng)
     if lab is not None and boundary_depth > 0:
-        edge = np.zeros((h, w), np.uint8)
-        edge[:, 1:] |= (lab[:, 1:] != lab[:, :-1]).astype(np.uint8)
-        edge[1:, :] |= (lab[1:, :] != lab[:-1, :]).astype(np.uint8)
-        groove = cv2.GaussianBlur(edge.astype(np.float32), (0, 0), max(boundary_width / 2.0, 0.5))
-        groove /= max(float(groove.max()), 1e-6)
-        img *= 1.0 - np.float32(boundary_depth) * groove
-
-    scratches = []
-    diag = float(np.hypot(h, w))
-    for _ in range(int(n_scratches)):
-        length = rng.uniform(0.3, 0.9) * diag
-        ang = rng.uniform(0, 180)
-        dc, dr = angle_to_pixel_direction(ang)
-        cen = rng.uniform((0.1 * w, 0.1 * h), (0.9 * w, 0.9 * h))
-        p0 = (cen[0] - 0.5 * length * dc, cen[1] - 0.5 * length * dr)
-        p1 = (cen[0] + 0.5 * length * dc, cen[1] + 0.5 * length * dr)
-        seg = _clip_line(p0, (dc, dr), (0, 0, w - 1, h - 1))
-        if seg is None:
-            continue
-        # keep the segment inside its own extent
-        pa = (np.clip(p0[0], 0, w - 1), np.clip(p0[1], 0, h - 1))
-        pb = (np.clip(p1[0], 0, w - 1), np.clip(p1[1], 0, h - 1))
-        amp = rng.choice([-1.0, 1.0]) * rng.uniform(0.15, 0.35) * base_level
-        _draw_segment(img, pa, pb, rng.uniform(0.8, 1.6), amp)
-        scratches.append((float(pa[0]), float(pa[1]), float(pb[0]), float(pb[1])))
-
+        _draw_boundaries(img, lab, boundary_width, boundary_depth)
+    scratches = _draw_scratches(img, n_scratches, base_level, rng)
     if illumination > 0:
-        ang = rng.uniform(0, 2 * np.pi)
-        cols = (np.arange(w, dtype=np.float32)[None, :] / w - 0.5)
-        rows = (np.arange(h, dtype=np.float32)[:, None] / h - 0.5)
-        ramp = np.float32(np.cos(ang)) * cols + np.float32(np.sin(ang)) * rows
-        vign = cols**2 + rows**2
-        img *= (1.0 + np.float32(illumination) * (ramp - 0.8 * vign)).astype(np.float32)
-
+        _illuminate(img, illumination, rng)
     if blur_sigma > 0:
         img = cv2.GaussianBlur(img, (0, 0), float(blur_sigma))
     if noise_sigma > 0:
         img += rng.standard_normal((h, w), dtype=np.float32) * np.float32(noise_sigma)
-
     bbox = None
     if databar:
         height = int(databar) if not isinstance(databar, bool) else max(20, int(round(0.07 * h)))
         bbox = _draw_databar(img, min(height, h // 3), rng, pixel_size_um)
-
-    np.clip(img, 0.0, 1.0, out=img)
-    if jpeg_quality is not None:
-        u8 = np.round(img * 255).astype(np.uint8)
-        ok, buf = cv2.imencode(".jpg", u8, [cv2.IMWRITE_JPEG_QUALITY, int(jpeg_quality)])
-        img = cv2.imdecode(buf, cv2.IMREAD_GRAYSCALE).astype(np.float32) / 255.0
-    full = 255.0 if bit_depth == 8 else 65535.0
-    dtype = np.uint8 if bit_depth == 8 else np.uint16
-    out = np.round(img * np.float32(full)).astype(dtype)
-    if rgb:
-        tint = np.array([1.0, 0.97, 0.9], np.float32)
-        out = np.clip(out[..., None].astype(np.float32) * tint, 0, full).round().astype(dtype)
-    truth = SyntheticTruth((h, w), truth_families, bbox, scratches, lab, pixel_size_um)
-    return out, truth
+    out = _to_output(img, jpeg_quality, bit_depth, rgb)
+    return out, SyntheticTruth((h, w), truth_families, bbox, scratches, lab, pixel_size_um)
 
 
-# --------------------------------------------------------------------------- standard suite
+def __getattr__(name):
+    # the standard suite moved to tracefit.image.suite; old imports keep working
+    if name in ("standard_suite", "SuiteCase"):
+        from tracefit.image import suite
 
-
-@dataclass
-class SuiteCase:
-    """One image of the standard suite: its index, seed, render keywords, image and truth."""
-
-    index: int
-    seed: int
-    params: dict
-    image: np.ndarray
-    truth: SyntheticTruth
-
-
-def _suite_params(rng, shape):
-    n_fam = int(rng.integers(1, 4))
-    angles: list[float] = []
-    while len(angles) < n_fam:
-        a = float(rng.uniform(0, 180))
-        if all(abs(((a - b + 90) % 180) - 90) >= 15 for b in angles):
-            angles.append(round(a, 3))
-    fams = []
-    for a in angles:
-        width = float(rng.uniform(2.0, 5.0))
-        fams.append(
-            BandFamilySpec(
-                angle_deg=a,
-                spacing_px=float(rng.uniform(max(14.0, 4 * width), 45.0)),
-                width_px=width,
-                contrast=float(rng.choice([-1, 1]) * rng.uniform(0.2, 0.4)),
-                spacing_jitter=float(rng.uniform(0.0, 0.25)),
-            )
-        )
-    return dict(
-        shape=shape,
-        families=fams,
-        noise_sigma=float(rng.uniform(0.01, 0.04)),
-        blur_sigma=float(rng.choice([0.0, rng.uniform(0.5, 1.5)])),
-        illumination=float(rng.uniform(0.0, 0.4)),
-        n_scratches=int(rng.integers(0, 3)),
-        databar=bool(rng.random() < 0.4),
-        jpeg_quality=int(rng.integers(70, 96)) if rng.random() < 0.4 else None,
-        bit_depth=8,
-    )
-
-
-def standard_suite(n: int = 200, seed: int = 2026, shape=(512, 512)) -> Iterator[SuiteCase]:
-    """The standard synthetic suite: ``n`` images with 1-3 band families, moderate noise.
-
-    Each image has random family angles (at least 15 deg apart), spacings 14-45 px,
-    widths 2-5 px, dark or bright bands with contrast 20-40 %, noise sigma 1-4 % of full
-    scale, sometimes blur, an illumination gradient, 0-2 scratches, a data bar (40 %)
-    and JPEG compression (40 %, quality 70-95).
-
-    Parameters
-    ----------
-    n : int
-        Number of images.
-    seed : int
-        Suite seed; the same (n, seed, shape) gives the same images.
-    shape : (int, int)
-        Image (rows, columns).
-
-    Yields
-    ------
-    SuiteCase
-    """
-    rng = np.random.default_rng(seed)
-    for i in range(int(n)):
-        s = int(rng.integers(2**31))
-        params = _suite_params(np.random.default_rng(s), shape)
-        img, truth = render_micrograph(**params, seed=s)
-        yield SuiteCase(i, s, params, img, truth)
+        return getattr(suite, name)
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
