@@ -10,6 +10,8 @@ default and one rule everywhere. Settings fall in three groups:
     How families are matched to candidate planes (the probability model's knobs).
 ``analysis``
     How the chain is run around those two (which grains are analysed, the checks run).
+``image``
+    Facts about the picture (pixel size).
 
 Examples
 --------
@@ -66,11 +68,29 @@ class Option:
     low_open: bool = False
     high_open: bool = False
     flag: str | None = None
+    allow_none: bool = False
 
-    def check(self, value: Any) -> Any:
-        """Return ``value`` normalised to this option's kind, or raise :class:`OptionError`."""
+    def check(self, value: Any, name: str | None = None) -> Any:
+        """Return ``value`` normalised to this option's kind, or raise :class:`OptionError`.
+
+        ``name`` replaces the option's name in the message where a function calls the same
+        setting otherwise (``detect_grains(min_pixels=...)`` is ``min_grain_px``).
+        """
+        if name is not None and name != self.name:
+            from dataclasses import replace
+
+            return replace(self, name=name).check(value)
+        if value is None and self.allow_none:
+            return None
         if self.kind == "bool":
             if not isinstance(value, bool):
+                try:
+                    import numpy as np
+
+                    if isinstance(value, np.bool_):
+                        return bool(value)
+                except ImportError:  # pragma: no cover
+                    pass
                 raise OptionError(self.name, f"{self.name} must be true or false, got {value!r}")
             return value
         if self.kind == "floats":
@@ -121,13 +141,16 @@ OPTIONS: tuple[Option, ...] = (
     Option("min_bands", "detect", "int", 3, "fewest parallel bands that make a family", low=1),
     Option("max_families", "detect", "int", 8, "most families reported per image or grain", low=1),
     Option("working_size", "detect", "int", 1536, "longest side of the working copy for enhancement and Hough, px",
-           low=64),
-    Option("scales", "detect", "floats", (1.0, 1.7, 2.8), "ridge-filter scales at working resolution, px", low=0.3,
-           high=50.0),
+           low=16),
+    Option("scales", "detect", "floats", (1.0, 1.7, 2.8), "ridge-filter scales at working resolution, px", low=0.0,
+           low_open=True, high=64.0),
     Option("min_coverage", "detect", "float", 0.3, "least share of a line's length that lies on ridge pixels",
            low=0.0, high=1.0, low_open=True),
     Option("min_depth", "detect", "float", 0.035, "least relative depth of a band below/above the local median grey",
            low=0.0),
+    # -- the image itself
+    Option("pixel_size_um", "image", "float", None, "micrometres per pixel (band spacings in um)", low=0.0,
+           low_open=True, allow_none=True, flag="--pixel-size"),
     # -- identification
     Option("orientation_sigma_deg", "identify", "float", 1.0,
            "orientation uncertainty per sample axis, degrees", low=0.0, high=45.0, flag="--orientation-sigma"),
@@ -155,7 +178,7 @@ OPTIONS: tuple[Option, ...] = (
     Option("frame_check", "analysis", "bool", True, "on grain maps, test the frame rotation against the traces"),
 )
 
-GROUPS = ("detect", "identify", "analysis")
+GROUPS = ("image", "detect", "identify", "analysis")
 _BY_NAME = {o.name: o for o in OPTIONS}
 
 

@@ -24,7 +24,7 @@ from tracefit.image.continuation import line_continuation
 from tracefit.image.detect import detect_bands, detect_grains
 from tracefit.image.draw import FAMILY_COLOURS, draw_detection, write_detection_overlay
 from tracefit.image.io import IMAGE_SUFFIXES, read_image, read_mask, to_gray
-from tracefit.image.options import DETECT_OPTIONS, DetectOption, check_detect_options
+from tracefit.image.options import DETECT_OPTIONS, check_detect_options
 from tracefit.image.results import BandFamily, BandLine, DetectionResult
 from tracefit.image.suite import SuiteCase, standard_suite
 from tracefit.image.synthetic import (
@@ -38,7 +38,7 @@ from tracefit.image.synthetic import (
 __all__ = [
     "read_image", "read_mask", "to_gray", "IMAGE_SUFFIXES",
     "detect_bands", "detect_grains", "BandLine", "BandFamily", "DetectionResult",
-    "DETECT_OPTIONS", "DetectOption", "check_detect_options",
+    "DETECT_OPTIONS", "check_detect_options",
     "line_continuation",
     "FAMILY_COLOURS", "draw_detection", "write_detection_overlay",
     "BandFamilySpec", "TrueFamily", "SyntheticTruth", "render_micrograph", "voronoi_labels", "standard_suite", "SuiteCase",
