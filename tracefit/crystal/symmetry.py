@@ -40,8 +40,10 @@ import math
 
 import numpy as np
 
-from tracefit.errors import TracefitInputError
+from tracefit.conventions import miller_bravais_to_miller, miller_to_miller_bravais
 from tracefit.crystal.indices import MillerIndex, check_values, parse_index, to_three
+from tracefit.crystal.rotations import from_axis_angle
+from tracefit.errors import TracefitInputError
 
 __all__ = [
     "proper_rotations",
@@ -72,12 +74,12 @@ _ORDER = {"432": 24, "23": 12, "622": 12, "6": 6, "32": 6, "3": 3, "422": 8, "4"
 
 
 def _axis_rotation(axis, fold: int) -> np.ndarray:
-    """Active rotation by 360/fold degrees about ``axis`` (Rodrigues)."""
-    k = np.asarray(axis, float)
-    k = k / np.linalg.norm(k)
-    t = 2.0 * math.pi / fold
-    K = np.array([[0, -k[2], k[1]], [k[2], 0, -k[0]], [-k[1], k[0], 0]])
-    R = np.eye(3) + math.sin(t) * K + (1 - math.cos(t)) * (K @ K)
+    """Active rotation by 360/fold degrees about ``axis``.
+
+    The passive matrix of :func:`tracefit.crystal.rotations.from_axis_angle` (the one
+    axis-angle convention) turns coordinates; its transpose turns vectors.
+    """
+    R = from_axis_angle(axis, 360.0 / fold).T
     R[np.abs(R) < 1e-15] = 0.0
     return R
 
@@ -241,34 +243,13 @@ def _as_values(idx, lattice, kind: str) -> tuple[int, ...]:
     return vals
 
 
-def _to_three(v, kind):
-    v = np.asarray(v, dtype=np.int64)
-    if v.shape[-1] == 3:
-        return v
-    if kind == "plane":
-        return v[..., [0, 1, 3]]
-    return np.stack([v[..., 0] - v[..., 2], v[..., 1] - v[..., 2], v[..., 3]], axis=-1)
-
-
-def _to_four(v3, kind):
-    """Three-index integer plane or direction back to four indices (directions: [UVW] -> [uvtw])."""
-    v3 = np.asarray(v3, dtype=np.int64)
-    if kind == "plane":
-        h, k, l = v3[..., 0], v3[..., 1], v3[..., 2]
-        return np.stack([h, k, -(h + k), l], axis=-1)
-    U, V, W = v3[..., 0], v3[..., 1], v3[..., 2]
-    num = np.stack([2 * U - V, 2 * V - U, -(U + V), 3 * W], axis=-1)
-    if np.any(num % 3):  # pragma: no cover - symmetry maps [uvtw] with integer u, v, t onto integers
-        raise RuntimeError("a symmetry variant of a four-index direction is not integral")
-    return num // 3
-
-
 def _variants(lattice, values, kind):
     M = index_rotations(lattice, kind)
-    v3 = _to_three(values, kind)
+    v3 = miller_bravais_to_miller(np.asarray(values, dtype=np.int64), kind)
     out = np.einsum("nij,j->ni", M, v3)
     if len(values) == 4:
-        out = _to_four(out, kind)
+        # symmetry maps a whole [uvtw] onto whole [uvtw]s, so the integer form exists
+        out = miller_to_miller_bravais(out, kind, integer=True)
     return [tuple(int(x) for x in row) for row in out]
 
 
