@@ -168,7 +168,28 @@ def _label_keys(lattice, text: str):
 
 
 def available_families(lattice) -> list[str]:
-    """Labels accepted by the ``families`` filter for the built-ins of ``lattice``."""
+    """Labels accepted by the ``families`` filter for the built-ins of ``lattice``.
+
+    Parameters
+    ----------
+    lattice : tracefit.crystal.Lattice
+
+    Returns
+    -------
+    list of str
+        One label per built-in system family, with its trade name where it has one.
+
+    Raises
+    ------
+    TracefitInputError
+        No built-ins for the lattice.
+
+    Examples
+    --------
+    >>> from tracefit.crystal import Lattice
+    >>> available_families(Lattice.fcc())
+    ['{111}<110> slip', '{111}<112> twin']
+    """
     out = []
     for key, mode, systems in _builtin(lattice):
         s = systems[0]
@@ -189,6 +210,23 @@ def filter_systems(systems, lattice=None, modes=MODES, families=None) -> list[De
         Labels such as ``"{111}<110>"``, ``"{10-12}"``, a system name (``"basal <a>"``) or a
         trade name (``"basal"``, ``"prismatic"``, ``"pyramidal-a"``, ``"pyramidal-ca-1"``,
         ``"pyramidal-ca-2"``, ``"twin-10-12"``...). None keeps all.
+
+    Returns
+    -------
+    list of DeformationSystem
+        In the order of ``families`` (then catalogue order), each system once.
+
+    Raises
+    ------
+    TracefitInputError
+        Unknown mode, or a label that matches nothing (the message lists what is available).
+
+    Examples
+    --------
+    >>> from tracefit.crystal import Lattice, catalogue
+    >>> lat = Lattice.hcp(c_over_a=1.587)
+    >>> len(filter_systems(catalogue(lat), lat, modes="slip", families=["basal", "prismatic"]))
+    6
     """
     modes = _check_modes(modes)
     kept = [s for s in systems if s.mode in modes]
@@ -282,6 +320,12 @@ def catalogue(lattice, modes=MODES, families=None) -> list[DeformationSystem]:
     ------
     TracefitInputError
         No built-ins for the lattice (use a systems file), unknown mode or family.
+
+    Examples
+    --------
+    >>> from tracefit.crystal import Lattice
+    >>> len(catalogue(Lattice.fcc())), len(catalogue(Lattice.bcc(), modes="slip"))
+    (24, 48)
     """
     modes = _check_modes(modes)
     systems = [s for _, mode, group in _builtin(lattice) if mode in modes for s in group]

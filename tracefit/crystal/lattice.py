@@ -232,6 +232,7 @@ class Lattice:
 
     @property
     def is_cubic(self) -> bool:
+        """True for the cubic Laue classes m-3m and m-3."""
         return self.laue in ("m-3m", "m-3")
 
     @property
@@ -241,6 +242,7 @@ class Lattice:
 
     @property
     def c_over_a(self) -> float:
+        """Axial ratio c / a."""
         return self.c / self.a
 
     # ----------------------------------------------------------------- bases

@@ -36,8 +36,6 @@ descending lexicographic order of the written indices, e.g.
 
 from __future__ import annotations
 
-import math
-
 import numpy as np
 
 from tracefit.conventions import miller_bravais_to_miller, miller_to_miller_bravais
@@ -141,6 +139,12 @@ def proper_rotations(lattice) -> np.ndarray:
     TracefitInputError
         If the cell does not have the symmetry its Laue class claims (the rotations would not
         map the lattice onto itself).
+
+    Examples
+    --------
+    >>> from tracefit.crystal import Lattice
+    >>> len(proper_rotations(Lattice.fcc())), len(proper_rotations(Lattice.hcp(c_over_a=1.587)))
+    (24, 12)
     """
     key = ("proper_rotations", lattice.laue, lattice.hex_setting)
     cache = getattr(lattice, "_cache", None)
@@ -192,6 +196,17 @@ def index_rotations(lattice, kind: str) -> np.ndarray:
     Returns
     -------
     ndarray of int, shape (N, 3, 3)
+
+    Raises
+    ------
+    TracefitInputError
+        As :func:`proper_rotations`.
+
+    Examples
+    --------
+    >>> from tracefit.crystal import Lattice
+    >>> index_rotations(Lattice.fcc(), "plane").dtype.kind, index_rotations(Lattice.fcc(), "plane").shape
+    ('i', (24, 3, 3))
     """
     key = ("index_rotations", kind, lattice.laue, lattice.hex_setting)
     cache = getattr(lattice, "_cache", None)
@@ -210,7 +225,22 @@ def index_rotations(lattice, kind: str) -> np.ndarray:
 
 
 def canonical_sign(values) -> tuple[int, ...]:
-    """The index with its first non-zero entry made positive (a plane and its negative are one)."""
+    """The index with its first non-zero entry made positive (a plane and its negative are one).
+
+    Parameters
+    ----------
+    values : sequence of int
+        Three or four indices.
+
+    Returns
+    -------
+    tuple of int
+
+    Examples
+    --------
+    >>> canonical_sign((0, -1, 1))
+    (0, 1, -1)
+    """
     v = tuple(int(x) for x in values)
     for x in v:
         if x != 0:
@@ -267,6 +297,19 @@ def plane_variants(lattice, hkl) -> list[tuple[int, ...]]:
     list of tuple of int
         Each plane once, first non-zero index positive, sorted in descending lexicographic
         order; same number of indices as ``hkl``.
+
+    Raises
+    ------
+    TracefitInputError
+        Unreadable indices, or four indices on a non-hexagonal lattice.
+
+    Examples
+    --------
+    >>> from tracefit.crystal import Lattice
+    >>> plane_variants(Lattice.fcc(), "{111}")
+    [(1, 1, 1), (1, 1, -1), (1, -1, 1), (1, -1, -1)]
+    >>> len(plane_variants(Lattice.hcp(c_over_a=1.587), (1, 0, -1, 2)))
+    6
     """
     vals = _as_values(hkl, lattice, "plane")
     found = {canonical_sign(v) for v in _variants(lattice, vals, "plane")}
@@ -290,6 +333,17 @@ def direction_variants(lattice, uvw, signed: bool = True) -> list[tuple[int, ...
     -------
     list of tuple of int
         Sorted in descending lexicographic order.
+
+    Raises
+    ------
+    TracefitInputError
+        Unreadable indices, or four indices on a non-hexagonal lattice.
+
+    Examples
+    --------
+    >>> from tracefit.crystal import Lattice
+    >>> len(direction_variants(Lattice.fcc(), (1, 1, 0))), len(direction_variants(Lattice.fcc(), (1, 1, 0), signed=False))
+    (12, 6)
     """
     vals = _as_values(uvw, lattice, "direction")
     vs = _variants(lattice, vals, "direction")
@@ -301,7 +355,30 @@ def direction_variants(lattice, uvw, signed: bool = True) -> list[tuple[int, ...
 
 
 def same_family(lattice, a, b, kind: str = "plane") -> bool:
-    """True when ``a`` and ``b`` belong to the same family (up to sign) under the lattice symmetry."""
+    """True when ``a`` and ``b`` belong to the same family (up to sign) under the lattice symmetry.
+
+    Parameters
+    ----------
+    lattice : tracefit.crystal.Lattice
+    a, b : sequence of int, str or MillerIndex
+        Two planes (or directions); three and four indices may be mixed on hexagonal lattices.
+    kind : {"plane", "direction"}
+
+    Returns
+    -------
+    bool
+
+    Raises
+    ------
+    TracefitInputError
+        Unreadable indices.
+
+    Examples
+    --------
+    >>> from tracefit.crystal import Lattice
+    >>> same_family(Lattice.fcc(), (1, -1, 1), (1, 1, 1)), same_family(Lattice.fcc(), (1, 1, 0), (1, 1, 1))
+    (True, False)
+    """
     va = _as_values(a, lattice, kind)
     vb = _as_values(b, lattice, kind)
     if len(va) != len(vb):

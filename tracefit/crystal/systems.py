@@ -82,6 +82,13 @@ class DeformationSystem:
         Twin shear magnitude (dimensionless); None for slip (and for user twins without one).
     source : str
         Where the entry came from: ``"built-in"`` or the systems file path.
+
+    Examples
+    --------
+    >>> from tracefit.crystal import Lattice, catalogue
+    >>> s = catalogue(Lattice.fcc(), modes="slip")[0]
+    >>> s.label, s.family_label, s.mode
+    ('(111)[10-1]', '{111}<110>', 'slip')
     """
 
     mode: str
@@ -184,6 +191,18 @@ def twin_shear(family: str, c_over_a: float | None = None) -> float:
     -------
     float
         Shear magnitude s >= 0 (dimensionless).
+
+    Raises
+    ------
+    TracefitInputError
+        No built-in shear for the family, or a hexagonal family without a positive c/a.
+
+    Examples
+    --------
+    >>> round(twin_shear("{10-12}", 1.624), 4)  # Mg
+    0.1289
+    >>> round(twin_shear("{111}"), 4)
+    0.7071
     """
     key = canonical_sign(_family_key(family))
     if len(key) == 3 and (key in plane_variants(_CUBIC_REF, (1, 1, 1)) or key in plane_variants(_CUBIC_REF, (1, 1, 2))):
@@ -244,10 +263,26 @@ def expand_slip(lattice, plane, direction, name: str | None = None, source: str 
     name : str, optional
         Label; default ``"{hkl}<uvw> slip"``.
 
+    plane_family, direction_family : str, optional
+        Family labels to store; default from the indices.
+    source : str
+        Where the systems come from.
+
     Returns
     -------
     list of DeformationSystem
         Ordered by plane (as :func:`tracefit.crystal.symmetry.plane_variants`) then direction.
+
+    Raises
+    ------
+    TracefitInputError
+        No direction of the family lies in any plane of the family.
+
+    Examples
+    --------
+    >>> from tracefit.crystal import Lattice
+    >>> len(expand_slip(Lattice.bcc(), (1, 1, 0), (1, -1, 1)))
+    12
     """
     pf = plane_family or _family_label(lattice, plane, "plane")
     df = direction_family or _family_label(lattice, direction, "direction")
@@ -297,6 +332,27 @@ def expand_twin(lattice, plane, direction, name: str | None = None, shear: float
     name : str, optional
     shear : float, optional
         Twin shear magnitude stored on each variant.
+    source : str
+        Where the systems come from.
+    plane_family, direction_family : str, optional
+        Family labels to store; default from the indices.
+
+    Returns
+    -------
+    list of DeformationSystem
+        Sorted by (plane, direction), descending.
+
+    Raises
+    ------
+    TracefitInputError
+        The direction does not lie in the plane.
+
+    Examples
+    --------
+    >>> from tracefit.crystal import Lattice
+    >>> tw = expand_twin(Lattice.fcc(), (1, 1, 1), (-1, -1, 2))
+    >>> len(tw), tw[0].mode
+    (12, 'twin')
     """
     plane = tuple(int(x) for x in plane)
     direction = tuple(int(x) for x in direction)

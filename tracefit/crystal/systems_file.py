@@ -95,6 +95,17 @@ def load_systems_file(path, lattice: Lattice | None = None) -> tuple[Lattice | N
     TracefitInputError
         Unreadable file, TOML syntax error, unknown or missing keys, wrong index counts,
         unknown modes, directions not in their planes; messages name the entry and its line.
+
+    Examples
+    --------
+    >>> import pathlib, tempfile
+    >>> lines = ['[lattice]', 'preset = "bcc"', '[[system]]', 'mode = "slip"', 'plane = "{110}"', 'direction = "<111>"']
+    >>> with tempfile.TemporaryDirectory() as tmp:
+    ...     path = pathlib.Path(tmp, "bcc.toml")
+    ...     _ = path.write_text(chr(10).join(lines), encoding="utf-8")
+    ...     lattice, systems = load_systems_file(path)
+    >>> lattice.name, len(systems)
+    ('bcc', 12)
     """
     p = Path(path)
     try:
@@ -139,7 +150,7 @@ def load_systems_file(path, lattice: Lattice | None = None) -> tuple[Lattice | N
 
 
 def _sense_from_eta2(lat, pl: MillerIndex, di: MillerIndex, eta2_text, shear):
-    """Twinning sense and shear from K1, eta1 and eta2 (see the module docstring)."""
+    """Twinning sense and shear from K1, eta1 and eta2 (see :mod:`tracefit.crystal.systems`)."""
     if not isinstance(eta2_text, str):
         raise TracefitInputError(f"eta2 must be text in index brackets, e.g. \"[101]\", got {eta2_text!r}")
     e2 = parse_index(eta2_text, lattice=lat, expect="direction")
@@ -160,7 +171,8 @@ def _sense_from_eta2(lat, pl: MillerIndex, di: MillerIndex, eta2_text, shear):
     return MillerIndex(d, "direction", False), abs(s)
 
 
-def _read_entry(e, lat, where, source) -> list[DeformationSystem]:
+def _entry_fields(e, where):
+    """Checked (mode, name, expand, shear) of one [[system]] table; indices are read later."""
     if not isinstance(e, dict):
         raise TracefitInputError(f"{where}: each [[system]] must be a table")
     unknown = set(e) - _SYSTEM_KEYS
@@ -191,6 +203,11 @@ def _read_entry(e, lat, where, source) -> list[DeformationSystem]:
         if isinstance(shear, bool) or not isinstance(shear, (int, float)) or not (shear > 0 and math.isfinite(shear)):
             raise TracefitInputError(f"{where}: shear must be a positive number, got {shear!r}")
         shear = float(shear)
+    return mode, name, expand, shear
+
+
+def _read_entry(e, lat, where, source) -> list[DeformationSystem]:
+    mode, name, expand, shear = _entry_fields(e, where)
     try:
         pl = parse_index(e["plane"], lattice=lat, expect="plane")
         di = parse_index(e["direction"], lattice=lat, expect="direction")
@@ -200,43 +217,52 @@ def _read_entry(e, lat, where, source) -> list[DeformationSystem]:
         raise TracefitInputError(
             f"{where}: write both plane and direction as families ({{}} and <>) or both as single indices (() and [])"
         )
-    family = pl.family
     if expand is None:
-        expand = family
-    if family and not expand:
+        expand = pl.family
+    if pl.family and not expand:
         raise TracefitInputError(f"{where}: families ({{}} and <>) always expand; write () and [] for one system")
     try:
         if mode == "slip":
-            # Families pair every plane with every direction lying in it; single indices must fit.
-            if not family and _zone(pl.values, di.values) != 0:
-                raise TracefitInputError(
-                    f"direction {di} does not lie in plane {pl} (h u + k v + l w = {_zone(pl.values, di.values)}, must be 0)"
-                )
-            if expand:
-                return expand_slip(lat, pl.values, di.values, name, source=source)
-            p, d = canonical_sign(pl.values), canonical_sign(di.values)
-            pf, df = format_index(p, "plane", True), format_index(d, "direction", True)
-            n, u = _unit_vectors(lat, p, d, name or f"{pf}{df} slip")
-            return [DeformationSystem("slip", pf, df, name or f"{pf}{df} slip", p, d, n, u, None, source)]
-        if family:
-            raise TracefitInputError(
-                "a twin needs one plane and its twinning direction with the shear sense, e.g. "
-                "plane = \"(301)\", direction = \"[10-3]\"; add expand = true for all variants"
-            )
-        if _zone(pl.values, di.values) != 0:
-            raise TracefitInputError(
-                f"direction {di} does not lie in plane {pl} (h u + k v + l w = {_zone(pl.values, di.values)}, must be 0)"
-            )
-        if "eta2" in e:
-            di, shear = _sense_from_eta2(lat, pl, di, e["eta2"], shear)
-        if expand:
-            return expand_twin(lat, pl.values, di.values, name, shear, source=source)
-        p, d = pl.values, di.values
-        if canonical_sign(p) != p:
-            p, d = canonical_sign(p), tuple(-x for x in d)
-        pf, df = format_index(p, "plane", True), format_index(canonical_sign(d), "direction", True)
-        n, u = _unit_vectors(lat, p, d, name or f"{pf}{df} twin")
-        return [DeformationSystem("twin", pf, df, name or f"{pf}{df} twin", p, d, n, u, shear, source)]
+            return _slip_entry(lat, pl, di, name, expand, source)
+        return _twin_entry(lat, pl, di, name, expand, shear, e.get("eta2"), source)
     except TracefitInputError as exc:
         msg = str(exc)
         raise TracefitInputError(msg if msg.startswith(where) else f"{where}: {msg}") from None
+
+
+def _check_zone(pl: MillerIndex, di: MillerIndex) -> None:
+    if _zone(pl.values, di.values) != 0:
+        raise TracefitInputError(
+            f"direction {di} does not lie in plane {pl} (h u + k v + l w = {_zone(pl.values, di.values)}, must be 0)"
+        )
+
+
+def _slip_entry(lat, pl, di, name, expand, source) -> list[DeformationSystem]:
+    # Families pair every plane with every direction lying in it; single indices must fit.
+    if not pl.family:
+        _check_zone(pl, di)
+    if expand:
+        return expand_slip(lat, pl.values, di.values, name, source=source)
+    p, d = canonical_sign(pl.values), canonical_sign(di.values)
+    pf, df = format_index(p, "plane", True), format_index(d, "direction", True)
+    n, u = _unit_vectors(lat, p, d, name or f"{pf}{df} slip")
+    return [DeformationSystem("slip", pf, df, name or f"{pf}{df} slip", p, d, n, u, None, source)]
+
+
+def _twin_entry(lat, pl, di, name, expand, shear, eta2, source) -> list[DeformationSystem]:
+    if pl.family:
+        raise TracefitInputError(
+            "a twin needs one plane and its twinning direction with the shear sense, e.g. "
+            "plane = \"(301)\", direction = \"[10-3]\"; add expand = true for all variants"
+        )
+    _check_zone(pl, di)
+    if eta2 is not None:
+        di, shear = _sense_from_eta2(lat, pl, di, eta2, shear)
+    if expand:
+        return expand_twin(lat, pl.values, di.values, name, shear, source=source)
+    p, d = pl.values, di.values
+    if canonical_sign(p) != p:
+        p, d = canonical_sign(p), tuple(-x for x in d)
+    pf, df = format_index(p, "plane", True), format_index(canonical_sign(d), "direction", True)
+    n, u = _unit_vectors(lat, p, d, name or f"{pf}{df} twin")
+    return [DeformationSystem("twin", pf, df, name or f"{pf}{df} twin", p, d, n, u, shear, source)]
