@@ -47,6 +47,7 @@ import math
 from dataclasses import asdict, dataclass
 
 import numpy as np
+from numpy.typing import ArrayLike
 
 from tracefit.errors import TracefitInputError
 
@@ -69,7 +70,7 @@ __all__ = [
 TILT_AXES = ("x", "y")
 
 # ------------------------------------------------------------------ image-frame angles
-def fold_axial(angle_deg):
+def fold_axial(angle_deg: ArrayLike) -> float | np.ndarray:
     """Fold angles onto the axial range [0, 180).
 
     Parameters
@@ -95,7 +96,7 @@ def fold_axial(angle_deg):
     return float(a) if a.ndim == 0 else a
 
 
-def axial_difference(a_deg, b_deg):
+def axial_difference(a_deg: ArrayLike, b_deg: ArrayLike) -> float | np.ndarray:
     """Signed smallest difference a - b between axial angles, in (-90, 90] degrees.
 
     Parameters
@@ -120,7 +121,7 @@ def axial_difference(a_deg, b_deg):
     return float(d) if d.ndim == 0 else d
 
 
-def pixel_direction_angle(d_col, d_row):
+def pixel_direction_angle(d_col: ArrayLike, d_row: ArrayLike) -> float | np.ndarray:
     """Image-frame axial angle of a direction given in pixel (column, row) steps.
 
     Rows grow downward, so the upward screen component is ``-d_row``:
@@ -144,7 +145,7 @@ def pixel_direction_angle(d_col, d_row):
     return fold_axial(np.degrees(np.arctan2(-np.asarray(d_row, float), np.asarray(d_col, float))))
 
 
-def pixel_endpoints_angle(col0, row0, col1, row1):
+def pixel_endpoints_angle(col0: ArrayLike, row0: ArrayLike, col1: ArrayLike, row1: ArrayLike) -> float | np.ndarray:
     """Axial image-frame angle of the line through two pixel points (col, row).
 
     Parameters
@@ -174,7 +175,7 @@ def pixel_endpoints_angle(col0, row0, col1, row1):
     return pixel_direction_angle(dc, dr)
 
 
-def angle_to_pixel_direction(angle_deg):
+def angle_to_pixel_direction(angle_deg: ArrayLike) -> tuple[np.ndarray, np.ndarray]:
     """Unit (d_col, d_row) pixel direction of an image-frame angle (inverse of :func:`pixel_direction_angle`).
 
     Parameters
@@ -197,7 +198,7 @@ def angle_to_pixel_direction(angle_deg):
     return np.cos(t), -np.sin(t)
 
 
-def axial_mean(angles_deg, weights=None):
+def axial_mean(angles_deg: ArrayLike, weights: ArrayLike | None = None) -> float:
     """Weighted mean of axial angles (angle doubling), in [0, 180) degrees.
 
     Parameters
@@ -336,7 +337,7 @@ def _tilt_factors(frame: FrameSettings):
     return (1.0, c) if frame.tilt_axis == "x" else (c, 1.0)
 
 
-def apparent_angle(true_deg, frame: FrameSettings | None = None):
+def apparent_angle(true_deg: ArrayLike, frame: FrameSettings | None = None) -> float | np.ndarray:
     """Apparent (tilted-view) axial angle of a surface line from its true image-frame angle.
 
     Parameters
@@ -362,7 +363,7 @@ def apparent_angle(true_deg, frame: FrameSettings | None = None):
     return fold_axial(np.degrees(np.arctan2(np.sin(t) * fy, np.cos(t) * fx)))
 
 
-def true_angle(apparent_deg, frame: FrameSettings | None = None):
+def true_angle(apparent_deg: ArrayLike, frame: FrameSettings | None = None) -> float | np.ndarray:
     """True image-frame axial angle from the apparent angle seen under stage tilt.
 
     The inverse of :func:`apparent_angle`.
@@ -396,7 +397,7 @@ def _is_integer_array(v: np.ndarray) -> bool:
     return v.dtype.kind in "iub"
 
 
-def miller_bravais_to_miller(idx, kind: str) -> np.ndarray:
+def miller_bravais_to_miller(idx: ArrayLike, kind: str) -> np.ndarray:
     """Four-index (hkil) plane or [uvtw] direction to three indices.
 
     Planes: (hkil) -> (hkl), with h + k + i = 0 required.
@@ -440,7 +441,7 @@ def miller_bravais_to_miller(idx, kind: str) -> np.ndarray:
     return np.stack([v[..., 0] - v[..., 2], v[..., 1] - v[..., 2], v[..., 3]], axis=-1)
 
 
-def miller_to_miller_bravais(idx, kind: str, integer: bool = False) -> np.ndarray:
+def miller_to_miller_bravais(idx: ArrayLike, kind: str, integer: bool = False) -> np.ndarray:
     """Three indices to four: (hkl) -> (h, k, -(h+k), l); [UVW] -> [(2U-V)/3, (2V-U)/3, -(U+V)/3, W].
 
     Parameters

@@ -39,7 +39,10 @@ from tracefit.crystal.orientation import (
     from_quaternion,
     from_two_directions,
     looks_like_radians,
+    parse_axis_angle,
     parse_euler,
+    parse_matrix,
+    parse_quaternion,
     parse_vector,
     sample_to_crystal,
     to_axis_angle,
@@ -55,7 +58,7 @@ from tracefit.crystal.symmetry import (
     proper_rotations,
     same_family,
 )
-from tracefit.crystal.systems import DeformationSystem, expand_slip, expand_twin, twin_shear
+from tracefit.crystal.systems import MODES, DeformationSystem, expand_slip, expand_twin, twin_shear
 from tracefit.crystal.systems_file import load_systems_file
 
 __all__ = [

@@ -10,9 +10,11 @@ import functools
 import math
 import re
 import warnings
+from collections.abc import Iterable, Sequence
 from dataclasses import dataclass
 
 from tracefit.crystal.indices import parse_index
+from tracefit.crystal.lattice import Lattice
 from tracefit.crystal.systems import (
     MODES,
     DeformationSystem,
@@ -167,7 +169,7 @@ def _label_keys(lattice, text: str):
     return pv, dv
 
 
-def available_families(lattice) -> list[str]:
+def available_families(lattice: Lattice) -> list[str]:
     """Labels accepted by the ``families`` filter for the built-ins of ``lattice``.
 
     Parameters
@@ -197,7 +199,7 @@ def available_families(lattice) -> list[str]:
     return out
 
 
-def filter_systems(systems, lattice=None, modes=MODES, families=None) -> list[DeformationSystem]:
+def filter_systems(systems: Sequence[DeformationSystem], lattice: Lattice | None = None, modes: str | Iterable[str] = MODES, families: str | Iterable[str] | None = None) -> list[DeformationSystem]:
     """Keep the systems of the given modes whose family matches one of ``families``.
 
     Parameters
@@ -296,7 +298,7 @@ def _check_modes(modes):
     return modes
 
 
-def catalogue(lattice, modes=MODES, families=None) -> list[DeformationSystem]:
+def catalogue(lattice: Lattice, modes: str | Iterable[str] = MODES, families: str | Iterable[str] | None = None) -> list[DeformationSystem]:
     """Built-in slip and twin systems of a lattice.
 
     Parameters

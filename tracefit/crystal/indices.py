@@ -29,12 +29,17 @@ indices on the hexagonal a1, a2, c cell) and other lattices reject four.
 from __future__ import annotations
 
 import re
+from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from tracefit.conventions import miller_bravais_to_miller
 from tracefit.errors import TracefitInputError
+
+if TYPE_CHECKING:  # names used in annotations only
+    from tracefit.crystal.lattice import Lattice
 
 __all__ = ["MillerIndex", "parse_index", "format_index", "check_values", "to_three", "BRACKETS"]
 
@@ -91,7 +96,7 @@ class MillerIndex:
         return to_three(self.values, self.kind)
 
 
-def to_three(values, kind: str) -> tuple[int, ...]:
+def to_three(values: Sequence[int], kind: str) -> tuple[int, ...]:
     """Integer three-index form of a 3- or 4-index plane or direction (unchanged if 3).
 
     A thin wrapper of :func:`tracefit.conventions.miller_bravais_to_miller` (the one place
@@ -153,7 +158,7 @@ def _split_body(body: str, text: str) -> list[int]:
     return [int(m) for m in re.findall(r"-?\d", body)]
 
 
-def parse_index(text, lattice=None, expect: str | None = None, hex_three_index: bool = False) -> MillerIndex:
+def parse_index(text: str, lattice: Lattice | None = None, expect: str | None = None, hex_three_index: bool = False) -> MillerIndex:
     """Read one plane, plane family, direction or direction family.
 
     Parameters
@@ -215,7 +220,7 @@ def parse_index(text, lattice=None, expect: str | None = None, hex_three_index: 
     return MillerIndex(values, kind, family)
 
 
-def check_values(values, kind: str, lattice=None, text: str | None = None, hex_three_index: bool = False) -> None:
+def check_values(values: Sequence[int], kind: str, lattice: Lattice | None = None, text: str | None = None, hex_three_index: bool = False) -> None:
     """Validate integer indices of a plane or direction (count, all-zero, four-index sum rule).
 
     Parameters
@@ -297,7 +302,7 @@ def _sum_text(a: int, b: int, c: int) -> str:
     return f"{' '.join(terms)} = {a + b + c}"
 
 
-def format_index(values, kind: str = "plane", family: bool = False) -> str:
+def format_index(values: Sequence[int], kind: str = "plane", family: bool = False) -> str:
     """Print indices in the compact trade form with minus signs for bars.
 
     Parameters

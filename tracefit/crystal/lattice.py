@@ -18,6 +18,7 @@ import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
+from numpy.typing import ArrayLike
 
 from tracefit.conventions import miller_bravais_to_miller, miller_to_miller_bravais, rotation_z
 from tracefit.crystal.symmetry import proper_rotations as symmetry_rotations
@@ -298,7 +299,7 @@ class Lattice:
             raise TracefitInputError(f"the all-zero {kind} has no direction")
         return v
 
-    def plane_normal(self, hkl) -> np.ndarray:
+    def plane_normal(self, hkl: ArrayLike) -> np.ndarray:
         """Unit plane normal(s) in the Cartesian crystal frame, from the reciprocal basis.
 
         ``hkl`` may be (..., 3) Miller or, for hexagonal cells, (..., 4) Miller-Bravais.
@@ -306,12 +307,12 @@ class Lattice:
         v = self._three(hkl, "plane") @ self.reciprocal_matrix.T
         return v / np.linalg.norm(v, axis=-1, keepdims=True)
 
-    def direction_vector(self, uvw, unit: bool = True) -> np.ndarray:
+    def direction_vector(self, uvw: ArrayLike, unit: bool = True) -> np.ndarray:
         """Direction(s) [uvw] (or [uvtw]) as Cartesian crystal vectors, unit length by default."""
         v = self._three(uvw, "direction") @ self.direct_matrix.T
         return v / np.linalg.norm(v, axis=-1, keepdims=True) if unit else v
 
-    def d_spacing(self, hkl) -> np.ndarray:
+    def d_spacing(self, hkl: ArrayLike) -> np.ndarray:
         """Interplanar spacing d_hkl in the unit of a, b, c."""
         v = self._three(hkl, "plane") @ self.reciprocal_matrix.T
         return 1.0 / np.linalg.norm(v, axis=-1)

@@ -8,14 +8,8 @@ Convention (fixed once here and in ``docs/conventions.md``)
   ``g = Rz(phi2) Rx(Phi) Rz(phi1)`` with passive (coordinate) rotation matrices. The same
   orientation as an active crystal -> sample rotation is ``R = g.T =
   scipy.spatial.transform.Rotation.from_euler("ZXZ", (phi1, Phi, phi2), degrees=True)``.
-* Quaternions ``q = (q0, q1, q2, q3)``, scalar first, ``q0 >= 0``, and every conversion follow
-  Rowenhorst et al. (2015), Modelling Simul. Mater. Sci. Eng. 23, 083501, with the sign
-  convention **P = +1**. With P = +1 the quaternion algebra is the ordinary Hamilton one and
-  ``q`` is the quaternion of the matrix ``g`` itself: ``v_crystal = q v_sample q*``.
-* Axis-angle pairs ``(n, omega)`` follow the same paper: ``q = (cos(omega/2), n sin(omega/2))``,
-  so ``g`` turns *coordinates* by ``omega`` about ``n``; the crystal axes are the sample axes
-  turned by ``-omega``. Hence Bunge ``(30, 0, 0)`` equals the pair ``([0, 0, -1], 30)``. This
-  is what orix does too.
+* Quaternions and axis-angle pairs follow Rowenhorst et al. (2015) with P = +1, see
+  :mod:`tracefit.crystal.rotations`: Bunge ``(30, 0, 0)`` is the pair ``([0, 0, -1], 30)``.
 
 The functions (``from_euler`` returning matrices, ``to_euler``, ...) are the one
 implementation; :class:`Orientation` holds ``g`` and calls them. Other packages accept
@@ -25,8 +19,11 @@ either form at their doors through :func:`as_orientation_matrix`.
 from __future__ import annotations
 
 import warnings
+from collections.abc import Sequence
+from typing import TYPE_CHECKING
 
 import numpy as np
+from numpy.typing import ArrayLike
 
 from tracefit.crystal.rotations import (
     _matrix_array,
@@ -49,6 +46,9 @@ from tracefit.crystal.orientation_input import (
 )
 from tracefit.errors import TracefitInputError
 
+if TYPE_CHECKING:  # names used in annotations only
+    from tracefit.crystal.lattice import Lattice
+
 __all__ = [
     "Orientation",
     "as_orientation_matrix",
@@ -61,15 +61,14 @@ __all__ = [
     "to_axis_angle",
     "from_two_directions",
     "parse_euler",
+    "parse_quaternion",
+    "parse_matrix",
+    "parse_axis_angle",
     "parse_vector",
     "crystal_to_sample",
     "sample_to_crystal",
     "looks_like_radians",
 ]
-
-# parse_quaternion, parse_matrix and parse_axis_angle are read here by the command line
-# (tracefit.crystal.orientation.parse_*); they live in orientation_input.
-_TEXT_READERS = (parse_axis_angle, parse_matrix, parse_quaternion)
 
 # ------------------------------------------------------------------ Euler angles
 def _euler_array(euler, name: str) -> np.ndarray:
@@ -89,7 +88,7 @@ def _warn_radians(e_deg: np.ndarray, stacklevel: int) -> None:
         )
 
 
-def from_euler(euler_deg, warn_radians: bool = True) -> np.ndarray:
+def from_euler(euler_deg: ArrayLike, warn_radians: bool = True) -> np.ndarray:
     """Orientation matrices from Bunge Euler angles.
 
     Parameters
@@ -137,7 +136,7 @@ def _bunge_matrix(e_rad: np.ndarray) -> np.ndarray:
     return g
 
 
-def to_euler(g) -> np.ndarray:
+def to_euler(g: ArrayLike) -> np.ndarray:
     """Bunge Euler angles (degrees) of orientation matrices.
 
     Ranges: ``0 <= phi1 < 360``, ``0 <= Phi <= 180``, ``0 <= phi2 < 360``. When ``Phi`` is 0 or
@@ -175,7 +174,7 @@ def to_euler(g) -> np.ndarray:
     return out
 
 
-def as_orientation_matrix(x, name: str = "g") -> np.ndarray:
+def as_orientation_matrix(x: Orientation | ArrayLike, name: str = "g") -> np.ndarray:
     """The orientation matrix array of an :class:`Orientation` or of an array ``g``.
 
     Lets a function accept both forms at its door. Only the shape is checked (cheap enough
@@ -255,7 +254,7 @@ class Orientation:
 
     __slots__ = ("_g",)
 
-    def __init__(self, matrix) -> None:
+    def __init__(self, matrix: ArrayLike) -> None:
         g = from_matrix(matrix)
         if g.ndim not in (2, 3):
             raise TracefitInputError(f"matrix must have shape (3, 3) or (N, 3, 3), got {np.shape(matrix)}")
@@ -269,7 +268,7 @@ class Orientation:
 
     # ------------------------------------------------------------ constructors
     @classmethod
-    def from_euler(cls, euler, degrees: bool = True) -> "Orientation":
+    def from_euler(cls, euler: ArrayLike, degrees: bool = True) -> "Orientation":
         """Orientations from Bunge Euler angles ``(phi1, Phi, phi2)``.
 
         Parameters
@@ -301,7 +300,7 @@ class Orientation:
         return cls._trusted(_bunge_matrix(e))
 
     @classmethod
-    def from_matrix(cls, matrix, tol: float = 1e-3) -> "Orientation":
+    def from_matrix(cls, matrix: ArrayLike, tol: float = 1e-3) -> "Orientation":
         """Orientations from matrices ``g`` (sample -> crystal), checked and cleaned.
 
         Parameters
@@ -328,7 +327,7 @@ class Orientation:
         return cls._trusted(from_matrix(g, tol))
 
     @classmethod
-    def from_quaternion(cls, q) -> "Orientation":
+    def from_quaternion(cls, q: ArrayLike) -> "Orientation":
         """Orientations from quaternions (Rowenhorst et al. 2015, P = +1, scalar first).
 
         Parameters
@@ -355,7 +354,7 @@ class Orientation:
         return cls._trusted(from_quaternion(qa))
 
     @classmethod
-    def from_axis_angle(cls, axis, angle, degrees: bool = True) -> "Orientation":
+    def from_axis_angle(cls, axis: ArrayLike, angle: ArrayLike, degrees: bool = True) -> "Orientation":
         """Orientations from axis-angle pairs (Rowenhorst et al. 2015, P = +1).
 
         Parameters
@@ -386,11 +385,10 @@ class Orientation:
         return cls._trusted(from_axis_angle(ax, ang if degrees else np.degrees(ang)))
 
     @classmethod
-    def from_two_directions(cls, lattice, crystal_dir1, sample_axis1, crystal_dir2, sample_axis2,
+    def from_two_directions(cls, lattice: Lattice, crystal_dir1: Sequence[int], sample_axis1: str | ArrayLike,
+                            crystal_dir2: Sequence[int], sample_axis2: str | ArrayLike,
                             tol_deg: float = 1.0) -> "Orientation":
         """Orientation with ``crystal_dir1`` along ``sample_axis1`` and ``crystal_dir2`` toward ``sample_axis2``.
-
-        Parameters and errors as :func:`tracefit.crystal.from_two_directions`.
 
         Parameters
         ----------
@@ -403,6 +401,11 @@ class Orientation:
         -------
         Orientation
             A single orientation.
+
+        Raises
+        ------
+        TracefitInputError
+            As :func:`tracefit.crystal.from_two_directions`.
 
         Examples
         --------
@@ -478,18 +481,6 @@ class Orientation:
         """
         return to_quaternion(self._g)
 
-    def as_axis_angle(self, degrees: bool = True) -> tuple[np.ndarray, np.ndarray]:
-        """Axis-angle pairs as :func:`to_axis_angle` (angles in radians with ``degrees=False``).
-
-        Examples
-        --------
-        >>> axis, angle = Orientation.from_euler([30, 0, 0]).as_axis_angle()
-        >>> round(float(angle), 6)
-        30.0
-        """
-        axis, ang = to_axis_angle(self._g)
-        return axis, (ang if degrees else np.radians(ang))
-
     @property
     def single(self) -> bool:
         """True when this holds one orientation (matrices of shape (3, 3))."""
@@ -525,7 +516,7 @@ class Orientation:
         """
         return Orientation._trusted(np.swapaxes(self._g, -1, -2).copy())
 
-    def misorientation(self, other: "Orientation", lattice, degrees: bool = True) -> np.ndarray | float:
+    def misorientation(self, other: "Orientation", lattice: Lattice, degrees: bool = True) -> np.ndarray | float:
         """Smallest rotation angle between two orientations under the lattice's symmetry.
 
         The angle of ``S g_other g_self^T`` minimised over the proper rotations ``S`` of the

@@ -10,10 +10,16 @@ from __future__ import annotations
 import math
 import re
 import warnings
+from collections.abc import Sequence
+from typing import TYPE_CHECKING
 
 import numpy as np
+from numpy.typing import ArrayLike
 
 from tracefit.errors import TracefitInputError
+
+if TYPE_CHECKING:  # names used in annotations only
+    from tracefit.crystal.lattice import Lattice
 
 __all__ = [
     "looks_like_radians",
@@ -33,7 +39,7 @@ _TWO_PI = 2.0 * math.pi
 
 
 # ------------------------------------------------------------------ radians or degrees
-def looks_like_radians(euler_deg) -> bool:
+def looks_like_radians(euler_deg: ArrayLike) -> bool:
     """Whether Bunge angles given as degrees were probably meant as radians.
 
     Rule: every triplet lies inside the radian ranges (``|phi1|, |phi2| <= 2 pi``,
@@ -71,7 +77,7 @@ def looks_like_radians(euler_deg) -> bool:
 
 
 # ------------------------------------------------------------------ two directions
-def from_two_directions(lattice, crystal_dir1, sample_axis1, crystal_dir2, sample_axis2, tol_deg: float = 1.0) -> np.ndarray:
+def from_two_directions(lattice: Lattice, crystal_dir1: Sequence[int], sample_axis1: str | ArrayLike, crystal_dir2: Sequence[int], sample_axis2: str | ArrayLike, tol_deg: float = 1.0) -> np.ndarray:
     """Orientation from two crystal directions and the sample axes they lie along.
 
     The first pair is met exactly; the second only fixes the turn about the first (it is

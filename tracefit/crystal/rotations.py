@@ -1,15 +1,24 @@
 """Rotation conversions shared by orientations and crystal symmetry: quaternions, axis-angle
 pairs, matrix checks, and applying ``g`` to vectors.
 
-Every conversion follows Rowenhorst et al. (2015), Modelling Simul. Mater. Sci. Eng. 23,
-083501, with P = +1; the matrices are passive orientation matrices ``g`` with
-``v_crystal = g @ v_sample`` (see :mod:`tracefit.crystal.orientation` for the Bunge angles
-and the :class:`~tracefit.crystal.orientation.Orientation` type built on these functions).
+The matrices are passive orientation matrices ``g`` with ``v_crystal = g @ v_sample`` (see
+:mod:`tracefit.crystal.orientation` for the Bunge angles and the
+:class:`~tracefit.crystal.orientation.Orientation` type built on these functions).
+
+* Quaternions ``q = (q0, q1, q2, q3)``, scalar first, ``q0 >= 0``, and every conversion follow
+  Rowenhorst et al. (2015), Modelling Simul. Mater. Sci. Eng. 23, 083501, with the sign
+  convention **P = +1**. With P = +1 the quaternion algebra is the ordinary Hamilton one and
+  ``q`` is the quaternion of the matrix ``g`` itself: ``v_crystal = q v_sample q*``.
+* Axis-angle pairs ``(n, omega)`` follow the same paper: ``q = (cos(omega/2), n sin(omega/2))``,
+  so ``g`` turns *coordinates* by ``omega`` about ``n``; the crystal axes are the sample axes
+  turned by ``-omega``. Hence Bunge ``(30, 0, 0)`` equals the pair ``([0, 0, -1], 30)``. This
+  is what orix does too.
 """
 
 from __future__ import annotations
 
 import numpy as np
+from numpy.typing import ArrayLike
 
 from tracefit.errors import TracefitInputError
 
@@ -25,7 +34,7 @@ __all__ = [
 
 
 # ------------------------------------------------------------------ quaternions
-def from_quaternion(q) -> np.ndarray:
+def from_quaternion(q: ArrayLike) -> np.ndarray:
     """Orientation matrices from unit quaternions (Rowenhorst et al. 2015, P = +1).
 
     Parameters
@@ -75,7 +84,7 @@ def from_quaternion(q) -> np.ndarray:
     return g
 
 
-def to_quaternion(g) -> np.ndarray:
+def to_quaternion(g: ArrayLike) -> np.ndarray:
     """Unit quaternions ``(q0, q1, q2, q3)`` with ``q0 >= 0`` of orientation matrices (P = +1).
 
     Uses the largest of the four ``|q_i|`` candidates from the matrix trace terms, so it is
@@ -135,7 +144,7 @@ def to_quaternion(g) -> np.ndarray:
 
 
 # ------------------------------------------------------------------ matrices, axis-angle
-def from_matrix(m, tol: float = 1e-3) -> np.ndarray:
+def from_matrix(m: ArrayLike, tol: float = 1e-3) -> np.ndarray:
     """Validate orientation matrices ``g`` (sample -> crystal) and clean them to exact rotations.
 
     Parameters
@@ -184,7 +193,7 @@ def from_matrix(m, tol: float = 1e-3) -> np.ndarray:
     return u @ vt
 
 
-def from_axis_angle(axis, angle_deg) -> np.ndarray:
+def from_axis_angle(axis: ArrayLike, angle_deg: ArrayLike) -> np.ndarray:
     """Orientation matrices from axis-angle pairs (Rowenhorst et al. 2015, P = +1).
 
     ``q = (cos(omega/2), n sin(omega/2))`` and ``g`` is its matrix: ``g`` turns coordinates by
@@ -228,7 +237,7 @@ def from_axis_angle(axis, angle_deg) -> np.ndarray:
     return from_quaternion(q)
 
 
-def to_axis_angle(g) -> tuple[np.ndarray, np.ndarray]:
+def to_axis_angle(g: ArrayLike) -> tuple[np.ndarray, np.ndarray]:
     """Axis-angle pairs (Rowenhorst, P = +1) of orientation matrices.
 
     Parameters
@@ -262,7 +271,7 @@ def to_axis_angle(g) -> tuple[np.ndarray, np.ndarray]:
 
 
 # ------------------------------------------------------------------ applying g
-def crystal_to_sample(g, v_crystal) -> np.ndarray:
+def crystal_to_sample(g: ArrayLike, v_crystal: ArrayLike) -> np.ndarray:
     """Crystal-frame vectors in sample coordinates, ``v_sample = g.T @ v_crystal``.
 
     Parameters
@@ -287,7 +296,7 @@ def crystal_to_sample(g, v_crystal) -> np.ndarray:
     return np.einsum("...ij,mi->...mj", g, np.atleast_2d(v)) if v.ndim > 1 else np.einsum("...ij,i->...j", g, v)
 
 
-def sample_to_crystal(g, v_sample) -> np.ndarray:
+def sample_to_crystal(g: ArrayLike, v_sample: ArrayLike) -> np.ndarray:
     """Sample-frame vectors in crystal coordinates, ``v_crystal = g @ v_sample``.
 
     Parameters

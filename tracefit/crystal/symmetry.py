@@ -36,12 +36,18 @@ descending lexicographic order of the written indices, e.g.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
+from typing import TYPE_CHECKING
+
 import numpy as np
 
 from tracefit.conventions import miller_bravais_to_miller, miller_to_miller_bravais
 from tracefit.crystal.indices import MillerIndex, check_values, parse_index, to_three
 from tracefit.crystal.rotations import from_axis_angle
 from tracefit.errors import TracefitInputError
+
+if TYPE_CHECKING:  # names used in annotations only
+    from tracefit.crystal.lattice import Lattice
 
 __all__ = [
     "proper_rotations",
@@ -121,7 +127,7 @@ def _unique_axis(lattice) -> int:
     )
 
 
-def proper_rotations(lattice) -> np.ndarray:
+def proper_rotations(lattice: Lattice) -> np.ndarray:
     """Proper rotations of the lattice's Laue class, in its Cartesian crystal frame.
 
     Parameters
@@ -183,7 +189,7 @@ def proper_rotations(lattice) -> np.ndarray:
     return rots
 
 
-def index_rotations(lattice, kind: str) -> np.ndarray:
+def index_rotations(lattice: Lattice, kind: str) -> np.ndarray:
     """The proper rotations as integer matrices acting on three-index (hkl) or [uvw].
 
     Parameters
@@ -224,7 +230,7 @@ def index_rotations(lattice, kind: str) -> np.ndarray:
     return Mi
 
 
-def canonical_sign(values) -> tuple[int, ...]:
+def canonical_sign(values: Sequence[int]) -> tuple[int, ...]:
     """The index with its first non-zero entry made positive (a plane and its negative are one).
 
     Parameters
@@ -283,7 +289,7 @@ def _variants(lattice, values, kind):
     return [tuple(int(x) for x in row) for row in out]
 
 
-def plane_variants(lattice, hkl) -> list[tuple[int, ...]]:
+def plane_variants(lattice: Lattice, hkl: Sequence[int] | str | MillerIndex) -> list[tuple[int, ...]]:
     """Distinct planes of the family of ``hkl``, a plane and its negative counted once.
 
     Parameters
@@ -316,7 +322,7 @@ def plane_variants(lattice, hkl) -> list[tuple[int, ...]]:
     return sorted(found, reverse=True)
 
 
-def direction_variants(lattice, uvw, signed: bool = True) -> list[tuple[int, ...]]:
+def direction_variants(lattice: Lattice, uvw: Sequence[int] | str | MillerIndex, signed: bool = True) -> list[tuple[int, ...]]:
     """Distinct directions of the family of ``uvw``.
 
     Parameters
@@ -354,7 +360,7 @@ def direction_variants(lattice, uvw, signed: bool = True) -> list[tuple[int, ...
     return sorted(found, reverse=True)
 
 
-def same_family(lattice, a, b, kind: str = "plane") -> bool:
+def same_family(lattice: Lattice, a: Sequence[int] | str | MillerIndex, b: Sequence[int] | str | MillerIndex, kind: str = "plane") -> bool:
     """True when ``a`` and ``b`` belong to the same family (up to sign) under the lattice symmetry.
 
     Parameters

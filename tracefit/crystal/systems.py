@@ -35,6 +35,7 @@ from __future__ import annotations
 
 import math
 import re
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -251,7 +252,7 @@ def _family_label(lattice, values, kind) -> str:
     return format_index(values, kind, family=True)
 
 
-def expand_slip(lattice, plane, direction, name: str | None = None, source: str = "built-in",
+def expand_slip(lattice: Lattice, plane: Sequence[int], direction: Sequence[int], name: str | None = None, source: str = "built-in",
                 plane_family: str | None = None, direction_family: str | None = None) -> list[DeformationSystem]:
     """All slip systems of a plane family and a direction family (directions lying in the planes).
 
@@ -316,7 +317,7 @@ def _signed_shear(lattice, k1, eta1, eta2) -> float:
     return -2.0 * float(e1 @ e2) / q
 
 
-def expand_twin(lattice, plane, direction, name: str | None = None, shear: float | None = None,
+def expand_twin(lattice: Lattice, plane: Sequence[int], direction: Sequence[int], name: str | None = None, shear: float | None = None,
                 source: str = "built-in", plane_family: str | None = None,
                 direction_family: str | None = None) -> list[DeformationSystem]:
     """All variants of one twin system given with its shear sense.

@@ -7,7 +7,9 @@ from __future__ import annotations
 import math
 import re
 import tomllib
+from os import PathLike
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from tracefit.crystal.indices import MillerIndex, format_index, parse_index
 from tracefit.crystal.lattice import Lattice, lattice_preset
@@ -22,6 +24,9 @@ from tracefit.crystal.systems import (
     expand_twin,
 )
 from tracefit.errors import TracefitInputError
+
+if TYPE_CHECKING:  # names used in annotations only
+    from tracefit.crystal.systems import DeformationSystem
 
 __all__ = ["load_systems_file"]
 
@@ -75,7 +80,7 @@ def _read_lattice(tab, path) -> Lattice:
                    tab.get("laue"), tab.get("hex_setting", "x_a1"))
 
 
-def load_systems_file(path, lattice: Lattice | None = None) -> tuple[Lattice | None, list[DeformationSystem]]:
+def load_systems_file(path: str | PathLike, lattice: Lattice | None = None) -> tuple[Lattice | None, list[DeformationSystem]]:
     """Read a user systems file (TOML, format described in docs/systems-file.md).
 
     Parameters

@@ -10,11 +10,13 @@ Loads are given in the sample (orientation-data) frame, or as crystal directions
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
+from numpy.typing import ArrayLike
 
-from tracefit.crystal import as_orientation_matrix, parse_index, parse_vector
+from tracefit.crystal import DeformationSystem, Lattice, Orientation, as_orientation_matrix, parse_index, parse_vector
 from tracefit.errors import TracefitInputError
 from tracefit.predict.resolved import reported_drive, resolved_shear, schmid_factor, stress_tensor
 
@@ -89,7 +91,7 @@ class Load:
 
     # ------------------------------------------------------------ constructors
     @classmethod
-    def axis(cls, axis, sense: str = "tension", lattice=None) -> "Load":
+    def axis(cls, axis: str | ArrayLike, sense: str = "tension", lattice: Lattice | None = None) -> "Load":
         """A uniaxial load along ``axis``.
 
         Parameters
@@ -135,7 +137,7 @@ class Load:
         return cls(tuple(float(x) for x in v / n), "sample", sense, ",".join(f"{x:g}" for x in v))
 
     @classmethod
-    def stress(cls, stress_mpa) -> "Load":
+    def stress(cls, stress_mpa: ArrayLike) -> "Load":
         """A stress-tensor load in the sample frame.
 
         Parameters
@@ -185,7 +187,7 @@ class Load:
             )
 
     # ------------------------------------------------------------ frames
-    def in_crystal(self, g=None) -> np.ndarray:
+    def in_crystal(self, g: Orientation | ArrayLike | None = None) -> np.ndarray:
         """Unit load axis in crystal coordinates.
 
         Parameters
@@ -216,7 +218,7 @@ class Load:
             raise TracefitInputError(f"the load {self.label!r} is a sample axis; an orientation g is needed to place it in the crystal")
         return np.einsum("...ij,j->...i", as_orientation_matrix(g), v)
 
-    def in_sample(self, g=None) -> np.ndarray:
+    def in_sample(self, g: Orientation | ArrayLike | None = None) -> np.ndarray:
         """Unit load axis in sample coordinates.
 
         Parameters
@@ -266,7 +268,7 @@ class Load:
 LoadAxis = Load
 
 
-def parse_load(text: str, lattice=None, sense: str = "tension") -> Load:
+def parse_load(text: str, lattice: Lattice | None = None, sense: str = "tension") -> Load:
     """Read a load axis from text.
 
     Accepted: a sample axis ``x``, ``y``, ``z`` (optionally signed, ``-x``), a sample vector
@@ -330,7 +332,7 @@ def _parse_direction(t: str, lattice) -> tuple:
     return tuple(int(x) for x in idx.values)
 
 
-def as_load(x, lattice=None, sense: str = "tension") -> Load | None:
+def as_load(x: Load | str | ArrayLike | None, lattice: Lattice | None = None, sense: str = "tension") -> Load | None:
     """Turn any accepted load form into a :class:`Load` (or None).
 
     Parameters
@@ -376,7 +378,7 @@ def as_load(x, lattice=None, sense: str = "tension") -> Load | None:
     )
 
 
-def resolved_drive(load, g, normals, directions) -> np.ndarray:
+def resolved_drive(load: Load | str | ArrayLike, g: Orientation | ArrayLike | None, normals: ArrayLike, directions: ArrayLike) -> np.ndarray:
     """Signed drive of each system under a load: Schmid factor or resolved shear stress.
 
     Axis loads give ``s (l . n)(l . d)`` (Schmid's law with the sense ``s = +-1``:
@@ -423,7 +425,7 @@ def resolved_drive(load, g, normals, directions) -> np.ndarray:
     return ld.sign * schmid_factor(ld.in_crystal(g), normals, directions)
 
 
-def system_schmid_factors(load: Load, g, systems) -> np.ndarray:
+def system_schmid_factors(load: Load, g: Orientation | ArrayLike | None, systems: Sequence[DeformationSystem]) -> np.ndarray:
     """Reported Schmid factors of systems: ``|m|`` for slip, ``sense * m`` for twins (see module doc).
 
     Parameters

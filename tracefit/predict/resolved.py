@@ -15,8 +15,10 @@ that cannot form under this load has ``schmid_factor <= 0`` (and no activation s
 from __future__ import annotations
 
 import numpy as np
+from numpy.typing import ArrayLike
+from collections.abc import Sequence
 
-from tracefit.crystal import as_orientation_matrix
+from tracefit.crystal import Orientation, as_orientation_matrix
 from tracefit.errors import TracefitInputError
 
 __all__ = [
@@ -28,7 +30,7 @@ __all__ = [
 ]
 
 
-def schmid_factor(load_crystal, n, d) -> np.ndarray:
+def schmid_factor(load_crystal: ArrayLike, n: ArrayLike, d: ArrayLike) -> np.ndarray:
     """Signed Schmid factor ``m = (l . n)(l . d)`` = cos(phi) cos(lambda) (Schmid's law).
 
     Parameters
@@ -72,7 +74,7 @@ def _unit_rows(v, what: str) -> np.ndarray:
     return v / norm
 
 
-def reported_drive(drive, modes) -> np.ndarray:
+def reported_drive(drive: ArrayLike, modes: Sequence[str]) -> np.ndarray:
     """Drive as reported per system: ``|drive|`` for slip, the signed value for twins.
 
     Parameters
@@ -95,7 +97,7 @@ def reported_drive(drive, modes) -> np.ndarray:
     return np.where(twin, drive, np.abs(drive))
 
 
-def stress_tensor(stress) -> np.ndarray:
+def stress_tensor(stress: ArrayLike) -> np.ndarray:
     """A symmetric 3x3 stress tensor from (3, 3) or Voigt ``(s11, s22, s33, s23, s13, s12)``.
 
     Parameters
@@ -129,7 +131,7 @@ def stress_tensor(stress) -> np.ndarray:
     return s
 
 
-def resolved_shear(stress_sample, g, n, d) -> np.ndarray:
+def resolved_shear(stress_sample: ArrayLike, g: Orientation | ArrayLike, n: ArrayLike, d: ArrayLike) -> np.ndarray:
     """Resolved shear stress ``tau = n . sigma . d`` (signed), all in the sample frame.
 
     Parameters
@@ -163,7 +165,7 @@ def resolved_shear(stress_sample, g, n, d) -> np.ndarray:
     return np.einsum("...i,ij,...j->...", n_s, s, d_s)
 
 
-def activation_stress(crss, schmid) -> float | None:
+def activation_stress(crss: float | None, schmid: float | None) -> float | None:
     """Applied uniaxial stress at which a system reaches its CRSS: ``sigma = CRSS / m``.
 
     Parameters

@@ -12,12 +12,14 @@ factors and resolved shear from :mod:`tracefit.predict.loading`.
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
+from numpy.typing import ArrayLike
 
 from tracefit.conventions import FrameSettings, apparent_angle, axial_difference, data_to_image_matrix, fold_axial
-from tracefit.crystal import as_orientation_matrix
+from tracefit.crystal import DeformationSystem, Lattice, Orientation, as_orientation_matrix
 from tracefit.errors import TracefitInputError
 from tracefit.predict.loading import Load, _num, as_load, resolved_drive
 from tracefit.predict.resolved import _unit_rows, activation_stress, reported_drive, resolved_shear
@@ -40,7 +42,7 @@ _MODE_ORDER = {"slip": 0, "twin": 1}
 
 
 # ------------------------------------------------------------------ geometry
-def trace_angles(normals) -> tuple[np.ndarray, np.ndarray]:
+def trace_angles(normals: ArrayLike) -> tuple[np.ndarray, np.ndarray]:
     """Trace angle and inclination of planes from their normals in the image (or sample) frame.
 
     Parameters
@@ -76,7 +78,7 @@ def trace_angles(normals) -> tuple[np.ndarray, np.ndarray]:
     return angle, incl
 
 
-def plane_normals_in_image(g, normals_crystal, frame: FrameSettings | None = None) -> np.ndarray:
+def plane_normals_in_image(g: Orientation | ArrayLike, normals_crystal: ArrayLike, frame: FrameSettings | None = None) -> np.ndarray:
     """Crystal-frame plane normals expressed in the image frame.
 
     ``n_image = M g^T n_crystal`` with ``M`` = :func:`tracefit.conventions.data_to_image_matrix`.
@@ -115,7 +117,7 @@ def plane_normals_in_image(g, normals_crystal, frame: FrameSettings | None = Non
     return n @ (g @ M.T)
 
 
-def tilt_slope(true_deg, frame: FrameSettings | None = None) -> np.ndarray:
+def tilt_slope(true_deg: ArrayLike, frame: FrameSettings | None = None) -> np.ndarray:
     """d(apparent angle)/d(true angle) under the frame's stage tilt (1 without tilt).
 
     A central difference of :func:`tracefit.conventions.apparent_angle` with a step of
@@ -197,9 +199,9 @@ class TraceTable:
 
 
 def predicted_trace_table(
-    lattice,
-    g_many,
-    normals,
+    lattice: Lattice,
+    g_many: Orientation | ArrayLike,
+    normals: ArrayLike,
     frame: FrameSettings | None = None,
     near_surface_deg: float = NEAR_SURFACE_DEG,
     indices: bool = False,
@@ -439,12 +441,12 @@ def _traces_by_plane(lattice, g, systems, frame, near_surface_deg, results_for) 
 
 
 def predict_traces(
-    lattice,
-    g,
-    systems,
+    lattice: Lattice,
+    g: Orientation | ArrayLike,
+    systems: Sequence[DeformationSystem],
     frame: FrameSettings | None = None,
-    load=None,
-    stress=None,
+    load: Load | str | ArrayLike | None = None,
+    stress: ArrayLike | None = None,
     crss: dict | None = None,
     near_surface_deg: float = NEAR_SURFACE_DEG,
     sort: str = "auto",
