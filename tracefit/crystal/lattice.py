@@ -302,18 +302,70 @@ class Lattice:
     def plane_normal(self, hkl: ArrayLike) -> np.ndarray:
         """Unit plane normal(s) in the Cartesian crystal frame, from the reciprocal basis.
 
-        ``hkl`` may be (..., 3) Miller or, for hexagonal cells, (..., 4) Miller-Bravais.
+        Parameters
+        ----------
+        hkl : array_like, shape (..., 3) or (..., 4)
+            Miller or, for hexagonal cells, Miller-Bravais indices.
+
+        Returns
+        -------
+        ndarray, shape (..., 3)
+
+        Raises
+        ------
+        TracefitInputError
+            Wrong count, four indices on a non-hexagonal cell, all-zero or a broken sum rule.
+
+        Examples
+        --------
+        >>> np.round(Lattice.hcp(c_over_a=1.633).plane_normal((0, 0, 0, 1)), 6).tolist()
+        [0.0, 0.0, 1.0]
         """
         v = self._three(hkl, "plane") @ self.reciprocal_matrix.T
         return v / np.linalg.norm(v, axis=-1, keepdims=True)
 
     def direction_vector(self, uvw: ArrayLike, unit: bool = True) -> np.ndarray:
-        """Direction(s) [uvw] (or [uvtw]) as Cartesian crystal vectors, unit length by default."""
+        """Direction(s) [uvw] (or [uvtw]) as Cartesian crystal vectors, unit length by default.
+
+        Parameters
+        ----------
+        uvw : array_like, shape (..., 3) or (..., 4)
+        unit : bool
+            False keeps the lattice length (in the unit of a, b, c).
+
+        Returns
+        -------
+        ndarray, shape (..., 3)
+
+        Raises
+        ------
+        TracefitInputError
+            As :meth:`plane_normal`.
+
+        Examples
+        --------
+        >>> (np.round(Lattice.hcp(c_over_a=1.6).direction_vector((2, -1, -1, 0), unit=False), 6) + 0.0).tolist()
+        [3.0, 0.0, 0.0]
+        """
         v = self._three(uvw, "direction") @ self.direct_matrix.T
         return v / np.linalg.norm(v, axis=-1, keepdims=True) if unit else v
 
     def d_spacing(self, hkl: ArrayLike) -> np.ndarray:
-        """Interplanar spacing d_hkl in the unit of a, b, c."""
+        """Interplanar spacing d_hkl in the unit of a, b, c.
+
+        Parameters
+        ----------
+        hkl : array_like, shape (..., 3) or (..., 4)
+
+        Returns
+        -------
+        ndarray, shape (...)
+
+        Examples
+        --------
+        >>> round(float(Lattice.fcc(a=3.6).d_spacing((1, 1, 1))), 4)
+        2.0785
+        """
         v = self._three(hkl, "plane") @ self.reciprocal_matrix.T
         return 1.0 / np.linalg.norm(v, axis=-1)
 

@@ -9,7 +9,6 @@ import re
 import tomllib
 from os import PathLike
 from pathlib import Path
-from typing import TYPE_CHECKING
 
 from tracefit.crystal.indices import MillerIndex, format_index, parse_index
 from tracefit.crystal.lattice import Lattice, lattice_preset
@@ -24,9 +23,6 @@ from tracefit.crystal.systems import (
     expand_twin,
 )
 from tracefit.errors import TracefitInputError
-
-if TYPE_CHECKING:  # names used in annotations only
-    from tracefit.crystal.systems import DeformationSystem
 
 __all__ = ["load_systems_file"]
 
