@@ -282,3 +282,150 @@ def test_parse_euler_and_matrix_accept():
     np.testing.assert_allclose(parse_euler("10, 20 30"), [10, 20, 30])
     np.testing.assert_allclose(parse_euler("-10,2.5e1,3"), [-10, 25, 3])
     np.testing.assert_allclose(parse_matrix("1,0,0,0,1,0,0,0,1"), np.eye(3))
+
+
+# ------------------------------------------------------------------ the Orientation type
+# Outside checks: scipy Rotation (R = g^T, composition R_b * R_a) and orix (Misorientation).
+from tracefit.crystal import Lattice, Orientation, as_orientation_matrix  # noqa: E402
+
+
+def test_orientation_round_trips_against_scipy(random_rotations, random_euler):
+    o = Orientation.from_euler(random_euler)
+    assert not o.single and len(o) == N_RANDOM
+    g_ref = np.swapaxes(random_rotations.as_matrix(), 1, 2)
+    np.testing.assert_allclose(o.as_matrix(), g_ref, atol=1e-12)
+    # radians in, radians out
+    o_rad = Orientation.from_euler(np.radians(random_euler), degrees=False)
+    np.testing.assert_allclose(o_rad.as_matrix(), g_ref, atol=1e-12)
+    # Euler -> Orientation -> Euler gives the same rotation (scipy reads the angles back)
+    back = SciRot.from_euler("ZXZ", o.as_euler(), degrees=True).as_matrix()
+    np.testing.assert_allclose(np.swapaxes(back, 1, 2), g_ref, atol=1e-9)
+    np.testing.assert_allclose(o.as_euler(degrees=False), np.radians(o.as_euler()), atol=1e-15)
+    # quaternion: scipy's (x, y, z, w) of R is the conjugate of ours (scalar first, of g)
+    q_ref = random_rotations.as_quat()[:, [3, 0, 1, 2]] * [1, -1, -1, -1]
+    assert _same_quaternion(o.as_quaternion(), q_ref).max() < 1e-12
+    np.testing.assert_allclose(Orientation.from_quaternion(o.as_quaternion()).as_matrix(), g_ref, atol=1e-12)
+    np.testing.assert_allclose(Orientation.from_matrix(g_ref).as_matrix(), g_ref, atol=1e-12)
+    axis, ang = to_axis_angle(o.as_matrix())
+    np.testing.assert_allclose(Orientation.from_axis_angle(axis, ang).as_matrix(), g_ref, atol=1e-9)
+    np.testing.assert_allclose(Orientation.from_axis_angle(axis, np.radians(ang), degrees=False).as_matrix(), g_ref, atol=1e-9)
+
+
+def test_orientation_single_and_indexing(random_euler):
+    one = Orientation.from_euler(random_euler[0])
+    assert one.single and one.as_matrix().shape == (3, 3) and one.as_euler().shape == (3,)
+    with pytest.raises(TypeError):
+        len(one)
+    with pytest.raises(TypeError):
+        one[0]
+    many = Orientation.from_euler(random_euler[:10])
+    np.testing.assert_allclose(many[3].as_matrix(), from_euler(random_euler[3]), atol=1e-12)
+    assert many[3].single and len(many[2:5]) == 3 and len(many[[0, 9]]) == 2
+    assert len(Orientation.identity(4)) == 4 and Orientation.identity().single
+
+
+def test_composition_against_matrix_products_and_scipy(random_rotations, random_euler):
+    # (a * b).as_matrix() == g_a @ g_b ("apply b, then a" to coordinates). In scipy's active
+    # crystal -> sample terms R = g^T, so the same orientation is R_b * R_a.
+    a = Orientation.from_euler(random_euler[:300])
+    b = Orientation.from_euler(random_euler[300:600])
+    ab = a * b
+    np.testing.assert_allclose(ab.as_matrix(), a.as_matrix() @ b.as_matrix(), atol=1e-12)
+    Ra, Rb = random_rotations[:300], random_rotations[300:600]
+    np.testing.assert_allclose(ab.as_matrix(), np.swapaxes((Rb * Ra).as_matrix(), 1, 2), atol=1e-12)
+    # broadcasting single * many and many * single
+    s = a[0]
+    np.testing.assert_allclose((s * b).as_matrix(), s.as_matrix() @ b.as_matrix(), atol=1e-12)
+    np.testing.assert_allclose((b * s).as_matrix(), b.as_matrix() @ s.as_matrix(), atol=1e-12)
+    # inverse: o * o.inv() is the identity; inv() is scipy's inverse of R seen as g
+    np.testing.assert_allclose((a * a.inv()).as_matrix(), np.broadcast_to(np.eye(3), (300, 3, 3)), atol=1e-12)
+    np.testing.assert_allclose(a.inv().as_matrix(), np.swapaxes(Ra.inv().as_matrix(), 1, 2), atol=1e-12)
+    with pytest.raises(TracefitInputError, match="cannot compose"):
+        a * b[:5]
+
+
+@pytest.mark.parametrize("kind", ["cubic", "hexagonal"])
+def test_misorientation_against_orix(orix, kind, random_euler):
+    # Reference: orix Misorientation of o2 * ~o1 with both crystals' symmetry, reduced to the
+    # fundamental zone; its angle is the disorientation angle.
+    from orix.quaternion import Misorientation, Orientation as OrixOrientation
+    from orix.quaternion.symmetry import D6, O
+
+    lat, sym = (Lattice.fcc(), O) if kind == "cubic" else (Lattice.hcp(c_over_a=1.587), D6)
+    e1, e2 = random_euler[:400], random_euler[400:800]
+    o1, o2 = Orientation.from_euler(e1), Orientation.from_euler(e2)
+    ours = o1.misorientation(o2, lat)
+    r1 = OrixOrientation.from_euler(np.radians(e1), symmetry=sym)
+    r2 = OrixOrientation.from_euler(np.radians(e2), symmetry=sym)
+    m = Misorientation(r2 * ~r1, symmetry=(sym, sym)).reduce()
+    np.testing.assert_allclose(ours, np.degrees(m.angle), atol=1e-6)
+    # symmetric: swapping the two gives the same angle; radians on request
+    np.testing.assert_allclose(o2.misorientation(o1, lat), ours, atol=1e-9)
+    np.testing.assert_allclose(o1.misorientation(o2, lat, degrees=False), np.radians(ours), atol=1e-12)
+    # a symmetry-equivalent description has zero misorientation
+    S = lat.proper_rotations()[5]
+    twin = Orientation.from_matrix(S @ o1.as_matrix())
+    assert np.abs(o1.misorientation(twin, lat)).max() < 1e-6
+
+
+def test_misorientation_cubic_hand_values():
+    # Hand values (common practice, no source): 100 deg about z is 10 deg after a 4-fold turn;
+    # the fcc twin, 60 deg about <111>, stays 60 deg; the largest cubic disorientation
+    # (62.8 deg, Mackenzie 1958, from memory) lies about <1, 1, sqrt2 - 1>, so 62 deg about that
+    # axis is already reduced, and no pair exceeds 62.8 deg.
+    lat = Lattice.fcc()
+    a = Orientation.identity()
+    assert a.misorientation(Orientation.from_axis_angle([0, 0, 1], 100), lat) == pytest.approx(10.0, abs=1e-9)
+    assert a.misorientation(Orientation.from_axis_angle([1, 1, 1], 60), lat) == pytest.approx(60.0, abs=1e-9)
+    assert a.misorientation(Orientation.from_axis_angle([1, 1, np.sqrt(2) - 1], 62.0), lat) == pytest.approx(62.0, abs=1e-9)
+    many = Orientation.from_euler(SciRot.random(2000, random_state=4).as_euler("ZXZ", degrees=True))
+    assert a.misorientation(many, lat).max() < 62.81
+
+
+def test_orientation_input_errors_name_the_parameter():
+    with pytest.raises(TracefitInputError, match="euler must have 3 angles"):
+        Orientation.from_euler([1, 2])
+    with pytest.raises(TracefitInputError, match="euler"):
+        Orientation.from_euler(np.zeros((2, 2, 3)))
+    with pytest.raises(TracefitInputError, match="euler must be finite"):
+        Orientation.from_euler([1, np.nan, 2])
+    with pytest.raises(TracefitInputError, match="matrix"):
+        Orientation.from_matrix(np.eye(2))
+    with pytest.raises(TracefitInputError, match="q"):
+        Orientation.from_quaternion([1, 0, 0])
+    with pytest.raises(TracefitInputError, match="axis"):
+        Orientation.from_axis_angle([0, 0, 0], 10)
+    with pytest.raises(TracefitInputError, match="other must be an Orientation"):
+        Orientation.identity().misorientation(np.eye(3), Lattice.fcc())
+    with warnings.catch_warnings(record=True) as w:
+        warnings.simplefilter("always")
+        Orientation.from_euler([0.52, 0.79, 1.1])
+        assert any("radians" in str(x.message) for x in w)
+    with warnings.catch_warnings(record=True) as w:
+        warnings.simplefilter("always")
+        Orientation.from_euler([0.52, 0.79, 1.1], degrees=False)
+        assert not w
+
+
+def test_as_orientation_matrix_accepts_both_forms():
+    o = Orientation.from_euler([[10, 20, 30], [40, 50, 60]])
+    np.testing.assert_allclose(as_orientation_matrix(o), from_euler([[10, 20, 30], [40, 50, 60]]), atol=1e-12)
+    np.testing.assert_allclose(as_orientation_matrix(from_euler([10, 20, 30])), from_euler([10, 20, 30]))
+    assert as_orientation_matrix(np.eye(3).tolist()).shape == (3, 3)
+    for bad in (np.eye(4), np.zeros((2, 2, 3, 3)), "x", [1, 2, 3]):
+        with pytest.raises(TracefitInputError, match="g must be"):
+            as_orientation_matrix(bad)
+    with pytest.raises(TracefitInputError, match="g_many"):
+        as_orientation_matrix(np.eye(2), name="g_many")
+
+
+def test_orientation_two_directions_repr_and_dict():
+    lat = lattice_preset("hcp", 1.624)
+    o = Orientation.from_two_directions(lat, (0, 0, 0, 1), "z", (2, -1, -1, 0), "x")
+    np.testing.assert_allclose(o.as_matrix(), np.eye(3), atol=1e-12)
+    d = Orientation.from_euler([10, 20, 30]).to_dict()
+    assert d["euler_deg"] == pytest.approx([10, 20, 30])
+    np.testing.assert_allclose(Orientation.from_quaternion(d["quaternion"]).as_euler(), [10, 20, 30], atol=1e-9)
+    assert repr(Orientation.from_euler([10, 20, 30])) == "Orientation.from_euler([10, 20, 30])"
+    assert "5 orientations" in repr(Orientation.identity(5))
+    assert len(Orientation.from_euler([[1, 2, 3]] * 2).to_dict()["euler_deg"]) == 2

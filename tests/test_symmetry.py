@@ -284,3 +284,44 @@ def test_variants_are_closed_under_the_group(li, v):
     dvec = lat.direction_vector(np.array(dirs))
     for R in proper_rotations(lat):
         assert np.allclose((dvec @ R.T @ dvec.T).max(axis=1), 1.0, atol=1e-9)
+
+
+# ------------------------------------------------------------------ named cells
+@pytest.mark.parametrize(
+    "lattice, orix_group",
+    [
+        # the named constructors give cells with the symmetry of their Laue class (orix as reference)
+        (Lattice.fcc(), "O"),
+        (Lattice.bcc(a=2.87), "O"),
+        (Lattice.hcp(c_over_a=1.587), "D6"),
+        (Lattice.hcp(c_over_a=1.624, a=3.21, hex_setting="x_a1star"), "D6"),
+        (Lattice.tetragonal(c_over_a=0.5456), "D4"),
+    ],
+)
+def test_named_constructors_have_their_symmetry(lattice, orix_group):
+    orix_symmetry = pytest.importorskip("orix.quaternion.symmetry")
+    assert _same_rotation_sets(lattice.proper_rotations(), getattr(orix_symmetry, orix_group).to_matrix())
+    assert lattice.proper_rotations() is proper_rotations(lattice)  # one implementation, cached
+
+
+def test_named_constructors_match_the_presets():
+    import warnings
+
+    assert Lattice.fcc() == lattice_preset("fcc") and Lattice.bcc() == lattice_preset("bcc")
+    assert Lattice.hcp(c_over_a=1.587) == lattice_preset("hcp", 1.587)
+    assert Lattice.hcp(c_over_a=1.587, hex_setting="x_a1star") == lattice_preset("hcp", 1.587, "x_a1star")
+    assert Lattice.tetragonal(c_over_a=0.546) == lattice_preset("tetragonal", 0.546)
+    hcp = Lattice.hcp(c_over_a=1.587, a=3.0)
+    assert (hcp.a, hcp.c) == (3.0, pytest.approx(3.0 * 1.587)) and hcp.c_over_a == pytest.approx(1.587)
+    with warnings.catch_warnings(record=True) as w:
+        warnings.simplefilter("always")
+        ideal = Lattice.hcp()
+    assert any("ideal" in str(x.message) for x in w) and ideal.c_over_a == pytest.approx(math.sqrt(8 / 3))
+    with pytest.raises(TracefitInputError, match="c_over_a"):
+        Lattice.tetragonal(None)
+    with pytest.raises(TracefitInputError, match="c_over_a"):
+        Lattice.hcp(c_over_a=-1.0)
+    with pytest.raises(TracefitInputError, match="c_over_a"):
+        lattice_preset("fcc", 1.2)
+    with pytest.raises(TracefitInputError, match="lattice parameter a"):
+        Lattice.fcc(a=0.0)

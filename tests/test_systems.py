@@ -178,21 +178,24 @@ def test_hcp_twin_shear_keeps_eta2_length(coa):
 @pytest.mark.parametrize(
     "metal, coa, s_published",
     [
-        # {10-12} twin shear, Yoo 1981 Table I (values as commonly quoted from it, from memory);
-        # c/a from memory. Each also equals |gamma^2 - 3| / (sqrt3 gamma) to the quoted 3 decimals
-        # (Zn: 0.1383 at 1.856, the table rounds c/a 1.8563 to 0.139).
+        # {10-12} twin shear, values as commonly quoted from Yoo 1981 Table I (from memory);
+        # c/a from memory. Each is compared with the closed form of Yoo 1981,
+        # s = |gamma^2 - 3| / (sqrt3 gamma), evaluated at the c/a given here and rounded to three
+        # decimals (Zn: 0.1383 at 1.856, quoted 0.139 for c/a 1.8563; Zr: the formula gives
+        # 0.1676 at 1.593, so 0.168, where 0.167 is sometimes quoted from memory).
         ("Mg", 1.624, 0.129),
         ("Ti", 1.587, 0.175),
-        ("Zn", 1.856, 0.139),
+        ("Zn", 1.856, 0.138),
         ("Cd", 1.886, 0.171),
         ("Be", 1.568, 0.199),
-        ("Zr", 1.593, 0.167),
+        ("Zr", 1.593, 0.168),
     ],
 )
 def test_10m12_twin_shear_against_yoo(metal, coa, s_published):
-    assert twin_shear("{10-12}", coa) == pytest.approx(s_published, abs=1.0e-3)
+    # tolerance: half a unit in the third decimal (the values are rounded)
+    assert twin_shear("{10-12}", coa) == pytest.approx(s_published, abs=5.0e-4)
     shears = {s.shear for s in catalogue(hcp(coa), modes="twin", families=["{10-12}"])}
-    assert len(shears) == 1 and shears.pop() == pytest.approx(s_published, abs=1.0e-3)
+    assert len(shears) == 1 and shears.pop() == pytest.approx(s_published, abs=5.0e-4)
 
 
 @given(st.floats(1.40, 2.0).filter(lambda g: min(abs(g - math.sqrt(3)), abs(g - 1.5), abs(g - math.sqrt(2))) > 1e-3))

@@ -1,7 +1,6 @@
 """Predicted traces, inclinations, Schmid factors and resolved shear.
 
-* Worked vectors: specification tests from ../shared/conventions.md (computed there with an
-  independent implementation that agrees with orix).
+* The worked vectors of ../shared/conventions.md live in tests/test_conventions.py.
 * Schmid factors of fcc {111}<110> slip: the standard textbook values for tension along [001],
   [011] and [111] (e.g. Hosford, Mechanical Behavior of Materials, chapter on slip; Dieter,
   Mechanical Metallurgy, chapter on plastic deformation of single crystals; values from memory):
@@ -32,44 +31,6 @@ from tracefit.predict import (
     system_schmid_factors,
     trace_angles,
 )
-
-# (lattice, c/a, Euler, plane, trace deg, inclination deg) -- ../shared/conventions.md (spec)
-WORKED = [
-    ("fcc", None, (0, 0, 0), (1, 1, 1), 135.000, 54.736),
-    ("fcc", None, (0, 0, 0), (1, -1, 1), 45.000, 54.736),
-    ("fcc", None, (30, 0, 0), (1, 1, 1), 165.000, 54.736),
-    ("fcc", None, (0, 45, 0), (1, 1, 1), 90.000, 35.264),
-    ("fcc", None, (0, 45, 0), (1, -1, 1), 35.264, 90.000),
-    ("fcc", None, (90, 90, 0), (1, 1, 1), 135.000, 54.736),
-    ("bcc", None, (10, 20, 30), (1, 1, 0), 174.085, 70.709),
-    ("bcc", None, (10, 20, 30), (1, 2, 3), 17.128, 16.772),
-    ("hcp", 1.633, (0, 90, 0), (0, 0, 0, 1), 0.000, 90.000),
-    ("hcp", 1.633, (0, 90, 0), (1, 0, -1, 0), 90.000, 60.000),
-    ("hcp", 1.587, (0, 90, 0), (1, 0, -1, 2), 38.432, 70.258),
-    ("hcp", 1.587, (40, 60, 10), (1, 0, -1, 2), 90.844, 41.865),
-    ("hcp", 1.587, (40, 60, 10), (0, 1, -1, 0), 59.425, 31.475),
-]
-
-
-@pytest.mark.parametrize("lat, ca, euler, plane, trace, incl", WORKED)
-def test_worked_vectors(lat, ca, euler, plane, trace, incl):
-    # Specification test (../shared/conventions.md, "Worked vectors").
-    lattice = lattice_preset(lat, ca)
-    t = predicted_trace_table(lattice, from_euler(euler), [plane], indices=True)
-    assert abs(axial_difference(float(t.angle_deg[0]), trace)) < 6e-4
-    assert float(t.inclination_deg[0]) == pytest.approx(incl, abs=6e-4)
-
-
-@pytest.mark.parametrize("lat, ca, euler, plane, trace, incl", [w for w in WORKED if w[0] == "hcp"])
-def test_worked_vectors_through_predict_traces(lat, ca, euler, plane, trace, incl):
-    # Same spec, through the grouped per-orientation path and the built-in catalogue.
-    lattice = lattice_preset(lat, ca)
-    n_target = lattice.plane_normal(plane)
-    fake = SimpleNamespace(mode="slip", family="{x}", name="probe", plane=plane, direction=(0, 0, 0, 1), normal=n_target, dir_unit=n_target)
-    (tr,) = predict_traces(lattice, from_euler(euler), [fake])
-    assert abs(axial_difference(tr.angle_deg, trace)) < 6e-4
-    assert tr.inclination_deg == pytest.approx(incl, abs=6e-4)
-
 
 def test_trace_lies_in_plane_and_surface():
     # The trace direction (cos a, sin a, 0) is in the surface and in the plane: t . n = 0.
@@ -255,6 +216,10 @@ def test_plane_and_negative_are_one_trace_slip_and_twin_merge():
     assert "schmid_factor" not in d["systems"][0]
 
 
+def canonical(v):
+    return tuple(int(x) for x in (v if next(x for x in v if x) > 0 else [-y for y in v]))
+
+
 def test_predict_with_load_sorted_by_schmid_and_activation_stress():
     lat = lattice_preset("fcc")
     tr = predict_traces(lat, from_euler([0, 0, 0]), catalogue(lat, modes=["slip"]), load="[123]", crss={"{111}": 10.0})
@@ -262,8 +227,11 @@ def test_predict_with_load_sorted_by_schmid_and_activation_stress():
     assert best == sorted(best, reverse=True)
     s = tr[0].systems[0]
     assert s.activation_stress == pytest.approx(10.0 / s.schmid_factor)
-    # The [123] single-slip orientation: primary system (11-1)[011]-type, m = 0.467 (from memory).
-    assert s.schmid_factor == pytest.approx(0.4666, abs=1e-4)
+    # The [123] single-slip orientation: the primary system is (-111)[101] (common practice, no
+    # source), written (1-1-1)[101] here (plane with its first index positive). Schmid's law by
+    # hand: l.n = 4/sqrt(42), l.d = 4/sqrt(28), m = 16/sqrt(1176) = 0.4666.
+    assert canonical(tr[0].plane) == (1, -1, -1) and s.direction == (1, 0, 1)
+    assert s.schmid_factor == pytest.approx(16 / math.sqrt(1176), abs=1e-12)
     d = tr[0].to_dict()
     assert d["systems"][0]["schmid_factor"] == pytest.approx(s.schmid_factor)
 
@@ -311,3 +279,150 @@ def test_hex_setting_x_a1star_is_a_phi2_shift():
     # and mixing the settings up does move traces
     c = predicted_trace_table(star, from_euler(e), hkil, indices=True)
     assert np.abs(axial_difference(a.angle_deg, c.angle_deg)).max() > 5.0
+
+
+# ------------------------------------------------------------------ the Load type
+# Outside checks: Schmid's law m = cos(phi) cos(lambda) by hand (common practice), the worked
+# Schmid factors of ../shared/conventions.md (spec) and scipy Rotation for the sample frame.
+from tracefit.crystal import Lattice, Orientation  # noqa: E402
+from tracefit.predict import Load, LoadAxis, as_load, resolved_drive, tilt_slope  # noqa: E402
+
+
+def test_load_axis_schmid_factor_by_hand():
+    # fcc, tension along [001] on (111)[-101]: cos phi = 1/sqrt3, cos lambda = 1/sqrt2,
+    # m = 1/sqrt6 = 0.408 (Schmid's law; common practice, no source).
+    lat = Lattice.fcc()
+    n, d = lat.plane_normal((1, 1, 1)), lat.direction_vector((-1, 0, 1))
+    m = resolved_drive(Load.axis("[001]", lattice=lat), None, n, d)
+    assert float(m) == pytest.approx(1 / math.sqrt(6), abs=1e-12)
+    assert float(resolved_drive(Load.axis("[001]", "compression", lat), None, n, d)) == pytest.approx(-1 / math.sqrt(6), abs=1e-12)
+    # a sample axis: with g = identity, sample z is crystal [001]
+    assert float(resolved_drive(Load.axis("z"), Orientation.identity(), n, d)) == pytest.approx(1 / math.sqrt(6), abs=1e-12)
+
+
+@pytest.mark.parametrize("axis, best", [("x", 0.464), ("y", 0.488)])
+def test_load_axis_in_sample_frame_worked_example(axis, best):
+    # Spec (../shared/conventions.md, "The load's frame"): fcc, Euler (35, 20, 60): the (11-1)
+    # plane's best Schmid factor is 0.464 for a load along sample X, 0.488 along sample Y.
+    # Outside check: the axis taken into the crystal with scipy (v_c = R^T v_s), then Schmid's law.
+    lat = Lattice.fcc()
+    o = Orientation.from_euler([35, 20, 60])
+    systems = [s for s in catalogue(lat, modes="slip") if s.plane == (1, 1, -1)]
+    m = np.abs(resolved_drive(Load.axis(axis), o, [s.normal for s in systems], [s.dir_unit for s in systems]))
+    assert m.max() == pytest.approx(best, abs=6e-4)
+    l_c = SciRot.from_euler("ZXZ", [35, 20, 60], degrees=True).inv().apply({"x": [1, 0, 0], "y": [0, 1, 0]}[axis])
+    ref = [abs((l_c @ s.normal) * (l_c @ s.dir_unit)) for s in systems]
+    np.testing.assert_allclose(m, ref, atol=1e-12)
+
+
+def test_load_stress_resolves_like_schmid_times_stress():
+    # Uniaxial stress sigma l l^T resolves to tau = sigma m (Schmid's law); Voigt order
+    # (s11, s22, s33, s23, s13, s12).
+    lat = Lattice.hcp(c_over_a=1.587)
+    systems = catalogue(lat)
+    n = np.array([s.normal for s in systems])
+    d = np.array([s.dir_unit for s in systems])
+    G = Orientation.from_euler(SciRot.random(20, random_state=8).as_euler("ZXZ", degrees=True))
+    for sigma, sense in ((150.0, "tension"), (-150.0, "compression")):
+        tau = resolved_drive(Load.stress([0, sigma, 0, 0, 0, 0]), G, n, d)
+        m = resolved_drive(Load.axis("y", sense), G, n, d)
+        assert tau.shape == m.shape == (20, len(systems))
+        np.testing.assert_allclose(tau, 150.0 * m, atol=1e-9)
+    ld = Load.stress([1, 2, 3, 50, 60, 70])
+    np.testing.assert_allclose(ld.stress_tensor, [[1, 70, 60], [70, 2, 50], [60, 50, 3]])
+    assert ld.is_stress and ld.to_dict()["stress_mpa"][1][2] == 50.0
+    for bad in ([1, 2, 3], np.ones((3, 3)) + np.triu(np.ones((3, 3)))):
+        with pytest.raises(TracefitInputError, match="stress"):
+            Load.stress(bad)
+
+
+def test_stress_load_refuses_axis_questions():
+    ld = Load.stress(np.eye(3))
+    for call in (lambda: ld.sign, lambda: ld.in_crystal(np.eye(3)), lambda: ld.in_sample()):
+        with pytest.raises(TracefitInputError, match="resolved_drive"):
+            call()
+    with pytest.raises(TracefitInputError, match="axis load"):
+        system_schmid_factors(ld, np.eye(3), catalogue(Lattice.fcc()))
+    with pytest.raises(TracefitInputError, match="orientation"):
+        resolved_drive(ld, None, [0, 0, 1], [1, 0, 0])
+    with pytest.raises(TracefitInputError, match="load is None"):
+        resolved_drive(None, np.eye(3), [0, 0, 1], [1, 0, 0])
+
+
+def test_load_axis_keeps_the_former_load_axis_behaviour():
+    lat = Lattice.hcp(c_over_a=1.624)
+    assert LoadAxis is Load
+    old_style = LoadAxis((0.0, 1.0, 0.0), "sample", "compression", "y")
+    assert old_style == Load.axis("y", sense="compression") and old_style.sign == -1.0
+    assert old_style.to_dict() == {"axis": "y", "frame": "sample", "sense": "compression", "vector": [0.0, 1.0, 0.0]}
+    ld = Load.axis("[11-20]", lattice=lat)
+    assert ld.to_dict()["index"] == [1, 1, -2, 0] and not ld.is_stress
+    g = from_euler([20, 30, 40])
+    np.testing.assert_allclose(ld.in_sample(Orientation.from_euler([20, 30, 40])), ld.in_sample(g), atol=1e-15)
+    np.testing.assert_allclose(ld.in_sample(g), crystal_to_sample(g, np.array(ld.vector)), atol=1e-12)
+    np.testing.assert_allclose(Load.axis([0, 3, 4]).vector, [0, 0.6, 0.8])
+    with pytest.raises(TracefitInputError, match="sample axis"):
+        Load.axis("x").in_crystal()
+    for bad in ([0, 0, 0], [1, 2], "nonsense"):
+        with pytest.raises(TracefitInputError):
+            Load.axis(bad)
+    with pytest.raises(TracefitInputError, match="sense"):
+        Load.axis("x", sense="shear")
+
+
+def test_as_load_on_every_input_form():
+    lat = Lattice.fcc()
+    assert as_load(None) is None
+    ld = Load.axis("y")
+    assert as_load(ld) is ld
+    assert as_load(LoadAxis((1.0, 0.0, 0.0), "sample", "tension", "x")) == Load.axis("x")
+    assert as_load("y") == Load.axis("y")
+    assert as_load("-z", sense="compression") == Load.axis("-z", "compression")
+    assert as_load("[110]", lat).frame == "crystal"
+    assert as_load([0, 2, 0]).vector == (0.0, 1.0, 0.0)
+    assert as_load(np.diag([0, 10.0, 0])) == Load.stress([0, 10, 0, 0, 0, 0])
+    assert as_load((0, 10, 0, 0, 0, 0)).is_stress
+    for bad in ([1, 2, 3, 4], np.zeros((2, 3)), object(), "[110]"):
+        with pytest.raises(TracefitInputError):
+            as_load(bad)  # "[110]" without a lattice is refused too
+
+
+def test_predict_traces_takes_a_stress_load():
+    lat = Lattice.fcc()
+    systems = catalogue(lat)
+    s = [0, 0, 80.0, 0, 0, 20.0]
+    a = predict_traces(lat, Orientation.from_euler([10, 20, 30]), systems, load=Load.stress(s))
+    b = predict_traces(lat, from_euler([10, 20, 30]), systems, stress=s)
+    assert [t.to_dict() for t in a] == [t.to_dict() for t in b]
+    assert all(r.resolved_shear is not None and r.schmid_factor is None for t in a for r in t.systems)
+    with pytest.raises(TracefitInputError, match="once"):
+        predict_traces(lat, from_euler([10, 20, 30]), systems, load=Load.stress(s), stress=s)
+
+
+# ------------------------------------------------------------------ tilt slope
+def test_slope_against_numerical_and_analytic_derivative():
+    # d(apparent)/d(true) of tan(apparent) = tan(true) cos(alpha) (tilt about x): the analytic
+    # derivative cos(alpha) / (cos^2 t + cos^2(alpha) sin^2 t) (calculus on the spec's law), and a
+    # fine central difference of the law written out here with numpy.
+    lat = Lattice.bcc()
+    G = Orientation.from_euler(SciRot.random(40, random_state=2).as_euler("ZXZ", degrees=True))
+    hkl = [(1, 1, 0), (1, -1, 0), (1, 1, 2), (1, 2, 3)]
+    f = FrameSettings(rotation_deg=15.0, tilt_deg=55.0)
+    tab = predicted_trace_table(lat, G, hkl, f, indices=True)
+    t = np.radians(tab.true_angle_deg)
+    ca = math.cos(math.radians(55.0))
+    analytic = ca / (np.cos(t) ** 2 + ca**2 * np.sin(t) ** 2)
+    np.testing.assert_allclose(tab.slope, analytic, rtol=2e-6)
+
+    def app(deg):
+        r = np.radians(deg)
+        return np.degrees(np.arctan2(np.sin(r) * ca, np.cos(r)))
+
+    h = 1e-4
+    numeric = axial_difference(app(tab.true_angle_deg + h), app(tab.true_angle_deg - h)) / (2 * h)
+    np.testing.assert_allclose(tab.slope, numeric, rtol=1e-5)
+    # no tilt: slope 1; tilt about y mirrors the law
+    assert np.all(predicted_trace_table(lat, G, hkl, FrameSettings(rotation_deg=15.0), indices=True).slope == 1.0)
+    fy = FrameSettings(tilt_deg=40.0, tilt_axis="y")
+    cy = math.cos(math.radians(40.0))
+    np.testing.assert_allclose(tilt_slope([0.0, 90.0], fy), [1 / cy, cy], rtol=1e-6)

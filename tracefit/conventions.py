@@ -47,6 +47,7 @@ import math
 from dataclasses import asdict, dataclass
 
 import numpy as np
+from numpy.typing import ArrayLike
 
 from tracefit.errors import TracefitInputError
 
@@ -69,7 +70,7 @@ __all__ = [
 TILT_AXES = ("x", "y")
 
 # ------------------------------------------------------------------ image-frame angles
-def fold_axial(angle_deg):
+def fold_axial(angle_deg: ArrayLike) -> float | np.ndarray:
     """Fold angles onto the axial range [0, 180).
 
     Parameters
@@ -80,7 +81,14 @@ def fold_axial(angle_deg):
     Returns
     -------
     float or ndarray
-        Equivalent axial angle(s) in degrees, 0 <= a < 180.
+        Equivalent axial angle(s) in degrees, 0 <= a < 180 (same shape as the input).
+
+    Examples
+    --------
+    >>> fold_axial(-30.0)
+    150.0
+    >>> fold_axial([180.0, 365.0]).tolist()
+    [0.0, 5.0]
     """
     a = np.mod(np.asarray(angle_deg, dtype=float), 180.0)
     # mod can return exactly 180.0 for tiny negative inputs through rounding.
@@ -88,14 +96,32 @@ def fold_axial(angle_deg):
     return float(a) if a.ndim == 0 else a
 
 
-def axial_difference(a_deg, b_deg):
-    """Signed smallest difference a - b between axial angles, in (-90, 90] degrees."""
+def axial_difference(a_deg: ArrayLike, b_deg: ArrayLike) -> float | np.ndarray:
+    """Signed smallest difference a - b between axial angles, in (-90, 90] degrees.
+
+    Parameters
+    ----------
+    a_deg, b_deg : float or array_like
+        Axial angles in degrees (broadcast together).
+
+    Returns
+    -------
+    float or ndarray
+        a - b folded onto (-90, 90], degrees.
+
+    Examples
+    --------
+    >>> axial_difference(179.0, 1.0)
+    -2.0
+    >>> axial_difference(10.0, 100.0)
+    90.0
+    """
     d = np.mod(np.asarray(a_deg, dtype=float) - np.asarray(b_deg, dtype=float) + 90.0, 180.0) - 90.0
     d = np.where(d <= -90.0, d + 180.0, d)
     return float(d) if d.ndim == 0 else d
 
 
-def pixel_direction_angle(d_col, d_row):
+def pixel_direction_angle(d_col: ArrayLike, d_row: ArrayLike) -> float | np.ndarray:
     """Image-frame axial angle of a direction given in pixel (column, row) steps.
 
     Rows grow downward, so the upward screen component is ``-d_row``:
@@ -110,33 +136,88 @@ def pixel_direction_angle(d_col, d_row):
     -------
     float or ndarray
         Axial angle in degrees.
+
+    Examples
+    --------
+    >>> pixel_direction_angle(1.0, -1.0)  # one column right, one row up the screen
+    45.0
     """
     return fold_axial(np.degrees(np.arctan2(-np.asarray(d_row, float), np.asarray(d_col, float))))
 
 
-def pixel_endpoints_angle(col0, row0, col1, row1):
+def pixel_endpoints_angle(col0: ArrayLike, row0: ArrayLike, col1: ArrayLike, row1: ArrayLike) -> float | np.ndarray:
     """Axial image-frame angle of the line through two pixel points (col, row).
+
+    Parameters
+    ----------
+    col0, row0, col1, row1 : float or array_like
+        The two points in pixels (rows grow downward).
+
+    Returns
+    -------
+    float or ndarray
+        Axial angle in degrees, [0, 180).
 
     Raises
     ------
-    ValueError
+    TracefitInputError
         If the two points coincide (no direction).
+
+    Examples
+    --------
+    >>> pixel_endpoints_angle(0, 99, 99, 0)  # lower-left to upper-right corner
+    45.0
     """
     dc = np.asarray(col1, float) - np.asarray(col0, float)
     dr = np.asarray(row1, float) - np.asarray(row0, float)
     if np.any(np.hypot(dc, dr) == 0):
-        raise ValueError("the two endpoints coincide, so the line has no direction")
+        raise TracefitInputError("the endpoints (col0, row0) and (col1, row1) coincide, so the line has no direction")
     return pixel_direction_angle(dc, dr)
 
 
-def angle_to_pixel_direction(angle_deg):
-    """Unit (d_col, d_row) pixel direction of an image-frame angle (inverse of the above)."""
+def angle_to_pixel_direction(angle_deg: ArrayLike) -> tuple[np.ndarray, np.ndarray]:
+    """Unit (d_col, d_row) pixel direction of an image-frame angle (inverse of :func:`pixel_direction_angle`).
+
+    Parameters
+    ----------
+    angle_deg : float or array_like
+        Image-frame angle(s) in degrees, counterclockwise from x.
+
+    Returns
+    -------
+    d_col, d_row : float or ndarray
+        Unit step in pixel columns (right) and rows (down).
+
+    Examples
+    --------
+    >>> d_col, d_row = angle_to_pixel_direction(90.0)
+    >>> round(float(d_col), 6), round(float(d_row), 6)
+    (0.0, -1.0)
+    """
     t = np.radians(np.asarray(angle_deg, float))
     return np.cos(t), -np.sin(t)
 
 
-def axial_mean(angles_deg, weights=None):
-    """Weighted mean of axial angles (angle doubling), in [0, 180) degrees."""
+def axial_mean(angles_deg: ArrayLike, weights: ArrayLike | None = None) -> float:
+    """Weighted mean of axial angles (angle doubling), in [0, 180) degrees.
+
+    Parameters
+    ----------
+    angles_deg : array_like, shape (K,)
+        Axial angles in degrees.
+    weights : array_like, shape (K,), optional
+        Non-negative weights; equal weights when omitted.
+
+    Returns
+    -------
+    float
+        Mean axial angle in degrees.
+
+    Examples
+    --------
+    >>> round(axial_mean([178.0, 4.0]), 6)
+    1.0
+    """
     t = np.radians(2.0 * np.asarray(angles_deg, float))
     w = np.ones_like(t) if weights is None else np.asarray(weights, float)
     return fold_axial(np.degrees(np.arctan2(np.sum(w * np.sin(t)), np.sum(w * np.cos(t)))) / 2.0)
@@ -160,6 +241,18 @@ class FrameSettings:
         Stage tilt alpha in degrees, ``|alpha| < 90``.
     tilt_axis : {"x", "y"}
         Tilt axis: the image's horizontal (x) or vertical (y) axis.
+
+    Raises
+    ------
+    TracefitInputError
+        A non-finite angle, a tilt of 90 deg or more, a flip that is not a bool, or an
+        unknown tilt axis.
+
+    Examples
+    --------
+    >>> f = FrameSettings(rotation_deg=90.0, tilt_deg=60.0)
+    >>> f.to_dict()["tilt_axis"]
+    'x'
     """
 
     rotation_deg: float = 0.0
@@ -172,25 +265,42 @@ class FrameSettings:
         for k in ("rotation_deg", "tilt_deg"):
             v = getattr(self, k)
             if isinstance(v, (bool, np.bool_)) or not isinstance(v, (int, float, np.floating, np.integer)) or not math.isfinite(v):
-                raise TracefitInputError(f"frame {k.replace('_deg', '')} must be a finite number of degrees, got {v!r}")
+                raise TracefitInputError(f"{k} must be a finite number of degrees, got {v!r}")
         for k in ("flip_x", "flip_y"):
             v = getattr(self, k)
             if not isinstance(v, (bool, np.bool_)):
-                raise TracefitInputError(f"frame {k} must be true or false, got {v!r}")
+                raise TracefitInputError(f"{k} must be true or false, got {v!r}")
             object.__setattr__(self, k, bool(v))
         if not abs(self.tilt_deg) < 90.0:
-            raise TracefitInputError(f"stage tilt must lie strictly between -90 and 90 deg, got {self.tilt_deg:g}")
+            raise TracefitInputError(f"tilt_deg must lie strictly between -90 and 90 deg, got {self.tilt_deg:g}")
         axis = str(self.tilt_axis).strip().lower()
         if axis not in TILT_AXES:
-            raise TracefitInputError(f"tilt axis must be 'x' (image horizontal) or 'y' (image vertical), got {self.tilt_axis!r}")
+            raise TracefitInputError(f"tilt_axis must be 'x' (image horizontal) or 'y' (image vertical), got {self.tilt_axis!r}")
         object.__setattr__(self, "tilt_axis", axis)
 
     def to_dict(self) -> dict:
+        """The five settings as a JSON-ready dict."""
         return asdict(self)
 
 
 def rotation_z(deg: float) -> np.ndarray:
-    """Active counterclockwise rotation matrix about z by ``deg`` degrees."""
+    """Active counterclockwise rotation matrix about z.
+
+    Parameters
+    ----------
+    deg : float
+        Rotation angle in degrees.
+
+    Returns
+    -------
+    ndarray, shape (3, 3)
+        ``Rz`` with ``v' = Rz @ v``.
+
+    Examples
+    --------
+    >>> np.round(rotation_z(90.0) @ [1.0, 0.0, 0.0], 6).tolist()
+    [0.0, 1.0, 0.0]
+    """
     t = math.radians(deg)
     c, s = math.cos(t), math.sin(t)
     return np.array([[c, -s, 0.0], [s, c, 0.0], [0.0, 0.0, 1.0]])
@@ -200,6 +310,21 @@ def data_to_image_matrix(frame: FrameSettings | None = None) -> np.ndarray:
     """Proper rotation ``M`` with ``v_image = M @ v_data`` (flips first, then Rz(rho)).
 
     Tilt is not part of ``M``: it is a projection, see :func:`apparent_angle`.
+
+    Parameters
+    ----------
+    frame : FrameSettings, optional
+        Default: no rotation, no flips.
+
+    Returns
+    -------
+    ndarray, shape (3, 3)
+        Rotation matrix, determinant +1.
+
+    Examples
+    --------
+    >>> np.round(data_to_image_matrix(FrameSettings(flip_y=True)), 6).tolist()
+    [[1.0, 0.0, 0.0], [0.0, -1.0, 0.0], [0.0, 0.0, -1.0]]
     """
     frame = frame or FrameSettings()
     f = np.diag([-1.0 if frame.flip_x else 1.0, -1.0 if frame.flip_y else 1.0, 1.0])
@@ -212,7 +337,7 @@ def _tilt_factors(frame: FrameSettings):
     return (1.0, c) if frame.tilt_axis == "x" else (c, 1.0)
 
 
-def apparent_angle(true_deg, frame: FrameSettings | None = None):
+def apparent_angle(true_deg: ArrayLike, frame: FrameSettings | None = None) -> float | np.ndarray:
     """Apparent (tilted-view) axial angle of a surface line from its true image-frame angle.
 
     Parameters
@@ -226,6 +351,11 @@ def apparent_angle(true_deg, frame: FrameSettings | None = None):
     -------
     float or ndarray
         Apparent angle(s), degrees in [0, 180).
+
+    Examples
+    --------
+    >>> round(apparent_angle(45.0, FrameSettings(tilt_deg=60.0)), 3)
+    26.565
     """
     frame = frame or FrameSettings()
     fx, fy = _tilt_factors(frame)
@@ -233,8 +363,28 @@ def apparent_angle(true_deg, frame: FrameSettings | None = None):
     return fold_axial(np.degrees(np.arctan2(np.sin(t) * fy, np.cos(t) * fx)))
 
 
-def true_angle(apparent_deg, frame: FrameSettings | None = None):
-    """True image-frame axial angle from the apparent angle seen under stage tilt (inverse of :func:`apparent_angle`)."""
+def true_angle(apparent_deg: ArrayLike, frame: FrameSettings | None = None) -> float | np.ndarray:
+    """True image-frame axial angle from the apparent angle seen under stage tilt.
+
+    The inverse of :func:`apparent_angle`.
+
+    Parameters
+    ----------
+    apparent_deg : float or array_like
+        Apparent angle(s), degrees.
+    frame : FrameSettings
+        Only ``tilt_deg`` and ``tilt_axis`` are used.
+
+    Returns
+    -------
+    float or ndarray
+        True angle(s), degrees in [0, 180).
+
+    Examples
+    --------
+    >>> round(true_angle(26.565051177, FrameSettings(tilt_deg=60.0)), 6)
+    45.0
+    """
     frame = frame or FrameSettings()
     fx, fy = _tilt_factors(frame)
     a = np.radians(np.asarray(apparent_deg, float))
@@ -243,13 +393,45 @@ def true_angle(apparent_deg, frame: FrameSettings | None = None):
 
 
 # ------------------------------------------------------------------ hexagonal indices
-def miller_bravais_to_miller(idx, kind: str):
+def _is_integer_array(v: np.ndarray) -> bool:
+    return v.dtype.kind in "iub"
+
+
+def miller_bravais_to_miller(idx: ArrayLike, kind: str) -> np.ndarray:
     """Four-index (hkil) plane or [uvtw] direction to three indices.
 
     Planes: (hkil) -> (hkl), with h + k + i = 0 required.
     Directions: [uvtw] -> [u - t, v - t, w], with u + v + t = 0 required.
+    Three-index input is returned unchanged (as an array), so callers need not branch.
+
+    Parameters
+    ----------
+    idx : array_like, shape (..., 4) or (..., 3)
+        Indices; integer input gives integer output (the conversion is exact), float input
+        float output.
+    kind : {"plane", "direction"}
+        What the indices describe.
+
+    Returns
+    -------
+    ndarray, shape (..., 3)
+        Three-index form, same dtype family as ``idx``.
+
+    Raises
+    ------
+    TracefitInputError
+        ``kind`` unknown, a count other than 3 or 4, or the sum rule broken.
+
+    Examples
+    --------
+    >>> miller_bravais_to_miller((1, 0, -1, 2), "plane").tolist()
+    [1, 0, 2]
+    >>> miller_bravais_to_miller((2, -1, -1, 0), "direction").tolist()
+    [3, 0, 0]
     """
-    v = np.asarray(idx, dtype=float)
+    v = _index_array(idx, kind)
+    if v.shape[-1] == 3:
+        return v
     s = v[..., 0] + v[..., 1] + v[..., 2]
     if np.any(np.abs(s) > 1e-9):
         first = "h + k + i" if kind == "plane" else "u + v + t"
@@ -259,13 +441,65 @@ def miller_bravais_to_miller(idx, kind: str):
     return np.stack([v[..., 0] - v[..., 2], v[..., 1] - v[..., 2], v[..., 3]], axis=-1)
 
 
-def miller_to_miller_bravais(idx, kind: str):
-    """Three indices to four: (hkl) -> (h, k, -(h+k), l); [UVW] -> [(2U-V)/3, (2V-U)/3, -(U+V)/3, W]."""
-    v = np.asarray(idx, dtype=float)
+def miller_to_miller_bravais(idx: ArrayLike, kind: str, integer: bool = False) -> np.ndarray:
+    """Three indices to four: (hkl) -> (h, k, -(h+k), l); [UVW] -> [(2U-V)/3, (2V-U)/3, -(U+V)/3, W].
+
+    Parameters
+    ----------
+    idx : array_like, shape (..., 3)
+        Three-index plane(s) or direction(s).
+    kind : {"plane", "direction"}
+        What the indices describe.
+    integer : bool
+        Return integers (int64). Planes always convert exactly; a direction converts exactly
+        only when every component of ``(2U-V, 2V-U, -(U+V), 3W)`` divides by 3 (it came from
+        a whole [uvtw]); otherwise the call fails. False (default): floats, thirds allowed.
+
+    Returns
+    -------
+    ndarray, shape (..., 4)
+        Plane indices keep the dtype of integer input; directions are float unless ``integer``.
+
+    Raises
+    ------
+    TracefitInputError
+        ``kind`` unknown, not three indices, or ``integer=True`` for a direction whose
+        four-index form is not whole.
+
+    Examples
+    --------
+    >>> miller_to_miller_bravais((1, 0, 2), "plane").tolist()
+    [1, 0, -1, 2]
+    >>> np.round(miller_to_miller_bravais((1, 0, 0), "direction"), 3).tolist()
+    [0.667, -0.333, -0.333, 0.0]
+    >>> miller_to_miller_bravais((3, 0, 0), "direction", integer=True).tolist()
+    [2, -1, -1, 0]
+    """
+    v = _index_array(idx, kind)
+    if v.shape[-1] != 3:
+        raise TracefitInputError(f"idx must hold three indices per {kind}, got shape {v.shape}")
     if kind == "plane":
-        return np.stack([v[..., 0], v[..., 1], -(v[..., 0] + v[..., 1]), v[..., 2]], axis=-1)
+        out = np.stack([v[..., 0], v[..., 1], -(v[..., 0] + v[..., 1]), v[..., 2]], axis=-1)
+        return out.astype(np.int64) if integer else out
     U, V, W = v[..., 0], v[..., 1], v[..., 2]
-    return np.stack([(2 * U - V) / 3, (2 * V - U) / 3, -(U + V) / 3, W], axis=-1)
+    num = np.stack([2 * U - V, 2 * V - U, -(U + V), 3 * W], axis=-1)
+    if not integer:
+        return num / 3.0
+    whole = np.round(num / 3.0)
+    if np.any(np.abs(num / 3.0 - whole) > 1e-9):
+        raise TracefitInputError(f"direction {_index_text(v)} has no whole four-index form; multiply it by 3")
+    return whole.astype(np.int64)
+
+
+def _index_array(idx, kind: str) -> np.ndarray:
+    if kind not in ("plane", "direction"):
+        raise TracefitInputError(f"kind must be 'plane' or 'direction', got {kind!r}")
+    v = np.asarray(idx)
+    if not _is_integer_array(v):
+        v = v.astype(float)
+    if v.shape[-1:] not in ((3,), (4,)):
+        raise TracefitInputError(f"idx must hold 3 or 4 indices per {kind}, got shape {v.shape}")
+    return v
 
 
 def _index_text(v) -> str:

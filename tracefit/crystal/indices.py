@@ -29,9 +29,17 @@ indices on the hexagonal a1, a2, c cell) and other lattices reject four.
 from __future__ import annotations
 
 import re
+from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
+import numpy as np
+
+from tracefit.conventions import miller_bravais_to_miller
 from tracefit.errors import TracefitInputError
+
+if TYPE_CHECKING:  # names used in annotations only
+    from tracefit.crystal.lattice import Lattice
 
 __all__ = ["MillerIndex", "parse_index", "format_index", "check_values", "to_three", "BRACKETS"]
 
@@ -63,6 +71,12 @@ class MillerIndex:
         ``()``/``{}`` give planes, ``[]``/``<>`` directions.
     family : bool
         True for ``{}`` and ``<>`` (all symmetry equivalents).
+
+    Examples
+    --------
+    >>> idx = MillerIndex((1, 0, -1, 2), "plane", family=True)
+    >>> str(idx), idx.is_four, idx.three()
+    ('{10-12}', True, (1, 0, 2))
     """
 
     values: tuple[int, ...]
@@ -82,14 +96,38 @@ class MillerIndex:
         return to_three(self.values, self.kind)
 
 
-def to_three(values, kind: str) -> tuple[int, ...]:
-    """Integer three-index form of a 3- or 4-index plane or direction (unchanged if 3)."""
-    v = tuple(int(x) for x in values)
-    if len(v) == 3:
-        return v
-    if kind == "plane":
-        return (v[0], v[1], v[3])
-    return (v[0] - v[2], v[1] - v[2], v[3])
+def to_three(values: Sequence[int], kind: str) -> tuple[int, ...]:
+    """Integer three-index form of a 3- or 4-index plane or direction (unchanged if 3).
+
+    A thin wrapper of :func:`tracefit.conventions.miller_bravais_to_miller` (the one place
+    the conversion is written) that returns Python ints.
+
+    Parameters
+    ----------
+    values : sequence of int
+        Three or four integer indices.
+    kind : {"plane", "direction"}
+        (hkil) -> (hkl); [uvtw] -> [u - t, v - t, w].
+
+    Returns
+    -------
+    tuple of int
+        Three indices.
+
+    Raises
+    ------
+    TracefitInputError
+        Unknown ``kind``, a count other than 3 or 4, or a broken sum rule.
+
+    Examples
+    --------
+    >>> to_three((-1, -1, 2, 3), "direction")
+    (-3, -3, 3)
+    >>> to_three((1, 0, -1, 2), "plane")
+    (1, 0, 2)
+    """
+    v = np.asarray([int(x) for x in values], dtype=np.int64)
+    return tuple(int(x) for x in miller_bravais_to_miller(v, kind))
 
 
 def _normalise_text(text: str) -> str:
@@ -120,7 +158,7 @@ def _split_body(body: str, text: str) -> list[int]:
     return [int(m) for m in re.findall(r"-?\d", body)]
 
 
-def parse_index(text, lattice=None, expect: str | None = None, hex_three_index: bool = False) -> MillerIndex:
+def parse_index(text: str, lattice: Lattice | None = None, expect: str | None = None, hex_three_index: bool = False) -> MillerIndex:
     """Read one plane, plane family, direction or direction family.
 
     Parameters
@@ -145,11 +183,18 @@ def parse_index(text, lattice=None, expect: str | None = None, hex_three_index: 
     TracefitInputError
         Malformed text, unbalanced brackets, all-zero index, broken h + k + i = 0 or
         u + v + t = 0, or an index count that does not suit the lattice.
+
+    Examples
+    --------
+    >>> parse_index("(1-11)")
+    MillerIndex(values=(1, -1, 1), kind='plane', family=False)
+    >>> parse_index("<11-20>").values
+    (1, 1, -2, 0)
     """
     if not isinstance(text, str):
         raise TracefitInputError(f"an index must be text such as '(111)' or '[11-20]', got {type(text).__name__}")
     if expect not in (None, "plane", "direction"):
-        raise ValueError(f"expect must be None, 'plane' or 'direction', not {expect!r}")
+        raise TracefitInputError(f"expect must be None, 'plane' or 'direction', not {expect!r}")
     t = _normalise_text(text)
     if not t:
         raise TracefitInputError(f"empty index; {_HELP}")
@@ -175,13 +220,38 @@ def parse_index(text, lattice=None, expect: str | None = None, hex_three_index: 
     return MillerIndex(values, kind, family)
 
 
-def check_values(values, kind: str, lattice=None, text: str | None = None, hex_three_index: bool = False) -> None:
+def check_values(values: Sequence[int], kind: str, lattice: Lattice | None = None, text: str | None = None, hex_three_index: bool = False) -> None:
     """Validate integer indices of a plane or direction (count, all-zero, four-index sum rule).
+
+    Parameters
+    ----------
+    values : sequence of int
+        Three or four indices.
+    kind : {"plane", "direction"}
+        What the indices describe.
+    lattice : tracefit.crystal.Lattice, optional
+        When given, the count must suit it (four for hexagonal, three otherwise).
+    text : str, optional
+        The indices as the user wrote them, quoted in messages.
+    hex_three_index : bool
+        Accept three indices on a hexagonal lattice.
+
+    Returns
+    -------
+    None
 
     Raises
     ------
     TracefitInputError
         With a message naming the broken rule.
+
+    Examples
+    --------
+    >>> check_values((1, 0, -1, 2), "plane")  # passes silently
+    >>> check_values((1, 1, 1, 2), "plane")
+    Traceback (most recent call last):
+    ...
+    tracefit.errors.TracefitInputError: Miller-Bravais plane (1112) breaks h + k + i = 0 (here 1 + 1 + 1 = 3); the third index must be i = -(h + k) = -2
     """
     if text is not None:
         shown = text
@@ -232,7 +302,7 @@ def _sum_text(a: int, b: int, c: int) -> str:
     return f"{' '.join(terms)} = {a + b + c}"
 
 
-def format_index(values, kind: str = "plane", family: bool = False) -> str:
+def format_index(values: Sequence[int], kind: str = "plane", family: bool = False) -> str:
     """Print indices in the compact trade form with minus signs for bars.
 
     Parameters
@@ -248,9 +318,21 @@ def format_index(values, kind: str = "plane", family: bool = False) -> str:
     str
         E.g. ``"(1-11)"``, ``"{10-12}"``, ``"<11-20>"``; space separated when any index has
         two or more digits, e.g. ``"(1 0 -1 12)"``.
+
+    Raises
+    ------
+    TracefitInputError
+        Unknown ``kind``.
+
+    Examples
+    --------
+    >>> format_index((1, 1, -2, 0), "direction", family=True)
+    '<11-20>'
+    >>> format_index((1, 0, -1, 12))
+    '(1 0 -1 12)'
     """
     if kind not in ("plane", "direction"):
-        raise ValueError(f"kind must be 'plane' or 'direction', not {kind!r}")
+        raise TracefitInputError(f"kind must be 'plane' or 'direction', not {kind!r}")
     vals = [int(v) for v in values]
     opening = _OPEN_FOR[(kind, bool(family))]
     closing = BRACKETS[opening][0]

@@ -18,8 +18,10 @@ import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
+from numpy.typing import ArrayLike
 
 from tracefit.conventions import miller_bravais_to_miller, miller_to_miller_bravais, rotation_z
+from tracefit.crystal.symmetry import proper_rotations as symmetry_rotations
 from tracefit.errors import TracefitInputError
 
 __all__ = [
@@ -54,6 +56,21 @@ class Lattice:
         cell when omitted (trigonal cells must say ``"-3m"`` or ``"-3"``).
     hex_setting : {"x_a1", "x_a1star"}
         Cartesian setting for hexagonal/trigonal cells (ignored otherwise).
+
+    Raises
+    ------
+    TracefitInputError
+        Non-positive edges, angles outside (0, 180) deg or unable to close a cell, an unknown
+        Laue class or hexagonal setting.
+
+    Examples
+    --------
+    >>> Lattice.hcp(c_over_a=1.587).laue
+    '6/mmm'
+    >>> np.round(Lattice.fcc().plane_normal((1, 1, 1)), 4).tolist()
+    [0.5774, 0.5774, 0.5774]
+    >>> Lattice(1.0, 1.2, 1.5).laue
+    'mmm'
     """
 
     a: float
@@ -89,6 +106,115 @@ class Lattice:
         if 1 - ca * ca - cb * cb - cg * cg + 2 * ca * cb * cg <= 1e-12:
             raise TracefitInputError("lattice angles alpha, beta, gamma cannot form a cell")
 
+    # ----------------------------------------------------------------- named cells
+    @classmethod
+    def fcc(cls, a: float = 1.0) -> "Lattice":
+        """Face-centred cubic lattice (Laue class m-3m), named ``"fcc"`` so the built-in systems apply.
+
+        Parameters
+        ----------
+        a : float
+            Cell edge (any unit; only ratios matter for traces).
+
+        Returns
+        -------
+        Lattice
+
+        Raises
+        ------
+        TracefitInputError
+            ``a`` not a positive number.
+
+        Examples
+        --------
+        >>> Lattice.fcc().name, Lattice.fcc().is_cubic
+        ('fcc', True)
+        """
+        return cls(a, a, a, name="fcc")
+
+    @classmethod
+    def bcc(cls, a: float = 1.0) -> "Lattice":
+        """Body-centred cubic lattice (Laue class m-3m), named ``"bcc"``.
+
+        Parameters
+        ----------
+        a : float
+            Cell edge.
+
+        Returns
+        -------
+        Lattice
+
+        Raises
+        ------
+        TracefitInputError
+            ``a`` not a positive number.
+
+        Examples
+        --------
+        >>> Lattice.bcc(a=2.87).a
+        2.87
+        """
+        return cls(a, a, a, name="bcc")
+
+    @classmethod
+    def hcp(cls, c_over_a: float | None = None, a: float = 1.0, hex_setting: str = "x_a1") -> "Lattice":
+        """Hexagonal close-packed lattice (Laue class 6/mmm), named ``"hcp"``.
+
+        Parameters
+        ----------
+        c_over_a : float, optional
+            Axial ratio. Omitted: the ideal sqrt(8/3) = 1.633 with a warning (twin and
+            pyramidal traces move with c/a; real metals differ).
+        a : float
+            Basal edge.
+        hex_setting : {"x_a1", "x_a1star"}
+            Cartesian setting: x along a1 (default) or along a1*.
+
+        Returns
+        -------
+        Lattice
+
+        Raises
+        ------
+        TracefitInputError
+            ``c_over_a`` or ``a`` not positive, unknown ``hex_setting``.
+
+        Examples
+        --------
+        >>> round(Lattice.hcp(c_over_a=1.624).c_over_a, 3)
+        1.624
+        """
+        return _hcp(c_over_a, a, hex_setting, stacklevel=3)
+
+    @classmethod
+    def tetragonal(cls, c_over_a: float, a: float = 1.0) -> "Lattice":
+        """Tetragonal lattice (Laue class 4/mmm), named ``"tetragonal"``.
+
+        Parameters
+        ----------
+        c_over_a : float
+            Axial ratio (required; e.g. 0.546 for beta-tin, from memory).
+        a : float
+            Basal edge.
+
+        Returns
+        -------
+        Lattice
+
+        Raises
+        ------
+        TracefitInputError
+            ``c_over_a`` missing or not positive.
+
+        Examples
+        --------
+        >>> Lattice.tetragonal(c_over_a=0.546).laue
+        '4/mmm'
+        """
+        c_over_a = _check_c_over_a(c_over_a, required="a tetragonal lattice")
+        return cls(a, a, a * c_over_a, name="tetragonal")
+
     # ----------------------------------------------------------------- classification
     def _infer_laue(self) -> str:
         eq = lambda x, y: abs(x - y) <= 1e-6 * max(abs(x), abs(y))  # noqa: E731
@@ -107,6 +233,7 @@ class Lattice:
 
     @property
     def is_cubic(self) -> bool:
+        """True for the cubic Laue classes m-3m and m-3."""
         return self.laue in ("m-3m", "m-3")
 
     @property
@@ -116,6 +243,7 @@ class Lattice:
 
     @property
     def c_over_a(self) -> float:
+        """Axial ratio c / a."""
         return self.c / self.a
 
     # ----------------------------------------------------------------- bases
@@ -171,62 +299,171 @@ class Lattice:
             raise TracefitInputError(f"the all-zero {kind} has no direction")
         return v
 
-    def plane_normal(self, hkl) -> np.ndarray:
+    def plane_normal(self, hkl: ArrayLike) -> np.ndarray:
         """Unit plane normal(s) in the Cartesian crystal frame, from the reciprocal basis.
 
-        ``hkl`` may be (..., 3) Miller or, for hexagonal cells, (..., 4) Miller-Bravais.
+        Parameters
+        ----------
+        hkl : array_like, shape (..., 3) or (..., 4)
+            Miller or, for hexagonal cells, Miller-Bravais indices.
+
+        Returns
+        -------
+        ndarray, shape (..., 3)
+
+        Raises
+        ------
+        TracefitInputError
+            Wrong count, four indices on a non-hexagonal cell, all-zero or a broken sum rule.
+
+        Examples
+        --------
+        >>> np.round(Lattice.hcp(c_over_a=1.633).plane_normal((0, 0, 0, 1)), 6).tolist()
+        [0.0, 0.0, 1.0]
         """
         v = self._three(hkl, "plane") @ self.reciprocal_matrix.T
         return v / np.linalg.norm(v, axis=-1, keepdims=True)
 
-    def direction_vector(self, uvw, unit: bool = True) -> np.ndarray:
-        """Direction(s) [uvw] (or [uvtw]) as Cartesian crystal vectors, unit length by default."""
+    def direction_vector(self, uvw: ArrayLike, unit: bool = True) -> np.ndarray:
+        """Direction(s) [uvw] (or [uvtw]) as Cartesian crystal vectors, unit length by default.
+
+        Parameters
+        ----------
+        uvw : array_like, shape (..., 3) or (..., 4)
+        unit : bool
+            False keeps the lattice length (in the unit of a, b, c).
+
+        Returns
+        -------
+        ndarray, shape (..., 3)
+
+        Raises
+        ------
+        TracefitInputError
+            As :meth:`plane_normal`.
+
+        Examples
+        --------
+        >>> (np.round(Lattice.hcp(c_over_a=1.6).direction_vector((2, -1, -1, 0), unit=False), 6) + 0.0).tolist()
+        [3.0, 0.0, 0.0]
+        """
         v = self._three(uvw, "direction") @ self.direct_matrix.T
         return v / np.linalg.norm(v, axis=-1, keepdims=True) if unit else v
 
-    def d_spacing(self, hkl) -> np.ndarray:
-        """Interplanar spacing d_hkl in the unit of a, b, c."""
+    def d_spacing(self, hkl: ArrayLike) -> np.ndarray:
+        """Interplanar spacing d_hkl in the unit of a, b, c.
+
+        Parameters
+        ----------
+        hkl : array_like, shape (..., 3) or (..., 4)
+
+        Returns
+        -------
+        ndarray, shape (...)
+
+        Examples
+        --------
+        >>> round(float(Lattice.fcc(a=3.6).d_spacing((1, 1, 1))), 4)
+        2.0785
+        """
         v = self._three(hkl, "plane") @ self.reciprocal_matrix.T
         return 1.0 / np.linalg.norm(v, axis=-1)
 
     def with_setting(self, hex_setting: str) -> "Lattice":
+        """The same cell in another hexagonal Cartesian setting (``"x_a1"`` or ``"x_a1star"``).
+
+        Examples
+        --------
+        >>> Lattice.hcp(c_over_a=1.587).with_setting("x_a1star").hex_setting
+        'x_a1star'
+        """
         return Lattice(self.a, self.b, self.c, self.alpha, self.beta, self.gamma, self.name, self.laue, hex_setting)
 
+    def proper_rotations(self) -> np.ndarray:
+        """Proper rotations of the Laue class in this lattice's Cartesian frame.
+
+        See :func:`tracefit.crystal.symmetry.proper_rotations` (cached per lattice).
+
+        Returns
+        -------
+        ndarray, shape (K, 3, 3)
+            Active rotation matrices, identity first.
+
+        Examples
+        --------
+        >>> Lattice.fcc().proper_rotations().shape
+        (24, 3, 3)
+        """
+        return symmetry_rotations(self)
 
 
-def _hcp(c_over_a: float | None = None, **kw) -> Lattice:
+
+def _check_c_over_a(c_over_a, required: str | None = None) -> float | None:
+    if c_over_a is None:
+        if required:
+            raise TracefitInputError(f"{required} needs its c_over_a ratio (e.g. 0.546 for beta-tin)")
+        return None
+    if isinstance(c_over_a, bool) or not isinstance(c_over_a, (int, float, np.integer, np.floating)) \
+            or not (np.isfinite(c_over_a) and c_over_a > 0):
+        raise TracefitInputError(f"c_over_a must be a positive number, got {c_over_a!r}")
+    return float(c_over_a)
+
+
+def _hcp(c_over_a, a: float, hex_setting: str, stacklevel: int) -> Lattice:
+    c_over_a = _check_c_over_a(c_over_a)
     if c_over_a is None:
         warnings.warn(
             f"no c/a given for hcp: using the ideal {IDEAL_C_OVER_A:.3f}; real metals differ "
             "(Mg 1.624, Ti 1.587, Zn 1.856), and twin and pyramidal traces move with c/a",
-            stacklevel=3,
+            stacklevel=stacklevel,
         )
         c_over_a = IDEAL_C_OVER_A
-    return Lattice(1.0, 1.0, float(c_over_a), 90.0, 90.0, 120.0, name="hcp", **kw)
+    return Lattice(a, a, a * c_over_a, 90.0, 90.0, 120.0, name="hcp", hex_setting=hex_setting)
 
 
-def _tetragonal(c_over_a: float | None = None, **kw) -> Lattice:
-    if c_over_a is None:
-        raise TracefitInputError("a tetragonal lattice needs its c/a ratio (e.g. --c-over-a 0.546 for beta-tin)")
-    return Lattice(1.0, 1.0, float(c_over_a), name="tetragonal", **kw)
-
-
+#: name -> constructor taking ``c_over_a`` (and ``hex_setting`` for hcp); see :func:`lattice_preset`
 PRESETS = {
-    "fcc": lambda c_over_a=None, **kw: Lattice(1.0, 1.0, 1.0, name="fcc", **kw),
-    "bcc": lambda c_over_a=None, **kw: Lattice(1.0, 1.0, 1.0, name="bcc", **kw),
-    "hcp": _hcp,
-    "tetragonal": _tetragonal,
+    "fcc": lambda c_over_a=None: Lattice.fcc(),
+    "bcc": lambda c_over_a=None: Lattice.bcc(),
+    "hcp": lambda c_over_a=None, hex_setting="x_a1": _hcp(c_over_a, 1.0, hex_setting, stacklevel=4),
+    "tetragonal": lambda c_over_a=None: Lattice.tetragonal(c_over_a),
 }
 
 
 def lattice_preset(name: str, c_over_a: float | None = None, hex_setting: str = "x_a1") -> Lattice:
-    """A named lattice: ``fcc``, ``bcc``, ``hcp`` (c/a, default ideal with a warning) or ``tetragonal`` (c/a required)."""
-    key = name.strip().lower()
+    """A named lattice: ``fcc``, ``bcc``, ``hcp`` (c/a, default ideal with a warning) or ``tetragonal`` (c/a required).
+
+    The same cells as :meth:`Lattice.fcc`, :meth:`Lattice.bcc`, :meth:`Lattice.hcp` and
+    :meth:`Lattice.tetragonal`, chosen by name (as text input gives them).
+
+    Parameters
+    ----------
+    name : {"fcc", "bcc", "hcp", "tetragonal"}
+        Case and surrounding spaces are ignored.
+    c_over_a : float, optional
+        Axial ratio (hcp, tetragonal); must be omitted for cubic lattices.
+    hex_setting : {"x_a1", "x_a1star"}
+        Hexagonal Cartesian setting (hcp only).
+
+    Returns
+    -------
+    Lattice
+
+    Raises
+    ------
+    TracefitInputError
+        Unknown name, a c/a for a cubic lattice, a missing or non-positive c/a where needed.
+
+    Examples
+    --------
+    >>> lattice_preset("hcp", 1.587) == Lattice.hcp(c_over_a=1.587)
+    True
+    """
+    key = name.strip().lower() if isinstance(name, str) else None
     if key not in PRESETS:
         raise TracefitInputError(f"unknown lattice {name!r}; choose one of {', '.join(PRESETS)} or give a lattice file")
-    if c_over_a is not None and not (np.isfinite(c_over_a) and c_over_a > 0):
-        raise TracefitInputError(f"c/a must be a positive number, got {c_over_a!r}")
+    _check_c_over_a(c_over_a)
     if key in ("fcc", "bcc") and c_over_a is not None:
-        raise TracefitInputError(f"c/a does not apply to a cubic ({key}) lattice")
+        raise TracefitInputError(f"c_over_a does not apply to a cubic ({key}) lattice")
     kw = {"hex_setting": hex_setting} if key == "hcp" else {}
     return PRESETS[key](c_over_a=c_over_a, **kw)

@@ -36,12 +36,18 @@ descending lexicographic order of the written indices, e.g.
 
 from __future__ import annotations
 
-import math
+from collections.abc import Sequence
+from typing import TYPE_CHECKING
 
 import numpy as np
 
-from tracefit.errors import TracefitInputError
+from tracefit.conventions import miller_bravais_to_miller, miller_to_miller_bravais
 from tracefit.crystal.indices import MillerIndex, check_values, parse_index, to_three
+from tracefit.crystal.rotations import from_axis_angle
+from tracefit.errors import TracefitInputError
+
+if TYPE_CHECKING:  # names used in annotations only
+    from tracefit.crystal.lattice import Lattice
 
 __all__ = [
     "proper_rotations",
@@ -72,12 +78,12 @@ _ORDER = {"432": 24, "23": 12, "622": 12, "6": 6, "32": 6, "3": 3, "422": 8, "4"
 
 
 def _axis_rotation(axis, fold: int) -> np.ndarray:
-    """Active rotation by 360/fold degrees about ``axis`` (Rodrigues)."""
-    k = np.asarray(axis, float)
-    k = k / np.linalg.norm(k)
-    t = 2.0 * math.pi / fold
-    K = np.array([[0, -k[2], k[1]], [k[2], 0, -k[0]], [-k[1], k[0], 0]])
-    R = np.eye(3) + math.sin(t) * K + (1 - math.cos(t)) * (K @ K)
+    """Active rotation by 360/fold degrees about ``axis``.
+
+    The passive matrix of :func:`tracefit.crystal.rotations.from_axis_angle` (the one
+    axis-angle convention) turns coordinates; its transpose turns vectors.
+    """
+    R = from_axis_angle(axis, 360.0 / fold).T
     R[np.abs(R) < 1e-15] = 0.0
     return R
 
@@ -121,7 +127,7 @@ def _unique_axis(lattice) -> int:
     )
 
 
-def proper_rotations(lattice) -> np.ndarray:
+def proper_rotations(lattice: Lattice) -> np.ndarray:
     """Proper rotations of the lattice's Laue class, in its Cartesian crystal frame.
 
     Parameters
@@ -139,6 +145,12 @@ def proper_rotations(lattice) -> np.ndarray:
     TracefitInputError
         If the cell does not have the symmetry its Laue class claims (the rotations would not
         map the lattice onto itself).
+
+    Examples
+    --------
+    >>> from tracefit.crystal import Lattice
+    >>> len(proper_rotations(Lattice.fcc())), len(proper_rotations(Lattice.hcp(c_over_a=1.587)))
+    (24, 12)
     """
     key = ("proper_rotations", lattice.laue, lattice.hex_setting)
     cache = getattr(lattice, "_cache", None)
@@ -177,7 +189,7 @@ def proper_rotations(lattice) -> np.ndarray:
     return rots
 
 
-def index_rotations(lattice, kind: str) -> np.ndarray:
+def index_rotations(lattice: Lattice, kind: str) -> np.ndarray:
     """The proper rotations as integer matrices acting on three-index (hkl) or [uvw].
 
     Parameters
@@ -190,6 +202,17 @@ def index_rotations(lattice, kind: str) -> np.ndarray:
     Returns
     -------
     ndarray of int, shape (N, 3, 3)
+
+    Raises
+    ------
+    TracefitInputError
+        As :func:`proper_rotations`.
+
+    Examples
+    --------
+    >>> from tracefit.crystal import Lattice
+    >>> index_rotations(Lattice.fcc(), "plane").dtype.kind, index_rotations(Lattice.fcc(), "plane").shape
+    ('i', (24, 3, 3))
     """
     key = ("index_rotations", kind, lattice.laue, lattice.hex_setting)
     cache = getattr(lattice, "_cache", None)
@@ -207,8 +230,23 @@ def index_rotations(lattice, kind: str) -> np.ndarray:
     return Mi
 
 
-def canonical_sign(values) -> tuple[int, ...]:
-    """The index with its first non-zero entry made positive (a plane and its negative are one)."""
+def canonical_sign(values: Sequence[int]) -> tuple[int, ...]:
+    """The index with its first non-zero entry made positive (a plane and its negative are one).
+
+    Parameters
+    ----------
+    values : sequence of int
+        Three or four indices.
+
+    Returns
+    -------
+    tuple of int
+
+    Examples
+    --------
+    >>> canonical_sign((0, -1, 1))
+    (0, 1, -1)
+    """
     v = tuple(int(x) for x in values)
     for x in v:
         if x != 0:
@@ -241,38 +279,17 @@ def _as_values(idx, lattice, kind: str) -> tuple[int, ...]:
     return vals
 
 
-def _to_three(v, kind):
-    v = np.asarray(v, dtype=np.int64)
-    if v.shape[-1] == 3:
-        return v
-    if kind == "plane":
-        return v[..., [0, 1, 3]]
-    return np.stack([v[..., 0] - v[..., 2], v[..., 1] - v[..., 2], v[..., 3]], axis=-1)
-
-
-def _to_four(v3, kind):
-    """Three-index integer plane or direction back to four indices (directions: [UVW] -> [uvtw])."""
-    v3 = np.asarray(v3, dtype=np.int64)
-    if kind == "plane":
-        h, k, l = v3[..., 0], v3[..., 1], v3[..., 2]
-        return np.stack([h, k, -(h + k), l], axis=-1)
-    U, V, W = v3[..., 0], v3[..., 1], v3[..., 2]
-    num = np.stack([2 * U - V, 2 * V - U, -(U + V), 3 * W], axis=-1)
-    if np.any(num % 3):  # pragma: no cover - symmetry maps [uvtw] with integer u, v, t onto integers
-        raise RuntimeError("a symmetry variant of a four-index direction is not integral")
-    return num // 3
-
-
 def _variants(lattice, values, kind):
     M = index_rotations(lattice, kind)
-    v3 = _to_three(values, kind)
+    v3 = miller_bravais_to_miller(np.asarray(values, dtype=np.int64), kind)
     out = np.einsum("nij,j->ni", M, v3)
     if len(values) == 4:
-        out = _to_four(out, kind)
+        # symmetry maps a whole [uvtw] onto whole [uvtw]s, so the integer form exists
+        out = miller_to_miller_bravais(out, kind, integer=True)
     return [tuple(int(x) for x in row) for row in out]
 
 
-def plane_variants(lattice, hkl) -> list[tuple[int, ...]]:
+def plane_variants(lattice: Lattice, hkl: Sequence[int] | str | MillerIndex) -> list[tuple[int, ...]]:
     """Distinct planes of the family of ``hkl``, a plane and its negative counted once.
 
     Parameters
@@ -286,13 +303,26 @@ def plane_variants(lattice, hkl) -> list[tuple[int, ...]]:
     list of tuple of int
         Each plane once, first non-zero index positive, sorted in descending lexicographic
         order; same number of indices as ``hkl``.
+
+    Raises
+    ------
+    TracefitInputError
+        Unreadable indices, or four indices on a non-hexagonal lattice.
+
+    Examples
+    --------
+    >>> from tracefit.crystal import Lattice
+    >>> plane_variants(Lattice.fcc(), "{111}")
+    [(1, 1, 1), (1, 1, -1), (1, -1, 1), (1, -1, -1)]
+    >>> len(plane_variants(Lattice.hcp(c_over_a=1.587), (1, 0, -1, 2)))
+    6
     """
     vals = _as_values(hkl, lattice, "plane")
     found = {canonical_sign(v) for v in _variants(lattice, vals, "plane")}
     return sorted(found, reverse=True)
 
 
-def direction_variants(lattice, uvw, signed: bool = True) -> list[tuple[int, ...]]:
+def direction_variants(lattice: Lattice, uvw: Sequence[int] | str | MillerIndex, signed: bool = True) -> list[tuple[int, ...]]:
     """Distinct directions of the family of ``uvw``.
 
     Parameters
@@ -309,6 +339,17 @@ def direction_variants(lattice, uvw, signed: bool = True) -> list[tuple[int, ...
     -------
     list of tuple of int
         Sorted in descending lexicographic order.
+
+    Raises
+    ------
+    TracefitInputError
+        Unreadable indices, or four indices on a non-hexagonal lattice.
+
+    Examples
+    --------
+    >>> from tracefit.crystal import Lattice
+    >>> len(direction_variants(Lattice.fcc(), (1, 1, 0))), len(direction_variants(Lattice.fcc(), (1, 1, 0), signed=False))
+    (12, 6)
     """
     vals = _as_values(uvw, lattice, "direction")
     vs = _variants(lattice, vals, "direction")
@@ -319,8 +360,31 @@ def direction_variants(lattice, uvw, signed: bool = True) -> list[tuple[int, ...
     return sorted(found, reverse=True)
 
 
-def same_family(lattice, a, b, kind: str = "plane") -> bool:
-    """True when ``a`` and ``b`` belong to the same family (up to sign) under the lattice symmetry."""
+def same_family(lattice: Lattice, a: Sequence[int] | str | MillerIndex, b: Sequence[int] | str | MillerIndex, kind: str = "plane") -> bool:
+    """True when ``a`` and ``b`` belong to the same family (up to sign) under the lattice symmetry.
+
+    Parameters
+    ----------
+    lattice : tracefit.crystal.Lattice
+    a, b : sequence of int, str or MillerIndex
+        Two planes (or directions); three and four indices may be mixed on hexagonal lattices.
+    kind : {"plane", "direction"}
+
+    Returns
+    -------
+    bool
+
+    Raises
+    ------
+    TracefitInputError
+        Unreadable indices.
+
+    Examples
+    --------
+    >>> from tracefit.crystal import Lattice
+    >>> same_family(Lattice.fcc(), (1, -1, 1), (1, 1, 1)), same_family(Lattice.fcc(), (1, 1, 0), (1, 1, 1))
+    (True, False)
+    """
     va = _as_values(a, lattice, kind)
     vb = _as_values(b, lattice, kind)
     if len(va) != len(vb):

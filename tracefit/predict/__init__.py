@@ -1,40 +1,23 @@
 """Predictions from geometry alone: trace angles of candidate planes in the image, their
-inclination, Schmid factors and resolved shear under a load.
+inclination and tilt slope (:mod:`~tracefit.predict.traces`), loads (:mod:`~tracefit.predict.loading`)
+and the Schmid factors and resolved shear they give (:mod:`~tracefit.predict.resolved`).
 """
 
-
+from tracefit.predict import loading as _loading
+from tracefit.predict import resolved as _resolved
+from tracefit.predict import traces as _traces
+from tracefit.predict.loading import SENSES, Load, LoadAxis, as_load, parse_load, resolved_drive, system_schmid_factors
+from tracefit.predict.resolved import activation_stress, reported_drive, resolved_shear, schmid_factor, stress_tensor
 from tracefit.predict.traces import (
-    trace_angles,
-    plane_normals_in_image,
+    NEAR_SURFACE_DEG,
     PredictedTrace,
     SystemResult,
     TraceTable,
-    LoadAxis,
+    plane_normals_in_image,
     predict_traces,
     predicted_trace_table,
-    parse_load,
-    schmid_factor,
-    system_schmid_factors,
-    resolved_shear,
-    stress_tensor,
-    activation_stress,
-    NEAR_SURFACE_DEG,
+    tilt_slope,
+    trace_angles,
 )
 
-__all__ = [
-    "trace_angles",
-    "plane_normals_in_image",
-    "PredictedTrace",
-    "SystemResult",
-    "TraceTable",
-    "LoadAxis",
-    "predict_traces",
-    "predicted_trace_table",
-    "parse_load",
-    "schmid_factor",
-    "system_schmid_factors",
-    "resolved_shear",
-    "stress_tensor",
-    "activation_stress",
-    "NEAR_SURFACE_DEG",
-]
+__all__ = [*_traces.__all__, *_loading.__all__, *_resolved.__all__]
