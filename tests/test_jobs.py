@@ -214,7 +214,7 @@ def test_detect_and_match_options_must_be_known_keywords():
 # (tracefit.options): type and range, with the field and its line (common practice, no source).
 @pytest.mark.parametrize("table,words", [
     ('detect = { min_bands = "three" }', ["detect.min_bands", "whole number"]),
-    ("detect = { working_size = 0 }", ["detect.working_size", ">= 64"]),
+    ("detect = { working_size = 0 }", ["detect.working_size", ">= 16"]),
     ("detect = { scales = [] }", ["detect.scales", "at least one"]),
     ("detect = { min_bands = 0 }", ["detect.min_bands", ">= 1"]),
     ("detect = { min_bands = -5 }", ["detect.min_bands", ">= 1"]),

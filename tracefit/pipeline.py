@@ -80,13 +80,13 @@ def resolve_settings(settings: dict | None = None, detect: dict | None = None) -
 
 
 def _as_matrix(orientation) -> np.ndarray:
-    """An orientation matrix g (3, 3) from an Orientation-like object or an array."""
-    if hasattr(orientation, "as_matrix"):
-        orientation = orientation.as_matrix()
-    g = np.asarray(orientation, float)
-    if g.shape != (3, 3) or not np.all(np.isfinite(g)):
+    """One orientation matrix g (3, 3) from an Orientation or an array."""
+    from tracefit.crystal import as_orientation_matrix
+
+    g = as_orientation_matrix(orientation, name="orientation")
+    if g.shape != (3, 3):
         raise TracefitInputError(f"orientation must be one orientation (an Orientation or a 3 x 3 matrix g), "
-                                 f"got shape {g.shape}")
+                                 f"got {g.shape[0]} of them")
     return g
 
 
@@ -446,7 +446,7 @@ def analyse_image(image, lattice, *, orientation=None, labels=None, orientations
     >>> import tracefit as tf
     >>> from tracefit.image import BandFamilySpec, render_micrograph
     >>> img, truth = render_micrograph((256, 256), [BandFamilySpec(angle_deg=73.34, spacing_px=20)], seed=1)
-    >>> res = tf.analyse_image(img, "fcc", orientation=tf.crystal.from_euler([10, 20, 30]), modes=["slip"])
+    >>> res = tf.analyse_image(img, "fcc", orientation=tf.Orientation.from_euler([10, 20, 30]), modes=["slip"])
     >>> fam = res.families[0]
     >>> round(fam.angle_deg, 1), fam.best.plane
     (73.3, (1, -1, 1))
