@@ -27,7 +27,6 @@ import sys
 import time
 import traceback
 import warnings
-from concurrent.futures import ProcessPoolExecutor, as_completed
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Callable
@@ -38,7 +37,9 @@ import tracefit
 from tracefit.atomic import write_text
 from tracefit.errors import TracefitInputError
 from tracefit.results import CSV_COLUMNS, family_rows, jsonable
+from tracefit.survey.guard import SurveyLock, TermAsInterrupt, prepare_output, remove_stale_temporaries
 from tracefit.survey.jobs import ImageJob, Job
+from tracefit.survey.pool import available_cores, default_workers, run_in_pool
 
 __all__ = [
     "SurveyResult",
@@ -298,24 +299,13 @@ def process_image(im: ImageJob, out_dir, analyse: Callable[[ImageJob], ImageAnal
     return rec
 
 
-def _init_worker() -> None:
-    # Ctrl-C reaches the whole process group: the parent stops the survey and ends the workers, so
-    # a worker must not die on its own mid-image with a traceback of its own.
-    import signal
-
-    signal.signal(signal.SIGINT, signal.SIG_IGN)
-    # One process per core already: keep OpenCV from starting a thread per core in each worker.
-    try:
-        import cv2
-
-        cv2.setNumThreads(1)
-    except Exception:  # pragma: no cover - OpenCV missing or without threading control
-        pass
-
-
-def _worker(args):
-    im, out_dir, analyse, figures = args
-    return process_image(im, out_dir, analyse, figures)
+def _failed_record(im: ImageJob, out_dir: Path, error: str) -> dict:
+    """The record of an image whose worker process died, written like any other."""
+    rec = {"name": im.name, "file": str(im.file), "line": im.line, "status": "failed", "error": error,
+           "fingerprint": image_fingerprint(im), "settings": jsonable(im.settings()),
+           "tracefit_version": tracefit.__version__}
+    write_text(Path(out_dir) / "images" / f"{im.name}.json", json.dumps(rec, indent=1))
+    return rec
 
 
 # --------------------------------------------------------------------------- the survey
@@ -409,44 +399,6 @@ def software_versions() -> dict:
     return out
 
 
-def available_cores() -> int:
-    """Cores this process may run on (the affinity mask where the system has one)."""
-    try:
-        return max(1, len(os.sched_getaffinity(0)))
-    except (AttributeError, OSError):
-        return os.cpu_count() or 1
-
-
-def default_workers(memory_per_worker_gb: float = 1.2) -> int:
-    """Workers to start by default: one per core, fewer when memory would not hold them.
-
-    A worker on a 64-megapixel image holds about 1 GB (benchmarks/detect.py measures it), so
-    the count is also capped at the available memory over ``memory_per_worker_gb``.
-    """
-    cores = available_cores()
-    try:
-        avail = os.sysconf("SC_AVPHYS_PAGES") * os.sysconf("SC_PAGE_SIZE") / 1e9
-    except (ValueError, OSError, AttributeError):  # pragma: no cover - no sysconf
-        return cores
-    return max(1, min(cores, int(avail // memory_per_worker_gb)))
-
-
-def _mp_context():
-    # Workers come from a fresh server process ("forkserver"), not from a fork of this
-    # possibly multi-threaded process (BLAS, OpenCV and GUI threads do not survive a fork
-    # reliably); where forkserver does not exist (Windows, macOS default) use spawn.
-    import multiprocessing as mp
-
-    methods = mp.get_all_start_methods()
-    if "forkserver" not in methods:
-        return mp.get_context("spawn")
-    ctx = mp.get_context("forkserver")
-    # the server imports the heavy modules once; each worker forked from it starts warm
-    ctx.set_forkserver_preload(["tracefit.survey.runner", "tracefit.pipeline", "tracefit.image", "tracefit.identify",
-                                "tracefit.viz.plots", "matplotlib.figure", "matplotlib.backends.backend_agg"])
-    return ctx
-
-
 def _previous(out_dir: Path, im: ImageJob, figures: bool) -> dict | None:
     p = out_dir / "images" / f"{im.name}.json"
     try:
@@ -462,131 +414,6 @@ def _previous(out_dir: Path, im: ImageJob, figures: bool) -> dict | None:
     if not all(n and (out_dir / "images" / n).is_file() for n in names):
         return None
     return rec
-
-
-def _run_in_pool(todo, out_dir, analyse, figures, n_workers, records, bar) -> None:
-    """Analyse ``todo`` in worker processes, recording each image as it finishes.
-
-    On an interrupt (Ctrl-C, or SIGTERM turned into one) no new image starts, the workers and
-    their server process are ended at once (their images are abandoned, not half-written: every
-    file is written atomically) and the interrupt goes on to the caller.
-    """
-    pool = ProcessPoolExecutor(max_workers=n_workers, mp_context=_mp_context(), initializer=_init_worker)
-    try:
-        futs = {pool.submit(_worker, (im, out_dir, analyse, figures)): im for im in todo}
-        for fut in as_completed(futs):
-            im = futs[fut]
-            try:
-                rec = fut.result()
-            except Exception as exc:  # the worker process itself died
-                rec = {"name": im.name, "file": str(im.file), "line": im.line, "status": "failed",
-                       "error": f"worker process failed: {type(exc).__name__}: {exc}",
-                       "fingerprint": image_fingerprint(im), "settings": jsonable(im.settings()),
-                       "tracefit_version": tracefit.__version__}
-                write_text(out_dir / "images" / f"{im.name}.json", json.dumps(rec, indent=1))
-            records[im.name] = rec
-            bar.step(im.name, rec["status"] if rec["status"] == "ok" else "FAILED")
-    except BaseException:
-        _stop_pool(pool)
-        raise
-    pool.shutdown(wait=True)
-
-
-def _stop_pool(pool) -> None:
-    """End a process pool now: cancel what has not started, terminate the workers and the fork server."""
-    procs = list((getattr(pool, "_processes", None) or {}).values())
-    pool.shutdown(wait=False, cancel_futures=True)
-    for proc in procs:
-        try:
-            proc.terminate()
-        except Exception:  # pragma: no cover - already gone
-            pass
-    for proc in procs:
-        proc.join(timeout=3)
-        if proc.is_alive():  # pragma: no cover - a worker stuck in native code
-            proc.kill()
-    try:  # the fork server outlives the pool otherwise (its workers are gone, it is not needed)
-        from multiprocessing import forkserver
-
-        forkserver._forkserver._stop()
-    except Exception:  # pragma: no cover - private API moved, or spawn was used
-        pass
-
-
-class _SurveyLock:
-    """``OUT/.survey.lock`` holding the owner's pid: one survey per output folder at a time.
-
-    A lock whose process no longer runs (a crash, a kill -9) is stale and taken over.
-    """
-
-    def __init__(self, out_dir: Path):
-        self.path = out_dir / ".survey.lock"
-
-    def __enter__(self):
-        try:
-            owner = int(self.path.read_text().strip() or 0)
-        except (OSError, ValueError):
-            owner = 0
-        if owner and owner != os.getpid() and _process_alive(owner):
-            raise TracefitInputError(f"another survey (process {owner}) is writing to {self.path.parent}; wait for it "
-                                     f"to finish or choose another output folder")
-        write_text(self.path, f"{os.getpid()}\n")
-        return self
-
-    def __exit__(self, *exc):
-        self.path.unlink(missing_ok=True)
-        return False
-
-
-def _process_alive(pid: int) -> bool:
-    try:
-        os.kill(pid, 0)
-    except ProcessLookupError:
-        return False
-    except PermissionError:  # someone else's process with that pid
-        return True
-    return True
-
-
-def _remove_stale_temporaries(out_dir: Path) -> None:
-    """Temporary files an earlier run left when it was killed mid-write (``.NAME.XXXX.tmp``)."""
-    for folder in (out_dir, out_dir / "images"):
-        for tmp in folder.glob(".*.tmp"):
-            tmp.unlink(missing_ok=True)
-
-
-def _prepare_output(out_dir: Path) -> None:
-    if out_dir.exists() and not out_dir.is_dir():
-        raise TracefitInputError(f"the output folder {str(out_dir)!r} is an existing file; give a folder")
-    try:
-        (out_dir / "images").mkdir(parents=True, exist_ok=True)
-    except OSError as exc:
-        raise TracefitInputError(f"cannot create the output folder {str(out_dir)!r}: {exc.strerror or exc}") from None
-    if not os.access(out_dir, os.W_OK) or not os.access(out_dir / "images", os.W_OK):
-        raise TracefitInputError(f"the output folder {str(out_dir)!r} is not writable")
-
-
-class _TermAsInterrupt:
-    """While running, SIGTERM (``kill PID``) stops the survey as Ctrl-C does: cleanly, resumable."""
-
-    def __enter__(self):
-        import signal
-        import threading
-
-        self.old = None
-        if threading.current_thread() is threading.main_thread():
-            def _raise(signum, frame):
-                raise KeyboardInterrupt
-
-            self.old = signal.signal(signal.SIGTERM, _raise)
-        return self
-
-    def __exit__(self, *exc):
-        if self.old is not None:
-            import signal
-
-            signal.signal(signal.SIGTERM, self.old)
-        return False
 
 
 def run_survey(job: Job, out_dir, workers: int | None = None, resume: bool = False, progress: bool = True,
@@ -629,10 +456,14 @@ def run_survey(job: Job, out_dir, workers: int | None = None, resume: bool = Fal
     n_workers = int(workers) if workers else default_workers()
     if n_workers < 1:
         raise TracefitInputError(f"workers must be at least 1, got {workers}")
-    _prepare_output(out_dir)
-    with _SurveyLock(out_dir), _TermAsInterrupt():
-        _remove_stale_temporaries(out_dir)
-        return _survey(job, out_dir, n_workers, resume, progress, analyse, report, figures)
+    prepare_output(out_dir)
+    with SurveyLock(out_dir), TermAsInterrupt():
+        remove_stale_temporaries(out_dir)
+        try:
+            return _survey(job, out_dir, n_workers, resume, progress, analyse, report, figures)
+        except BaseException:  # a worker ended mid-write leaves its temporary file: the lock is still ours
+            remove_stale_temporaries(out_dir)
+            raise
 
 
 def _survey(job, out_dir, n_workers, resume, progress, analyse, report, figures) -> SurveyResult:
@@ -657,7 +488,7 @@ def _survey(job, out_dir, n_workers, resume, progress, analyse, report, figures)
             records[im.name] = rec
             bar.step(im.name, rec["status"] if rec["status"] == "ok" else "FAILED")
     elif todo:
-        _run_in_pool(todo, out_dir, analyse, figures, n_workers, records, bar)
+        run_in_pool(process_image, _failed_record, todo, out_dir, analyse, figures, n_workers, records, bar)
     ordered = [records[im.name] for im in job.images]
     result = SurveyResult(job=job, out_dir=out_dir, records=ordered, reused=reused)
     try:

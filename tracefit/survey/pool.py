@@ -1,0 +1,116 @@
+"""Worker processes of a survey: how many, how they start, and how they stop.
+
+Workers come from a fresh server process (``forkserver``; ``spawn`` where that does not exist),
+never from a fork of the possibly multi-threaded caller. A stop (Ctrl-C, SIGTERM) ends them at
+once; every output file is written atomically, so nothing is left half-written.
+"""
+
+from __future__ import annotations
+
+import os
+from concurrent.futures import ProcessPoolExecutor, as_completed
+
+__all__ = ["available_cores", "default_workers", "run_in_pool"]
+
+
+def available_cores() -> int:
+    """Cores this process may run on (the affinity mask where the system has one)."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except (AttributeError, OSError):
+        return os.cpu_count() or 1
+
+
+def default_workers(memory_per_worker_gb: float = 1.2) -> int:
+    """Workers to start by default: one per core, fewer when memory would not hold them.
+
+    A worker on a 64-megapixel image holds about 1 GB (benchmarks/detect.py measures it), so
+    the count is also capped at the available memory over ``memory_per_worker_gb``.
+    """
+    cores = available_cores()
+    try:
+        avail = os.sysconf("SC_AVPHYS_PAGES") * os.sysconf("SC_PAGE_SIZE") / 1e9
+    except (ValueError, OSError, AttributeError):  # pragma: no cover - no sysconf
+        return cores
+    return max(1, min(cores, int(avail // memory_per_worker_gb)))
+
+
+def _mp_context():
+    # Workers come from a fresh server process ("forkserver"), not from a fork of this
+    # possibly multi-threaded process (BLAS, OpenCV and GUI threads do not survive a fork
+    # reliably); where forkserver does not exist (Windows, macOS default) use spawn.
+    import multiprocessing as mp
+
+    methods = mp.get_all_start_methods()
+    if "forkserver" not in methods:
+        return mp.get_context("spawn")
+    ctx = mp.get_context("forkserver")
+    # the server imports the heavy modules once; each worker forked from it starts warm
+    ctx.set_forkserver_preload(["tracefit.survey.runner", "tracefit.pipeline", "tracefit.image", "tracefit.identify",
+                                "tracefit.viz.plots", "matplotlib.figure", "matplotlib.backends.backend_agg"])
+    return ctx
+
+
+def _init_worker() -> None:
+    # Ctrl-C reaches the whole process group: the parent stops the survey and ends the workers, so
+    # a worker must not die on its own mid-image with a traceback of its own.
+    import signal
+
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    # One process per core already: keep OpenCV from starting a thread per core in each worker.
+    try:
+        import cv2
+
+        cv2.setNumThreads(1)
+    except Exception:  # pragma: no cover - OpenCV missing or without threading control
+        pass
+
+
+def _worker(args):
+    process, *rest = args
+    return process(*rest)
+
+
+def run_in_pool(process, failed_record, todo, out_dir, analyse, figures, n_workers, records, bar) -> None:
+    """Analyse ``todo`` in worker processes, recording each image as it finishes.
+
+    On an interrupt (Ctrl-C, or SIGTERM turned into one) no new image starts, the workers and
+    their server process are ended at once (their images are abandoned, not half-written: every
+    file is written atomically) and the interrupt goes on to the caller.
+    """
+    pool = ProcessPoolExecutor(max_workers=n_workers, mp_context=_mp_context(), initializer=_init_worker)
+    try:
+        futs = {pool.submit(_worker, (process, im, out_dir, analyse, figures)): im for im in todo}
+        for fut in as_completed(futs):
+            im = futs[fut]
+            try:
+                rec = fut.result()
+            except Exception as exc:  # the worker process itself died
+                rec = failed_record(im, out_dir, f"worker process failed: {type(exc).__name__}: {exc}")
+            records[im.name] = rec
+            bar.step(im.name, rec["status"] if rec["status"] == "ok" else "FAILED")
+    except BaseException:
+        _stop_pool(pool)
+        raise
+    pool.shutdown(wait=True)
+
+
+def _stop_pool(pool) -> None:
+    """End a process pool now: cancel what has not started, terminate the workers and the fork server."""
+    procs = list((getattr(pool, "_processes", None) or {}).values())
+    pool.shutdown(wait=False, cancel_futures=True)
+    for proc in procs:
+        try:
+            proc.terminate()
+        except Exception:  # pragma: no cover - already gone
+            pass
+    for proc in procs:
+        proc.join(timeout=3)
+        if proc.is_alive():  # pragma: no cover - a worker stuck in native code
+            proc.kill()
+    try:  # the fork server outlives the pool otherwise (its workers are gone, it is not needed)
+        from multiprocessing import forkserver
+
+        forkserver._forkserver._stop()
+    except Exception:  # pragma: no cover - private API moved, or spawn was used
+        pass
