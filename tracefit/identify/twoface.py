@@ -22,11 +22,16 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from typing import Any, Iterable, Sequence
 
 import numpy as np
 from scipy.spatial.transform import Rotation
 
+from tracefit.conventions import FrameSettings, data_to_image_matrix, fold_axial
 from tracefit.errors import TracefitInputError
+from tracefit.identify.candidates import CandidateSet, as_candidate_set
+from tracefit.identify.checks import check_fraction, check_sigma, orientation_matrix
+from tracefit.identify.likelihood import DEFAULT_P_NONE, candidate_log_prior, logsumexp, none_log_density
 
 __all__ = ["FaceGeometry", "TwoFacePlane", "PlaneMatch", "plane_from_two_traces", "index_two_face",
            "interplanar_pairs", "trace_on_face"]
@@ -169,34 +174,93 @@ def plane_from_two_traces(face1_deg: float, face2_deg: float, geom: FaceGeometry
     return n, sigma
 
 
-def index_two_face(pairs, geom: FaceGeometry | None = None, lattice=None, g=None, systems=None,
-                   frame=None, orientation_sigma_deg: float = 1.0, p_none: float = 0.05,
+def _index_normal(tp: TwoFacePlane, cands: CandidateSet, g: np.ndarray, frame, orientation_sigma_deg: float,
+                  p_none: float, threshold: float) -> None:
+    """Compare a two-face normal with every candidate plane; fills ``tp`` in place."""
+    n_data = data_to_image_matrix(frame).T @ tp.normal_sample
+    nc = g @ n_data
+    tp.normal_crystal = nc
+    ang = np.degrees(np.arccos(np.clip(np.abs(cands.normals @ nc), 0.0, 1.0)))
+    s2 = math.radians(math.hypot(tp.sigma_deg, orientation_sigma_deg)) ** 2
+    # Gaussian on the sphere (small angles): exp(-a^2 / 2 s^2) / (2 pi s^2) per steradian
+    log_lik = -np.radians(ang) ** 2 / (2 * s2) - math.log(2 * math.pi * s2)
+    log_w = np.append(candidate_log_prior(cands.plane_ids, p_none) + log_lik, none_log_density(p_none, 2 * math.pi))
+    post_all = np.exp(log_w - logsumexp(log_w))
+    post = post_all[:-1]
+    tp.p_none = float(post_all[-1])
+    tp.unexplained = tp.p_none >= 0.5
+    for c in np.argsort(-post):
+        if post[c] < threshold and tp.matches:
+            break
+        tp.matches.append(PlaneMatch(cands.planes[c], cands.families[c], cands.modes[c], float(ang[c]), float(post[c])))
+    if tp.unexplained:
+        tp.notes.append("no candidate plane lies near this normal: check the face geometry, the orientation and the modes")
+
+
+def index_two_face(pairs: Iterable[Sequence[float]], geom: FaceGeometry | None = None, lattice: Any = None,
+                   g: Any = None, systems: Any = None, frame: FrameSettings | None = None,
+                   orientation_sigma_deg: float = 1.0, p_none: float = DEFAULT_P_NONE,
                    sigma_deg: float = 0.5, threshold: float = 0.01) -> list[TwoFacePlane]:
     """Plane normals from trace pairs, indexed against the candidate planes of a known orientation.
 
     Parameters
     ----------
     pairs : sequence of (face1_deg, face2_deg) or (face1_deg, face2_deg, sigma_deg)
-    geom : FaceGeometry
-    lattice, g, systems : optional
-        With an orientation ``g`` (sample -> crystal) and candidate ``systems``, each normal is
-        compared with every candidate plane: likelihood exp(-a^2 / 2 s^2) / (2 pi s^2) over the
-        angle a between normals (s^2 = sigma_normal^2 + sigma_orient^2), "none of these" uniform
-        1 / (2 pi) on the half sphere with prior ``p_none``.
+        Trace angles of one plane on the two faces, each in its face's image frame, degrees.
+    geom : FaceGeometry, optional
+        Geometry of face 2 (default: block edge along x, dihedral 90 deg).
+    lattice : tracefit.crystal.Lattice, optional
+        Not needed by the indexing; kept for a uniform call.
+    g : ndarray (3, 3) or orientation with ``as_matrix()``, optional
+        Orientation, v_crystal = g v_sample.
+    systems : iterable of DeformationSystem or CandidateSet, optional
+        With ``g``, each normal is compared with every candidate plane: likelihood
+        exp(-a^2 / 2 s^2) / (2 pi s^2) over the angle a between normals
+        (s^2 = sigma_normal^2 + sigma_orient^2), "none of these" uniform 1 / (2 pi) on the
+        half sphere with prior ``p_none``.
     frame : FrameSettings, optional
         Data -> image frame of face 1 (the normal is turned back into the data frame).
+    orientation_sigma_deg : float
+        Orientation uncertainty, degrees (>= 0).
+    p_none : float
+        Prior of "none of these", in [0, 1).
+    sigma_deg : float
+        Angle sigma of pairs given without one, degrees.
+    threshold : float
+        Candidates below this posterior are not listed (the best one always is).
 
     Returns
     -------
     list of TwoFacePlane
-    """
-    from tracefit.identify.matching import candidate_set
+        One per pair, in input order.
 
+    Raises
+    ------
+    TracefitInputError
+        For a malformed pair, traces along the common edge, or a bad argument.
+
+    Examples
+    --------
+    The (1 1 1) plane of an fcc crystal at Euler (0, 0, 0) on a block (face 2 the front face):
+
+    >>> from tracefit.crystal import catalogue, lattice_preset
+    >>> a1, a2 = trace_on_face(np.ones(3) / np.sqrt(3))
+    >>> round(a1, 1), round(a2, 1)
+    (135.0, 135.0)
+    >>> fcc = lattice_preset("fcc")
+    >>> tp = index_two_face([(a1, a2)], lattice=fcc, g=np.eye(3), systems=catalogue(fcc, ["slip"]))[0]
+    >>> tp.matches[0].plane, round(tp.matches[0].probability, 3), tp.unexplained
+    ((1, 1, 1), 1.0, False)
+    """
     geom = geom or FaceGeometry()
-    out = []
+    check_sigma(orientation_sigma_deg, "orientation_sigma_deg")
+    check_sigma(sigma_deg, "sigma_deg")
+    check_fraction(p_none, "p_none")
     cands = None
     if g is not None and systems is not None:
-        cands = systems if hasattr(systems, "plane_ids") else candidate_set(systems)
+        g = orientation_matrix(g, "g")
+        cands = as_candidate_set(systems)
+    out = []
     for p in pairs:
         p = tuple(p)
         if len(p) not in (2, 3):
@@ -204,33 +268,9 @@ def index_two_face(pairs, geom: FaceGeometry | None = None, lattice=None, g=None
         s_in = float(p[2]) if len(p) == 3 else sigma_deg
         n, sig = plane_from_two_traces(float(p[0]), float(p[1]), geom, s_in, s_in)
         incl = math.degrees(math.acos(min(1.0, abs(n[2]))))
-        tp = TwoFacePlane(float(p[0]) % 180.0, float(p[1]) % 180.0, n, sig, incl)
+        tp = TwoFacePlane(fold_axial(float(p[0])), fold_axial(float(p[1])), n, sig, incl)
         if cands is not None:
-            from tracefit.conventions import data_to_image_matrix
-
-            n_data = data_to_image_matrix(frame).T @ n
-            nc = np.asarray(g, float) @ n_data
-            tp.normal_crystal = nc
-            cosang = np.clip(np.abs(cands.normals @ nc), 0.0, 1.0)
-            ang = np.degrees(np.arccos(cosang))
-            s2 = math.radians(math.hypot(sig, orientation_sigma_deg)) ** 2
-            lik = np.exp(-np.radians(ang) ** 2 / (2 * s2)) / (2 * math.pi * s2)
-            npl = int(cands.plane_ids.max()) + 1
-            counts = np.bincount(cands.plane_ids, minlength=npl)
-            prior = (1 - p_none) / npl / counts[cands.plane_ids]
-            w = prior * lik
-            wn = p_none / (2 * math.pi)
-            Z = w.sum() + wn
-            post = w / Z
-            tp.p_none = float(wn / Z)
-            tp.unexplained = tp.p_none >= 0.5
-            order = np.argsort(-post)
-            for c in order:
-                if post[c] < threshold and tp.matches:
-                    break
-                tp.matches.append(PlaneMatch(cands.planes[c], cands.families[c], cands.modes[c], float(ang[c]), float(post[c])))
-            if tp.unexplained:
-                tp.notes.append("no candidate plane lies near this normal: check the face geometry, the orientation and the modes")
+            _index_normal(tp, cands, g, frame, orientation_sigma_deg, p_none, threshold)
         out.append(tp)
     return out
 
