@@ -250,3 +250,11 @@ def test_line_continuation_across_a_grain_boundary():
     assert line_continuation(img, labels, 1, [band]) == 0.0
     assert line_continuation(img, labels, 1, [short]) is None
     assert line_continuation(img, labels, 1, [scratch, band]) == 0.5
+
+
+def test_unknown_artefact_option_is_named():
+    from tracefit.errors import TracefitInputError
+
+    obs = [ObservedFamily(30.0, 0.3, grain=1)]
+    with pytest.raises(TracefitInputError, match="artefact_options.*p_mpa"):
+        identify_grains(obs, FCC, {1: np.eye(3)}, CAT, artefact_options={"p_mpa": 0.5})

@@ -18,7 +18,14 @@ from typing import Any, Iterable, Mapping, Sequence
 import numpy as np
 
 from tracefit.conventions import FrameSettings
-from tracefit.identify.artefacts import CrystalContext, artefact_family_weights, find_artefact_directions
+from tracefit.errors import TracefitInputError
+from tracefit.identify.artefacts import (
+    DEFAULT_LINE_SIGMA_DEG,
+    DEFAULT_MIN_WITNESSES,
+    CrystalContext,
+    artefact_family_weights,
+    find_artefact_directions,
+)
 from tracefit.identify.candidates import CandidateSet, as_candidate_set, predict_candidates
 from tracefit.identify.checks import check_matcher_options, orientation_matrix, orientation_table
 from tracefit.identify.joint import joint_marginals
@@ -44,11 +51,12 @@ __all__ = [
 
 DEFAULT_REPORT_THRESHOLD = 0.01  # candidates below this posterior are not listed
 DEFAULT_AMBIGUITY_RATIO = 0.1  # a second plane with >= 10 % of the best's probability -> ambiguous
+_ARTEFACT_OPTIONS = ("p_map", "line_sigma_deg", "min_witnesses", "max_directions")
 
 
 def grain_log_weights(obs: Sequence[ObservedFamily], cands: CandidateSet, g: np.ndarray, ang: np.ndarray,
                       incl: np.ndarray, slope: np.ndarray, load: Any, osig: float, fsig: float, p_none: float,
-                      schmid_weight: float):
+                      schmid_weight: float) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, list]:
     """Log (prior x likelihood) of every family of one grain, before the joint assignment.
 
     Parameters
@@ -211,6 +219,7 @@ def identify_families(
     >>> r.best.plane, round(r.best.probability, 3), r.unexplained
     ((1, 1, 1), 0.995, False)
     """
+    # Over 80 lines only through its numpydoc docstring (parameters, example); the code is 13 lines.
     obs = as_observed(observed, grain)
     check_matcher_options(p_none=p_none, orientation_sigma_deg=orientation_sigma_deg, frame_sigma_deg=frame_sigma_deg,
                           schmid_weight=schmid_weight, report_threshold=report_threshold, ambiguity_ratio=ambiguity_ratio)
@@ -293,6 +302,7 @@ def identify_grains(
     >>> r[0].best.plane, r[1].unexplained, r[1].unexplained_reason
     ((1, 1, 1), True, 'grain has no orientation')
     """
+    # Over 80 lines only through its numpydoc docstring (parameters, example); the code is 33 lines.
     obs = as_observed(observed, None)
     check_matcher_options(p_none=p_none, orientation_sigma_deg=orientation_sigma_deg, frame_sigma_deg=frame_sigma_deg,
                           schmid_weight=schmid_weight, report_threshold=report_threshold, ambiguity_ratio=ambiguity_ratio,
@@ -300,6 +310,9 @@ def identify_grains(
     orientations = orientation_table(orientations)
     cands = as_candidate_set(systems, modes, families)
     load = resolve_load(load, lattice)
+    unknown = sorted(set(artefact_options or {}) - set(_ARTEFACT_OPTIONS))
+    if unknown:
+        raise TracefitInputError(f"artefact_options: unknown option {unknown[0]!r}; expected some of {', '.join(_ARTEFACT_OPTIONS)}")
     by_grain: dict = {}
     for i, o in enumerate(obs):
         by_grain.setdefault(o.grain, []).append(i)
@@ -338,7 +351,7 @@ def _no_orientation(o: ObservedFamily, grain: Any) -> FamilyIdentification:
 def _map_artefacts(obs, by_grain, keys, pre, cands, G, ang, slope, osigs, fsig, options):
     """Run the map-level artefact scan; per grain ``(mass, log_w, angle)`` for :func:`_assign_grain`."""
     opts = dict(options or {})
-    if len(keys) < int(opts.get("min_witnesses", 3)):
+    if len(keys) < int(opts.get("min_witnesses", DEFAULT_MIN_WITNESSES)):
         return {}
     idx = [i for k in keys for i in by_grain[k]]
     lg = np.concatenate([logsumexp(pre[k][0], axis=1).reshape(-1) for k in keys])
@@ -355,7 +368,7 @@ def _map_artefacts(obs, by_grain, keys, pre, cands, G, ang, slope, osigs, fsig, 
     dirs = find_artefact_directions(a, s, gr, lg, ctx, **opts)
     if not dirs:
         return {}
-    lsig = float(opts.get("line_sigma_deg", 0.2))
+    lsig = float(opts.get("line_sigma_deg", DEFAULT_LINE_SIGMA_DEG))
     mass, law, which = artefact_family_weights(dirs, a, s, lsig)
     out, pos = {}, 0
     for k in keys:

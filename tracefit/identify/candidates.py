@@ -179,7 +179,8 @@ def as_candidate_set(systems: Any, modes: Iterable[str] | None = None, families:
     return systems if isinstance(systems, CandidateSet) else candidate_set(systems, modes, families)
 
 
-def predict_candidates(cands: CandidateSet, g: np.ndarray, frame: FrameSettings | None = None):
+def predict_candidates(cands: CandidateSet, g: np.ndarray,
+                       frame: FrameSettings | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Predicted image-frame trace angles, inclinations and tilt slopes of every candidate.
 
     Parameters

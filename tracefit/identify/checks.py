@@ -186,6 +186,10 @@ def check_matcher_options(*, p_none: float, orientation_sigma_deg: float, frame_
     grain_sigma_deg : mapping grain -> float, optional
         Each finite, >= 0.
 
+    Returns
+    -------
+    None
+
     Raises
     ------
     TracefitInputError

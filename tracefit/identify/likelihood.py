@@ -68,7 +68,7 @@ _MIN_SIN = math.sin(math.radians(0.2))
 _MIN_SIGMA_DEG = 1e-3
 
 
-def logsumexp(a: ArrayLike, axis: int | None = None, keepdims: bool = False):
+def logsumexp(a: ArrayLike, axis: int | None = None, keepdims: bool = False) -> float | np.ndarray:
     """log(sum(exp(a))) along an axis, without overflow.
 
     Plain numpy: scipy's version is several times slower on the small arrays of the matcher.
@@ -283,7 +283,8 @@ def none_log_density(p_none: float, support: float = 180.0) -> float:
 
 
 def family_log_weights(obs_ang: ArrayLike, obs_sig: ArrayLike, pred_ang: ArrayLike, pred_sig: ArrayLike,
-                       log_prior: ArrayLike, p_none: float, frame_sigma: float = 0.0, slope: ArrayLike = 1.0):
+                       log_prior: ArrayLike, p_none: float, frame_sigma: float = 0.0,
+                       slope: ArrayLike = 1.0) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Log (prior x likelihood) of every family (F) and candidate (P), plus "none" last.
 
     Parameters
@@ -327,7 +328,7 @@ def family_log_weights(obs_ang: ArrayLike, obs_sig: ArrayLike, pred_ang: ArrayLi
     return np.concatenate([ll, none], axis=1), resid, sig
 
 
-def mixture_log_evidence(log_w: ArrayLike, log_none: float, axis: int = -1):
+def mixture_log_evidence(log_w: ArrayLike, log_none: float, axis: int = -1) -> float | np.ndarray:
     """Log evidence of families that each are one of the candidates or "none": the robust sum.
 
     log(p_none / 180 + sum_c prior_c f(r_c; s_c)), families independent (no exclusion rule):

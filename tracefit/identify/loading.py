@@ -113,7 +113,7 @@ def _drive_values(load: Any, g: np.ndarray, normals: np.ndarray, dirs: np.ndarra
     return np.where(twin, load.sign * m, np.abs(m))
 
 
-def rank_systems(load: Any, cands: CandidateSet, g: np.ndarray):
+def rank_systems(load: Any, cands: CandidateSet, g: np.ndarray) -> tuple[list[list[SystemChoice]], list[float | None]]:
     """Per candidate: its systems ranked under the load, and the best drive (m or tau, >= 0).
 
     Parameters

@@ -90,6 +90,11 @@ def observed_from_detection(result: Any, grain: Any = None, min_sigma_deg: float
     list of ObservedFamily
         In detection order, ``source="detected"``, labelled ``F1``, ``F2``, ...
 
+    Raises
+    ------
+    TracefitInputError
+        For a family with a non-finite angle or sigma.
+
     Examples
     --------
     >>> from types import SimpleNamespace

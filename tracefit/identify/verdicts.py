@@ -14,7 +14,8 @@ from tracefit.identify.observed import ObservedFamily
 from tracefit.identify.results import Candidate, FamilyIdentification, format_plane
 from tracefit.predict import NEAR_SURFACE_DEG
 
-__all__ = ["GrainPosterior", "family_verdict", "flag_all_unexplained", "separation_hints"]
+# GrainPosterior, family_verdict and flag_all_unexplained serve tracefit.identify.assign only.
+__all__ = ["separation_hints"]
 
 
 @dataclass
@@ -257,6 +258,7 @@ def separation_hints(cl: list[Candidate], load: Any, g: np.ndarray | None = None
     Returns
     -------
     list of str
+        One sentence per criterion (empty when there is nothing to separate).
 
     Examples
     --------
