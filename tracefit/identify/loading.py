@@ -7,6 +7,7 @@ in sample coordinates, (3, 3) or Voigt (6,) (resolved shear). Slip counts in eit
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
@@ -89,16 +90,35 @@ def resolve_load(load: Any, lattice: Any = None) -> Any:
     return arr
 
 
-def _flat_systems(cands: CandidateSet):
-    """All systems of the candidate groups in one list, with their group index (cached on ``cands``)."""
+@dataclass(frozen=True)
+class _FlatSystems:
+    """All systems of a candidate set in one list, with what ranking needs (built once per set)."""
+
+    normals: np.ndarray  # (S, 3) unit plane normals, crystal frame
+    dirs: np.ndarray  # (S, 3) unit shear directions, crystal frame
+    twin: np.ndarray  # (S,) bool, the system's candidate is a twin
+    dir_idx: list  # (S) direction indices as int tuples
+    names: list  # (S) catalogue names or None
+    members: list  # (P) indices of each candidate's systems
+
+
+def _flat_systems(cands: CandidateSet) -> _FlatSystems:
+    """The flattened systems of ``cands`` (cached on it: ranking runs once per grain)."""
     if getattr(cands, "_flat", None) is None:
         flat, grp = [], []
         for k, ss in enumerate(cands.systems):
             flat.extend(ss)
             grp.extend([k] * len(ss))
-        normals = np.array([s.normal for s in flat], float)
-        dirs = np.array([s.dir_unit for s in flat], float)
-        cands._flat = (flat, np.array(grp), normals, dirs)
+        grp = np.array(grp)
+        twin_g = np.array([m == "twin" for m in cands.modes])
+        cands._flat = _FlatSystems(
+            normals=np.array([s.normal for s in flat], float),
+            dirs=np.array([s.dir_unit for s in flat], float),
+            twin=twin_g[grp],
+            dir_idx=[tuple(int(round(x)) for x in s.direction) for s in flat],
+            names=[getattr(s, "name", None) for s in flat],
+            members=[np.flatnonzero(grp == k) for k in range(len(cands))],
+        )
     return cands._flat
 
 
@@ -143,25 +163,22 @@ def rank_systems(load: Any, cands: CandidateSet, g: np.ndarray) -> tuple[list[li
     >>> round(drive[0], 3), systems[0][0].direction
     (0.408, (1, 0, -1))
     """
-    flat, grp, normals, dirs = _flat_systems(cands)
-    twin_g = np.array([m == "twin" for m in cands.modes])
-    dir_idx = [tuple(int(round(x)) for x in s.direction) for s in flat]
-    names = [getattr(s, "name", None) for s in flat]
-    vals = None if load is None else _drive_values(load, g, normals, dirs, twin_g[grp])
+    fs = _flat_systems(cands)
+    vals = None if load is None else _drive_values(load, g, fs.normals, fs.dirs, fs.twin)
     stress = is_stress(load)
     out_sys, best_drive = [], []
-    for k in range(len(cands)):
-        idx = np.flatnonzero(grp == k)
+    for k, idx in enumerate(fs.members):
         if vals is None:
-            out_sys.append([SystemChoice(dir_idx[i], None, None, names[i], True) for i in idx])
+            out_sys.append([SystemChoice(fs.dir_idx[i], None, None, fs.names[i], True) for i in idx])
             best_drive.append(None)
             continue
         order = idx[np.argsort(-vals[idx], kind="stable")]
+        twin = cands.modes[k] == "twin"
         choices = []
         for i in order:
             x = float(vals[i])
-            active = bool(x > 0) if twin_g[k] else True
-            choices.append(SystemChoice(dir_idx[i], None if stress else x, x if stress else None, names[i], active))
+            active = bool(x > 0) if twin else True
+            choices.append(SystemChoice(fs.dir_idx[i], None if stress else x, x if stress else None, fs.names[i], active))
         out_sys.append(choices)
         best_drive.append(max(float(vals[order[0]]), 0.0) if choices[0].active_sense else 0.0)
     return out_sys, best_drive
