@@ -24,9 +24,9 @@ from scipy.spatial.transform import Rotation
 
 from tracefit.identify import find_artefact_directions
 from tracefit.crystal import lattice_preset
-from tracefit.identify.matching import (
+from tracefit.identify import (
     ObservedFamily,
-    _grain_weights,
+    grain_log_weights,
     axial_logpdf,
     candidate_set,
     identifications_to_json,
@@ -148,7 +148,7 @@ def test_subgrains_with_one_continuing_trace_are_one_witness():
     l0 = []
     for o in obs:
         ang, incl, slope = predict_candidates(cs, ori[o.grain])
-        l0.append(logsumexp(_grain_weights([o], cs, ori[o.grain], ang[0], incl[0], slope[0], None, 0.5, 0.5, 0.05, 0.0)[0]))
+        l0.append(logsumexp(grain_log_weights([o], cs, ori[o.grain], ang[0], incl[0], slope[0], None, 0.5, 0.5, 0.05, 0.0)[0]))
     a = np.array([o.angle_deg for o in obs])
     unguarded = find_artefact_directions(a, np.full(len(a), 0.3), [o.grain for o in obs], np.array(l0), context=None)
     assert unguarded and unguarded[0].p_exists > 0.5
@@ -250,3 +250,11 @@ def test_line_continuation_across_a_grain_boundary():
     assert line_continuation(img, labels, 1, [band]) == 0.0
     assert line_continuation(img, labels, 1, [short]) is None
     assert line_continuation(img, labels, 1, [scratch, band]) == 0.5
+
+
+def test_unknown_artefact_option_is_named():
+    from tracefit.errors import TracefitInputError
+
+    obs = [ObservedFamily(30.0, 0.3, grain=1)]
+    with pytest.raises(TracefitInputError, match="artefact_options.*p_mpa"):
+        identify_grains(obs, FCC, {1: np.eye(3)}, CAT, artefact_options={"p_mpa": 0.5})

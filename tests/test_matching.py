@@ -5,6 +5,7 @@ Predictions for the checks are made independently of tracefit.predict.traces: sc
 ../shared/conventions.md) and the trace formula atan2(n_y, n_x) + 90 deg.
 """
 
+import itertools
 import math
 
 import numpy as np
@@ -323,3 +324,168 @@ def test_a_wrong_orientation_is_named_when_every_family_of_a_grain_fails():
     assert all(any("orientation" in n and "grain 5" in n for n in r.notes) for r in res)
     right = identify_families(obs, FCC, from_euler(bunge), cat, grain=5)
     assert not any("are unexplained" in n for r in right for n in r.notes)
+
+
+# ------------------------------------------------------------------ p_none = 0 (issue 16, item 2)
+def _brute_force_marginals(logw, plane_ids):
+    """Reference: every assignment with no plane taken twice, enumerated directly and summed with
+    scipy.special.logsumexp (no pruning, no shortcut); "none" is the last column."""
+    from scipy.special import logsumexp as sp_lse
+
+    F, K = logw.shape
+    states, weights = [], []
+    for a in itertools.product(range(K), repeat=F):
+        taken = [plane_ids[c] for c in a if c < K - 1]
+        if len(taken) != len(set(taken)):
+            continue
+        states.append(a)
+        weights.append(sum(logw[f, c] for f, c in enumerate(a)))
+    w = np.exp(np.array(weights) - sp_lse(weights))
+    out = np.zeros((F, K))
+    for a, p in zip(states, w):
+        for f, c in enumerate(a):
+            out[f, c] += p
+    return out
+
+
+def _grain_logw(angles, bunge, p_none, cat):
+    from tracefit.identify import candidate_set, grain_log_weights, predict_candidates
+
+    cs = candidate_set(cat)
+    g = from_euler(bunge)
+    ang, incl, slope = predict_candidates(cs, g)
+    obs = [ObservedFamily(a, 0.2) for a in angles]
+    return grain_log_weights(obs, cs, g, ang[0], incl[0], slope[0], None, 1.0, 0.5, p_none, 0.0)[0], cs.plane_ids
+
+
+def test_p_none_zero_gives_valid_probabilities_when_two_families_want_one_plane():
+    # Regression (issue 16, item 2): p_none = 0 with two families near the (111) trace gave NaN.
+    bunge = (0.0, 30.0, 0.0)
+    a = scipy_trace(FCC, bunge, (1, 1, 1))[0]
+    cat = catalogue(FCC, ("slip",))
+    res = identify_families([ObservedFamily(a, 0.2), ObservedFamily(a + 0.3, 0.2)], FCC, from_euler(bunge), cat, p_none=0.0)
+    for r in res:
+        assert r.p_none == 0.0 and not r.unexplained
+        assert r.best is not None and all(math.isfinite(c.probability) for c in r.candidates)
+        assert sum(c.probability for c in r.candidates) == pytest.approx(1.0, abs=0.02)  # listed ones hold nearly all
+    assert not same_plane(res[0].best.plane, res[1].best.plane)
+    assert any(same_plane(r.best.plane, (1, 1, 1)) for r in res)
+    # the joint marginals equal a direct enumeration of all assignments
+    from tracefit.identify import joint_marginals
+
+    logw, pids = _grain_logw([a, a + 0.3], bunge, 0.0, cat)
+    assert not np.isfinite(logw[:, -1]).any()
+    assert joint_marginals(logw, pids) == pytest.approx(_brute_force_marginals(logw, pids), abs=1e-9)
+
+
+def test_p_none_zero_is_the_limit_of_a_vanishing_p_none():
+    # Five families but only four {111} planes: one family must stay unexplained. p_none = 0 is the
+    # limit p_none -> 0+, so it must agree with a tiny p_none (1e-300: the 'none' weight is still far
+    # below every plane a family can take, and far above an impossible assignment).
+    bunge = (0.0, 30.0, 0.0)
+    cat = catalogue(FCC, ("slip",))
+    traces = [scipy_trace(FCC, bunge, p)[0] for p in [(1, 1, 1), (1, 1, -1), (1, -1, 1), (1, -1, -1)]]
+    obs = [ObservedFamily(a, 0.2) for a in traces + [traces[0] + 0.2]]
+    zero = identify_families(obs, FCC, from_euler(bunge), cat, p_none=0.0)
+    tiny = identify_families(obs, FCC, from_euler(bunge), cat, p_none=1e-300)
+    for z, t in zip(zero, tiny):
+        assert z.p_none == pytest.approx(t.p_none, abs=1e-9)
+        assert [c.probability for c in z.candidates] == pytest.approx([c.probability for c in t.candidates], abs=1e-9)
+    # exactly one family is 'none' in every surviving assignment
+    assert sum(r.p_none for r in zero) == pytest.approx(1.0, abs=1e-9)
+    for r in zero:
+        assert r.unexplained == (r.p_none >= 0.5)
+        assert r.unexplained or (r.best is not None and r.best.probability > 0.4)
+
+
+def test_p_none_zero_in_the_frame_fit_and_the_orientation_search():
+    # log(0) used to stop these two: the 'none' weight is now -inf, not an error.
+    from tracefit.identify import fit_frame, search_orientations
+
+    cat = catalogue(FCC, ("slip",))
+    grains = {1: (10.0, 30.0, 0.0), 2: (70.0, 40.0, 20.0), 3: (130.0, 25.0, 50.0)}
+    obs = [ObservedFamily(scipy_trace(FCC, b, p)[0], 0.3, grain=k) for k, b in grains.items() for p in [(1, 1, 1), (1, -1, 1)]]
+    fit = fit_frame(obs, FCC, {k: from_euler(b) for k, b in grains.items()}, cat, p_none=0.0, n_bootstrap=0)
+    assert abs(fit.rotation_deg) < 0.5 and math.isfinite(fit.rotation_sigma_deg)
+    res = search_orientations([o.angle_deg for o in obs[:2]], FCC, cat, p_none=0.0, n_samples=2000, n_seeds=5)
+    assert res.candidates and all(math.isfinite(c.log_evidence) for c in res.candidates)
+
+
+# ------------------------------------------------------------------ arguments at the door
+def test_load_given_as_text_is_read_with_parse_load():
+    bunge = (23.0, 41.0, 67.0)
+    obs = [ObservedFamily(scipy_trace(FCC, bunge, (1, 1, 1))[0], 0.3)]
+    cat = catalogue(FCC, ("slip",))
+    as_text = identify_families(obs, FCC, from_euler(bunge), cat, load="y")[0]
+    parsed = identify_families(obs, FCC, from_euler(bunge), cat, load=parse_load("y", FCC))[0]
+    assert as_text.best.best_system.schmid_factor == parsed.best.best_system.schmid_factor
+    assert as_text.best.best_system.schmid_factor is not None
+
+
+@pytest.mark.parametrize("kwargs,word", [
+    ({"load": "sideways"}, "load"),
+    ({"load": np.ones(4)}, "load"),
+    ({"load": np.array([[1.0, 2.0, 0.0], [0.0, 1.0, 0.0], [0.0, 0.0, 1.0]])}, "load"),
+    ({"orientation_sigma_deg": -1.0}, "orientation_sigma_deg"),
+    ({"frame_sigma_deg": float("nan")}, "frame_sigma_deg"),
+    ({"p_none": 1.0}, "p_none"),
+    ({"p_none": -0.1}, "p_none"),
+    ({"schmid_weight": -2.0}, "schmid_weight"),
+    ({"report_threshold": 2.0}, "report_threshold"),
+])
+def test_bad_arguments_name_the_parameter(kwargs, word):
+    with pytest.raises(TracefitInputError, match=word):
+        identify_families([10.0], FCC, np.eye(3), catalogue(FCC), **kwargs)
+
+
+@pytest.mark.parametrize("g,word", [(np.eye(4), "g must be one 3x3"), (2.0 * np.eye(3), "not a rotation"),
+                                    (np.diag([1.0, 1.0, -1.0]), "not a rotation"), ("0,0,0", "g")])
+def test_bad_orientation_is_rejected(g, word):
+    with pytest.raises(TracefitInputError, match=word):
+        identify_families([10.0], FCC, g, catalogue(FCC))
+
+
+def test_empty_systems_are_rejected():
+    with pytest.raises(TracefitInputError, match="systems is empty"):
+        identify_families([10.0], FCC, np.eye(3), [])
+
+
+class _Orientation:
+    """Stands in for an orientation type: only as_matrix(), returning g or a batch of one g."""
+
+    def __init__(self, g, batch=False):
+        self._g = np.asarray(g)[None] if batch else np.asarray(g)
+
+    def as_matrix(self):
+        return self._g
+
+
+@pytest.mark.parametrize("batch", [False, True])
+def test_orientation_objects_with_as_matrix_are_accepted(batch):
+    bunge = (23.0, 41.0, 67.0)
+    obs = _observed_for(bunge, [(1, 1, 1), (1, -1, 1)])
+    cat = catalogue(FCC, ("slip",))
+    ref = identify_families(obs, FCC, from_euler(bunge), cat)
+    got = identify_families(obs, FCC, _Orientation(from_euler(bunge), batch), cat)
+    assert [r.best.probability for r in got] == [r.best.probability for r in ref]
+    grains = [ObservedFamily(o.angle_deg, o.angle_sigma_deg, grain=7) for o in obs]
+    by_grain = identify_grains(grains, FCC, {7: _Orientation(from_euler(bunge), batch)}, cat)
+    assert [r.best.probability for r in by_grain] == [r.best.probability for r in ref]
+
+
+def test_every_name_exported_before_the_split_still_imports():
+    import tracefit.identify as pkg
+
+    before = (
+        "ObservedFamily SystemChoice Candidate FamilyIdentification identify_families identify_grains "
+        "observed_from_detection predicted_trace_sigma axial_logpdf CandidateSet candidate_set DEFAULT_P_NONE "
+        "DEFAULT_REPORT_THRESHOLD DEFAULT_AMBIGUITY_RATIO identifications_to_json ArtefactDirection CrystalContext "
+        "find_artefact_directions artefact_family_weights DEFAULT_P_MAP DEFAULT_LINE_SIGMA_DEG DEFAULT_MIN_WITNESSES "
+        "DEFAULT_MAX_DIRECTIONS FrameFit fit_frame OrientationCandidate OrientationSearchResult search_orientations "
+        "misorientation_deg FaceGeometry TwoFacePlane PlaneMatch plane_from_two_traces index_two_face interplanar_pairs "
+        "trace_on_face MEASURED_CONVENTION DEFAULT_MEASURED_SIGMA_DEG DEFAULT_CLICK_PX DEFAULT_CRACK_K_SIGMA CSV_COLUMNS "
+        "parse_angle_option read_measured_csv is_crack PlaneConsistency CrackIdentification plane_consistency "
+        "identify_observed"
+    ).split()
+    assert [n for n in before if n not in pkg.__all__ or not hasattr(pkg, n)] == []
+    assert len(set(pkg.__all__)) == len(pkg.__all__)

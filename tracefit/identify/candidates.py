@@ -1,0 +1,236 @@
+"""Candidate planes: catalogue systems grouped by (plane, mode), and their predicted traces.
+
+A candidate is one plane variant of one mode (``(1 1 1)`` slip, ``(1 1 1)`` twin, ...),
+with all the catalogue systems on it. :func:`predict_candidates` gives each candidate's
+image-frame trace angle, its inclination to the surface and the stage-tilt slope for one
+or many orientations at once; it is the only place of this package that predicts traces.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any, Iterable
+
+import numpy as np
+
+from tracefit.conventions import FrameSettings, apparent_angle, axial_difference
+from tracefit.errors import TracefitInputError
+
+__all__ = ["plane_key", "CandidateSet", "candidate_set", "as_candidate_set", "predict_candidates"]
+
+# Step of the central difference that gives the stage-tilt slope d(apparent)/d(true), degrees.
+_SLOPE_STEP_DEG = 0.05
+
+
+def plane_key(plane: Iterable) -> tuple:
+    """Sign-free key of a plane: (h k l) and (-h -k -l) are the same plane.
+
+    Parameters
+    ----------
+    plane : sequence of int
+        Miller (or Miller-Bravais) indices.
+
+    Returns
+    -------
+    tuple of int
+        The indices with the first non-zero one positive.
+
+    Examples
+    --------
+    >>> plane_key((-1, 1, -1))
+    (1, -1, 1)
+    """
+    p = tuple(int(round(x)) for x in plane)
+    for x in p:
+        if x != 0:
+            return p if x > 0 else tuple(-y for y in p)
+    return p
+
+
+@dataclass
+class CandidateSet:
+    """Candidate (plane, mode) groups of a catalogue, ready for fast per-grain prediction.
+
+    Build it with :func:`candidate_set`; all attributes have one entry per candidate (P).
+
+    Attributes
+    ----------
+    planes : list of tuple, length P
+        Plane indices as given by the first system of each group.
+    families : list of str, length P
+        Plane family names (``"{111}"``, ...).
+    modes : list of str, length P
+        ``"slip"`` or ``"twin"``.
+    normals : ndarray, shape (P, 3)
+        Unit plane normals, Cartesian crystal frame.
+    plane_ids : ndarray of int, shape (P,)
+        Index of the distinct (sign-free) plane; slip and twin on one plane share it.
+    systems : list of list, length P
+        The catalogue systems of each group.
+
+    Examples
+    --------
+    >>> from tracefit.crystal import catalogue, lattice_preset
+    >>> cs = candidate_set(catalogue(lattice_preset("fcc")))
+    >>> len(cs), int(cs.plane_ids.max()) + 1, cs.planes[0], sorted(set(cs.modes))
+    (8, 4, (1, 1, 1), ['slip', 'twin'])
+    """
+
+    planes: list
+    families: list
+    modes: list
+    normals: np.ndarray
+    plane_ids: np.ndarray
+    systems: list
+    _flat: object = field(default=None, repr=False, compare=False)
+
+    def __len__(self) -> int:
+        return len(self.planes)
+
+
+def candidate_set(systems: Iterable, modes: Iterable[str] | None = None, families: Iterable[str] | None = None) -> CandidateSet:
+    """Group catalogue systems by (plane, mode).
+
+    Parameters
+    ----------
+    systems : iterable of DeformationSystem
+        Each with ``mode``, ``family``, ``plane``, ``normal`` (unit, crystal frame) and
+        ``dir_unit`` / ``direction`` (e.g. :func:`tracefit.crystal.catalogue`).
+    modes : iterable of str, optional
+        Keep only these modes (``["slip"]``, ``["twin"]``).
+    families : iterable of str, optional
+        Keep only these plane families (``["{111}"]``; spaces ignored).
+
+    Returns
+    -------
+    CandidateSet
+
+    Raises
+    ------
+    TracefitInputError
+        When ``systems`` is empty or no system is left after the filters.
+
+    Examples
+    --------
+    >>> from tracefit.crystal import catalogue, lattice_preset
+    >>> cs = candidate_set(catalogue(lattice_preset("fcc")), modes=["slip"])
+    >>> len(cs), sorted(set(cs.modes)), len(cs.systems[0])
+    (4, ['slip'], 3)
+    """
+    systems = list(systems)
+    if not systems:
+        raise TracefitInputError("systems is empty: give the candidate systems, e.g. tracefit.crystal.catalogue(lattice)")
+    modes = None if modes is None else {m.strip().lower() for m in modes}
+    fam_filter = None if families is None else {f.replace(" ", "") for f in families}
+    groups: dict = {}
+    for s in systems:
+        mode = str(s.mode).lower()
+        if modes is not None and mode not in modes:
+            continue
+        if fam_filter is not None and str(s.family).replace(" ", "") not in fam_filter:
+            continue
+        groups.setdefault((plane_key(s.plane), mode), []).append(s)  # dicts keep first-seen order
+    if not groups:
+        raise TracefitInputError(
+            "no candidate systems left after filtering by modes and families; "
+            "check modes (slip, twin) and the family names of this lattice"
+        )
+    plane_index: dict = {}
+    planes, fams, mds, normals, pids = [], [], [], [], []
+    for (pk, mode), ss in groups.items():
+        s0 = ss[0]
+        plane_index.setdefault(pk, len(plane_index))
+        planes.append(tuple(int(round(x)) for x in s0.plane))
+        fams.append(str(s0.family))
+        mds.append(mode)
+        n = np.asarray(s0.normal, float)
+        normals.append(n / np.linalg.norm(n))
+        pids.append(plane_index[pk])
+    return CandidateSet(planes, fams, mds, np.array(normals), np.array(pids), list(groups.values()))
+
+
+def as_candidate_set(systems: Any, modes: Iterable[str] | None = None, families: Iterable[str] | None = None) -> CandidateSet:
+    """``systems`` itself when it is a :class:`CandidateSet`, else :func:`candidate_set` of it.
+
+    Parameters
+    ----------
+    systems : CandidateSet or iterable of DeformationSystem
+        A ready candidate set is passed through untouched.
+    modes, families : optional
+        Filters, as :func:`candidate_set` (ignored for a CandidateSet).
+
+    Returns
+    -------
+    CandidateSet
+        The given set, or a new one grouped from the systems.
+
+    Raises
+    ------
+    TracefitInputError
+        As :func:`candidate_set` (no systems, or none left after the filters).
+
+    Examples
+    --------
+    >>> from tracefit.crystal import catalogue, lattice_preset
+    >>> cs = as_candidate_set(catalogue(lattice_preset("fcc")), ["slip"])
+    >>> as_candidate_set(cs) is cs
+    True
+    """
+    return systems if isinstance(systems, CandidateSet) else candidate_set(systems, modes, families)
+
+
+def predict_candidates(cands: CandidateSet, g: np.ndarray,
+                       frame: FrameSettings | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Predicted image-frame trace angles, inclinations and tilt slopes of every candidate.
+
+    Parameters
+    ----------
+    cands : CandidateSet
+        P candidates.
+    g : ndarray, shape (3, 3) or (N, 3, 3)
+        Orientation(s), v_crystal = g v_sample.
+    frame : FrameSettings, optional
+        Orientation-data frame -> image (rotation, flips, stage tilt); identity by default.
+
+    Returns
+    -------
+    angle_deg : ndarray, shape (N, P)
+        Apparent trace angle (after frame and tilt), axial degrees in [0, 180); N = 1 for one g.
+    inclination_deg : ndarray, shape (N, P)
+        Angle between plane and surface, degrees (90 = upright).
+    slope : ndarray, shape (N, P)
+        d(apparent)/d(true) of the stage tilt (1 without tilt).
+
+    Raises
+    ------
+    TracefitInputError
+        When ``g`` is not (3, 3) or (N, 3, 3).
+
+    Examples
+    --------
+    The (111) trace of an fcc crystal at Euler (0, 30, 0):
+
+    >>> from tracefit.crystal import catalogue, from_euler, lattice_preset
+    >>> cs = candidate_set(catalogue(lattice_preset("fcc")), ["slip"])
+    >>> ang, incl, slope = predict_candidates(cs, from_euler((0, 30, 0)))
+    >>> cs.planes[0], round(float(ang[0, 0]), 2), round(float(incl[0, 0]), 1), float(slope[0, 0])
+    ((1, 1, 1), 110.1, 37.9, 1.0)
+    """
+    from tracefit.predict import plane_normals_in_image, trace_angles
+
+    g = np.asarray(g, float)
+    G = g[None] if g.ndim == 2 else g
+    fr = frame or FrameSettings()
+    n_img = plane_normals_in_image(G, cands.normals, fr)  # (N, P, 3)
+    true_ang, incl = trace_angles(n_img)
+    true_ang = np.asarray(true_ang, float).reshape(n_img.shape[:2])
+    incl = np.asarray(incl, float).reshape(n_img.shape[:2])
+    if float(fr.tilt_deg) != 0.0:
+        app = np.asarray(apparent_angle(true_ang, fr), float)
+        h = _SLOPE_STEP_DEG
+        d = axial_difference(apparent_angle(true_ang + h, fr), apparent_angle(true_ang - h, fr)) / (2 * h)
+        slope = np.asarray(d, float)
+    else:
+        app = true_ang
+        slope = np.ones_like(true_ang)
+    return app, incl, slope

@@ -1,0 +1,205 @@
+"""Joint assignment of the families of one grain: no two families on one plane.
+
+Two band families of one grain cannot both be the trace of the same plane (they would be
+parallel), so the probabilities of a grain's families are the exact marginals over all
+assignments in which no two families take the same plane (slip and twin on one plane count
+as one plane); "none of these" (and a surface artefact, folded into the same column) may be
+taken by any number of families.
+
+Everything runs in log space. With ``p_none = 0`` the "none" column is -inf; when the
+exclusion rule then leaves no assignment (more families than planes, or families pinned to
+one plane) the answer is the limit p_none -> 0+: the assignments with the fewest families
+on "none" carry all the weight, so probabilities stay defined.
+"""
+
+from __future__ import annotations
+
+import itertools
+
+import numpy as np
+from numpy.typing import ArrayLike
+
+from tracefit.identify.likelihood import logsumexp
+
+__all__ = ["joint_marginals", "plane_log_weights"]
+
+# Planes more than e^-14 below a family's best hypothesis cannot change any marginal
+# noticeably; at most this many planes per family enter the exact enumeration (speed).
+_PRUNE_LOG = 14.0
+_MAX_PLANES_PER_FAMILY = 12
+MAX_STATES = 3_000_000
+
+
+def plane_log_weights(logw: ArrayLike, plane_ids: ArrayLike) -> np.ndarray:
+    """Log weights of the distinct planes: each plane's candidates summed, "none" kept last.
+
+    Parameters
+    ----------
+    logw : array_like, shape (F, P + 1)
+        Log weights of the candidates, "none" last
+        (:func:`tracefit.identify.likelihood.family_log_weights`).
+    plane_ids : array_like of int, shape (P,)
+        Distinct-plane index of every candidate.
+
+    Returns
+    -------
+    ndarray, shape (F, n_planes + 1)
+        log sum over each plane's candidates of exp(logw); the last column is "none".
+
+    Examples
+    --------
+    >>> print(np.round(np.exp(plane_log_weights(np.log([[0.2, 0.3, 0.5]]), [0, 0])), 3))
+    [[0.5 0.5]]
+    """
+    logw = np.asarray(logw, float)
+    ids = np.asarray(plane_ids, int)
+    F, P = logw.shape[0], logw.shape[1] - 1
+    npl = int(ids.max()) + 1 if P else 0
+    pmax = np.full((F, npl), -np.inf)
+    np.maximum.at(pmax, (slice(None), ids), logw[:, :P])
+    shift = np.where(np.isfinite(pmax), pmax, 0.0)
+    onehot = np.zeros((P, npl))
+    onehot[np.arange(P), ids] = 1.0
+    psum = np.exp(logw[:, :P] - shift[:, ids]) @ onehot
+    with np.errstate(divide="ignore"):
+        return np.concatenate([np.log(psum) + shift, logw[:, P:]], axis=1)
+
+
+def joint_marginals(logw: ArrayLike, plane_ids: ArrayLike, allow_shared: bool = False,
+                    max_states: int = MAX_STATES) -> np.ndarray:
+    """Posterior marginals of each family's assignment under the no-shared-plane rule.
+
+    Parameters
+    ----------
+    logw : array_like, shape (F, P + 1)
+        Log weights from :func:`tracefit.identify.likelihood.family_log_weights` (last
+        column "none"; -inf there when p_none = 0).
+    plane_ids : array_like of int, shape (P,)
+        Distinct-plane index of every candidate (slip and twin on one plane share it).
+    allow_shared : bool
+        Drop the rule (families independent).
+    max_states : int
+        Above this many joint states the exact enumeration gives way to a greedy
+        approximation (best joint assignment fixed, each family's rivals' planes removed).
+
+    Returns
+    -------
+    ndarray, shape (F, P + 1)
+        Probabilities; each row sums to 1.
+
+    Examples
+    --------
+    Two families that both fit plane 0 best: the joint rule sends the worse fit elsewhere.
+
+    >>> lw = np.log([[0.90, 0.09, 0.01], [0.60, 0.39, 0.01]])
+    >>> print(np.round(joint_marginals(lw, [0, 1]), 3))
+    [[0.847 0.129 0.024]
+     [0.141 0.835 0.024]]
+    """
+    logw = np.asarray(logw, float)
+    ids = np.asarray(plane_ids, int)
+    F, K = logw.shape
+    indep = np.exp(logw - logsumexp(logw, axis=1, keepdims=True))
+    if allow_shared or F < 2:
+        return indep
+    P = K - 1
+    npl = int(ids.max()) + 1 if P else 0
+    plane_lw = plane_log_weights(logw, ids)
+    keep = _planes_to_enumerate(plane_lw, F, npl)
+    if (len(keep) + 1) ** F > max_states:
+        return _greedy_marginals(indep, plane_lw, ids)
+    sub = np.concatenate([plane_lw[:, keep], plane_lw[:, npl:npl + 1]], axis=1)  # (F, Q+1)
+    Q = len(keep)
+    marg = _enumerated_marginals(sub, F, Q)
+    marg_plane = np.zeros((F, npl + 1))
+    marg_plane[:, keep] = marg[:, :Q]
+    marg_plane[:, npl] = marg[:, Q]
+    # Split each plane's marginal among its candidates as in the independent weights.
+    out = np.zeros_like(indep)
+    with np.errstate(invalid="ignore"):
+        within = np.nan_to_num(np.exp(logw[:, :P] - plane_lw[:, ids]), nan=0.0)
+    out[:, :P] = within * marg_plane[:, ids]
+    out[:, P] = marg_plane[:, npl]
+    return out / out.sum(axis=1, keepdims=True)
+
+
+def _planes_to_enumerate(plane_lw: np.ndarray, F: int, npl: int) -> np.ndarray:
+    """Planes that matter for any family: its best ones within e^-14 of its best hypothesis.
+
+    A family without a "none" weight (p_none = 0) keeps at least min(F, n_planes) planes, so
+    that an assignment of every family to its own plane survives the pruning whenever one
+    exists.
+    """
+    row_max = plane_lw.max(axis=1, keepdims=True)
+    rel = plane_lw[:, :npl] >= row_max - _PRUNE_LOG
+    picks = []
+    for f in range(F):
+        k = min(_MAX_PLANES_PER_FAMILY, int(rel[f].sum()))
+        if not np.isfinite(plane_lw[f, npl]):
+            k = max(k, min(F, npl))
+        picks.append(np.argsort(-plane_lw[f, :npl])[:k])
+    return np.unique(np.concatenate(picks))
+
+
+def _enumerated_marginals(sub: np.ndarray, F: int, Q: int) -> np.ndarray:
+    """Exact marginals over all (Q + 1)^F assignments; column Q is "none" (shareable)."""
+    grids = np.meshgrid(*[np.arange(Q + 1)] * F, indexing="ij")
+    total = np.zeros(grids[0].shape)
+    for f in range(F):
+        total = total + sub[f][grids[f]]
+    valid = np.ones(total.shape, bool)
+    for a, b in itertools.combinations(range(F), 2):
+        valid &= ~((grids[a] == grids[b]) & (grids[a] < Q))
+    total = np.where(valid, total, -np.inf)
+    if not np.isfinite(total).any():
+        total = _fewest_forced_none(sub, grids, valid, Q)
+    pj = np.exp(total - logsumexp(total))
+    marg = np.zeros((F, Q + 1))
+    for f in range(F):
+        marg[f] = np.bincount(grids[f].ravel(), weights=pj.ravel(), minlength=Q + 1)
+    return marg
+
+
+def _fewest_forced_none(sub: np.ndarray, grids: list, valid: np.ndarray, Q: int) -> np.ndarray:
+    """Log weights of the limit p_none -> 0+ when no assignment has a finite weight.
+
+    Families whose "none" weight is zero (-inf) are put on "none" at weight 1 and counted;
+    only the assignments with the fewest such families keep their weight (each further one
+    costs a factor p_none -> 0).
+    """
+    forced = ~np.isfinite(sub[:, Q])
+    s = sub.copy()
+    s[forced, Q] = 0.0
+    total = np.zeros(grids[0].shape)
+    n_forced = np.zeros(grids[0].shape, int)
+    for f in range(len(s)):
+        total = total + s[f][grids[f]]
+        if forced[f]:
+            n_forced += grids[f] == Q
+    ok = valid & np.isfinite(total)
+    if not ok.any():
+        return np.where(valid, total, -np.inf)
+    return np.where(ok & (n_forced == n_forced[ok].min()), total, -np.inf)
+
+
+def _greedy_marginals(indep: np.ndarray, plane_lw: np.ndarray, plane_ids: np.ndarray) -> np.ndarray:
+    """Too many families for exact enumeration: fix the best joint assignment (Hungarian)
+    and remove each family's rivals' assigned planes from its own distribution."""
+    from scipy.optimize import linear_sum_assignment
+
+    F = plane_lw.shape[0]
+    npl = plane_lw.shape[1] - 1
+    cost = np.full((F, npl + F), 1e9)
+    cost[:, :npl] = -np.where(np.isfinite(plane_lw[:, :npl]), plane_lw[:, :npl], -1e9)
+    none = plane_lw[:, npl]
+    cost[np.arange(F), npl + np.arange(F)] = np.where(np.isfinite(none), -none, 1e9)
+    rows, cols = linear_sum_assignment(cost)
+    assigned = {int(r): int(c) for r, c in zip(rows, cols)}
+    out = indep.copy()
+    for f in range(F):
+        for f2, c in assigned.items():
+            if f2 != f and c < npl:
+                out[f, np.flatnonzero(plane_ids == c)] = 0.0
+    empty = out.sum(axis=1) <= 0.0
+    out[empty, -1] = 1.0  # every plane of this family is taken and p_none = 0: the p_none -> 0+ limit
+    return out / out.sum(axis=1, keepdims=True)

@@ -1,0 +1,210 @@
+"""The load on a grain: which system on each candidate plane it drives, and how hard.
+
+A load is a :class:`tracefit.predict.LoadAxis` (uniaxial; Schmid factors) or a stress tensor
+in sample coordinates, (3, 3) or Voigt (6,) (resolved shear). Slip counts in either sense
+(|m|); a twin only in its twinning sense (m > 0 in the load's sense).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from tracefit.errors import TracefitInputError
+from tracefit.identify.candidates import CandidateSet
+from tracefit.identify.results import SystemChoice
+
+__all__ = ["resolve_load", "is_stress", "rank_systems", "prior_drive"]
+
+
+def is_stress(load: Any) -> bool:
+    """True when ``load`` is a stress tensor (not None and not a uniaxial load axis).
+
+    Parameters
+    ----------
+    load : LoadAxis, array_like or None
+
+    Returns
+    -------
+    bool
+
+    Examples
+    --------
+    >>> from tracefit.predict import parse_load
+    >>> is_stress(parse_load("x")), is_stress(np.eye(3)), is_stress(None)
+    (False, True, False)
+    """
+    return load is not None and not hasattr(load, "in_crystal")
+
+
+def resolve_load(load: Any, lattice: Any = None) -> Any:
+    """A load ready for the matcher, from any of the forms the library accepts.
+
+    Parameters
+    ----------
+    load : None, str, LoadAxis or array_like
+        None (no load); text for :func:`tracefit.predict.parse_load` (``"x"``, ``"-y"``,
+        ``"1,0,0"``, ``"[110]"``; tension); a :class:`tracefit.predict.LoadAxis` (anything with
+        ``in_crystal``); or a stress tensor in sample coordinates, shape (3, 3) or Voigt (6,).
+    lattice : Lattice, optional
+        Needed to read a crystal-direction load such as ``"[110]"``.
+
+    Returns
+    -------
+    None, LoadAxis or ndarray
+        The load axis, or the stress as a float array of its given shape.
+
+    Raises
+    ------
+    TracefitInputError
+        Naming ``load`` when it cannot be read.
+
+    Examples
+    --------
+    >>> resolve_load("y").label, resolve_load(None)
+    ('y', None)
+    >>> resolve_load([1, 0, 0, 0, 0, 0]).shape
+    (6,)
+    """
+    from tracefit.predict import parse_load, stress_tensor
+
+    if load is None or hasattr(load, "in_crystal"):
+        return load
+    if isinstance(load, str):
+        return parse_load(load, lattice)
+    try:
+        arr = np.asarray(load, float)
+    except (TypeError, ValueError):
+        arr = None
+    if arr is None or arr.shape not in ((3, 3), (6,)):
+        raise TracefitInputError(
+            f"load must be a load axis (text such as 'x' or '[110]', or tracefit.predict.parse_load) or a stress "
+            f"tensor of shape (3, 3) or Voigt (6,), got {load!r}"
+        )
+    try:
+        stress_tensor(arr)
+    except TracefitInputError as e:
+        raise TracefitInputError(f"load: {e}") from None
+    return arr
+
+
+@dataclass(frozen=True)
+class _FlatSystems:
+    """All systems of a candidate set in one list, with what ranking needs (built once per set)."""
+
+    normals: np.ndarray  # (S, 3) unit plane normals, crystal frame
+    dirs: np.ndarray  # (S, 3) unit shear directions, crystal frame
+    twin: np.ndarray  # (S,) bool, the system's candidate is a twin
+    dir_idx: list  # (S) direction indices as int tuples
+    names: list  # (S) catalogue names or None
+    members: list  # (P) indices of each candidate's systems
+
+
+def _flat_systems(cands: CandidateSet) -> _FlatSystems:
+    """The flattened systems of ``cands`` (cached on it: ranking runs once per grain)."""
+    if getattr(cands, "_flat", None) is None:
+        flat, grp = [], []
+        for k, ss in enumerate(cands.systems):
+            flat.extend(ss)
+            grp.extend([k] * len(ss))
+        grp = np.array(grp)
+        twin_g = np.array([m == "twin" for m in cands.modes])
+        cands._flat = _FlatSystems(
+            normals=np.array([s.normal for s in flat], float),
+            dirs=np.array([s.dir_unit for s in flat], float),
+            twin=twin_g[grp],
+            dir_idx=[tuple(int(round(x)) for x in s.direction) for s in flat],
+            names=[getattr(s, "name", None) for s in flat],
+            members=[np.flatnonzero(grp == k) for k in range(len(cands))],
+        )
+    return cands._flat
+
+
+def _drive_values(load: Any, g: np.ndarray, normals: np.ndarray, dirs: np.ndarray, twin: np.ndarray):
+    """Signed drive of every system: Schmid factor or resolved shear, |.| for slip."""
+    from tracefit.predict import resolved_shear, schmid_factor
+
+    if is_stress(load):
+        tau = np.atleast_1d(resolved_shear(load, g, normals, dirs))
+        return np.where(twin, tau, np.abs(tau))
+    m = np.atleast_1d(schmid_factor(load.in_crystal(g), normals, dirs))
+    return np.where(twin, load.sign * m, np.abs(m))
+
+
+def rank_systems(load: Any, cands: CandidateSet, g: np.ndarray) -> tuple[list[list[SystemChoice]], list[float | None]]:
+    """Per candidate: its systems ranked under the load, and the best drive (m or tau, >= 0).
+
+    Parameters
+    ----------
+    load : None, LoadAxis or stress array
+        As returned by :func:`resolve_load`.
+    cands : CandidateSet
+        P candidates.
+    g : ndarray, shape (3, 3)
+        Orientation, v_crystal = g v_sample.
+
+    Returns
+    -------
+    systems : list (P) of list of SystemChoice
+        Most driven first (catalogue order without a load).
+    drive : list (P) of float or None
+        Best drive of each candidate, >= 0 (0 for a twin the load shears the wrong way);
+        None without a load.
+
+    Examples
+    --------
+    >>> from tracefit.crystal import catalogue, lattice_preset
+    >>> from tracefit.identify.candidates import candidate_set
+    >>> from tracefit.predict import parse_load
+    >>> cs = candidate_set(catalogue(lattice_preset("fcc")), ["slip"])
+    >>> systems, drive = rank_systems(parse_load("z"), cs, np.eye(3))
+    >>> round(drive[0], 3), systems[0][0].direction
+    (0.408, (1, 0, -1))
+    """
+    fs = _flat_systems(cands)
+    vals = None if load is None else _drive_values(load, g, fs.normals, fs.dirs, fs.twin)
+    stress = is_stress(load)
+    out_sys, best_drive = [], []
+    for k, idx in enumerate(fs.members):
+        if vals is None:
+            out_sys.append([SystemChoice(fs.dir_idx[i], None, None, fs.names[i], True) for i in idx])
+            best_drive.append(None)
+            continue
+        order = idx[np.argsort(-vals[idx], kind="stable")]
+        twin = cands.modes[k] == "twin"
+        choices = []
+        for i in order:
+            x = float(vals[i])
+            active = bool(x > 0) if twin else True
+            choices.append(SystemChoice(fs.dir_idx[i], None if stress else x, x if stress else None, fs.names[i], active))
+        out_sys.append(choices)
+        best_drive.append(max(float(vals[order[0]]), 0.0) if choices[0].active_sense else 0.0)
+    return out_sys, best_drive
+
+
+def prior_drive(load: Any, drive: list) -> np.ndarray:
+    """Drives on the Schmid-factor scale, for the Schmid prior.
+
+    Parameters
+    ----------
+    load : LoadAxis or stress array
+    drive : list of float or None
+        From :func:`rank_systems`.
+
+    Returns
+    -------
+    ndarray, shape (P,)
+        Schmid factors as they are; resolved shears scaled so that the largest is 0.5 (the
+        largest possible Schmid factor).
+
+    Examples
+    --------
+    >>> print(prior_drive(np.eye(3), [2.0, 1.0, None]))
+    [0.5  0.25 0.  ]
+    """
+    dv = np.array([d if d is not None else 0.0 for d in drive], float)
+    if is_stress(load) and dv.max() > 0:
+        dv = 0.5 * dv / dv.max()  # resolved shear -> Schmid-like scale, best = 0.5
+    return dv

@@ -1,0 +1,160 @@
+"""What identification starts from: observed band families (detected or measured by hand)."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Any, Iterable
+
+import numpy as np
+
+from tracefit.conventions import fold_axial
+from tracefit.errors import TracefitInputError
+
+__all__ = ["ObservedFamily", "observed_from_detection", "as_observed"]
+
+#: Sigma of a family given as a bare angle, degrees (a careful reading of a clear band; common practice, no source).
+DEFAULT_ANGLE_SIGMA_DEG = 0.5
+
+
+@dataclass
+class ObservedFamily:
+    """One observed family of parallel bands (detected in an image or measured by hand).
+
+    Parameters
+    ----------
+    angle_deg : float
+        Image-frame axial angle, degrees ccw from +x; folded to [0, 180).
+    angle_sigma_deg : float
+        One-sigma uncertainty of the angle, degrees (>= 0).
+    grain : int, str or None
+        Grain the family belongs to (None for a single-orientation image).
+    source : str
+        ``"detected"`` or ``"measured"``.
+    label : str or None
+        Free label for reports (``"crack"`` marks a crack).
+    n_bands, strength : optional
+        Detection details, carried through to reports.
+    boundary_continuation : float, optional
+        Share of the family's lines that run on straight into a neighbouring grain with the
+        same contrast (:func:`tracefit.maps.tables.line_continuation`); reported, not used in the
+        probabilities.
+
+    Raises
+    ------
+    TracefitInputError
+        For a non-finite angle or a negative or non-finite sigma.
+
+    Examples
+    --------
+    >>> f = ObservedFamily(-44.8, 0.2)
+    >>> round(f.angle_deg, 3), f.angle_sigma_deg, f.source
+    (135.2, 0.2, 'detected')
+    """
+
+    angle_deg: float
+    angle_sigma_deg: float = DEFAULT_ANGLE_SIGMA_DEG
+    grain: Any = None
+    source: str = "detected"
+    label: str | None = None
+    n_bands: int | None = None
+    strength: float | None = None
+    boundary_continuation: float | None = None
+
+    def __post_init__(self):
+        a = float(self.angle_deg)
+        s = float(self.angle_sigma_deg)
+        if not math.isfinite(a):
+            raise TracefitInputError(f"a family angle must be a finite number of degrees, got {self.angle_deg!r}")
+        if not (math.isfinite(s) and s >= 0):
+            raise TracefitInputError(f"a family angle sigma must be >= 0 degrees, got {self.angle_sigma_deg!r}")
+        self.angle_deg = fold_axial(a)
+        self.angle_sigma_deg = s
+
+
+def observed_from_detection(result: Any, grain: Any = None, min_sigma_deg: float = 0.1) -> list[ObservedFamily]:
+    """Observed families from a detection result.
+
+    Parameters
+    ----------
+    result : DetectionResult or sequence of BandFamily
+        :func:`tracefit.image.detect_bands` output, or its ``families``; each family needs
+        ``angle_deg`` and may have ``angle_sigma_deg``, ``n_bands``, ``strength``.
+    grain : optional
+        Grain key given to every family (labels become ``G<grain>-F<k>``).
+    min_sigma_deg : float
+        Floor of the angle sigma, degrees: a detection's own sigma can be unrealistically small.
+
+    Returns
+    -------
+    list of ObservedFamily
+        In detection order, ``source="detected"``, labelled ``F1``, ``F2``, ...
+
+    Raises
+    ------
+    TracefitInputError
+        For a family with a non-finite angle or sigma.
+
+    Examples
+    --------
+    >>> from types import SimpleNamespace
+    >>> fams = observed_from_detection([SimpleNamespace(angle_deg=30.0, angle_sigma_deg=0.02)], grain=3)
+    >>> fams[0].label, fams[0].angle_sigma_deg
+    ('G3-F1', 0.1)
+    """
+    fams = getattr(result, "families", result)
+    out = []
+    for k, f in enumerate(fams):
+        out.append(
+            ObservedFamily(
+                angle_deg=float(f.angle_deg),
+                angle_sigma_deg=max(float(getattr(f, "angle_sigma_deg", DEFAULT_ANGLE_SIGMA_DEG) or 0.0), min_sigma_deg),
+                grain=grain,
+                source="detected",
+                label=f"F{k + 1}" if grain is None else f"G{grain}-F{k + 1}",
+                n_bands=getattr(f, "n_bands", None),
+                strength=getattr(f, "strength", None),
+            )
+        )
+    return out
+
+
+def as_observed(observed: Iterable[Any], grain: Any = None) -> list[ObservedFamily]:
+    """Observed families from ObservedFamily objects or bare angles.
+
+    Parameters
+    ----------
+    observed : iterable of ObservedFamily or float
+        Families; a bare number is an angle in degrees with sigma 0.5, ``source="measured"``.
+    grain : optional
+        Grain given to families that have none.
+
+    Returns
+    -------
+    list of ObservedFamily
+        In input order.
+
+    Raises
+    ------
+    TracefitInputError
+        For anything else in ``observed``.
+
+    Examples
+    --------
+    >>> [(round(f.angle_deg, 1), f.grain) for f in as_observed([30, ObservedFamily(200.0)], grain=1)]
+    [(30.0, 1), (20.0, 1)]
+    """
+    if isinstance(observed, (str, bytes)) or not hasattr(observed, "__iter__"):
+        raise TracefitInputError(f"observed must be a sequence of ObservedFamily or angles, got {type(observed).__name__}")
+    out = []
+    for o in observed:
+        if isinstance(o, ObservedFamily):
+            if grain is not None and o.grain is None:
+                o = ObservedFamily(o.angle_deg, o.angle_sigma_deg, grain, o.source, o.label, o.n_bands, o.strength,
+                                   o.boundary_continuation)
+            out.append(o)
+        elif isinstance(o, (int, float, np.floating, np.integer)) and not isinstance(o, bool):
+            out.append(ObservedFamily(float(o), DEFAULT_ANGLE_SIGMA_DEG, grain, "measured"))
+        else:
+            raise TracefitInputError(f"an observed family must be an angle or an ObservedFamily, got {type(o).__name__}")
+    return out

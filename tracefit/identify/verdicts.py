@@ -1,0 +1,277 @@
+"""From posterior probabilities to verdicts: the listed candidates, "unexplained", ambiguity and
+the plain-language notes and separation hints of every family.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from tracefit.identify.candidates import CandidateSet, plane_key
+from tracefit.identify.observed import ObservedFamily
+from tracefit.identify.results import Candidate, FamilyIdentification, format_plane
+from tracefit.predict import NEAR_SURFACE_DEG
+
+# GrainPosterior, family_verdict and flag_all_unexplained serve tracefit.identify.assign only.
+__all__ = ["separation_hints"]
+
+
+@dataclass
+class GrainPosterior:
+    """Everything the verdicts of one grain's families are read from.
+
+    Attributes
+    ----------
+    cands : CandidateSet
+        P candidates.
+    post : ndarray, shape (F, P + 1)
+        Posterior probabilities; the last column is "none" (artefact share removed).
+    p_art : ndarray, shape (F,)
+        Posterior probability of the surface artefact.
+    art_angle : list (F) of float or None
+        Angle of the artefact direction each family would sit on.
+    logw, resid, sig : ndarray, shape (F, P + 1), (F, P), (F, P)
+        Log weights, residuals (deg) and total sigmas (deg).
+    ang, incl, psig : ndarray, shape (P,)
+        Predicted angle, inclination and predicted-trace sigma of every candidate, degrees.
+    systems_ranked : list (P) of list of SystemChoice
+    load : None, LoadAxis or stress array
+    """
+
+    cands: CandidateSet
+    post: np.ndarray
+    p_art: np.ndarray
+    art_angle: list
+    logw: np.ndarray
+    resid: np.ndarray
+    sig: np.ndarray
+    ang: np.ndarray
+    incl: np.ndarray
+    psig: np.ndarray
+    systems_ranked: list
+    load: Any
+
+
+def _listed_candidates(gp: GrainPosterior, f: int, threshold: float) -> list[Candidate]:
+    """Family f's candidates above the report threshold, most probable first.
+
+    The best one is listed even below the threshold when the family is explained.
+    """
+    P = len(gp.cands)
+    post = gp.post[f]
+    p_other = float(post[P]) + float(gp.p_art[f])
+    out = []
+    for c in np.argsort(-post[:P]):
+        if post[c] < threshold and not (len(out) == 0 and post[c] > 0 and p_other < 0.5):
+            break
+        best = None
+        ranked = gp.systems_ranked[c]
+        if ranked and gp.load is not None and ranked[0].active_sense:
+            best = ranked[0]
+        out.append(
+            Candidate(
+                plane=gp.cands.planes[c],
+                family=gp.cands.families[c],
+                mode=gp.cands.modes[c],
+                predicted_deg=float(gp.ang[c]),
+                residual_deg=float(gp.resid[f, c]),
+                probability=float(post[c]),
+                sigma_deg=float(gp.sig[f, c]),
+                predicted_sigma_deg=float(gp.psig[c]),
+                inclination_deg=float(gp.incl[c]),
+                best_system=best,
+                systems=ranked,
+                near_surface=bool(gp.incl[c] < NEAR_SURFACE_DEG),
+                log_likelihood=float(gp.logw[f, c]),
+            )
+        )
+    return out
+
+
+def _is_ambiguous(cl: list[Candidate], ratio: float) -> bool:
+    """A second distinct plane holds at least ``ratio`` of the best plane's summed probability."""
+    plane_p: dict = {}
+    for c in cl:
+        k = plane_key(c.plane)
+        plane_p[k] = plane_p.get(k, 0.0) + c.probability
+    ps = sorted(plane_p.values(), reverse=True)
+    return len(ps) > 1 and ps[1] >= ratio * ps[0]
+
+
+def _notes(cl: list[Candidate], pn: float, pa: float, reason: str | None, art_angle) -> list[str]:
+    notes = []
+    if reason is not None and reason.startswith("surface artefact"):
+        notes.append(
+            f"p_artefact = {pa:.2f}: this family keeps one image angle ({float(art_angle):.1f} deg) in several grains "
+            "whose crystallography predicts different traces there; a polishing scratch or other surface mark "
+            "runs straight through grain boundaries, slip and twin traces do not"
+        )
+    elif reason is not None:
+        notes.append(
+            f"no candidate explains this family (p_none = {pn:.2f}): a scratch or polishing mark, "
+            "a wrong orientation, a wrong frame alignment, or a system outside the selected modes"
+        )
+    for c in cl:
+        if c.near_surface:
+            notes.append(f"plane {format_plane(c.plane)} lies within {NEAR_SURFACE_DEG:g} deg of the surface: its trace is ill-defined")
+            break
+    return notes
+
+
+def family_verdict(o: ObservedFamily, f: int, gp: GrainPosterior, g: np.ndarray, threshold: float,
+                   ratio: float) -> FamilyIdentification:
+    """The verdict of family ``f`` of a grain.
+
+    Parameters
+    ----------
+    o : ObservedFamily
+        The family.
+    f : int
+        Its row in ``gp``.
+    gp : GrainPosterior
+        The grain's posteriors.
+    g : ndarray, shape (3, 3)
+        The grain's orientation.
+    threshold : float
+        Report threshold of candidate probabilities.
+    ratio : float
+        Ambiguity ratio.
+
+    Returns
+    -------
+    FamilyIdentification
+    """
+    P = len(gp.cands)
+    pn, pa = float(gp.post[f, P]), float(gp.p_art[f])
+    art_angle = gp.art_angle[f]
+    cl = _listed_candidates(gp, f, threshold)
+    unexplained = pn + pa >= 0.5
+    reason = None
+    if unexplained:
+        if pa > pn and art_angle is not None:
+            reason = f"surface artefact (continues across grains at {float(art_angle):.1f} deg)"
+        else:
+            reason = "no candidate fits"
+    ambiguous = (not unexplained) and _is_ambiguous(cl, ratio)
+    sep = separation_hints(cl, gp.load, g, gp.cands) if (ambiguous or _mixed_modes(cl)) and not unexplained else []
+    r = FamilyIdentification(o.angle_deg, o.angle_sigma_deg, o.grain, o.source, o.label,
+                             bool(unexplained), bool(ambiguous), pn, cl, sep, _notes(cl, pn, pa, reason, art_angle))
+    r.p_artefact = pa
+    r.unexplained_reason = reason
+    bc = getattr(o, "boundary_continuation", None)
+    r.boundary_continuation = bc
+    if bc is not None and bc >= 0.5:
+        r.notes.append(
+            f"{100 * bc:.0f} % of its line ends run on straight into the neighbouring grain with the same contrast: "
+            "typical of a surface scratch (a slip or twin band stops at the boundary or turns); not used in the probabilities"
+        )
+    r.artefact_angle_deg = None if art_angle is None or pa < threshold else float(art_angle)
+    return r
+
+
+def flag_all_unexplained(results: list[FamilyIdentification], grain: Any) -> None:
+    """Add a note to every family of a grain when several families and none fits.
+
+    Then the orientation (or the frame) is the likelier culprit than the families.
+
+    Parameters
+    ----------
+    results : list of FamilyIdentification
+        All verdicts of one grain (changed in place).
+    grain : optional
+        The grain key (None for a single-orientation image).
+    """
+    if len(results) >= 2 and all(r.unexplained and r.p_artefact < r.p_none for r in results):
+        where = "this grain" if grain is None else f"grain {grain}"
+        for r in results:
+            r.notes.append(
+                f"all {len(results)} families of {where} are unexplained: its orientation, the frame alignment or the "
+                "phase is probably wrong; tracefit find-orientation can propose orientations from these angles"
+            )
+
+
+def _mixed_modes(cl: list[Candidate]) -> bool:
+    if len(cl) < 2:
+        return False
+    k0 = plane_key(cl[0].plane)
+    return any(plane_key(c.plane) == k0 and c.mode != cl[0].mode for c in cl[1:])
+
+
+def _plane_hints(pl: list[Candidate], load: Any) -> list[str]:
+    """Hints that separate several distinct planes."""
+    names = ", ".join(f"{format_plane(c.plane)} {c.mode}" for c in pl)
+    hints = [f"several planes predict this trace within the uncertainty: {names}"]
+    incs = [c.inclination_deg for c in pl]
+    if max(incs) - min(incs) >= 10.0:
+        hints.append(
+            "plane inclination differs ("
+            + ", ".join(f"{format_plane(c.plane)}: {c.inclination_deg:.0f} deg" for c in pl)
+            + "): band width or step height on the surface, or a section, separates them"
+        )
+    if load is not None:
+        ms = [(c, c.best_system.schmid_factor if c.best_system else 0.0) for c in pl]
+        vals = [m for _, m in ms]
+        if max(vals) - min(vals) >= 0.1:
+            hints.append(
+                "Schmid factor under the load differs ("
+                + ", ".join(f"{format_plane(c.plane)}: {m:.2f}" for c, m in ms)
+                + "): the higher one is the likelier to have been active"
+            )
+    else:
+        hints.append("the Schmid factor under the known load would help: give the load")
+    hints.append("a trace on a second surface of known geometry fixes the plane normal (two-face analysis)")
+    return hints
+
+
+def _mode_hints(top: list[Candidate], load: Any) -> list[str]:
+    """Hints that separate slip from twin on the listed candidates."""
+    hints = []
+    if load is not None:
+        tw = [c for c in top if c.mode == "twin"]
+        pos = [c for c in tw if c.best_system is not None]
+        if pos and len(pos) < len(tw):
+            hints.append("twin polarity: only some twin candidates are sheared in their twinning sense by this load")
+        elif not pos:
+            hints.append("twin polarity: the load shears every twin candidate against its twinning sense, favouring slip")
+    hints.append(
+        "slip or twin on the same trace: twins are lens-shaped bands with a lattice misorientation "
+        "(check the band interior by diffraction or etching); slip lines are not"
+    )
+    return hints
+
+
+def separation_hints(cl: list[Candidate], load: Any, g: np.ndarray | None = None,
+                     cands: CandidateSet | None = None) -> list[str]:
+    """Plain-language criteria that would separate the candidates in a set.
+
+    Parameters
+    ----------
+    cl : list of Candidate
+        The listed candidates, most probable first (the first six are considered).
+    load : None, LoadAxis or stress array
+        The load, if known.
+    g, cands : optional
+        Unused; kept for callers that pass the grain's orientation and candidates.
+
+    Returns
+    -------
+    list of str
+        One sentence per criterion (empty when there is nothing to separate).
+
+    Examples
+    --------
+    >>> a = Candidate((1, 1, 1), "{111}", "slip", 135.0, 0.2, 0.5, 1.0, 1.0, 54.7)
+    >>> b = Candidate((1, 1, -1), "{111}", "slip", 135.0, 0.2, 0.5, 1.0, 1.0, 54.7)
+    >>> separation_hints([a, b], None)[0]
+    'several planes predict this trace within the uncertainty: (1 1 1) slip, (1 1 -1) slip'
+    """
+    top = cl[:6]
+    planes: dict = {}
+    for c in top:
+        planes.setdefault(plane_key(c.plane), c)
+    hints = _plane_hints(list(planes.values()), load) if len(planes) > 1 else []
+    if any(c.mode == "twin" for c in top) and any(c.mode == "slip" for c in top):
+        hints += _mode_hints(top, load)
+    return hints
