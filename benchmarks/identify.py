@@ -52,7 +52,7 @@ from scipy.spatial.transform import Rotation
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from tracefit.crystal.lattice import lattice_preset  # noqa: E402
-from tracefit.identify.matching import ObservedFamily, candidate_set, identify_grains, predicted_trace_sigma  # noqa: E402
+from tracefit.matching import ObservedFamily, candidate_set, identify_grains, predicted_trace_sigma  # noqa: E402
 from tracefit.crystal.systems import catalogue  # noqa: E402
 from tracefit.predict.traces import parse_load  # noqa: E402
 
@@ -284,7 +284,7 @@ def run_timing(seed):
             t0 = time.perf_counter()
             identify_grains(obs, lat, ori, catalogue(lat), load=parse_load("x"), artefacts=False)
             best0 = min(best0, time.perf_counter() - t0)
-        from tracefit.identify import fit_frame
+        from tracefit.matching import fit_frame
 
         t0 = time.perf_counter()
         fit_frame(obs, lat, ori, catalogue(lat), n_bootstrap=50, coarse_step_deg=1.0)  # identify's automatic frame check
@@ -295,7 +295,7 @@ def run_timing(seed):
 def run_images(n, seed):
     """End to end on small synthetic micrographs (detection + identification), fcc single grains."""
     from tracefit.image import detect_bands
-    from tracefit.identify import identify_families, observed_from_detection
+    from tracefit.matching import identify_families, observed_from_detection
     from tracefit.image import BandFamilySpec, render_micrograph
 
     rng = np.random.default_rng(seed)

@@ -11,11 +11,11 @@ import numpy as np
 import pytest
 from scipy.spatial.transform import Rotation
 
-from tracefit.identify import fit_frame
+from tracefit.matching import fit_frame
 from tracefit.errors import TracefitInputError
 from tracefit.conventions import FrameSettings
 from tracefit.crystal import lattice_preset
-from tracefit.identify import ObservedFamily
+from tracefit.matching import ObservedFamily
 from tracefit.crystal import catalogue
 
 FCC = lattice_preset("fcc")

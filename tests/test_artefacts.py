@@ -1,4 +1,4 @@
-"""Map-level surface artefacts (tracefit.identify.artefacts) through the matcher (identify_grains).
+"""Map-level surface artefacts (tracefit.matching.artefacts) through the matcher (identify_grains).
 
 Basis of the checks:
 * continuity cue: a polishing scratch is a straight surface line and keeps one image angle across
@@ -22,9 +22,9 @@ import pytest
 from scipy import integrate
 from scipy.spatial.transform import Rotation
 
-from tracefit.identify import find_artefact_directions
+from tracefit.matching import find_artefact_directions
 from tracefit.crystal import lattice_preset
-from tracefit.identify import (
+from tracefit.matching import (
     ObservedFamily,
     grain_log_weights,
     axial_logpdf,

@@ -16,7 +16,7 @@ from scipy.spatial.transform import Rotation
 
 from tracefit.errors import TracefitInputError
 from tracefit.crystal import lattice_preset
-from tracefit.identify import (
+from tracefit.matching import (
     ObservedFamily,
     axial_logpdf,
     candidate_set,
@@ -349,7 +349,7 @@ def _brute_force_marginals(logw, plane_ids):
 
 
 def _grain_logw(angles, bunge, p_none, cat):
-    from tracefit.identify import candidate_set, grain_log_weights, predict_candidates
+    from tracefit.matching import candidate_set, grain_log_weights, predict_candidates
 
     cs = candidate_set(cat)
     g = from_euler(bunge)
@@ -371,7 +371,7 @@ def test_p_none_zero_gives_valid_probabilities_when_two_families_want_one_plane(
     assert not same_plane(res[0].best.plane, res[1].best.plane)
     assert any(same_plane(r.best.plane, (1, 1, 1)) for r in res)
     # the joint marginals equal a direct enumeration of all assignments
-    from tracefit.identify import joint_marginals
+    from tracefit.matching import joint_marginals
 
     logw, pids = _grain_logw([a, a + 0.3], bunge, 0.0, cat)
     assert not np.isfinite(logw[:, -1]).any()
@@ -400,7 +400,7 @@ def test_p_none_zero_is_the_limit_of_a_vanishing_p_none():
 
 def test_p_none_zero_in_the_frame_fit_and_the_orientation_search():
     # log(0) used to stop these two: the 'none' weight is now -inf, not an error.
-    from tracefit.identify import fit_frame, search_orientations
+    from tracefit.matching import fit_frame, search_orientations
 
     cat = catalogue(FCC, ("slip",))
     grains = {1: (10.0, 30.0, 0.0), 2: (70.0, 40.0, 20.0), 3: (130.0, 25.0, 50.0)}
@@ -474,7 +474,7 @@ def test_orientation_objects_with_as_matrix_are_accepted(batch):
 
 
 def test_every_name_exported_before_the_split_still_imports():
-    import tracefit.identify as pkg
+    import tracefit.matching as pkg
 
     before = (
         "ObservedFamily SystemChoice Candidate FamilyIdentification identify_families identify_grains "

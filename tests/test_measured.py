@@ -15,8 +15,8 @@ from scipy.spatial.transform import Rotation
 
 from tracefit.errors import TracefitInputError
 from tracefit.crystal import lattice_preset
-from tracefit.identify import ObservedFamily
-from tracefit.identify import (
+from tracefit.matching import ObservedFamily
+from tracefit.matching import (
     MEASURED_CONVENTION,
     CrackIdentification,
     identify_observed,

@@ -12,8 +12,8 @@ from scipy.spatial.transform import Rotation
 
 from tracefit.errors import TracefitInputError
 from tracefit.crystal import lattice_preset
-from tracefit.identify import ObservedFamily
-from tracefit.identify import search_orientations
+from tracefit.matching import ObservedFamily
+from tracefit.matching import search_orientations
 from tracefit.crystal import catalogue
 
 FCC = lattice_preset("fcc")
@@ -84,7 +84,7 @@ def test_one_family_is_an_input_error():
 def test_hcp_four_families_truth_among_the_reported_solutions():
     # hcp (c/a 1.587) with basal, prismatic and {10-12} twin candidates: four families give a
     # handful of exact solutions; the truth must be one of them (orix D6h, test reference).
-    from tracefit.identify import candidate_set
+    from tracefit.matching import candidate_set
 
     hcp = lattice_preset("hcp", 1.587)
     cs = candidate_set(catalogue(hcp, families=["basal", "prismatic", "{10-12}"]))

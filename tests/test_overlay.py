@@ -240,7 +240,7 @@ def test_cli_bad_drawing_options(run_cli, tmp_path, args, words):
 def test_wedge_sigma_equals_the_matchers_under_tilt():
     # The drawing's spread must be the one the matcher uses (same propagation, same tilt slope).
     from tracefit.conventions import FrameSettings
-    from tracefit.identify.matching import candidate_set, predict_candidates, predicted_trace_sigma
+    from tracefit.matching import candidate_set, predict_candidates, predicted_trace_sigma
 
     frame = FrameSettings(tilt_deg=60.0)
     g = from_euler(BUNGE)

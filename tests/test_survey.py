@@ -24,7 +24,7 @@ def fake_analyse(im) -> ImageAnalysis:
     """Stand-in for analyse_image: two families at the predicted traces of two planes."""
     from tracefit.conventions import angle_to_pixel_direction
     from tracefit.crystal import lattice_preset
-    from tracefit.identify import ObservedFamily, identify_families
+    from tracefit.matching import ObservedFamily, identify_families
     from tracefit.crystal import from_euler
     from tracefit.survey.runner import _predicted_dicts
     from tracefit.crystal import catalogue

@@ -8,7 +8,7 @@ import pytest
 from tracefit.errors import TracefitInputError
 from tracefit.crystal import lattice_preset
 from tracefit.crystal import catalogue
-from tracefit.identify import FaceGeometry, index_two_face, interplanar_pairs, plane_from_two_traces, trace_on_face
+from tracefit.matching import FaceGeometry, index_two_face, interplanar_pairs, plane_from_two_traces, trace_on_face
 
 FCC = lattice_preset("fcc")
 

@@ -53,11 +53,11 @@ _LAZY = {
     "Load": "tracefit.predict",
     "FrameSettings": "tracefit.conventions",
     # identification pieces for work that starts half-way
-    "ObservedFamily": "tracefit.identify",
-    "fit_frame": "tracefit.identify",
-    "search_orientations": "tracefit.identify",
-    "plane_from_two_traces": "tracefit.identify",
-    "read_measured_csv": "tracefit.identify",
+    "ObservedFamily": "tracefit.matching",
+    "fit_frame": "tracefit.matching",
+    "search_orientations": "tracefit.matching",
+    "plane_from_two_traces": "tracefit.matching",
+    "read_measured_csv": "tracefit.matching",
     "read_orientation_table": "tracefit.maps",
     "TracefitInputError": "tracefit.errors",
 }

@@ -7,7 +7,7 @@ for work that starts half-way (families measured by hand, a detection done elsew
 
 1. :func:`read_grain_map` -- a grain label image and its orientation table, checked together;
 2. :func:`detect_families` -- band families per grain (or in the whole image), as
-   :class:`~tracefit.identify.ObservedFamily` objects, with the status of every grain;
+   :class:`~tracefit.matching.ObservedFamily` objects, with the status of every grain;
 3. :func:`identify` -- candidate planes and systems with probabilities (artefact test,
    joint per-grain assignment, line continuation carried through, frame check);
 4. :func:`analyse_image` -- all of the above for one micrograph, returning an
@@ -223,7 +223,7 @@ def detect_families(image, *, labels=None, orientations: dict | None = None, mas
     TracefitInputError
         Bad settings, or an image the detector cannot use.
     """
-    from tracefit.identify import observed_from_detection
+    from tracefit.matching import observed_from_detection
     from tracefit.image import detect_bands, detect_grains, line_continuation
 
     detect = check_options(detect, "detect")
@@ -322,13 +322,13 @@ def identify(observed: Sequence, lattice, *, orientation=None, orientations: dic
     seen at 73.2 +- 0.3 deg is that plane:
 
     >>> from tracefit.crystal import from_euler
-    >>> from tracefit.identify import ObservedFamily
+    >>> from tracefit.matching import ObservedFamily
     >>> res = identify([ObservedFamily(73.2, 0.3)], "fcc", orientation=from_euler([10, 20, 30]), modes=["slip"])
     >>> best = res.families[0].best
     >>> best.plane, round(best.predicted_deg, 2), round(best.probability, 2)
     ((1, -1, 1), 73.34, 1.0)
     """
-    from tracefit.identify import identify_observed
+    from tracefit.matching import identify_observed
 
     s, _ = resolve_settings(settings)
     if (orientation is None) == (orientations is None):
@@ -369,7 +369,7 @@ def _artefact_summary(results) -> list:
 
 def _frame_check(observed, lattice, ori_map, systems, frame, s, warn_out) -> dict | None:
     """On a grain map, test the frame against the traces (a wrong frame is a common source of wrong answers)."""
-    from tracefit.identify import fit_frame, is_crack
+    from tracefit.matching import fit_frame, is_crack
 
     use = [o for o in observed if o.grain in ori_map and not is_crack(o)]
     if len({o.grain for o in use}) < 3 or len(use) < 4:

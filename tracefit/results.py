@@ -216,7 +216,7 @@ class Identification:
     families : list of FamilyIdentification
         Same order as the observed families given.
     frame_check : dict or None
-        The frame-rotation fit on grain maps (:func:`tracefit.identify.fit_frame`), when run.
+        The frame-rotation fit on grain maps (:func:`tracefit.matching.fit_frame`), when run.
     artefacts : list of dict or None
         Surface-artefact directions found on grain maps (angle, grains, families), when tested.
     warnings : list of str
@@ -291,7 +291,7 @@ class ImageResult:
 
     def to_dict(self) -> dict:
         """The JSON object of ``tracefit identify --json``."""
-        from tracefit.identify import identifications_to_json
+        from tracefit.matching import identifications_to_json
 
         d = identifications_to_json(self.families)
         d.update({

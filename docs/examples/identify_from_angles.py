@@ -17,8 +17,8 @@ from pathlib import Path
 from tracefit import CAUTION
 from tracefit.crystal import format_index
 from tracefit.crystal import lattice_preset
-from tracefit.identify import identifications_to_json
-from tracefit.identify import MEASURED_CONVENTION, identify_observed, parse_angle_option, read_measured_csv
+from tracefit.matching import identifications_to_json
+from tracefit.matching import MEASURED_CONVENTION, identify_observed, parse_angle_option, read_measured_csv
 from tracefit.crystal import from_euler
 from tracefit.crystal import catalogue
 

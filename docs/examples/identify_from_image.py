@@ -17,7 +17,7 @@ from tracefit.demo import demo_dir
 from tracefit.image import detect_bands, read_image
 from tracefit.crystal import format_index
 from tracefit.crystal import lattice_preset
-from tracefit.identify import identifications_to_json, identify_families, observed_from_detection
+from tracefit.matching import identifications_to_json, identify_families, observed_from_detection
 from tracefit.crystal import from_euler
 from tracefit.crystal import catalogue
 from tracefit.predict import parse_load

@@ -55,7 +55,7 @@ def align_frame(
     The given --frame-rotation/--flip-x/--flip-y are the frame assumed so far; the command says
     whether the traces agree with it, and if not, which rotation they prefer and how sure that is.
     """
-    from tracefit.identify import fit_frame
+    from tracefit.matching import fit_frame
     from tracefit.pipeline import observe_image
     from tracefit.maps import read_orientation_table
 

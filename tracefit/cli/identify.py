@@ -107,7 +107,7 @@ def identify(
     --crack, --measured) are identified the same way; cracks get the planes they are
     consistent with.
     """
-    from tracefit.identify import is_crack, MEASURED_CONVENTION, parse_angle_option, read_measured_csv
+    from tracefit.matching import is_crack, MEASURED_CONVENTION, parse_angle_option, read_measured_csv
     from tracefit.pipeline import analyse_image
 
     with cli_warnings():

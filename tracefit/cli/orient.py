@@ -58,8 +58,8 @@ def find_orientation(
     Two families alone leave a one-parameter family of orientations; a third family or a
     known direction (e.g. a single crystal's growth axis) makes the answer discrete.
     """
-    from tracefit.identify import ObservedFamily
-    from tracefit.identify import search_orientations
+    from tracefit.matching import ObservedFamily
+    from tracefit.matching import search_orientations
     from tracefit.crystal import parse_vector
 
     with cli_warnings():

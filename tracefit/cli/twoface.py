@@ -67,12 +67,12 @@ def two_face(
     """Plane normals from traces on two faces that share an edge.
 
     Face 2 lies to the right of the edge direction as seen on face 1; its angles are read in
-    its own view, x along the edge (docs: tracefit.identify.twoface).
+    its own view, x along the edge (docs: tracefit.matching.twoface).
 
     With an orientation the normal is indexed against the candidate planes; without one, the
     angle between two measured normals is compared with the lattice's interplanar angles.
     """
-    from tracefit.identify import FaceGeometry, index_two_face, interplanar_pairs
+    from tracefit.matching import FaceGeometry, index_two_face, interplanar_pairs
 
     with cli_warnings():
         pairs = [_pair(p) + (sigma,) for p in pair]

@@ -46,7 +46,7 @@ def _mp_context():
         return mp.get_context("spawn")
     ctx = mp.get_context("forkserver")
     # the server imports the heavy modules once; each worker forked from it starts warm
-    ctx.set_forkserver_preload(["tracefit.survey.runner", "tracefit.pipeline", "tracefit.image", "tracefit.identify",
+    ctx.set_forkserver_preload(["tracefit.survey.runner", "tracefit.pipeline", "tracefit.image", "tracefit.matching",
                                 "tracefit.viz.plots", "matplotlib.figure", "matplotlib.backends.backend_agg"])
     return ctx
 

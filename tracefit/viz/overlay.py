@@ -4,7 +4,7 @@ Every candidate plane's predicted trace is drawn as a line through the image cen
 through each grain's centroid when a grain label image is given, labelled with its plane,
 with a translucent wedge of +- k sigma around it. sigma is the spread of the predicted
 trace angle that the orientation uncertainty causes, propagated exactly as the matcher
-does (:func:`tracefit.identify.predicted_trace_sigma`): sigma_orient / sin(inclination),
+does (:func:`tracefit.matching.predicted_trace_sigma`): sigma_orient / sin(inclination),
 times the stage-tilt foreshortening slope. A legend panel to the right of the picture lists
 each trace's plane, modes and angle; the picture's own pixels keep their coordinates.
 
@@ -25,7 +25,7 @@ import numpy as np
 
 from tracefit.conventions import FrameSettings, angle_to_pixel_direction, apparent_angle, axial_difference
 from tracefit.errors import TracefitInputError
-from tracefit.identify import predicted_trace_sigma
+from tracefit.matching import predicted_trace_sigma
 from tracefit.image import FAMILY_COLOURS
 from tracefit.image import draw_detection as draw_detected
 from tracefit.viz.labels import plane_label

@@ -9,12 +9,12 @@ from typing import Any
 
 import numpy as np
 
-from tracefit.identify.candidates import CandidateSet, plane_key
-from tracefit.identify.observed import ObservedFamily
-from tracefit.identify.results import Candidate, FamilyIdentification, format_plane
+from tracefit.matching.candidates import CandidateSet, plane_key
+from tracefit.matching.observed import ObservedFamily
+from tracefit.matching.results import Candidate, FamilyIdentification, format_plane
 from tracefit.predict import NEAR_SURFACE_DEG
 
-# GrainPosterior, family_verdict and flag_all_unexplained serve tracefit.identify.assign only.
+# GrainPosterior, family_verdict and flag_all_unexplained serve tracefit.matching.assign only.
 __all__ = ["separation_hints"]
 
 

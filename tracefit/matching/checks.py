@@ -172,8 +172,8 @@ def check_sigma(value: Any, name: str) -> float:
 def check_matcher_options(*, p_none: float, orientation_sigma_deg: float, frame_sigma_deg: float,
                           schmid_weight: float, report_threshold: float, ambiguity_ratio: float,
                           grain_sigma_deg: Mapping | None = None) -> None:
-    """Check the numeric options shared by :func:`tracefit.identify.identify_families` and
-    :func:`tracefit.identify.identify_grains`.
+    """Check the numeric options shared by :func:`tracefit.matching.identify_families` and
+    :func:`tracefit.matching.identify_grains`.
 
     Parameters
     ----------

@@ -19,7 +19,7 @@ import itertools
 import numpy as np
 from numpy.typing import ArrayLike
 
-from tracefit.identify.likelihood import logsumexp
+from tracefit.matching.likelihood import logsumexp
 
 __all__ = ["joint_marginals", "plane_log_weights"]
 
@@ -37,7 +37,7 @@ def plane_log_weights(logw: ArrayLike, plane_ids: ArrayLike) -> np.ndarray:
     ----------
     logw : array_like, shape (F, P + 1)
         Log weights of the candidates, "none" last
-        (:func:`tracefit.identify.likelihood.family_log_weights`).
+        (:func:`tracefit.matching.likelihood.family_log_weights`).
     plane_ids : array_like of int, shape (P,)
         Distinct-plane index of every candidate.
 
@@ -72,7 +72,7 @@ def joint_marginals(logw: ArrayLike, plane_ids: ArrayLike, allow_shared: bool = 
     Parameters
     ----------
     logw : array_like, shape (F, P + 1)
-        Log weights from :func:`tracefit.identify.likelihood.family_log_weights` (last
+        Log weights from :func:`tracefit.matching.likelihood.family_log_weights` (last
         column "none"; -inf there when p_none = 0).
     plane_ids : array_like of int, shape (P,)
         Distinct-plane index of every candidate (slip and twin on one plane share it).

@@ -12,7 +12,7 @@ from typing import Any, Sequence
 
 import numpy as np
 
-from tracefit.identify.candidates import plane_key
+from tracefit.matching.candidates import plane_key
 
 __all__ = ["SystemChoice", "Candidate", "FamilyIdentification", "identifications_to_json", "format_plane"]
 
@@ -165,7 +165,7 @@ class FamilyIdentification:
     angle_deg, angle_sigma_deg : float
         The observed family's angle and sigma, degrees.
     grain, source, label :
-        As the :class:`tracefit.identify.ObservedFamily`.
+        As the :class:`tracefit.matching.ObservedFamily`.
     unexplained : bool
         "None of these" (or a surface artefact) has probability >= 0.5.
     ambiguous : bool
@@ -179,7 +179,7 @@ class FamilyIdentification:
     notes : list of str
         Plain-language remarks (unexplained, near-surface planes, ...).
     p_artefact : float
-        Posterior probability of a map-level surface artefact (:mod:`tracefit.identify.artefacts`).
+        Posterior probability of a map-level surface artefact (:mod:`tracefit.matching.artefacts`).
     unexplained_reason : str or None
         Why the family is unexplained.
     artefact_angle_deg : float or None
@@ -205,7 +205,7 @@ class FamilyIdentification:
     candidates: list[Candidate]
     separation: list[str] = field(default_factory=list)
     notes: list[str] = field(default_factory=list)
-    # Map-level surface-artefact hypothesis (tracefit.identify.artefacts); set after construction so that
+    # Map-level surface-artefact hypothesis (tracefit.matching.artefacts); set after construction so that
     # subclasses keep their positional arguments.
     p_artefact: float = field(default=0.0, init=False)
     unexplained_reason: str | None = field(default=None, init=False)

@@ -9,7 +9,7 @@ Model
 -----
 M0 (no artefact direction): family f of grain k has the density L0_f (per degree) of the
 grain's own crystallographic model: candidates and "none of these", priors included
-(:mod:`tracefit.identify.likelihood`).
+(:mod:`tracefit.matching.likelihood`).
 
 M1 (one surface-artefact direction at image angle theta): every family is, independently, an
 artefact with probability pi and otherwise follows M0:
@@ -63,7 +63,7 @@ from numpy.typing import ArrayLike
 
 from tracefit.conventions import axial_difference, fold_axial
 from tracefit.errors import TracefitInputError
-from tracefit.identify.likelihood import axial_logpdf, logsumexp
+from tracefit.matching.likelihood import axial_logpdf, logsumexp
 
 __all__ = [
     "ArtefactDirection",

@@ -32,17 +32,17 @@ from scipy.spatial.transform import Rotation
 from tracefit.conventions import FrameSettings, axial_difference
 from tracefit.crystal import proper_rotations
 from tracefit.errors import TracefitInputError
-from tracefit.identify.assign import identify_families
-from tracefit.identify.candidates import as_candidate_set, candidate_set, predict_candidates
-from tracefit.identify.checks import check_fraction, orientation_matrix
-from tracefit.identify.likelihood import (
+from tracefit.matching.assign import identify_families
+from tracefit.matching.candidates import as_candidate_set, candidate_set, predict_candidates
+from tracefit.matching.checks import check_fraction, orientation_matrix
+from tracefit.matching.likelihood import (
     DEFAULT_P_NONE,
     axial_logpdf,
     candidate_log_prior,
     mixture_log_evidence,
     none_log_density,
 )
-from tracefit.identify.observed import ObservedFamily, as_observed
+from tracefit.matching.observed import ObservedFamily, as_observed
 
 __all__ = ["OrientationCandidate", "OrientationSearchResult", "search_orientations", "misorientation_deg"]
 

@@ -1,11 +1,11 @@
 """Identification of observed band families: one grain (:func:`identify_families`) or a grain
 map (:func:`identify_grains`).
 
-Per grain: predicted traces (:mod:`tracefit.identify.candidates`) -> log (prior x likelihood)
-of every family and candidate (:mod:`tracefit.identify.likelihood`) -> joint assignment, no two
-families on one plane (:mod:`tracefit.identify.joint`) -> verdicts
-(:mod:`tracefit.identify.verdicts`). On a grain map a map-level surface-artefact hypothesis
-(:mod:`tracefit.identify.artefacts`) may add a third kind of answer: a family on a straight
+Per grain: predicted traces (:mod:`tracefit.matching.candidates`) -> log (prior x likelihood)
+of every family and candidate (:mod:`tracefit.matching.likelihood`) -> joint assignment, no two
+families on one plane (:mod:`tracefit.matching.joint`) -> verdicts
+(:mod:`tracefit.matching.verdicts`). On a grain map a map-level surface-artefact hypothesis
+(:mod:`tracefit.matching.artefacts`) may add a third kind of answer: a family on a straight
 surface line that keeps one image angle across grains. Like "none" it may be taken by any
 number of families; each family reports its probability as ``p_artefact``.
 """
@@ -19,27 +19,27 @@ import numpy as np
 
 from tracefit.conventions import FrameSettings
 from tracefit.errors import TracefitInputError
-from tracefit.identify.artefacts import (
+from tracefit.matching.artefacts import (
     DEFAULT_LINE_SIGMA_DEG,
     DEFAULT_MIN_WITNESSES,
     CrystalContext,
     artefact_family_weights,
     find_artefact_directions,
 )
-from tracefit.identify.candidates import CandidateSet, as_candidate_set, predict_candidates
-from tracefit.identify.checks import check_matcher_options, orientation_matrix, orientation_table
-from tracefit.identify.joint import joint_marginals
-from tracefit.identify.likelihood import (
+from tracefit.matching.candidates import CandidateSet, as_candidate_set, predict_candidates
+from tracefit.matching.checks import check_matcher_options, orientation_matrix, orientation_table
+from tracefit.matching.joint import joint_marginals
+from tracefit.matching.likelihood import (
     DEFAULT_P_NONE,
     candidate_log_prior,
     family_log_weights,
     logsumexp,
     predicted_trace_sigma,
 )
-from tracefit.identify.loading import prior_drive, rank_systems, resolve_load
-from tracefit.identify.observed import ObservedFamily, as_observed
-from tracefit.identify.results import FamilyIdentification
-from tracefit.identify.verdicts import GrainPosterior, family_verdict, flag_all_unexplained
+from tracefit.matching.loading import prior_drive, rank_systems, resolve_load
+from tracefit.matching.observed import ObservedFamily, as_observed
+from tracefit.matching.results import FamilyIdentification
+from tracefit.matching.verdicts import GrainPosterior, family_verdict, flag_all_unexplained
 
 __all__ = [
     "identify_families",
@@ -70,7 +70,7 @@ def grain_log_weights(obs: Sequence[ObservedFamily], cands: CandidateSet, g: np.
     ang, incl, slope : ndarray, shape (P,)
         Predicted trace angles, inclinations (deg) and tilt slopes (:func:`predict_candidates`).
     load : None, LoadAxis or stress array
-        As :func:`tracefit.identify.loading.resolve_load` returns.
+        As :func:`tracefit.matching.loading.resolve_load` returns.
     osig, fsig : float
         Orientation and frame sigmas, degrees.
     p_none, schmid_weight : float
@@ -88,7 +88,7 @@ def grain_log_weights(obs: Sequence[ObservedFamily], cands: CandidateSet, g: np.
     Examples
     --------
     >>> from tracefit.crystal import catalogue, lattice_preset
-    >>> from tracefit.identify.candidates import candidate_set
+    >>> from tracefit.matching.candidates import candidate_set
     >>> cs = candidate_set(catalogue(lattice_preset("fcc")), ["slip"])
     >>> ang, incl, slope = predict_candidates(cs, np.eye(3))
     >>> logw, *_ = grain_log_weights([ObservedFamily(75.0)], cs, np.eye(3), ang[0], incl[0], slope[0],
@@ -270,12 +270,12 @@ def identify_grains(
     grain_sigma_deg : dict grain -> float, optional
         Per-grain orientation uncertainty (degrees, >= 0) overriding ``orientation_sigma_deg``.
     artefacts : bool
-        Test the map-level surface-artefact hypothesis (:mod:`tracefit.identify.artefacts`): a family
+        Test the map-level surface-artefact hypothesis (:mod:`tracefit.matching.artefacts`): a family
         that keeps one image angle in several grains whose crystallography predicts different
         traces there is reported unexplained with ``p_artefact`` (default on; it needs at
         least three grains with families).
     artefact_options : dict, optional
-        Keyword options of :func:`tracefit.identify.artefacts.find_artefact_directions` (``p_map``,
+        Keyword options of :func:`tracefit.matching.artefacts.find_artefact_directions` (``p_map``,
         ``line_sigma_deg``, ``min_witnesses``, ``max_directions``).
     frame, load, orientation_sigma_deg, frame_sigma_deg, p_none, schmid_weight, allow_shared_planes, modes, families, report_threshold, ambiguity_ratio
         As :func:`identify_families`.

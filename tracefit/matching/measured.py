@@ -3,7 +3,7 @@
 A person auditing a photo often starts from a line measured by hand (an angle read with a
 protractor tool, or two points read off an image viewer) or from a crack, not from an image
 the detector can read. This module turns such measurements into the matcher's own input,
-:class:`tracefit.identify.ObservedFamily` with ``source="measured"``, and adds the crack
+:class:`tracefit.matching.ObservedFamily` with ``source="measured"``, and adds the crack
 question: which candidate planes is a crack trace consistent with?
 
 Conventions (``docs/conventions.md``): angles are image-frame, degrees counterclockwise from
@@ -27,12 +27,12 @@ import numpy as np
 
 from tracefit.conventions import FrameSettings, fold_axial, pixel_endpoints_angle
 from tracefit.errors import TracefitInputError
-from tracefit.identify.assign import identify_families, identify_grains
-from tracefit.identify.candidates import CandidateSet, as_candidate_set, predict_candidates
-from tracefit.identify.checks import check_sigma, orientation_matrix, orientation_table
-from tracefit.identify.likelihood import family_log_weights, predicted_trace_sigma
-from tracefit.identify.observed import ObservedFamily
-from tracefit.identify.results import FamilyIdentification
+from tracefit.matching.assign import identify_families, identify_grains
+from tracefit.matching.candidates import CandidateSet, as_candidate_set, predict_candidates
+from tracefit.matching.checks import check_sigma, orientation_matrix, orientation_table
+from tracefit.matching.likelihood import family_log_weights, predicted_trace_sigma
+from tracefit.matching.observed import ObservedFamily
+from tracefit.matching.results import FamilyIdentification
 
 __all__ = [
     "MEASURED_CONVENTION",
@@ -356,7 +356,7 @@ class CrackIdentification(FamilyIdentification):
         Candidate planes within and beyond ``k_sigma`` of the crack's angle.
     k_sigma : float
         The consistency factor used.
-    (others as :class:`tracefit.identify.FamilyIdentification`)
+    (others as :class:`tracefit.matching.FamilyIdentification`)
 
     Examples
     --------
@@ -384,9 +384,9 @@ def plane_consistency(family: ObservedFamily, g: Any, cands: Any, frame: FrameSe
                       k_sigma: float = DEFAULT_CRACK_K_SIGMA, near_surface_deg: float | None = None) -> list[PlaneConsistency]:
     """Every distinct candidate plane, with whether the family's angle is within ``k_sigma`` of its trace.
 
-    The spread is the matcher's (:func:`tracefit.identify.family_log_weights`): measurement
+    The spread is the matcher's (:func:`tracefit.matching.family_log_weights`): measurement
     sigma, the predicted trace's spread from the orientation uncertainty
-    (:func:`tracefit.identify.predicted_trace_sigma`) and the frame uncertainty, in quadrature.
+    (:func:`tracefit.matching.predicted_trace_sigma`) and the frame uncertainty, in quadrature.
 
     Parameters
     ----------
@@ -474,8 +474,8 @@ def identify_observed(
 ) -> list[FamilyIdentification]:
     """Identify detected and measured families, and state each crack's consistent planes.
 
-    Families are matched with :func:`tracefit.identify.identify_families` (one orientation
-    ``g``) or :func:`tracefit.identify.identify_grains` (``orientations``). The matcher's
+    Families are matched with :func:`tracefit.matching.identify_families` (one orientation
+    ``g``) or :func:`tracefit.matching.identify_grains` (``orientations``). The matcher's
     rule that two families of one grain cannot share a plane is applied within one source
     only (detected with detected, measured with measured): a hand-measured line may be one
     the detector also found. Each crack (label containing ``crack``) is matched on its own,
@@ -492,13 +492,13 @@ def identify_observed(
     orientations : dict grain -> ndarray (3, 3), optional
         Per-grain orientations instead of ``g``.
     frame, orientation_sigma_deg, frame_sigma_deg, grain_sigma_deg :
-        As :func:`tracefit.identify.identify_grains`.
+        As :func:`tracefit.matching.identify_grains`.
     crack_k_sigma : float
         A crack is consistent with a plane when |residual| <= k sigma (default 2).
     modes, families : optional filters of the candidate systems.
     **matcher_options
         ``load``, ``p_none``, ``schmid_weight``, ``allow_shared_planes``, ``report_threshold``,
-        ``ambiguity_ratio`` (see :func:`tracefit.identify.identify_families`).
+        ``ambiguity_ratio`` (see :func:`tracefit.matching.identify_families`).
 
     Returns
     -------

@@ -6,7 +6,7 @@ families of several grains, the rotation rho (v_image = Rz(rho) v_data) is the v
 makes the predicted traces explain the observed ones best.
 
 Model: for a trial frame, each family's evidence is the robust mixture used by the matcher,
-p_none / 180 + sum_c prior_c f(r_c; sigma_c) (see :mod:`tracefit.identify.likelihood`), so families
+p_none / 180 + sum_c prior_c f(r_c; sigma_c) (see :mod:`tracefit.matching.likelihood`), so families
 nothing explains (scratches, wrong grains) cannot drag the fit. The summed log evidence is
 scanned over rho in [-90, 90) deg (trace angles are axial, so rho and rho + 180 are
 indistinguishable from traces) for both mirror states, then refined. The uncertainty is the
@@ -26,9 +26,9 @@ import numpy as np
 
 from tracefit.conventions import FrameSettings, axial_difference, fold_axial
 from tracefit.errors import TracefitInputError
-from tracefit.identify.candidates import as_candidate_set, predict_candidates
-from tracefit.identify.checks import check_fraction, check_sigma, orientation_table
-from tracefit.identify.likelihood import (
+from tracefit.matching.candidates import as_candidate_set, predict_candidates
+from tracefit.matching.checks import check_fraction, check_sigma, orientation_table
+from tracefit.matching.likelihood import (
     DEFAULT_P_NONE,
     axial_logpdf,
     candidate_log_prior,
@@ -37,7 +37,7 @@ from tracefit.identify.likelihood import (
     predicted_trace_sigma,
     von_mises_kappa,
 )
-from tracefit.identify.observed import ObservedFamily
+from tracefit.matching.observed import ObservedFamily
 
 __all__ = ["FrameFit", "fit_frame"]
 
@@ -153,7 +153,7 @@ class _Evaluator:
             self.sig = np.sqrt(self.os[:, :, None] ** 2 + self.psig[:, None, :] ** 2)
             # Without tilt a frame turn rho only shifts every predicted angle: precompute the
             # doubled residual at rho = 0 and the density's normaliser (same formula as
-            # tracefit.identify.likelihood.axial_logpdf), so each trial rho costs a rotation of (cos, sin).
+            # tracefit.matching.likelihood.axial_logpdf), so each trial rho costs a rotation of (cos, sin).
             r0 = np.radians(2.0 * axial_difference(self.oa[:, :, None], ang0[:, None, :]))
             self.c0, self.s0 = np.cos(r0), np.sin(r0)
             self.kappa = von_mises_kappa(self.sig)
@@ -331,7 +331,7 @@ def fit_frame(
     Three fcc grains whose data frame is turned by 20 deg against the image:
 
     >>> from tracefit.crystal import catalogue, from_euler, lattice_preset
-    >>> from tracefit.identify.candidates import candidate_set
+    >>> from tracefit.matching.candidates import candidate_set
     >>> fcc = lattice_preset("fcc")
     >>> cs = candidate_set(catalogue(fcc), ["slip"])
     >>> gs = {k: from_euler(e) for k, e in enumerate([(10, 30, 0), (70, 40, 20), (130, 25, 50)])}

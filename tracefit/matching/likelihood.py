@@ -26,7 +26,7 @@ Per observed family f and candidate c (one plane variant of one mode):
   Schmid factor; k = 1 is a mild choice.
 
 :func:`family_log_weights` combines them into the (F, P + 1) table of log (prior x
-likelihood) that the joint assignment (:mod:`tracefit.identify.joint`) turns into
+likelihood) that the joint assignment (:mod:`tracefit.matching.joint`) turns into
 probabilities; :func:`mixture_log_evidence` sums it per family for the searches over frames
 and orientations.
 """

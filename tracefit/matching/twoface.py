@@ -29,9 +29,9 @@ from scipy.spatial.transform import Rotation
 
 from tracefit.conventions import FrameSettings, data_to_image_matrix, fold_axial
 from tracefit.errors import TracefitInputError
-from tracefit.identify.candidates import CandidateSet, as_candidate_set
-from tracefit.identify.checks import check_fraction, check_sigma, orientation_matrix
-from tracefit.identify.likelihood import DEFAULT_P_NONE, candidate_log_prior, logsumexp, none_log_density
+from tracefit.matching.candidates import CandidateSet, as_candidate_set
+from tracefit.matching.checks import check_fraction, check_sigma, orientation_matrix
+from tracefit.matching.likelihood import DEFAULT_P_NONE, candidate_log_prior, logsumexp, none_log_density
 
 __all__ = ["FaceGeometry", "TwoFacePlane", "PlaneMatch", "plane_from_two_traces", "index_two_face",
            "interplanar_pairs", "trace_on_face"]

@@ -13,8 +13,8 @@ from typing import Any
 import numpy as np
 
 from tracefit.errors import TracefitInputError
-from tracefit.identify.candidates import CandidateSet
-from tracefit.identify.results import SystemChoice
+from tracefit.matching.candidates import CandidateSet
+from tracefit.matching.results import SystemChoice
 
 __all__ = ["resolve_load", "is_stress", "rank_systems", "prior_drive"]
 
@@ -156,7 +156,7 @@ def rank_systems(load: Any, cands: CandidateSet, g: np.ndarray) -> tuple[list[li
     Examples
     --------
     >>> from tracefit.crystal import catalogue, lattice_preset
-    >>> from tracefit.identify.candidates import candidate_set
+    >>> from tracefit.matching.candidates import candidate_set
     >>> from tracefit.predict import parse_load
     >>> cs = candidate_set(catalogue(lattice_preset("fcc")), ["slip"])
     >>> systems, drive = rank_systems(parse_load("z"), cs, np.eye(3))
