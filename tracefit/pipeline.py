@@ -19,7 +19,6 @@ Settings and their defaults are declared once in :mod:`tracefit.options`.
 from __future__ import annotations
 
 import warnings
-from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Sequence
 
@@ -80,14 +79,10 @@ def resolve_settings(settings: dict | None = None, detect: dict | None = None) -
 
 
 def _as_matrix(orientation) -> np.ndarray:
-    """One orientation matrix g (3, 3) from an Orientation or an array."""
-    from tracefit.crystal import as_orientation_matrix
+    """One orientation matrix g (3, 3), checked to be a rotation, from an Orientation or an array."""
+    from tracefit.matching.checks import orientation_matrix
 
-    g = as_orientation_matrix(orientation, name="orientation")
-    if g.shape != (3, 3):
-        raise TracefitInputError(f"orientation must be one orientation (an Orientation or a 3 x 3 matrix g), "
-                                 f"got {g.shape[0]} of them")
-    return g
+    return orientation_matrix(orientation, name="orientation")
 
 
 def _as_lattice(lattice):

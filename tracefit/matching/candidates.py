@@ -13,15 +13,12 @@ from typing import Any, Iterable
 
 import numpy as np
 
-from tracefit.conventions import FrameSettings, apparent_angle, axial_difference
+from tracefit.conventions import FrameSettings
 from tracefit.errors import TracefitInputError
 
 __all__ = ["plane_key", "CandidateSet", "candidate_set", "as_candidate_set", "predict_candidates"]
 
 # Step of the central difference that gives the stage-tilt slope d(apparent)/d(true), degrees.
-_SLOPE_STEP_DEG = 0.05
-
-
 def plane_key(plane: Iterable) -> tuple:
     """Sign-free key of a plane: (h k l) and (-h -k -l) are the same plane.
 
@@ -216,21 +213,8 @@ def predict_candidates(cands: CandidateSet, g: np.ndarray,
     >>> cs.planes[0], round(float(ang[0, 0]), 2), round(float(incl[0, 0]), 1), float(slope[0, 0])
     ((1, 1, 1), 110.1, 37.9, 1.0)
     """
-    from tracefit.predict import plane_normals_in_image, trace_angles
+    from tracefit.predict import predicted_trace_table
 
     g = np.asarray(g, float)
-    G = g[None] if g.ndim == 2 else g
-    fr = frame or FrameSettings()
-    n_img = plane_normals_in_image(G, cands.normals, fr)  # (N, P, 3)
-    true_ang, incl = trace_angles(n_img)
-    true_ang = np.asarray(true_ang, float).reshape(n_img.shape[:2])
-    incl = np.asarray(incl, float).reshape(n_img.shape[:2])
-    if float(fr.tilt_deg) != 0.0:
-        app = np.asarray(apparent_angle(true_ang, fr), float)
-        h = _SLOPE_STEP_DEG
-        d = axial_difference(apparent_angle(true_ang + h, fr), apparent_angle(true_ang - h, fr)) / (2 * h)
-        slope = np.asarray(d, float)
-    else:
-        app = true_ang
-        slope = np.ones_like(true_ang)
-    return app, incl, slope
+    tab = predicted_trace_table(None, g[None] if g.ndim == 2 else g, cands.normals, frame or FrameSettings())
+    return tab.angle_deg, tab.inclination_deg, tab.slope

@@ -36,7 +36,11 @@ def is_stress(load: Any) -> bool:
     >>> is_stress(parse_load("x")), is_stress(np.eye(3)), is_stress(None)
     (False, True, False)
     """
-    return load is not None and not hasattr(load, "in_crystal")
+    if load is None:
+        return False
+    if hasattr(load, "is_stress"):
+        return bool(load.is_stress)
+    return not hasattr(load, "in_crystal")
 
 
 def resolve_load(load: Any, lattice: Any = None) -> Any:
@@ -53,8 +57,8 @@ def resolve_load(load: Any, lattice: Any = None) -> Any:
 
     Returns
     -------
-    None, LoadAxis or ndarray
-        The load axis, or the stress as a float array of its given shape.
+    None or tracefit.predict.Load
+        The load axis or the stress (:func:`tracefit.predict.as_load`).
 
     Raises
     ------
@@ -65,29 +69,15 @@ def resolve_load(load: Any, lattice: Any = None) -> Any:
     --------
     >>> resolve_load("y").label, resolve_load(None)
     ('y', None)
-    >>> resolve_load([1, 0, 0, 0, 0, 0]).shape
-    (6,)
+    >>> resolve_load([1, 0, 0, 0, 0, 0]).is_stress
+    True
     """
-    from tracefit.predict import parse_load, stress_tensor
+    from tracefit.predict import as_load
 
-    if load is None or hasattr(load, "in_crystal"):
-        return load
-    if isinstance(load, str):
-        return parse_load(load, lattice)
     try:
-        arr = np.asarray(load, float)
-    except (TypeError, ValueError):
-        arr = None
-    if arr is None or arr.shape not in ((3, 3), (6,)):
-        raise TracefitInputError(
-            f"load must be a load axis (text such as 'x' or '[110]', or tracefit.predict.parse_load) or a stress "
-            f"tensor of shape (3, 3) or Voigt (6,), got {load!r}"
-        )
-    try:
-        stress_tensor(arr)
+        return as_load(load, lattice)
     except TracefitInputError as e:
         raise TracefitInputError(f"load: {e}") from None
-    return arr
 
 
 @dataclass(frozen=True)
@@ -124,13 +114,10 @@ def _flat_systems(cands: CandidateSet) -> _FlatSystems:
 
 def _drive_values(load: Any, g: np.ndarray, normals: np.ndarray, dirs: np.ndarray, twin: np.ndarray):
     """Signed drive of every system: Schmid factor or resolved shear, |.| for slip."""
-    from tracefit.predict import resolved_shear, schmid_factor
+    from tracefit.predict import resolved_drive
 
-    if is_stress(load):
-        tau = np.atleast_1d(resolved_shear(load, g, normals, dirs))
-        return np.where(twin, tau, np.abs(tau))
-    m = np.atleast_1d(schmid_factor(load.in_crystal(g), normals, dirs))
-    return np.where(twin, load.sign * m, np.abs(m))
+    v = np.atleast_1d(resolved_drive(load, g, normals, dirs))
+    return np.where(twin, v, np.abs(v))
 
 
 def rank_systems(load: Any, cands: CandidateSet, g: np.ndarray) -> tuple[list[list[SystemChoice]], list[float | None]]:

@@ -22,11 +22,9 @@ import csv
 import hashlib
 import io
 import json
-import os
 import sys
 import time
 import traceback
-import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Callable
