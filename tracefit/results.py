@@ -291,9 +291,7 @@ class ImageResult:
 
     def to_dict(self) -> dict:
         """The JSON object of ``tracefit identify --json``."""
-        from tracefit.matching import identifications_to_json
-
-        d = identifications_to_json(self.families)
+        d = {"families": [r.to_dict() for r in self.families]}
         d.update({
             "lattice": lattice_summary(self.lattice),
             "frame": self.frame.to_dict(),
