@@ -228,45 +228,7 @@ def _print_text(results, lat, ld) -> None:
 
 
 def _write_overlay(path: Path, img, results, labels) -> None:
-    """Observed families (solid) and each one's best predicted trace (dashed) drawn through its grain centre."""
-    import cv2
-    import numpy as np
+    from tracefit.viz.overlay import draw_identified, write_overlay
 
-    from tracefit.conventions import angle_to_pixel_direction
-
-    a = np.asarray(img, float)
-    lo, hi = np.percentile(a, 1), np.percentile(a, 99)
-    g8 = np.clip((a - lo) / max(hi - lo, 1e-9) * 255, 0, 255).astype(np.uint8)
-    out = cv2.cvtColor(g8, cv2.COLOR_GRAY2BGR) if g8.ndim == 2 else g8[..., :3].copy()
-    h, w = out.shape[:2]
-    L = 0.2 * min(h, w)
-    for r in results:
-        if labels is not None and r.grain is not None:
-            rr, cc = np.nonzero(labels == r.grain)
-            if len(rr) == 0:
-                continue
-            c0, r0 = float(cc.mean()), float(rr.mean())
-        else:
-            c0, r0 = w / 2.0, h / 2.0
-        colour = (0, 0, 255) if r.unexplained else ((0, 200, 255) if r.ambiguous else (0, 200, 0))
-        dc, dr = angle_to_pixel_direction(r.angle_deg)
-        p0 = (int(round(c0 - L * dc)), int(round(r0 - L * dr)))
-        p1 = (int(round(c0 + L * dc)), int(round(r0 + L * dr)))
-        cv2.line(out, p0, p1, colour, 2, cv2.LINE_AA)
-        b = r.best
-        if b is not None and not r.unexplained:
-            dc, dr = angle_to_pixel_direction(b.predicted_deg)
-            for t in np.arange(-1.0, 1.0, 0.1):
-                q0 = (int(round(c0 + L * t * dc)), int(round(r0 + L * t * dr)))
-                q1 = (int(round(c0 + L * (t + 0.05) * dc)), int(round(r0 + L * (t + 0.05) * dr)))
-                cv2.line(out, q0, q1, (255, 128, 0), 1, cv2.LINE_AA)
-            label = "(" + " ".join(str(int(x)) for x in b.plane) + ")"
-        else:
-            label = "?"
-        cv2.putText(out, label, p1, cv2.FONT_HERSHEY_SIMPLEX, 0.4, colour, 1, cv2.LINE_AA)
-    path = Path(path)
-    if path.suffix.lower() not in (".png", ".tif", ".tiff", ".jpg", ".jpeg", ".bmp"):
-        raise TracefitInputError(f"--overlay needs an image file name (.png, .tif, .jpg), got {str(path)!r}")
-    if not cv2.imwrite(str(path), out):
-        raise TracefitInputError(f"could not write the overlay {str(path)!r} (does the folder exist?)")
+    write_overlay(path, draw_identified(img, results, labels))
     print(f"overlay written to {path}", file=sys.stderr)

@@ -40,6 +40,7 @@ __all__ = [
     "draw_predicted",
     "draw_detected",
     "write_overlay",
+    "draw_identified",
 ]
 
 DEFAULT_K_SIGMA = 2.0  # wedge half-width in sigmas (about 95 % for a Gaussian)
@@ -451,3 +452,71 @@ def write_overlay(path: str | os.PathLike, rgb: np.ndarray) -> Path:
     if not cv2.imwrite(str(p), cv2.cvtColor(np.asarray(rgb, np.uint8), cv2.COLOR_RGB2BGR)):
         raise TracefitInputError(f"could not write {str(p)!r}; expected a writable path")
     return p
+
+
+_VERDICT_RGB = {"unexplained": (255, 0, 0), "ambiguous": (255, 200, 0), "identified": (0, 200, 0)}
+_PREDICTED_RGB = (0, 128, 255)
+
+
+def draw_identified(image: np.ndarray, identifications: Sequence, labels: np.ndarray | None = None) -> np.ndarray:
+    """The micrograph with each family's observed direction and its identified plane's predicted trace.
+
+    Each family is drawn through its grain's centre (the image centre without a grain map): a
+    solid line at the observed angle, coloured by verdict (green identified, amber ambiguous,
+    red unexplained), and for an identified family a dashed line at the best plane's predicted
+    angle, labelled with the plane.
+
+    Parameters
+    ----------
+    image : ndarray, shape (H, W) or (H, W, 3)
+        The micrograph (any grey range; shown stretched between its 1st and 99th percentiles).
+    identifications : sequence of FamilyIdentification
+        From :func:`tracefit.identify` or ``ImageResult.families``.
+    labels : ndarray of int, shape (H, W), optional
+        Grain label image, to place each grain's family at its centre.
+
+    Returns
+    -------
+    ndarray of uint8, shape (H, W, 3)
+        RGB drawing.
+
+    Examples
+    --------
+    >>> from tracefit.matching import ObservedFamily
+    >>> from tracefit.pipeline import identify
+    >>> from tracefit.crystal import Orientation
+    >>> res = identify([ObservedFamily(73.2, 0.3)], "fcc", orientation=Orientation.from_euler([10, 20, 30]),
+    ...                modes=["slip"])
+    >>> rgb = draw_identified(np.zeros((64, 96)), res.families)
+    >>> rgb.shape, bool((rgb[..., 1] == 200).any())
+    ((64, 96, 3), True)
+    """
+    from tracefit.conventions import angle_to_pixel_direction
+    from tracefit.viz.labels import plane_label
+
+    out = np.ascontiguousarray(_to_display_rgb8(np.asarray(image)))
+    h, w = out.shape[:2]
+    half = 0.2 * min(h, w)
+    for r in identifications:
+        c0, r0 = w / 2.0, h / 2.0
+        if labels is not None and getattr(r, "grain", None) is not None:
+            rr, cc = np.nonzero(labels == r.grain)
+            if len(rr) == 0:
+                continue
+            c0, r0 = float(cc.mean()), float(rr.mean())
+        verdict = "unexplained" if r.unexplained else ("ambiguous" if r.ambiguous else "identified")
+        colour = _VERDICT_RGB[verdict]
+        dc, dr = angle_to_pixel_direction(r.angle_deg)
+        end = (int(round(c0 + half * dc)), int(round(r0 + half * dr)))
+        cv2.line(out, (int(round(c0 - half * dc)), int(round(r0 - half * dr))), end, colour, 2, cv2.LINE_AA)
+        best = r.best
+        if best is not None and not r.unexplained:
+            dc, dr = angle_to_pixel_direction(best.predicted_deg)
+            q0 = (c0 - half * dc, r0 - half * dr)
+            q1 = (c0 + half * dc, r0 + half * dr)
+            _dashed(out, q0, q1, _PREDICTED_RGB, 1, max(4.0, half / 10))
+            text = plane_label(best.plane)
+        else:
+            text = "?"
+        _text(out, text, end, 0.4, colour, 1)
+    return out
