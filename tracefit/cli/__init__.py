@@ -17,6 +17,8 @@ app = typer.Typer(
     no_args_is_help=True,
     add_completion=False,
     pretty_exceptions_enable=False,
+    # plain help: no '<bool>' beside flags, no boxes; reads the same in a terminal, a pipe or a log
+    rich_markup_mode=None,
 )
 
 
