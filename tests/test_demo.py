@@ -113,3 +113,17 @@ def test_demo_report_records_input_digests_and_software(demo_run):
         assert rec["inputs_sha256"]["file"] == digest and digest in html
     assert d["software"]["numpy"] and d["software"]["python"]
     assert "The job file as run" in html and "Harrow Lane Instruments" in d["job"]["text"]
+
+
+def test_the_report_is_small_enough_to_send(demo_run):
+    # Issue 16 item 10: at most 300 kB per image on the demo; figures embedded at screen size,
+    # the full-resolution PNGs kept beside the report; stereograms only for grains with families.
+    code, out, err, folder = demo_run
+    html = (folder / "report.html").read_text(encoding="utf-8")
+    job = load_job(demo_job_path())
+    assert (folder / "report.html").stat().st_size <= 300_000 * len(job.images)
+    records = json.loads((folder / "results.json").read_text())["images"]
+    grains_with_families = sum(len({f.get("grain") for f in r["families"]}) for r in records)
+    assert html.count('<figure class="stereo">') == grains_with_families
+    for name in re.findall(r'href="images/([^"]+)"', html):
+        assert (folder / "images" / name).is_file()

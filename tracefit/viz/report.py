@@ -112,13 +112,45 @@ def _direction(d) -> str:
     return direction_label(d) if d else ""
 
 
+# Embedded figures are sized for a screen, not for print: the full-resolution PNGs stay beside the
+# report in images/, and the report links each one. A micrograph overlay is a photograph (JPEG);
+# line drawings (stereograms, rose diagrams) stay PNG.
+_EMBED_WIDTH_PX = {"overlay": 960, "stereo": 460, "rose": 420}
+
+
+def _compact(data: bytes, cls: str) -> tuple[bytes, str]:
+    """Figure bytes re-encoded for the report: (bytes, MIME type); the input itself when that is smaller."""
+    import io
+
+    from PIL import Image  # Pillow comes with matplotlib
+
+    try:
+        img = Image.open(io.BytesIO(data)).convert("RGB")
+    except Exception:  # not an image Pillow reads: embed it as it is
+        return data, "image/png"
+    width = _EMBED_WIDTH_PX.get(cls, 640)
+    if img.width > width:
+        img = img.resize((width, max(1, round(img.height * width / img.width))), Image.LANCZOS)
+    buf = io.BytesIO()
+    if cls == "overlay":
+        img.save(buf, "JPEG", quality=85, optimize=True)
+        mime = "image/jpeg"
+    else:  # line art: a 64-colour palette keeps every line and is a fraction of the size
+        img.quantize(colors=64, method=Image.Quantize.MEDIANCUT).save(buf, "PNG", optimize=True)
+        mime = "image/png"
+    small = buf.getvalue()
+    return (small, mime) if len(small) < len(data) else (data, "image/png")
+
+
 def _img_tag(path: Path, alt: str, cls: str) -> str:
     try:
         data = path.read_bytes()
     except OSError:
         return f'<p class="error">figure {_e(path.name)} is missing</p>'
-    b64 = base64.b64encode(data).decode("ascii")
-    return f'<img class="{cls}" alt="{_e(alt)}" src="data:image/png;base64,{b64}">'
+    small, mime = _compact(data, cls)
+    b64 = base64.b64encode(small).decode("ascii")
+    return (f'<a href="images/{_e(path.name)}" title="full resolution"><img class="{cls}" alt="{_e(alt)}" '
+            f'src="data:{mime};base64,{b64}"></a>')
 
 
 def _settings_rows(s: dict) -> str:
@@ -223,8 +255,11 @@ def _figures(rec: dict, img_dir: Path) -> str:
                    + f"<figcaption>Detected band families drawn on the micrograph, each labelled with its identified "
                    f"plane (F1 ... F{len(fams)}; G = grain).</figcaption></figure>")
     grs = rec.get("grains") or []
+    with_families = {f.get("grain") for f in fams}
     for k, sname in enumerate(figs.get("stereograms") or []):
         gr = grs[k] if k < len(grs) else {}
+        if gr.get("grain") not in with_families:
+            continue  # a stereogram without observed traces says nothing about this image
         gtxt = f" of grain {gr['grain']}" if gr.get("grain") is not None else ""
         eul = (" (Bunge Euler " + ", ".join(_num(x, 1) for x in gr["euler_deg"]) + " deg)") if gr.get("euler_deg") else ""
         out.append('<figure class="stereo">' + _img_tag(img_dir / sname, f"{name}: stereogram {k + 1}", "stereo")
