@@ -121,3 +121,19 @@ def test_version(run_cli):
 
     code, out, err = run_cli("--version")
     assert code == 0 and out.strip() == f"tracefit {tracefit.__version__}"
+
+
+def test_detect_exposes_the_detector_settings(run_cli, tmp_path):
+    # Issue 13 item 8: the settings a user may need on a hard image, named as in the API.
+    img, _ = render_micrograph((192, 192), [BandFamilySpec(30.0, 16, 3, -0.3)], seed=3)
+    p = tmp_path / "a.png"
+    cv2.imwrite(str(p), np.clip(img * 255, 0, 255).astype(np.uint8))
+    code, out, err = run_cli("detect", str(p), "--json", "--min-bands", "2", "--scales", "1,2", "--no-find-bar",
+                             "--min-depth", "0.02", "--working-size", "512")
+    assert code == 0, err
+    fams = json.loads(out)["families"]
+    assert len(fams) == 1 and abs(axial_difference(fams[0]["angle_deg"], 30.0)) < 0.5
+    code, out, err = run_cli("detect", str(p), "--min-bands", "0")
+    assert code == 2 and "--min-bands" in err and err.count("\n") == 1
+    code, out, err = run_cli("detect", str(p), "--scales", "1,x")
+    assert code == 2 and "--scales" in err

@@ -12,6 +12,13 @@ import typer
 
 from tracefit.cli import app
 from tracefit.errors import TracefitInputError
+from tracefit.options import option
+
+
+def _setting(name: str, flag: str, **kw):
+    """A detector setting as a typer option: default and meaning from tracefit.options."""
+    o = option(name)
+    return typer.Option(o.default, flag, help=o.help[0].upper() + o.help[1:] + ".", **kw)
 
 
 def _err(msg: str) -> None:
@@ -25,6 +32,15 @@ def detect_command(
     mask: Optional[str] = typer.Option(None, "--mask", help="Binary mask image of the same size: non-zero pixels are analysed."),
     overlay: Optional[str] = typer.Option(None, "--overlay", help="Write the image with the detected bands drawn (PNG)."),
     as_json: bool = typer.Option(False, "--json", help="Print one JSON object on stdout."),
+    min_depth: float = _setting("min_depth", "--min-depth"),
+    min_bands: int = _setting("min_bands", "--min-bands"),
+    max_families: int = _setting("max_families", "--max-families"),
+    min_coverage: float = _setting("min_coverage", "--min-coverage"),
+    working_size: int = _setting("working_size", "--working-size"),
+    scales: str = typer.Option(",".join(f"{s:g}" for s in option("scales").default), "--scales",
+                               help="Ridge-filter scales at working resolution, px, comma separated."),
+    find_bar: bool = typer.Option(True, "--find-bar/--no-find-bar",
+                                  help="Look for an instrument data bar and leave it out."),
 ) -> None:
     """Detect families of parallel straight bands (slip or twin traces) in IMAGE.
 
@@ -33,6 +49,18 @@ def detect_command(
     """
     from tracefit.image import detect_bands
     from tracefit.image import read_image, read_mask
+    from tracefit.options import OptionError, check_options
+
+    try:
+        scale_list = [float(s) for s in scales.split(",") if s.strip()]
+    except ValueError:
+        raise TracefitInputError(f"--scales {scales!r}: expected numbers separated by commas, e.g. 1,1.7,2.8") from None
+    try:
+        settings = check_options(dict(min_depth=min_depth, min_bands=min_bands, max_families=max_families,
+                                      min_coverage=min_coverage, working_size=working_size, scales=scale_list,
+                                      find_bar=find_bar), "detect")
+    except OptionError as exc:  # the same names as the API, spelt as flags here
+        raise TracefitInputError(str(exc).replace(exc.name, "--" + exc.name.replace("_", "-"), 1)) from None
 
     if pixel_size is not None and not (pixel_size > 0 and math.isfinite(pixel_size)):
         raise TracefitInputError(f"--pixel-size {pixel_size!r}: expected a positive number of micrometres per pixel")
@@ -42,7 +70,7 @@ def detect_command(
     if hi <= lo:
         raise TracefitInputError(f"{image}: the image is constant (every pixel = {lo:g}); expected a micrograph with contrast")
     _err(f"tracefit detect: {Path(image).name}: {gray.shape[1]} x {gray.shape[0]} px; detecting bands ...")
-    result = detect_bands(gray, mask=m, pixel_size_um=pixel_size, path=str(image), notes=notes)
+    result = detect_bands(gray, mask=m, pixel_size_um=pixel_size, path=str(image), notes=notes, **settings)
     for note in result.notes:
         _err(f"note: {note}")
     if overlay:
