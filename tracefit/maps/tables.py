@@ -125,17 +125,40 @@ def read_orientation_table(path) -> dict[int, GrainOrientation]:
     return out
 
 
-def write_orientation_table(path, grains: dict, phase: str | None = None) -> None:
-    """Write ``{grain: g or (phi1, Phi, phi2)}`` as an orientation CSV (Bunge Euler, degrees)."""
+def write_orientation_table(path, grains: dict, phase: str | None = None, sigma_deg: dict | None = None) -> None:
+    """Write ``{grain: g or (phi1, Phi, phi2)}`` as an orientation CSV (Bunge Euler, degrees).
+
+    Parameters
+    ----------
+    path : str or Path
+        Output CSV.
+    grains : dict
+        Grain id -> orientation matrix g (3, 3) or Bunge Euler angles (3,) in degrees.
+    phase : str, optional
+        Written in a ``phase`` column for every grain.
+    sigma_deg : dict, optional
+        Grain id -> orientation uncertainty in degrees, written in a ``sigma_deg`` column.
+
+    Examples
+    --------
+    >>> import tempfile, os
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     p = os.path.join(d, "t.csv")
+    ...     write_orientation_table(p, {3: (10, 20, 30)}, sigma_deg={3: 0.5})
+    ...     t = read_orientation_table(p)
+    >>> t[3].euler_deg, t[3].sigma_deg
+    ((10.0, 20.0, 30.0), 0.5)
+    """
     from tracefit.crystal import to_euler
 
     with open(path, "w", newline="", encoding="utf-8") as fh:
         w = csv.writer(fh)
-        w.writerow(["grain", "phi1", "Phi", "phi2"] + (["phase"] if phase else []))
+        w.writerow(["grain", "phi1", "Phi", "phi2"] + (["phase"] if phase else []) + (["sigma_deg"] if sigma_deg else []))
         for gid in sorted(grains):
             v = np.asarray(grains[gid], float)
             e = to_euler(v) if v.shape == (3, 3) else v
-            w.writerow([int(gid)] + [f"{x:.6f}" for x in np.ravel(e)] + ([phase] if phase else []))
+            w.writerow([int(gid)] + [f"{x:.6f}" for x in np.ravel(e)] + ([phase] if phase else [])
+                       + ([f"{float(sigma_deg[gid]):.4f}"] if sigma_deg else []))
 
 
 def read_label_image(path) -> np.ndarray:
