@@ -11,9 +11,16 @@ from __future__ import annotations
 import os
 from pathlib import Path
 
+from typing import TYPE_CHECKING
+
 import numpy as np
 
 from tracefit.errors import TracefitInputError
+
+if TYPE_CHECKING:  # for the annotations only: no import cycle, no matplotlib at import
+    from matplotlib.figure import Figure
+
+    from tracefit.maps.grain_map import GrainMap
 
 __all__ = ["grain_boundaries", "registration_figure", "write_registration_figure"]
 
@@ -50,7 +57,7 @@ def _grey(image: np.ndarray) -> np.ndarray:
     return np.clip((a - lo) / max(hi - lo, 1e-12), 0.0, 1.0)
 
 
-def registration_figure(image: np.ndarray, grain_map, max_inches: float = 8.0):
+def registration_figure(image: np.ndarray, grain_map: "GrainMap", max_inches: float = 8.0) -> "Figure":
     """The micrograph with the grain map's boundaries, grain ids and control points drawn over it.
 
     Parameters
@@ -117,7 +124,7 @@ def registration_figure(image: np.ndarray, grain_map, max_inches: float = 8.0):
     return fig
 
 
-def write_registration_figure(path: str | os.PathLike, image: np.ndarray, grain_map, dpi: int = 100) -> Path:
+def write_registration_figure(path: str | os.PathLike, image: np.ndarray, grain_map: "GrainMap", dpi: int = 100) -> Path:
     """Write :func:`registration_figure` as a PNG.
 
     Parameters

@@ -49,6 +49,17 @@ class GrainMap:
         The grains on the map grid (``labels`` in map points).
     notes, warnings : list of str
         Plain remarks, and things that may make the result wrong.
+
+    Examples
+    --------
+    >>> from tracefit.crystal import Lattice
+    >>> from tracefit.maps import grain_quaternions
+    >>> lab = np.zeros((4, 8), int); lab[:, 4:] = 1
+    >>> omap = OrientationMap(grain_quaternions(lab, [[0, 0, 0], [45, 0, 0]]), np.ones((4, 8), bool),
+    ...                       Lattice.fcc(), (1.0, 1.0), "ni", 1)
+    >>> gm = grain_map_from_orientation_map(omap, (40, 80), min_grain_px=10)
+    >>> gm.labels[0, ::10].tolist(), gm.summary()["grains_in_image"]
+    ([1, 1, 1, 1, 2, 2, 2, 2], 2)
     """
 
     labels: np.ndarray
@@ -69,6 +80,10 @@ class GrainMap:
         dict
             :meth:`OrientationMap.summary` keys plus ``grains_found``, ``grains_in_image``,
             ``registration``, ``max_residual_px`` (None without control points).
+
+        Examples
+        --------
+        See :class:`GrainMap`.
         """
         s = self.orientation_map.summary()
         s.update(grains_found=self.segmentation.n_grains, grains_in_image=len(self.table),

@@ -140,7 +140,7 @@ class OrientationMap:
         }
 
     @classmethod
-    def from_file(cls, path, phase: int | str | None = None, lattice: Lattice | None = None) -> "OrientationMap":
+    def from_file(cls, path: str | Path, phase: int | str | None = None, lattice: Lattice | None = None) -> "OrientationMap":
         """Read one phase of an orientation map file (.ang, .ctf, orix HDF5) with ``orix.io.load``.
 
         Parameters
@@ -187,7 +187,7 @@ class OrientationMap:
         return _from_crystal_map(xmap, phase, lattice, path)
 
 
-def read_orientation_map(path, phase: int | str | None = None, lattice: Lattice | None = None) -> OrientationMap:
+def read_orientation_map(path: str | Path, phase: int | str | None = None, lattice: Lattice | None = None) -> OrientationMap:
     """Read one phase of an orientation map file; see :meth:`OrientationMap.from_file`.
 
     Examples
@@ -218,7 +218,7 @@ def read_orientation_map(path, phase: int | str | None = None, lattice: Lattice 
     return _from_crystal_map(xmap, phase, lattice, str(p))
 
 
-def lattice_for_laue(laue: str, abc_angles=None, name: str = "phase") -> tuple[Lattice, float | None]:
+def lattice_for_laue(laue: str, abc_angles: tuple | None = None, name: str = "phase") -> tuple[Lattice, float | None]:
     """A Lattice of the given Laue class, from the map's cell when that cell fits the class.
 
     Parameters

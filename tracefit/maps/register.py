@@ -58,11 +58,11 @@ class Registration:
     control_points: np.ndarray | None = None
     warnings: list = field(default_factory=list)
 
-    def map_to_image(self, xy) -> np.ndarray:
+    def map_to_image(self, xy: np.ndarray) -> np.ndarray:
         """Map grid points (col, row), shape (n, 2), to micrograph pixels (col, row), shape (n, 2)."""
         return _apply(self.matrix, xy)
 
-    def image_to_map(self, xy) -> np.ndarray:
+    def image_to_map(self, xy: np.ndarray) -> np.ndarray:
         """Micrograph pixels (col, row), shape (n, 2), to map grid points (col, row), shape (n, 2)."""
         return _apply(np.linalg.inv(self.matrix), xy)
 
@@ -73,7 +73,7 @@ def _apply(m: np.ndarray, xy) -> np.ndarray:
     return h[:, :2] / h[:, 2:3]
 
 
-def read_control_points(points) -> np.ndarray:
+def read_control_points(points: str | Path | np.ndarray) -> np.ndarray:
     """Control point pairs from a CSV (columns image_x, image_y, map_x, map_y) or an array.
 
     Parameters
@@ -143,7 +143,7 @@ def _check_spread(xy: np.ndarray, what: str) -> None:
         raise TracefitInputError(f"the control points are collinear in the {what}; give at least 3 points that span an area")
 
 
-def fit_registration(points, image_shape: tuple[int, int], map_shape: tuple[int, int], kind: str = "affine",
+def fit_registration(points: str | Path | np.ndarray, image_shape: tuple[int, int], map_shape: tuple[int, int], kind: str = "affine",
                      residual_warn_px: float = 2.0) -> Registration:
     """Fit the map -> micrograph transform from control point pairs.
 
@@ -191,7 +191,11 @@ def fit_registration(points, image_shape: tuple[int, int], map_shape: tuple[int,
     _check_spread(img, "micrograph")
     _check_spread(mp, "orientation map")
     model = {"affine": AffineTransform, "projective": ProjectiveTransform}[kind]
-    tform = model.from_estimate(mp, img)
+    if hasattr(model, "from_estimate"):  # scikit-image >= 0.26
+        tform = model.from_estimate(mp, img)
+    else:  # older releases: estimate() in place, returning success
+        tform = model()
+        tform = tform if tform.estimate(mp, img) else None
     if not tform or not np.all(np.isfinite(tform.params)) or abs(np.linalg.det(tform.params)) < 1e-12:
         raise TracefitInputError(f"the {kind} registration could not be fitted to the control points")
     reg = Registration(np.asarray(tform.params, float), kind, control_points=cp)
@@ -251,10 +255,12 @@ def warp_labels(map_labels: np.ndarray, registration: Registration, image_shape:
     block = max(1, 2_000_000 // max(w, 1))  # rows per block, to bound memory on large pictures
     for r0 in range(0, h, block):
         rr, cc = np.meshgrid(np.arange(r0, min(h, r0 + block), dtype=float), cols, indexing="ij")
-        xy = _apply(inv, np.column_stack([cc.ravel(), rr.ravel()]))
-        mc, mr = np.floor(xy[:, 0] + 0.5), np.floor(xy[:, 1] + 0.5)
-        ok = (mc >= 0) & (mc < mw) & (mr >= 0) & (mr < mh)
-        vals = np.full(len(xy), -1, np.int64)
+        hom = np.column_stack([cc.ravel(), rr.ravel()]) @ inv[:, :2].T + inv[:, 2]
+        front = hom[:, 2] > 0  # a projective map's far side of its horizon is not the map
+        with np.errstate(divide="ignore", invalid="ignore"):
+            mc, mr = np.floor(hom[:, 0] / hom[:, 2] + 0.5), np.floor(hom[:, 1] / hom[:, 2] + 0.5)
+        ok = front & (mc >= 0) & (mc < mw) & (mr >= 0) & (mr < mh)
+        vals = np.full(len(hom), -1, np.int64)
         vals[ok] = lab[mr[ok].astype(np.int64), mc[ok].astype(np.int64)]
         out[r0:r0 + rr.shape[0]] = vals.reshape(rr.shape)
     return out

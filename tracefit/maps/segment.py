@@ -47,6 +47,12 @@ class GrainSegmentation:
         Map points per grain.
     n_dropped_regions : int
         Connected regions not kept for being smaller than the minimum.
+
+    Examples
+    --------
+    >>> s = GrainSegmentation(np.array([[1, -1]]), np.array([[1.0, 0, 0, 0]]), np.zeros(1), np.array([1]))
+    >>> s.n_grains
+    1
     """
 
     labels: np.ndarray
