@@ -24,7 +24,31 @@ __all__ = ["GrainOrientation", "read_orientation_table", "write_orientation_tabl
 
 @dataclass
 class GrainOrientation:
-    """One row of an orientation table."""
+    """One grain's orientation: a row of an orientation table, or a grain of an orientation map.
+
+    Parameters
+    ----------
+    grain : int
+        Grain id, as in the label image.
+    g : ndarray, shape (3, 3)
+        Orientation matrix, sample -> crystal (Bunge, passive).
+    euler_deg : tuple of 3 float, optional
+        Bunge (phi1, Phi, phi2) in degrees, when known.
+    phase : str, optional
+        Phase label (a lattice preset name in a table; the map's phase name for a map's grain).
+    c_over_a : float, optional
+        Axial ratio of the phase.
+    sigma_deg : float, optional
+        Orientation uncertainty of this grain, degrees (a map grain's orientation spread).
+    extra : dict
+        Other columns (table) or per-grain facts (map: ``map_points``, ``image_px``,
+        ``grain_x_px``, ``grain_y_px``).
+
+    Examples
+    --------
+    >>> GrainOrientation(3, np.eye(3), (0.0, 0.0, 0.0), sigma_deg=0.4).sigma_deg
+    0.4
+    """
 
     grain: int
     g: np.ndarray
@@ -45,7 +69,8 @@ def _num(text, col, line):
     return v
 
 
-def read_orientation_table(path) -> dict[int, GrainOrientation]:
+# Long because each column's check is spelled out with its own message, in file order.
+def read_orientation_table(path: str | Path) -> dict[int, GrainOrientation]:
     """Read a grain orientation CSV.
 
     Parameters
@@ -55,6 +80,18 @@ def read_orientation_table(path) -> dict[int, GrainOrientation]:
     Returns
     -------
     dict grain id -> GrainOrientation (``g`` maps sample to crystal).
+
+    Raises
+    ------
+    TracefitInputError
+        A missing or unreadable file, missing columns, a bad value, a repeated grain.
+
+    Examples
+    --------
+    >>> read_orientation_table("no_such_table.csv")
+    Traceback (most recent call last):
+    ...
+    tracefit.errors.TracefitInputError: orientation table 'no_such_table.csv' not found (expected a CSV with columns grain,phi1,Phi,phi2)
     """
     from tracefit.crystal import from_euler, from_quaternion
 
@@ -125,21 +162,66 @@ def read_orientation_table(path) -> dict[int, GrainOrientation]:
     return out
 
 
-def write_orientation_table(path, grains: dict, phase: str | None = None) -> None:
-    """Write ``{grain: g or (phi1, Phi, phi2)}`` as an orientation CSV (Bunge Euler, degrees)."""
+def write_orientation_table(path: str | Path, grains: dict, phase: str | None = None, sigma_deg: dict | None = None) -> None:
+    """Write ``{grain: g or (phi1, Phi, phi2)}`` as an orientation CSV (Bunge Euler, degrees).
+
+    Parameters
+    ----------
+    path : str or Path
+        Output CSV.
+    grains : dict
+        Grain id -> orientation matrix g (3, 3) or Bunge Euler angles (3,) in degrees.
+    phase : str, optional
+        Written in a ``phase`` column for every grain.
+    sigma_deg : dict, optional
+        Grain id -> orientation uncertainty in degrees, written in a ``sigma_deg`` column.
+
+    Examples
+    --------
+    >>> import tempfile, os
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     p = os.path.join(d, "t.csv")
+    ...     write_orientation_table(p, {3: (10, 20, 30)}, sigma_deg={3: 0.5})
+    ...     t = read_orientation_table(p)
+    >>> t[3].euler_deg, t[3].sigma_deg
+    ((10.0, 20.0, 30.0), 0.5)
+    """
     from tracefit.crystal import to_euler
 
     with open(path, "w", newline="", encoding="utf-8") as fh:
         w = csv.writer(fh)
-        w.writerow(["grain", "phi1", "Phi", "phi2"] + (["phase"] if phase else []))
+        w.writerow(["grain", "phi1", "Phi", "phi2"] + (["phase"] if phase else []) + (["sigma_deg"] if sigma_deg else []))
         for gid in sorted(grains):
             v = np.asarray(grains[gid], float)
             e = to_euler(v) if v.shape == (3, 3) else v
-            w.writerow([int(gid)] + [f"{x:.6f}" for x in np.ravel(e)] + ([phase] if phase else []))
+            w.writerow([int(gid)] + [f"{x:.6f}" for x in np.ravel(e)] + ([phase] if phase else [])
+                       + ([f"{float(sigma_deg[gid]):.4f}"] if sigma_deg else []))
 
 
-def read_label_image(path) -> np.ndarray:
-    """Integer grain label image from a PNG/TIFF (each pixel value is a grain id; 16-bit kept)."""
+def read_label_image(path: str | Path) -> np.ndarray:
+    """Integer grain label image from a PNG/TIFF/.npy (each pixel value is a grain id; 16-bit kept).
+
+    Parameters
+    ----------
+    path : str or Path
+
+    Returns
+    -------
+    ndarray of int64, shape (H, W)
+
+    Raises
+    ------
+    TracefitInputError
+        A missing or unreadable file, a colour image, or values that are not integers.
+
+    Examples
+    --------
+    >>> import tempfile, os
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     np.save(os.path.join(d, "lab.npy"), np.array([[1, 2], [-1, 2]], np.int32))
+    ...     read_label_image(os.path.join(d, "lab.npy")).tolist()
+    [[1, 2], [-1, 2]]
+    """
     import tifffile  # noqa: F401  (tif support through read via cv2/tifffile)
 
     p = Path(path)
