@@ -20,7 +20,7 @@ from __future__ import annotations
 
 import warnings
 from pathlib import Path
-from typing import Any, Sequence
+from typing import TYPE_CHECKING, Any, Sequence
 
 import numpy as np
 
@@ -28,6 +28,12 @@ from tracefit.conventions import FrameSettings
 from tracefit.errors import TracefitInputError
 from tracefit.options import DEFAULT_MODES, check_options, defaults
 from tracefit.results import FamilyDetection, GrainStatus, Identification, ImageResult
+
+if TYPE_CHECKING:  # names for the hints only; the chain imports its stages lazily
+    from tracefit.crystal import DeformationSystem, Lattice, Orientation
+    from tracefit.maps import GrainOrientation
+    from tracefit.matching import ObservedFamily
+    from tracefit.predict import LoadAxis
 
 __all__ = [
     "GrainStatus",
@@ -104,23 +110,35 @@ def _as_load(load, lattice):
 
 
 # --------------------------------------------------------------------------- stage 1: grain maps
-def orientation_table(orientations) -> dict:
+def orientation_table(orientations: str | Path | dict) -> dict[int, GrainOrientation]:
     """Grain id -> GrainOrientation, from an orientation table file or a dict of orientations.
 
     Parameters
     ----------
     orientations : str, Path or dict
         Orientation table CSV (docs/orientation-table.md), or a dict grain id ->
-        GrainOrientation, Orientation or matrix g (3, 3).
+        GrainOrientation, Orientation or matrix g (3, 3) (crystal -> sample, Bunge convention).
 
     Returns
     -------
     dict of int -> GrainOrientation
+        One entry per grain, keyed by its integer id; a matrix or Orientation given in the
+        dict becomes a GrainOrientation with that matrix ``g`` (3, 3).
 
     Raises
     ------
     TracefitInputError
         An unreadable table, or a value that is not an orientation.
+
+    Examples
+    --------
+    Two grains given in a dict, one as a matrix and one as Bunge angles (degrees):
+
+    >>> import numpy as np
+    >>> from tracefit.crystal import from_euler
+    >>> table = orientation_table({1: np.eye(3), "2": from_euler([0, 0, 90])})
+    >>> sorted(table), type(table[2]).__name__, table[2].g.shape
+    ([1, 2], 'GrainOrientation', (3, 3))
     """
     from tracefit.maps import GrainOrientation, read_orientation_table
 
@@ -132,13 +150,37 @@ def orientation_table(orientations) -> dict:
             for k, v in orientations.items()}
 
 
-def read_label_map(labels, shape: tuple[int, int] | None = None) -> np.ndarray:
+def read_label_map(labels: str | Path | np.ndarray, shape: tuple[int, ...] | None = None) -> np.ndarray:
     """A grain label image (file or array) as int64, checked against the micrograph's size.
+
+    Parameters
+    ----------
+    labels : str, Path or ndarray (H, W) of int
+        Grain label image file (PNG/TIFF) or array of integer grain ids.
+    shape : tuple of int, optional
+        The micrograph's (rows, columns, ...) in pixels; the label image must match its
+        first two entries.
+
+    Returns
+    -------
+    ndarray (H, W) of int64
+        The grain ids, one per pixel.
 
     Raises
     ------
     TracefitInputError
         Not a 2-D integer image, or a size that differs from ``shape``.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> lab = read_label_map(np.array([[1, 1, 2], [1, 2, 2]], dtype=np.uint8), shape=(2, 3))
+    >>> lab.dtype, lab.shape
+    (dtype('int64'), (2, 3))
+    >>> read_label_map(np.zeros((2, 3), int), shape=(4, 4))
+    Traceback (most recent call last):
+    ...
+    tracefit.errors.TracefitInputError: the grain label image is 3x2 px but the micrograph is 4x4 px; they must match pixel for pixel
     """
     from tracefit.maps import read_label_image
 
@@ -152,7 +194,8 @@ def read_label_map(labels, shape: tuple[int, int] | None = None) -> np.ndarray:
     return lab.astype(np.int64)
 
 
-def read_grain_map(labels, orientations, shape: tuple[int, int] | None = None):
+def read_grain_map(labels: str | Path | np.ndarray, orientations: str | Path | dict,
+                   shape: tuple[int, ...] | None = None) -> tuple[np.ndarray, dict[int, GrainOrientation]]:
     """A grain label image and its orientation table, checked against each other and the image.
 
     Parameters
@@ -168,12 +211,29 @@ def read_grain_map(labels, orientations, shape: tuple[int, int] | None = None):
     Returns
     -------
     labels : ndarray (H, W) of int64
+        The grain id of every pixel.
     table : dict of int -> GrainOrientation
+        The orientation of every grain in the table (grains of the image missing from it
+        are left out, not an error).
 
     Raises
     ------
     TracefitInputError
         Unreadable files, a size mismatch, or no grain id in common.
+
+    Examples
+    --------
+    A two-grain map built in memory (no files):
+
+    >>> import numpy as np
+    >>> labels = np.repeat([[1, 1, 2, 2]], 3, axis=0)
+    >>> lab, table = read_grain_map(labels, {1: np.eye(3), 2: np.eye(3)}, shape=(3, 4))
+    >>> lab.shape, sorted(table)
+    ((3, 4), [1, 2])
+    >>> read_grain_map(labels, {7: np.eye(3)})
+    Traceback (most recent call last):
+    ...
+    tracefit.errors.TracefitInputError: no grain id of the orientation table occurs in the grain label image
     """
     lab = read_label_map(labels, shape)
     table = orientation_table(orientations)
@@ -184,7 +244,8 @@ def read_grain_map(labels, orientations, shape: tuple[int, int] | None = None):
 
 
 # --------------------------------------------------------------------------- stage 2: detection
-def detect_families(image, *, labels=None, orientations: dict | None = None, mask=None,
+def detect_families(image: np.ndarray, *, labels: np.ndarray | None = None,
+                    orientations: dict[int, GrainOrientation] | None = None, mask: np.ndarray | None = None,
                     pixel_size_um: float | None = None, min_grain_px: int | None = None, path: str | None = None,
                     **detect: Any) -> FamilyDetection:
     """Detect band families in a micrograph: per grain on a grain map, else in the whole image.
@@ -212,11 +273,24 @@ def detect_families(image, *, labels=None, orientations: dict | None = None, mas
     Returns
     -------
     FamilyDetection
+        ``observed`` (one ObservedFamily per family, angles in degrees), the detector's
+        ``bands``, one :class:`GrainStatus` per grain (one for the whole image without a grain
+        map) and ``notes``.
 
     Raises
     ------
     TracefitInputError
         Bad settings, or an image the detector cannot use.
+
+    Examples
+    --------
+    A synthetic 192 x 192 px micrograph with one band family at 30 deg, 16 px apart:
+
+    >>> from tracefit.image import BandFamilySpec, render_micrograph
+    >>> img, truth = render_micrograph((192, 192), [BandFamilySpec(angle_deg=30, spacing_px=16)], seed=0)
+    >>> det = detect_families(img)
+    >>> [round(o.angle_deg, 1) for o in det.observed], det.grains[0].status
+    ([30.0], 'analysed')
     """
     from tracefit.matching import observed_from_detection
     from tracefit.image import detect_bands, detect_grains, line_continuation
@@ -275,9 +349,11 @@ def _candidates(lattice, systems, modes, families):
     return systems
 
 
-def identify(observed: Sequence, lattice, *, orientation=None, orientations: dict | None = None, systems=None,
-             modes: Sequence[str] = DEFAULT_MODES, families: Sequence[str] | None = None, frame=None, load=None,
-             **settings: Any) -> Identification:
+def identify(observed: Sequence[ObservedFamily | float], lattice: Lattice | str, *,
+             orientation: Orientation | np.ndarray | None = None, orientations: dict | None = None,
+             systems: Sequence[DeformationSystem] | None = None, modes: Sequence[str] = DEFAULT_MODES,
+             families: Sequence[str] | None = None, frame: FrameSettings | None = None,
+             load: LoadAxis | str | np.ndarray | None = None, **settings: Any) -> Identification:
     """Identify the plane and system behind each observed family, with probabilities.
 
     Parameters
@@ -285,6 +361,7 @@ def identify(observed: Sequence, lattice, *, orientation=None, orientations: dic
     observed : sequence of ObservedFamily (or angles in degrees)
         Detected and/or hand-measured families; on grain maps each carries its ``grain``.
     lattice : Lattice or str
+        The crystal, or a preset name (``"fcc"``, ``"bcc"``, ``"hcp"``, ``"tetragonal"``).
     orientation : Orientation or ndarray (3, 3), optional
         One orientation for every family (a single crystal or one grain).
     orientations : dict, optional
@@ -293,6 +370,7 @@ def identify(observed: Sequence, lattice, *, orientation=None, orientations: dic
     systems : list of DeformationSystem, optional
         Candidates (default: the lattice's built-in catalogue), filtered by ``modes`` and ``families``.
     modes : sequence of {"slip", "twin"}
+        Which deformation modes to consider.
     families : sequence of str, optional
         Only these families, e.g. ``["{111}<1-10>"]``.
     frame : FrameSettings, optional
@@ -305,6 +383,9 @@ def identify(observed: Sequence, lattice, *, orientation=None, orientations: dic
     Returns
     -------
     Identification
+        One FamilyIdentification per observed family (same order), with candidate planes,
+        predicted angles (degrees) and probabilities; on grain maps also the frame check and
+        surface-artefact summary.
 
     Raises
     ------
@@ -390,9 +471,13 @@ def _read(image, path):
     return arr, [], path
 
 
-def analyse_image(image, lattice, *, orientation=None, labels=None, orientations=None, systems=None,
-                  modes: Sequence[str] = DEFAULT_MODES, families: Sequence[str] | None = None, frame=None, load=None,
-                  pixel_size_um: float | None = None, mask=None, measured: Sequence = (), detect: dict | None = None,
+def analyse_image(image: str | Path | np.ndarray | None, lattice: Lattice | str, *,
+                  orientation: Orientation | np.ndarray | None = None, labels: str | Path | np.ndarray | None = None,
+                  orientations: str | Path | dict | None = None, systems: Sequence[DeformationSystem] | None = None,
+                  modes: Sequence[str] = DEFAULT_MODES, families: Sequence[str] | None = None,
+                  frame: FrameSettings | None = None, load: LoadAxis | str | np.ndarray | None = None,
+                  pixel_size_um: float | None = None, mask: str | Path | np.ndarray | None = None,
+                  measured: Sequence[ObservedFamily] = (), detect: dict | None = None,
                   path: str | None = None, **settings: Any) -> ImageResult:
     """Detect the band families of one micrograph and identify their planes: the whole chain.
 
@@ -427,6 +512,8 @@ def analyse_image(image, lattice, *, orientation=None, labels=None, orientations
     Returns
     -------
     ImageResult
+        The image, grain map, detection, identification and settings used; ``families``
+        lists one FamilyIdentification per observed family.
 
     Raises
     ------
@@ -446,6 +533,8 @@ def analyse_image(image, lattice, *, orientation=None, labels=None, orientations
     >>> round(fam.angle_deg, 1), fam.best.plane
     (73.3, (1, -1, 1))
     """
+    # Over 80 lines because of its numpydoc docstring (every argument of the chain); the code
+    # itself is short and delegates to the stages above.
     s, det = resolve_settings(settings, detect)
     if orientation is None and orientations is None:
         raise TracefitInputError("no orientation: give orientation=... (one crystal) or labels=... with "
@@ -488,27 +577,50 @@ def analyse_image(image, lattice, *, orientation=None, labels=None, orientations
                        warnings=caught + ident.warnings)
 
 
-def observe_image(image, labels=None, orientations=None, pixel_size_um: float | None = None,
-                  min_grain_px: int | None = None, **detect: Any):
+def observe_image(image: str | Path | np.ndarray, labels: str | Path | np.ndarray | None = None,
+                  orientations: str | Path | dict | None = None, pixel_size_um: float | None = None,
+                  min_grain_px: int | None = None,
+                  **detect: Any) -> tuple[list[ObservedFamily], np.ndarray, np.ndarray | None, list[str]]:
     """Read a micrograph (and its grain map) and detect its band families: the chain's first half.
 
     Parameters
     ----------
     image : str, Path or ndarray (H, W)
+        Micrograph file (PNG/TIFF/JPEG/BMP) or grey array.
     labels : str, Path or ndarray (H, W), optional
         Grain label image; with ``orientations``, only grains in the table are analysed.
     orientations : str, Path or dict, optional
+        Orientation table of the grains (see :func:`read_grain_map`).
     pixel_size_um : float, optional
+        Micrometres per pixel (band spacings in um).
     min_grain_px : int, optional
+        Grains with fewer analysable pixels are skipped (default from :mod:`tracefit.options`).
     **detect
-        Detection settings.
+        Detection settings (the ``detect`` group of :mod:`tracefit.options`).
 
     Returns
     -------
     observed : list of ObservedFamily
+        One per band family (angles in degrees).
     image : ndarray (H, W)
+        The micrograph as analysed (float grey).
     labels : ndarray (H, W) or None
+        The grain label image as int64, when given.
     notes : list of str
+        What reading and detection did on the way.
+
+    Raises
+    ------
+    TracefitInputError
+        A missing or unreadable file, a size mismatch or bad settings.
+
+    Examples
+    --------
+    >>> from tracefit.image import BandFamilySpec, render_micrograph
+    >>> img, truth = render_micrograph((192, 192), [BandFamilySpec(angle_deg=120, spacing_px=16)], seed=0)
+    >>> observed, image, labels, notes = observe_image(img)
+    >>> [round(o.angle_deg, 1) for o in observed], image.shape, labels
+    ([120.0], (192, 192), None)
     """
     img, notes, path = _read(image, None)
     lab = table = None
