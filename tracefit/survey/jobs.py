@@ -83,6 +83,54 @@ class ImageJob:
 
     Paths are absolute. Exactly one orientation source is set: ``euler_deg`` (one
     orientation for the whole image) or ``labels`` plus ``orientations`` (per grain).
+
+    Attributes
+    ----------
+    name : str
+        Unique short name (output files are called after it).
+    file : Path
+        The micrograph.
+    lattice : str
+        Lattice preset name (``"fcc"``, ``"bcc"``, ``"hcp"``, ``"tetragonal"``).
+    c_over_a : float or None
+        Axial ratio c/a (hcp, tetragonal).
+    modes : tuple of str
+        ``"slip"`` and/or ``"twin"``.
+    families : tuple of str or None
+        Only these families, e.g. ``("{111}<1-10>",)``.
+    load, load_sense : str or None, str
+        Load axis as written (``"y"``, ``"[001]"``) and ``"tension"`` or ``"compression"``.
+    pixel_size_um : float or None
+        Micrometres per pixel.
+    frame, detect, match : dict
+        Frame settings, detection settings and identification/analysis settings
+        (:mod:`tracefit.options`).
+    mask : Path or None
+        Mask image of the pixels to analyse.
+    euler_deg : tuple of 3 float or None
+        Bunge Euler angles (phi1, Phi, phi2) in degrees.
+    labels, orientations : Path or None
+        Grain label image and its orientation table.
+    notes : str
+        Free text.
+    line : int
+        Line of this image's ``[[image]]`` header in the job file (1-based).
+
+    Examples
+    --------
+    One gets them from :func:`parse_job` or :func:`load_job`, with ``[defaults]`` applied:
+
+    >>> job = parse_job('''
+    ... [defaults]
+    ... lattice = "bcc"
+    ... [[image]]
+    ... name = "coupon-B"
+    ... file = "coupon_B.png"
+    ... euler_deg = [0, 45, 0]
+    ... ''')
+    >>> im = job.images[0]
+    >>> im.name, im.lattice, im.euler_deg, im.line
+    ('coupon-B', 'bcc', (0.0, 45.0, 0.0), 4)
     """
 
     name: str
@@ -105,7 +153,13 @@ class ImageJob:
     line: int = 0  # line of this image's [[image]] header in the job file
 
     def settings(self) -> dict:
-        """The analysis settings as plain JSON-ready values (for reports and resume checks)."""
+        """The analysis settings as plain JSON-ready values (for reports and resume checks).
+
+        Returns
+        -------
+        dict
+            Every field but ``line``; paths as str, tuples as lists.
+        """
         d = asdict(self)
         for k in ("file", "mask", "labels", "orientations"):
             d[k] = None if d[k] is None else str(d[k])
@@ -118,7 +172,37 @@ class ImageJob:
 
 @dataclass(frozen=True)
 class Job:
-    """A parsed, validated survey job."""
+    """A parsed, validated survey job.
+
+    Attributes
+    ----------
+    path : Path
+        The job file (absolute); image paths in it are relative to its folder.
+    title : str
+        Title for the report (the file's stem when the job has none).
+    images : tuple of ImageJob
+        The images in job order, each with every setting resolved.
+    notes : str
+        Free text for the report.
+    defaults : dict
+        The ``[defaults]`` table as checked (plain values).
+    text : str
+        The job file as written (for the report's audit trail).
+
+    Examples
+    --------
+    >>> job = parse_job('''
+    ... title = "Bracket coupons"
+    ... [defaults]
+    ... lattice = "fcc"
+    ... [[image]]
+    ... name = "coupon-A"
+    ... file = "coupon_A.png"
+    ... euler_deg = [10, 20, 30]
+    ... ''')
+    >>> job.title, [im.name for im in job.images], job.defaults
+    ('Bracket coupons', ['coupon-A'], {'lattice': 'fcc'})
+    """
 
     path: Path
     title: str
@@ -128,6 +212,7 @@ class Job:
     text: str = ""  # the job file as written, kept for the report's audit trail
 
     def to_dict(self) -> dict:
+        """The job as plain JSON-ready values (``results.json``'s ``job``)."""
         return {
             "path": str(self.path),
             "title": self.title,
@@ -197,6 +282,29 @@ def key_lines(text: str) -> dict[tuple, int]:
     key of the second ``[[image]]`` is ``("image", 1, "file")``. Keys of inline tables
     get the line of their parent key. Lines inside multi-line strings and arrays are
     skipped. This is a locator for error messages, not a TOML parser.
+
+    Parameters
+    ----------
+    text : str
+        TOML text.
+
+    Returns
+    -------
+    dict of tuple -> int
+        Key path -> 1-based line number.
+
+    Examples
+    --------
+    >>> text = '''title = "Two coupons"
+    ... [[image]]
+    ... name = "A"
+    ... [[image]]
+    ... name = "B"
+    ... load = { axis = "y", sense = "tension" }
+    ... '''
+    >>> lines = key_lines(text)
+    >>> lines[("title",)], lines[("image", 1, "name")], lines[("image", 1, "load", "sense")]
+    (1, 5, 6)
     """
     lines: dict[tuple, int] = {}
     aot_count: dict[tuple, int] = {}
@@ -503,11 +611,42 @@ def _parse_image(ctx: _Ctx, i: int, raw: dict, defaults: dict, base: Path, seen:
 def parse_job(text: str, path: str | Path = "job.toml") -> Job:
     """Parse and validate job-file text; ``path`` sets the name in messages and the base for files.
 
+    Parameters
+    ----------
+    text : str
+        The job file's TOML text (format: the module docstring and ``docs/job-file.md``).
+    path : str or Path
+        Where the text comes from: its name appears in messages, and relative image, label,
+        mask and table paths are taken from its folder. Nothing is read from it.
+
+    Returns
+    -------
+    Job
+        The validated job, every image with its settings resolved.
+
     Raises
     ------
     TracefitInputError
         For a TOML syntax error or any missing, unknown or wrongly typed field; the
         message names the field and its line.
+
+    Examples
+    --------
+    >>> text = '''
+    ... [defaults]
+    ... lattice = "fcc"
+    ... [[image]]
+    ... name = "coupon-A"
+    ... file = "coupon_A.png"
+    ... euler_deg = [10, 20, 30]
+    ... '''
+    >>> job = parse_job(text)
+    >>> job.title, job.images[0].modes, job.images[0].file.name
+    ('job', ('slip', 'twin'), 'coupon_A.png')
+    >>> parse_job(text.replace("lattice", "latice"))
+    Traceback (most recent call last):
+    ...
+    tracefit.errors.TracefitInputError: job.toml, line 3: field 'defaults.latice' is not a known field; did you mean 'lattice'?
     """
     path = Path(path)
     base = path.resolve().parent
@@ -572,6 +711,23 @@ def load_job(path: str | Path) -> Job:
     TracefitInputError
         If the file cannot be read, or a field is missing, unknown or of the wrong type
         (the message names the field and its line).
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> from pathlib import Path
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     _ = (Path(d) / "study.toml").write_text('''
+    ... title = "Bracket coupons"
+    ... [[image]]
+    ... name = "coupon-A"
+    ... file = "coupon_A.png"
+    ... lattice = "fcc"
+    ... euler_deg = [10, 20, 30]
+    ... ''')
+    ...     job = load_job(Path(d) / "study.toml")
+    >>> job.title, job.path.name, job.images[0].euler_deg
+    ('Bracket coupons', 'study.toml', (10.0, 20.0, 30.0))
     """
     p = Path(path)
     try:
