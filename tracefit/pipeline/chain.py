@@ -1,20 +1,4 @@
-"""The one analysis chain: read -> detect -> predict -> identify -> results.
-
-Every entry point runs this chain with the same defaults: ``tracefit identify`` on one
-image, ``tracefit survey`` on a job that holds it, and :func:`analyse_image` in a notebook
-give the same planes and probabilities for the same settings. The stages are public too,
-for work that starts half-way (families measured by hand, a detection done elsewhere):
-
-1. :func:`read_grain_map` -- a grain label image and its orientation table, checked together;
-2. :func:`detect_families` -- band families per grain (or in the whole image), as
-   :class:`~tracefit.matching.ObservedFamily` objects, with the status of every grain;
-3. :func:`identify` -- candidate planes and systems with probabilities (artefact test,
-   joint per-grain assignment, line continuation carried through, frame check);
-4. :func:`analyse_image` -- all of the above for one micrograph, returning an
-   :class:`ImageResult` that tables, figures, the report and ``--json`` all read.
-
-Settings and their defaults are declared once in :mod:`tracefit.options`.
-"""
+"""The chain's stages 2 to 4: detect -> identify -> one whole image (see :mod:`tracefit.pipeline`)."""
 
 from __future__ import annotations
 
@@ -27,6 +11,7 @@ import numpy as np
 from tracefit.conventions import FrameSettings
 from tracefit.errors import TracefitInputError
 from tracefit.options import DEFAULT_MODES, check_options, defaults
+from tracefit.pipeline.grainmap import _as_matrix, orientation_table, read_grain_map, read_label_map
 from tracefit.results import FamilyDetection, GrainStatus, Identification, ImageResult
 
 if TYPE_CHECKING:  # names for the hints only; the chain imports its stages lazily
@@ -35,20 +20,7 @@ if TYPE_CHECKING:  # names for the hints only; the chain imports its stages lazi
     from tracefit.matching import ObservedFamily
     from tracefit.predict import LoadAxis
 
-__all__ = [
-    "GrainStatus",
-    "FamilyDetection",
-    "Identification",
-    "ImageResult",
-    "orientation_table",
-    "read_label_map",
-    "read_grain_map",
-    "observe_image",
-    "detect_families",
-    "identify",
-    "analyse_image",
-    "resolve_settings",
-]
+__all__ = ["resolve_settings", "detect_families", "identify", "analyse_image", "observe_image"]
 
 
 # --------------------------------------------------------------------------- settings
@@ -84,13 +56,6 @@ def resolve_settings(settings: dict | None = None, detect: dict | None = None) -
     return full, check_options(dict(detect or {}), "detect")
 
 
-def _as_matrix(orientation) -> np.ndarray:
-    """One orientation matrix g (3, 3), checked to be a rotation, from an Orientation or an array."""
-    from tracefit.matching.checks import orientation_matrix
-
-    return orientation_matrix(orientation, name="orientation")
-
-
 def _as_lattice(lattice):
     from tracefit.crystal import lattice_preset
 
@@ -107,140 +72,6 @@ def _as_load(load, lattice):
 
         return parse_load(load, lattice)
     return load
-
-
-# --------------------------------------------------------------------------- stage 1: grain maps
-def orientation_table(orientations: str | Path | dict) -> dict[int, GrainOrientation]:
-    """Grain id -> GrainOrientation, from an orientation table file or a dict of orientations.
-
-    Parameters
-    ----------
-    orientations : str, Path or dict
-        Orientation table CSV (docs/orientation-table.md), or a dict grain id ->
-        GrainOrientation, Orientation or matrix g (3, 3) (crystal -> sample, Bunge convention).
-
-    Returns
-    -------
-    dict of int -> GrainOrientation
-        One entry per grain, keyed by its integer id; a matrix or Orientation given in the
-        dict becomes a GrainOrientation with that matrix ``g`` (3, 3).
-
-    Raises
-    ------
-    TracefitInputError
-        An unreadable table, or a value that is not an orientation.
-
-    Examples
-    --------
-    Two grains given in a dict, one as a matrix and one as Bunge angles (degrees):
-
-    >>> import numpy as np
-    >>> from tracefit.crystal import from_euler
-    >>> table = orientation_table({1: np.eye(3), "2": from_euler([0, 0, 90])})
-    >>> sorted(table), type(table[2]).__name__, table[2].g.shape
-    ([1, 2], 'GrainOrientation', (3, 3))
-    """
-    from tracefit.maps import GrainOrientation, read_orientation_table
-
-    if isinstance(orientations, (str, Path)):
-        return read_orientation_table(orientations)
-    if not isinstance(orientations, dict):
-        raise TracefitInputError("orientations must be an orientation table file or a dict grain id -> orientation")
-    return {int(k): v if isinstance(v, GrainOrientation) else GrainOrientation(int(k), _as_matrix(v))
-            for k, v in orientations.items()}
-
-
-def read_label_map(labels: str | Path | np.ndarray, shape: tuple[int, ...] | None = None) -> np.ndarray:
-    """A grain label image (file or array) as int64, checked against the micrograph's size.
-
-    Parameters
-    ----------
-    labels : str, Path or ndarray (H, W) of int
-        Grain label image file (PNG/TIFF) or array of integer grain ids.
-    shape : tuple of int, optional
-        The micrograph's (rows, columns, ...) in pixels; the label image must match its
-        first two entries.
-
-    Returns
-    -------
-    ndarray (H, W) of int64
-        The grain ids, one per pixel.
-
-    Raises
-    ------
-    TracefitInputError
-        Not a 2-D integer image, or a size that differs from ``shape``.
-
-    Examples
-    --------
-    >>> import numpy as np
-    >>> lab = read_label_map(np.array([[1, 1, 2], [1, 2, 2]], dtype=np.uint8), shape=(2, 3))
-    >>> lab.dtype, lab.shape
-    (dtype('int64'), (2, 3))
-    >>> read_label_map(np.zeros((2, 3), int), shape=(4, 4))
-    Traceback (most recent call last):
-    ...
-    tracefit.errors.TracefitInputError: the grain label image is 3x2 px but the micrograph is 4x4 px; they must match pixel for pixel
-    """
-    from tracefit.maps import read_label_image
-
-    lab = read_label_image(labels) if isinstance(labels, (str, Path)) else np.asarray(labels)
-    if lab.ndim != 2 or not np.issubdtype(lab.dtype, np.integer):
-        raise TracefitInputError("labels must be a 2-D image of integer grain ids")
-    if shape is not None and tuple(lab.shape) != tuple(shape[:2]):
-        raise TracefitInputError(
-            f"the grain label image is {lab.shape[1]}x{lab.shape[0]} px but the micrograph is "
-            f"{shape[1]}x{shape[0]} px; they must match pixel for pixel")
-    return lab.astype(np.int64)
-
-
-def read_grain_map(labels: str | Path | np.ndarray, orientations: str | Path | dict,
-                   shape: tuple[int, ...] | None = None) -> tuple[np.ndarray, dict[int, GrainOrientation]]:
-    """A grain label image and its orientation table, checked against each other and the image.
-
-    Parameters
-    ----------
-    labels : str, Path or ndarray (H, W) of int
-        Grain label image (integer ids).
-    orientations : str, Path or dict
-        Orientation table CSV (docs/orientation-table.md), or a dict grain id ->
-        :class:`~tracefit.maps.GrainOrientation`, Orientation or matrix g (3, 3).
-    shape : (int, int), optional
-        The micrograph's (rows, columns); the label image must match it pixel for pixel.
-
-    Returns
-    -------
-    labels : ndarray (H, W) of int64
-        The grain id of every pixel.
-    table : dict of int -> GrainOrientation
-        The orientation of every grain in the table (grains of the image missing from it
-        are left out, not an error).
-
-    Raises
-    ------
-    TracefitInputError
-        Unreadable files, a size mismatch, or no grain id in common.
-
-    Examples
-    --------
-    A two-grain map built in memory (no files):
-
-    >>> import numpy as np
-    >>> labels = np.repeat([[1, 1, 2, 2]], 3, axis=0)
-    >>> lab, table = read_grain_map(labels, {1: np.eye(3), 2: np.eye(3)}, shape=(3, 4))
-    >>> lab.shape, sorted(table)
-    ((3, 4), [1, 2])
-    >>> read_grain_map(labels, {7: np.eye(3)})
-    Traceback (most recent call last):
-    ...
-    tracefit.errors.TracefitInputError: no grain id of the orientation table occurs in the grain label image
-    """
-    lab = read_label_map(labels, shape)
-    table = orientation_table(orientations)
-    present = set(int(x) for x in np.unique(lab))
-    if not present & set(table):
-        raise TracefitInputError("no grain id of the orientation table occurs in the grain label image")
-    return lab, table
 
 
 # --------------------------------------------------------------------------- stage 2: detection
