@@ -53,9 +53,36 @@ class OptionError(TracefitInputError):
 class Option:
     """One setting: its library name, kind, default, allowed range and meaning.
 
-    ``kind`` is ``"float"``, ``"int"``, ``"bool"`` or ``"floats"`` (a non-empty list of numbers).
-    ``low``/``high`` bound the value (``low_open``/``high_open``: the bound itself is excluded).
-    ``flag`` is the command-line spelling where the CLI exposes it.
+    Attributes
+    ----------
+    name : str
+        The library name (keyword argument, job-file key).
+    group : str
+        ``"image"``, ``"detect"``, ``"identify"`` or ``"analysis"``.
+    kind : str
+        ``"float"``, ``"int"``, ``"bool"`` or ``"floats"`` (a non-empty list of numbers).
+    default : Any
+        The one default of every entry point (units as in ``help``).
+    help : str
+        What the setting means, with its unit.
+    low, high : float or None
+        Bounds of the value (``low_open``/``high_open``: the bound itself is excluded).
+    flag : str or None
+        The command-line spelling where the CLI exposes it.
+    allow_none : bool
+        None is a valid value (e.g. an unknown pixel size).
+
+    Examples
+    --------
+    Every setting is declared in :data:`OPTIONS`; :func:`option` finds one by name:
+
+    >>> p = option("p_none")
+    >>> p.group, p.default, p.check(0.2)
+    ('identify', 0.05, 0.2)
+    >>> p.check(1.0)
+    Traceback (most recent call last):
+    ...
+    tracefit.options.OptionError: p_none must be a number in [0, 1), got 1.0
     """
 
     name: str
@@ -75,6 +102,28 @@ class Option:
 
         ``name`` replaces the option's name in the message where a function calls the same
         setting otherwise (``detect_grains(min_pixels=...)`` is ``min_grain_px``).
+
+        Parameters
+        ----------
+        value : Any
+            The value given.
+        name : str, optional
+            The name to use in the message.
+
+        Returns
+        -------
+        Any
+            bool, int, float, tuple of float, or None (where allowed).
+
+        Raises
+        ------
+        OptionError
+            Wrong type or out of range.
+
+        Examples
+        --------
+        >>> option("scales").check([1, 2.5])
+        (1.0, 2.5)
         """
         if name is not None and name != self.name:
             from dataclasses import replace
@@ -183,18 +232,61 @@ _BY_NAME = {o.name: o for o in OPTIONS}
 
 
 def option(name: str) -> Option:
-    """The :class:`Option` called ``name`` (KeyError if there is none)."""
+    """The :class:`Option` called ``name`` (KeyError if there is none).
+
+    Parameters
+    ----------
+    name : str
+        A setting's library name, e.g. ``"min_bands"``.
+
+    Returns
+    -------
+    Option
+        Its declaration: group, kind, default, range and meaning.
+
+    Raises
+    ------
+    KeyError
+        No setting has that name.
+
+    Examples
+    --------
+    >>> o = option("min_grain_px")
+    >>> o.group, o.kind, o.default, o.flag
+    ('analysis', 'int', 2500, '--min-grain-px')
+    """
     return _BY_NAME[name]
 
 
-def defaults(group: str) -> dict:
-    """Default values of one group's settings, as a new dict."""
+def defaults(group: str) -> dict[str, Any]:
+    """Default values of one group's settings, as a new dict.
+
+    Parameters
+    ----------
+    group : str
+        One of :data:`GROUPS`: ``"image"``, ``"detect"``, ``"identify"`` or ``"analysis"``.
+
+    Returns
+    -------
+    dict of str -> Any
+        Setting name -> default value (units as in each :class:`Option`'s ``help``).
+
+    Raises
+    ------
+    ValueError
+        An unknown group.
+
+    Examples
+    --------
+    >>> sorted(defaults("analysis").items())
+    [('artefacts', True), ('frame_check', True), ('min_grain_px', 2500)]
+    """
     if group not in GROUPS:
         raise ValueError(f"group must be one of {', '.join(GROUPS)}, got {group!r}")
     return {o.name: o.default for o in OPTIONS if o.group == group}
 
 
-def check_options(values: dict, group: str | tuple[str, ...]) -> dict:
+def check_options(values: dict[str, Any], group: str | tuple[str, ...]) -> dict[str, Any]:
     """Validate settings of one or more groups; return them normalised (unknown names rejected).
 
     Parameters
@@ -213,6 +305,15 @@ def check_options(values: dict, group: str | tuple[str, ...]) -> dict:
     ------
     OptionError
         Unknown name, wrong type or value out of range; the message names the setting.
+
+    Examples
+    --------
+    >>> check_options({"p_none": 0.1, "min_grain_px": 100}, ("identify", "analysis"))
+    {'p_none': 0.1, 'min_grain_px': 100}
+    >>> check_options({"p_nnoe": 0.1}, "identify")
+    Traceback (most recent call last):
+    ...
+    tracefit.options.OptionError: unknown identify setting 'p_nnoe' (did you mean 'p_none'?)
     """
     groups = (group,) if isinstance(group, str) else tuple(group)
     out = {}

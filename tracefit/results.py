@@ -8,9 +8,15 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any, Sequence
 
 import numpy as np
+
+if TYPE_CHECKING:  # names for the hints only (results sits below matching, image and predict)
+    from tracefit.conventions import FrameSettings
+    from tracefit.crystal import DeformationSystem, Lattice
+    from tracefit.image import BandFamily
+    from tracefit.matching import FamilyIdentification, ObservedFamily
 
 __all__ = [
     "GrainStatus", "FamilyDetection", "Identification", "ImageResult", "lattice_summary",
@@ -24,8 +30,19 @@ CSV_COLUMNS = [
 ]
 
 
-def jsonable(x):
+def jsonable(x: Any) -> Any:
     """Plain JSON-ready values: numpy scalars and arrays to Python, non-finite floats to None, paths to str.
+
+    Parameters
+    ----------
+    x : Any
+        A value, or dicts, lists and tuples of values (nested to any depth).
+
+    Returns
+    -------
+    Any
+        The same structure with dict keys as str, tuples and arrays as lists, numpy scalars
+        as Python ones, NaN and infinities as None and paths as str; other values unchanged.
 
     Examples
     --------
@@ -55,25 +72,40 @@ def _line_endpoints(line) -> list[float]:
     return [round(float(getattr(line, k)), 2) for k in ("col0", "row0", "col1", "row1")]
 
 
-def family_record(observed, band, identification, index: int, pixel_size_um: float | None = None) -> dict:
+def family_record(observed: ObservedFamily, band: BandFamily | None, identification: FamilyIdentification,
+                  index: int, pixel_size_um: float | None = None) -> dict:
     """One family as a plain dict: what was observed, the detector's details, and its identification.
 
     Parameters
     ----------
     observed : ObservedFamily
+        The family as observed (angle in degrees, its uncertainty, grain).
     band : BandFamily or None
         The detector's family (None for a hand-measured one).
     identification : FamilyIdentification
+        Its identification (candidates and probabilities).
     index : int
         1-based position of the family in its image.
     pixel_size_um : float, optional
+        Micrometres per pixel, to give the spacing in um where the detector did not.
 
     Returns
     -------
     dict
         ``grain``, ``angle_deg``, ``angle_sigma_deg``, ``n_bands``, ``spacing_px``, ``spacing_um``,
         ``strength``, ``lines`` (pixel endpoints ``[col0, row0, col1, row1]``), ``source``, ``index``
-        and ``identification`` (``FamilyIdentification.to_dict()``).
+        and ``identification`` (``FamilyIdentification.to_dict()``), JSON-ready.
+
+    Examples
+    --------
+    A trace measured at 73.2 +- 0.3 deg on an fcc crystal at Bunge (10, 20, 30) deg:
+
+    >>> import tracefit as tf
+    >>> obs = tf.ObservedFamily(73.2, 0.3)
+    >>> ident = tf.identify([obs], "fcc", orientation=tf.Orientation.from_euler([10, 20, 30]), modes=["slip"])
+    >>> rec = family_record(obs, None, ident.families[0], index=1)
+    >>> rec["angle_deg"], rec["index"], rec["identification"]["candidates"][0]["plane"]
+    (73.2, 1, [1, -1, 1])
     """
     sp_px = getattr(band, "spacing_px", None)
     sp_um = getattr(band, "spacing_um", None)
@@ -95,15 +127,47 @@ def family_record(observed, band, identification, index: int, pixel_size_um: flo
     return jsonable(rec)
 
 
-def plane_text(p) -> str:
-    """A plane's indices in the project's one notation (:func:`tracefit.crystal.format_index`)."""
+def plane_text(p: Sequence[int]) -> str:
+    """A plane's indices in the project's one notation (:func:`tracefit.crystal.format_index`).
+
+    Parameters
+    ----------
+    p : sequence of int, length 3 or 4
+        Miller (hkl) or Miller-Bravais (hkil) indices.
+
+    Returns
+    -------
+    str
+        The indices in round brackets, a minus sign before negative ones.
+
+    Examples
+    --------
+    >>> plane_text((1, -1, 1)), plane_text([1, 0, -1, 2])
+    ('(1-11)', '(10-12)')
+    """
     from tracefit.crystal import format_index
 
     return format_index(tuple(int(x) for x in p), kind="plane")
 
 
-def direction_label(d) -> str:
-    """A direction's indices in the project's one notation, e.g. ``[-101]``."""
+def direction_label(d: Sequence[int]) -> str:
+    """A direction's indices in the project's one notation, e.g. ``[-101]``.
+
+    Parameters
+    ----------
+    d : sequence of int, length 3 or 4
+        Direction indices [uvw] or [uvtw].
+
+    Returns
+    -------
+    str
+        The indices in square brackets, a minus sign before negative ones.
+
+    Examples
+    --------
+    >>> direction_label((-1, 0, 1))
+    '[-101]'
+    """
     from tracefit.crystal import format_index
 
     return format_index(tuple(int(x) for x in d), kind="direction")
@@ -113,6 +177,24 @@ def family_rows(image_name: str, families: list[dict]) -> list[dict]:
     """Table rows (the columns of :data:`CSV_COLUMNS`) for one image's family records.
 
     An image without any band family gives one row with verdict ``"no bands found"``.
+
+    Parameters
+    ----------
+    image_name : str
+        The image's name in the table.
+    families : list of dict
+        Its family records (:func:`family_record`).
+
+    Returns
+    -------
+    list of dict
+        One row per family, keyed by the names of :data:`CSV_COLUMNS` (angles in degrees,
+        spacing in um); the verdict is ``"identified"``, ``"ambiguous"`` or ``"unexplained"``.
+
+    Examples
+    --------
+    >>> family_rows("coupon-A", [])
+    [{'image': 'coupon-A', 'status': 'ok', 'verdict': 'no bands found', 'error': ''}]
     """
     if not families:  # keep the image in the table: no family was found in it
         return [{"image": image_name, "status": "ok", "verdict": "no bands found", "error": ""}]
@@ -172,6 +254,14 @@ class GrainStatus:
         Its orientation as Bunge angles (degrees), where known.
     sigma_deg : float or None
         Its own orientation uncertainty from the orientation table, where given.
+
+    Examples
+    --------
+    Made by :func:`tracefit.detect_families`; a grain too small to analyse:
+
+    >>> st = GrainStatus(4, 900, 0, "too small", "fewer than 2500 analysable pixels")
+    >>> st.to_dict()["status"], st.n_pixels
+    ('too small', 900)
     """
 
     grain: int | None
@@ -183,6 +273,7 @@ class GrainStatus:
     sigma_deg: float | None = None
 
     def to_dict(self) -> dict:
+        """The status as a plain dict (the ``grain_status`` entries of ``--json``)."""
         return {"grain": self.grain, "n_pixels": self.n_pixels, "n_families": self.n_families, "status": self.status,
                 "reason": self.reason, "euler_deg": self.euler_deg, "sigma_deg": self.sigma_deg}
 
@@ -198,7 +289,17 @@ class FamilyDetection:
     bands : list of BandFamily
         The detector's families, aligned with ``observed`` (lines, spacing, strength).
     grains : list of GrainStatus
+        What happened to each grain (one entry for the whole image without a grain map).
     notes : list of str
+        What the detector did on the way (data bar excluded, grains skipped, ...).
+
+    Examples
+    --------
+    Returned by :func:`tracefit.detect_families`; an empty detection built by hand:
+
+    >>> det = FamilyDetection([], [], [GrainStatus(None, 36864, 0, "no families")])
+    >>> len(det.observed), det.grains[0].status
+    (0, 'no families')
     """
 
     observed: list
@@ -220,6 +321,17 @@ class Identification:
     artefacts : list of dict or None
         Surface-artefact directions found on grain maps (angle, grains, families), when tested.
     warnings : list of str
+        Warnings of the identification (e.g. of the frame check).
+
+    Examples
+    --------
+    Returned by :func:`tracefit.identify`:
+
+    >>> import tracefit as tf
+    >>> res = tf.identify([tf.ObservedFamily(73.2, 0.3)], "fcc", orientation=tf.Orientation.from_euler([10, 20, 30]),
+    ...                   modes=["slip"])
+    >>> len(res.families), res.families[0].best.plane, res.frame_check
+    (1, (1, -1, 1), None)
     """
 
     families: list
@@ -240,8 +352,12 @@ class ImageResult:
         The micrograph as analysed (float grey); None for hand-measured traces alone.
     labels : ndarray (H, W) or None
         Grain label image (grains without an orientation set to -1).
-    lattice, frame, load
-        The geometry used.
+    lattice : Lattice
+        The crystal.
+    frame : FrameSettings
+        How the orientation data's frame sits on the image.
+    load : LoadAxis, ndarray (3, 3) or None
+        The load, where given.
     systems : list of DeformationSystem
         The candidates.
     orientations : dict
@@ -253,15 +369,26 @@ class ImageResult:
     settings : dict
         Every identification/analysis setting as used, plus the detection settings given.
     notes, warnings : list of str
+        What was done on the way, and what the user should know.
+
+    Examples
+    --------
+    Returned by :func:`tracefit.analyse_image`; here for a hand-measured trace alone (no image):
+
+    >>> import tracefit as tf
+    >>> res = tf.analyse_image(None, "fcc", orientation=tf.Orientation.from_euler([10, 20, 30]), modes=["slip"],
+    ...                        measured=[tf.ObservedFamily(73.2, 0.3)])
+    >>> res.families[0].best.plane, res.to_dict()["lattice"]["name"]
+    ((1, -1, 1), 'fcc')
     """
 
     path: str | None
     image: np.ndarray | None
     labels: np.ndarray | None
-    lattice: Any
-    frame: Any
+    lattice: Lattice
+    frame: FrameSettings
     load: Any
-    systems: list
+    systems: list[DeformationSystem]
     orientations: dict
     detection: FamilyDetection | None
     observed: list
@@ -317,7 +444,26 @@ class ImageResult:
         return pd.DataFrame(rows, columns=[c for c in CSV_COLUMNS if c not in ("status", "error")])
 
 
-def lattice_summary(lat) -> dict:
-    """A lattice's parameters as plain values (for ``--json`` and reports)."""
+def lattice_summary(lat: Lattice) -> dict:
+    """A lattice's parameters as plain values (for ``--json`` and reports).
+
+    Parameters
+    ----------
+    lat : Lattice
+        The crystal lattice.
+
+    Returns
+    -------
+    dict
+        ``name``, cell lengths ``a``, ``b``, ``c`` (relative units, as the lattice holds them),
+        angles ``alpha``, ``beta``, ``gamma`` (degrees), ``laue`` (Laue group) and ``hex_setting``.
+
+    Examples
+    --------
+    >>> from tracefit.crystal import lattice_preset
+    >>> s = lattice_summary(lattice_preset("hcp", 1.587))
+    >>> s["name"], s["c"], s["gamma"], s["laue"]
+    ('hcp', 1.587, 120.0, '6/mmm')
+    """
     return {"name": lat.name, "a": lat.a, "b": lat.b, "c": lat.c, "alpha": lat.alpha, "beta": lat.beta,
             "gamma": lat.gamma, "laue": lat.laue, "hex_setting": lat.hex_setting}

@@ -17,12 +17,32 @@ class SurveyLock:
     """``OUT/.survey.lock`` holding the owner's pid: one survey per output folder at a time.
 
     A lock whose process no longer runs (a crash, a kill -9) is stale and taken over.
+
+    Parameters
+    ----------
+    out_dir : Path
+        The survey's output folder (must exist).
+
+    Raises
+    ------
+    TracefitInputError
+        On entering, when a running process of another survey holds the lock.
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> from pathlib import Path
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     with SurveyLock(Path(d)) as lock:
+    ...         held = lock.path.is_file()
+    ...     print(lock.path.name, held, lock.path.is_file())
+    .survey.lock True False
     """
 
-    def __init__(self, out_dir: Path):
+    def __init__(self, out_dir: Path) -> None:
         self.path = out_dir / ".survey.lock"
 
-    def __enter__(self):
+    def __enter__(self) -> SurveyLock:
         try:
             owner = int(self.path.read_text().strip() or 0)
         except (OSError, ValueError):
@@ -33,7 +53,7 @@ class SurveyLock:
         write_text(self.path, f"{os.getpid()}\n")
         return self
 
-    def __exit__(self, *exc):
+    def __exit__(self, *exc: object) -> bool:
         self.path.unlink(missing_ok=True)
         return False
 
@@ -49,13 +69,51 @@ def _process_alive(pid: int) -> bool:
 
 
 def remove_stale_temporaries(out_dir: Path) -> None:
-    """Temporary files an earlier run left when it was killed mid-write (``.NAME.XXXX.tmp``)."""
+    """Remove the temporary files an earlier run left when it was killed mid-write (``.NAME.XXXX.tmp``).
+
+    Parameters
+    ----------
+    out_dir : Path
+        The survey's output folder; it and its ``images/`` are cleaned.
+
+    Examples
+    --------
+    >>> import os, tempfile
+    >>> from pathlib import Path
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     prepare_output(Path(d))
+    ...     _ = (Path(d) / "images" / ".coupon-A.json.x1y2.tmp").write_text("{")
+    ...     remove_stale_temporaries(Path(d))
+    ...     print(os.listdir(Path(d) / "images"))
+    []
+    """
     for folder in (out_dir, out_dir / "images"):
         for tmp in folder.glob(".*.tmp"):
             tmp.unlink(missing_ok=True)
 
 
 def prepare_output(out_dir: Path) -> None:
+    """Create the output folder and its ``images/`` and check that both can be written.
+
+    Parameters
+    ----------
+    out_dir : Path
+        The survey's output folder.
+
+    Raises
+    ------
+    TracefitInputError
+        The path is an existing file, or the folders cannot be created or written.
+
+    Examples
+    --------
+    >>> import os, tempfile
+    >>> from pathlib import Path
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     prepare_output(Path(d) / "out")
+    ...     print(os.listdir(Path(d) / "out"))
+    ['images']
+    """
     if out_dir.exists() and not out_dir.is_dir():
         raise TracefitInputError(f"the output folder {str(out_dir)!r} is an existing file; give a folder")
     try:
@@ -67,9 +125,22 @@ def prepare_output(out_dir: Path) -> None:
 
 
 class TermAsInterrupt:
-    """While running, SIGTERM (``kill PID``) stops the survey as Ctrl-C does: cleanly, resumable."""
+    """While running, SIGTERM (``kill PID``) stops the survey as Ctrl-C does: cleanly, resumable.
 
-    def __enter__(self):
+    Only in the main thread (where Python handles signals); elsewhere it does nothing. The
+    previous handler is put back on exit.
+
+    Examples
+    --------
+    >>> import signal
+    >>> before = signal.getsignal(signal.SIGTERM)
+    >>> with TermAsInterrupt():
+    ...     changed = signal.getsignal(signal.SIGTERM) is not before
+    >>> changed, signal.getsignal(signal.SIGTERM) is before
+    (True, True)
+    """
+
+    def __enter__(self) -> TermAsInterrupt:
         import signal
         import threading
 
@@ -81,7 +152,7 @@ class TermAsInterrupt:
             self.old = signal.signal(signal.SIGTERM, _raise)
         return self
 
-    def __exit__(self, *exc):
+    def __exit__(self, *exc: object) -> bool:
         if self.old is not None:
             import signal
 

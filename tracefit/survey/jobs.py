@@ -38,6 +38,7 @@ from typing import Any
 
 from tracefit.errors import TracefitInputError
 from tracefit.options import DEFAULT_MODES, MODES
+from tracefit.survey.keylines import _Ctx, key_lines
 
 __all__ = ["Job", "ImageJob", "load_job", "parse_job", "key_lines", "JOB_FORMAT"]
 
@@ -83,6 +84,54 @@ class ImageJob:
 
     Paths are absolute. Exactly one orientation source is set: ``euler_deg`` (one
     orientation for the whole image) or ``labels`` plus ``orientations`` (per grain).
+
+    Attributes
+    ----------
+    name : str
+        Unique short name (output files are called after it).
+    file : Path
+        The micrograph.
+    lattice : str
+        Lattice preset name (``"fcc"``, ``"bcc"``, ``"hcp"``, ``"tetragonal"``).
+    c_over_a : float or None
+        Axial ratio c/a (hcp, tetragonal).
+    modes : tuple of str
+        ``"slip"`` and/or ``"twin"``.
+    families : tuple of str or None
+        Only these families, e.g. ``("{111}<1-10>",)``.
+    load, load_sense : str or None, str
+        Load axis as written (``"y"``, ``"[001]"``) and ``"tension"`` or ``"compression"``.
+    pixel_size_um : float or None
+        Micrometres per pixel.
+    frame, detect, match : dict
+        Frame settings, detection settings and identification/analysis settings
+        (:mod:`tracefit.options`).
+    mask : Path or None
+        Mask image of the pixels to analyse.
+    euler_deg : tuple of 3 float or None
+        Bunge Euler angles (phi1, Phi, phi2) in degrees.
+    labels, orientations : Path or None
+        Grain label image and its orientation table.
+    notes : str
+        Free text.
+    line : int
+        Line of this image's ``[[image]]`` header in the job file (1-based).
+
+    Examples
+    --------
+    One gets them from :func:`parse_job` or :func:`load_job`, with ``[defaults]`` applied:
+
+    >>> job = parse_job('''
+    ... [defaults]
+    ... lattice = "bcc"
+    ... [[image]]
+    ... name = "coupon-B"
+    ... file = "coupon_B.png"
+    ... euler_deg = [0, 45, 0]
+    ... ''')
+    >>> im = job.images[0]
+    >>> im.name, im.lattice, im.euler_deg, im.line
+    ('coupon-B', 'bcc', (0.0, 45.0, 0.0), 4)
     """
 
     name: str
@@ -105,7 +154,13 @@ class ImageJob:
     line: int = 0  # line of this image's [[image]] header in the job file
 
     def settings(self) -> dict:
-        """The analysis settings as plain JSON-ready values (for reports and resume checks)."""
+        """The analysis settings as plain JSON-ready values (for reports and resume checks).
+
+        Returns
+        -------
+        dict
+            Every field but ``line``; paths as str, tuples as lists.
+        """
         d = asdict(self)
         for k in ("file", "mask", "labels", "orientations"):
             d[k] = None if d[k] is None else str(d[k])
@@ -118,7 +173,37 @@ class ImageJob:
 
 @dataclass(frozen=True)
 class Job:
-    """A parsed, validated survey job."""
+    """A parsed, validated survey job.
+
+    Attributes
+    ----------
+    path : Path
+        The job file (absolute); image paths in it are relative to its folder.
+    title : str
+        Title for the report (the file's stem when the job has none).
+    images : tuple of ImageJob
+        The images in job order, each with every setting resolved.
+    notes : str
+        Free text for the report.
+    defaults : dict
+        The ``[defaults]`` table as checked (plain values).
+    text : str
+        The job file as written (for the report's audit trail).
+
+    Examples
+    --------
+    >>> job = parse_job('''
+    ... title = "Bracket coupons"
+    ... [defaults]
+    ... lattice = "fcc"
+    ... [[image]]
+    ... name = "coupon-A"
+    ... file = "coupon_A.png"
+    ... euler_deg = [10, 20, 30]
+    ... ''')
+    >>> job.title, [im.name for im in job.images], job.defaults
+    ('Bracket coupons', ['coupon-A'], {'lattice': 'fcc'})
+    """
 
     path: Path
     title: str
@@ -128,6 +213,7 @@ class Job:
     text: str = ""  # the job file as written, kept for the report's audit trail
 
     def to_dict(self) -> dict:
+        """The job as plain JSON-ready values (``results.json``'s ``job``)."""
         return {
             "path": str(self.path),
             "title": self.title,
@@ -138,147 +224,7 @@ class Job:
         }
 
 
-# --------------------------------------------------------------------------- key positions
-_BARE = r"[A-Za-z0-9_\-]+"
-_QUOTED = r'"(?:[^"\\]|\\.)*"|\'[^\']*\''
-_KEYPART = rf"(?:{_BARE}|{_QUOTED})"
-_DOTTED = rf"{_KEYPART}(?:\s*\.\s*{_KEYPART})*"
-_KEY_RE = re.compile(rf"^\s*({_DOTTED})\s*=")
-_AOT_RE = re.compile(rf"^\s*\[\[\s*({_DOTTED})\s*\]\]")
-_TABLE_RE = re.compile(rf"^\s*\[\s*({_DOTTED})\s*\]")
-_INLINE_KEY_RE = re.compile(rf"[{{,]\s*({_BARE})\s*=")
-
-
-def _split_dotted(s: str) -> list[str]:
-    parts = re.findall(_KEYPART, s)
-    return [p[1:-1] if p[:1] in "\"'" else p for p in parts]
-
-
-def _scan_rest(text: str, state: dict) -> None:
-    """Advance the lexer state (open multi-line string, bracket depth) over one line's text."""
-    i, n = 0, len(text)
-    while i < n:
-        ml = state["ml"]
-        if ml:
-            j = text.find(ml, i)
-            if j < 0:
-                return
-            state["ml"] = None
-            i = j + 3
-            continue
-        c = text[i]
-        if c == "#":
-            return
-        if text.startswith('"""', i) or text.startswith("'''", i):
-            state["ml"] = text[i : i + 3]
-            i += 3
-            continue
-        if c == '"':
-            j = i + 1
-            while j < n and text[j] != '"':
-                j += 2 if text[j] == "\\" else 1
-            i = j + 1
-            continue
-        if c == "'":
-            j = text.find("'", i + 1)
-            i = n if j < 0 else j + 1
-            continue
-        if c in "[{":
-            state["depth"] += 1
-        elif c in "]}":
-            state["depth"] = max(0, state["depth"] - 1)
-        i += 1
-
-
-def key_lines(text: str) -> dict[tuple, int]:
-    """Line number (1-based) of every table header and key in a TOML text.
-
-    Keys are paths as tuples; arrays of tables contribute their index, so the ``file``
-    key of the second ``[[image]]`` is ``("image", 1, "file")``. Keys of inline tables
-    get the line of their parent key. Lines inside multi-line strings and arrays are
-    skipped. This is a locator for error messages, not a TOML parser.
-    """
-    lines: dict[tuple, int] = {}
-    aot_count: dict[tuple, int] = {}
-    aot_names: set[tuple] = set()
-    current: tuple = ()
-    state = {"ml": None, "depth": 0}
-
-    def resolve(parts: list[str]) -> tuple:
-        out: list = []
-        for p in parts:
-            out.append(p)
-            if tuple(out) in aot_names:
-                out.append(aot_count[tuple(out)] - 1)
-        return tuple(out)
-
-    for no, raw in enumerate(text.splitlines(), start=1):
-        if state["ml"] or state["depth"]:
-            _scan_rest(raw, state)
-            continue
-        m = _AOT_RE.match(raw)
-        if m:
-            parts = _split_dotted(m.group(1))
-            base = resolve(parts[:-1]) + (parts[-1],)
-            aot_names.add(base)
-            aot_count[base] = aot_count.get(base, 0) + 1
-            current = base + (aot_count[base] - 1,)
-            lines.setdefault(base, no)
-            lines[current] = no
-            _scan_rest(raw[m.end() :], state)
-            continue
-        m = _TABLE_RE.match(raw)
-        if m:
-            current = resolve(_split_dotted(m.group(1)))
-            lines[current] = no
-            _scan_rest(raw[m.end() :], state)
-            continue
-        m = _KEY_RE.match(raw)
-        if m:
-            path = current + tuple(_split_dotted(m.group(1)))
-            lines[path] = no
-            rest = raw[m.end() :]
-            if rest.lstrip().startswith("{"):
-                for k in _INLINE_KEY_RE.findall(rest):
-                    lines.setdefault(path + (k,), no)
-            _scan_rest(rest, state)
-            continue
-        _scan_rest(raw, state)
-    return lines
-
-
 # --------------------------------------------------------------------------- validation
-class _Ctx:
-    """Error helper: knows the file name and where each key sits."""
-
-    def __init__(self, path: Path, lines: dict[tuple, int]):
-        self.path = path
-        self.lines = lines
-
-    def line(self, key: tuple) -> int | None:
-        k = tuple(key)
-        while k:
-            if k in self.lines:
-                return self.lines[k]
-            k = k[:-1]
-        return None
-
-    @staticmethod
-    def label(key: tuple) -> str:
-        out = ""
-        for p in key:
-            if isinstance(p, int):
-                out += f"[{p + 1}]"
-            else:
-                out += ("." if out else "") + p
-        return out
-
-    def fail(self, key: tuple, what: str) -> TracefitInputError:
-        ln = self.line(key)
-        where = f"{self.path.name}, line {ln}" if ln else f"{self.path.name}"
-        return TracefitInputError(f"{where}: field '{self.label(key)}' {what}")
-
-
 def _unknown(ctx: _Ctx, key: tuple, allowed: dict) -> TracefitInputError:
     close = difflib.get_close_matches(str(key[-1]), list(allowed), n=1)
     hint = f"; did you mean '{close[0]}'?" if close else f"; expected one of {', '.join(sorted(allowed))}"
@@ -503,12 +449,45 @@ def _parse_image(ctx: _Ctx, i: int, raw: dict, defaults: dict, base: Path, seen:
 def parse_job(text: str, path: str | Path = "job.toml") -> Job:
     """Parse and validate job-file text; ``path`` sets the name in messages and the base for files.
 
+    Parameters
+    ----------
+    text : str
+        The job file's TOML text (format: the module docstring and ``docs/job-file.md``).
+    path : str or Path
+        Where the text comes from: its name appears in messages, and relative image, label,
+        mask and table paths are taken from its folder. Nothing is read from it.
+
+    Returns
+    -------
+    Job
+        The validated job, every image with its settings resolved.
+
     Raises
     ------
     TracefitInputError
         For a TOML syntax error or any missing, unknown or wrongly typed field; the
         message names the field and its line.
+
+    Examples
+    --------
+    >>> text = '''
+    ... [defaults]
+    ... lattice = "fcc"
+    ... [[image]]
+    ... name = "coupon-A"
+    ... file = "coupon_A.png"
+    ... euler_deg = [10, 20, 30]
+    ... '''
+    >>> job = parse_job(text)
+    >>> job.title, job.images[0].modes, job.images[0].file.name
+    ('job', ('slip', 'twin'), 'coupon_A.png')
+    >>> parse_job(text.replace("lattice", "latice"))
+    Traceback (most recent call last):
+    ...
+    tracefit.errors.TracefitInputError: job.toml, line 3: field 'defaults.latice' is not a known field; did you mean 'lattice'?
     """
+    # Over 80 lines: its numpydoc docstring, then one check per top-level key in file order, which
+    # reads best as one straight run (each image is parsed by _parse_image).
     path = Path(path)
     base = path.resolve().parent
     try:
@@ -572,6 +551,23 @@ def load_job(path: str | Path) -> Job:
     TracefitInputError
         If the file cannot be read, or a field is missing, unknown or of the wrong type
         (the message names the field and its line).
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> from pathlib import Path
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     _ = (Path(d) / "study.toml").write_text('''
+    ... title = "Bracket coupons"
+    ... [[image]]
+    ... name = "coupon-A"
+    ... file = "coupon_A.png"
+    ... lattice = "fcc"
+    ... euler_deg = [10, 20, 30]
+    ... ''')
+    ...     job = load_job(Path(d) / "study.toml")
+    >>> job.title, job.path.name, job.images[0].euler_deg
+    ('Bracket coupons', 'study.toml', (10.0, 20.0, 30.0))
     """
     p = Path(path)
     try:

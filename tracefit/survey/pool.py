@@ -9,12 +9,25 @@ from __future__ import annotations
 
 import os
 from concurrent.futures import ProcessPoolExecutor, as_completed
+from pathlib import Path
+from typing import Any, Callable
 
 __all__ = ["available_cores", "default_workers", "run_in_pool"]
 
 
 def available_cores() -> int:
-    """Cores this process may run on (the affinity mask where the system has one)."""
+    """Cores this process may run on (the affinity mask where the system has one).
+
+    Returns
+    -------
+    int
+        At least 1.
+
+    Examples
+    --------
+    >>> available_cores() >= 1
+    True
+    """
     try:
         return max(1, len(os.sched_getaffinity(0)))
     except (AttributeError, OSError):
@@ -26,6 +39,22 @@ def default_workers(memory_per_worker_gb: float = 1.2) -> int:
 
     A worker on a 64-megapixel image holds about 1 GB (benchmarks/detect.py measures it), so
     the count is also capped at the available memory over ``memory_per_worker_gb``.
+
+    Parameters
+    ----------
+    memory_per_worker_gb : float
+        Memory one worker may need, in GB (1e9 bytes).
+
+    Returns
+    -------
+    int
+        Between 1 and :func:`available_cores`.
+
+    Examples
+    --------
+    >>> n = default_workers()
+    >>> n >= 1, n <= available_cores()
+    (True, True)
     """
     cores = available_cores()
     try:
@@ -71,12 +100,48 @@ def _worker(args):
     return process(*rest)
 
 
-def run_in_pool(process, failed_record, todo, out_dir, analyse, figures, n_workers, records, bar) -> None:
+def run_in_pool(process: Callable, failed_record: Callable, todo: list, out_dir: Path, analyse: Callable | None,
+                figures: bool, n_workers: int, records: dict, bar: Any) -> None:
     """Analyse ``todo`` in worker processes, recording each image as it finishes.
 
     On an interrupt (Ctrl-C, or SIGTERM turned into one) no new image starts, the workers and
     their server process are ended at once (their images are abandoned, not half-written: every
     file is written atomically) and the interrupt goes on to the caller.
+
+    Parameters
+    ----------
+    process : callable
+        ``(ImageJob, out_dir, analyse, figures) -> dict``, run in a worker (picklable).
+    failed_record : callable
+        ``(ImageJob, out_dir, error) -> dict``, run here for an image whose worker died.
+    todo : list of ImageJob
+        The images to analyse.
+    out_dir : Path
+        The survey's output folder.
+    analyse : callable or None
+        Passed on to ``process``.
+    figures : bool
+        Passed on to ``process``.
+    n_workers : int
+        Worker processes to start.
+    records : dict
+        Filled in place: image name -> record.
+    bar : object
+        Progress display with ``step(name, status)``.
+
+    Raises
+    ------
+    KeyboardInterrupt
+        After the workers have been ended, when the survey was stopped.
+
+    Examples
+    --------
+    The survey's runner calls it for ``workers > 1``; doing so from a script needs the
+    ``if __name__ == "__main__":`` guard, so this example only shows what it needs:
+
+    >>> import inspect
+    >>> list(inspect.signature(run_in_pool).parameters)[:3]
+    ['process', 'failed_record', 'todo']
     """
     pool = ProcessPoolExecutor(max_workers=n_workers, mp_context=_mp_context(), initializer=_init_worker)
     try:

@@ -35,6 +35,8 @@ import tracefit
 from tracefit.atomic import write_text
 from tracefit.errors import TracefitInputError
 from tracefit.results import CSV_COLUMNS, family_rows, jsonable
+from tracefit.survey.analysis import (  # noqa: F401 - kept importable from runner
+    ImageAnalysis, _predicted_dicts, analyse_image, analysis_from_result, chain_inputs)
 from tracefit.survey.guard import SurveyLock, TermAsInterrupt, prepare_output, remove_stale_temporaries
 from tracefit.survey.jobs import ImageJob, Job
 from tracefit.survey.pool import available_cores, default_workers, run_in_pool
@@ -58,125 +60,6 @@ __all__ = [
 
 EXIT_OK, EXIT_SOME_FAILED, EXIT_BAD_JOB = 0, 1, 2
 
-
-
-# --------------------------------------------------------------------------- analysis of one image
-@dataclass
-class ImageAnalysis:
-    """What the science of one image produced, before figures and files.
-
-    Attributes
-    ----------
-    image : ndarray (H, W)
-        The micrograph as read (float gray), for the overlay.
-    families : list of dict
-        Detected families in detection order, each with ``angle_deg``, ``angle_sigma_deg``,
-        ``n_bands``, ``spacing_px``, ``spacing_um``, ``strength``, ``grain`` and ``lines``
-        (pixel endpoints ``[col0, row0, col1, row1]``).
-    identifications : list of dict
-        ``FamilyIdentification.to_dict()`` per family, same order as ``families``.
-    grains : list of dict
-        One per orientation: ``grain`` (id or None), ``euler_deg``, ``predicted`` (list of
-        ``PredictedTrace.to_dict()`` with ``normal_image``: the normal in the image frame).
-    warnings : list of str
-    labels : ndarray or None
-        Grain label image, for drawing grain boundaries.
-    notes : list of str
-        What reading and detection did on the way (bit depth, data bar excluded, ...).
-    """
-
-    image: np.ndarray
-    families: list
-    identifications: list
-    grains: list
-    warnings: list = field(default_factory=list)
-    labels: np.ndarray | None = None
-    notes: list = field(default_factory=list)
-    extra: dict = field(default_factory=dict)
-
-
-def _predicted_dicts(lattice, g, systems, frame, load) -> list[dict]:
-    """Predicted traces of every candidate plane, with the plane normal in the image frame."""
-    from tracefit.conventions import data_to_image_matrix
-    from tracefit.predict import predict_traces
-
-    M = data_to_image_matrix(frame)
-    out = []
-    for t in predict_traces(lattice, g, systems, frame, load):
-        d = t.to_dict() if hasattr(t, "to_dict") else dict(t)
-        n = np.asarray(d.get("normal_sample"), float).reshape(-1)[:3]
-        d["normal_image"] = (M @ n).tolist()
-        out.append(jsonable(d))
-    return out
-
-
-def chain_inputs(im: ImageJob) -> dict:
-    """The arguments of :func:`tracefit.analyse_image` that a job's image stands for.
-
-    The survey runs the same chain as ``tracefit identify`` and the library; this is the only
-    translation from job-file fields to its arguments.
-    """
-    from tracefit.conventions import FrameSettings
-    from tracefit.crystal import from_euler, lattice_preset
-    from tracefit.predict import parse_load
-
-    lattice = lattice_preset(im.lattice, im.c_over_a)
-    kw = dict(lattice=lattice, modes=tuple(im.modes), families=tuple(im.families) if im.families else None,
-              frame=FrameSettings(**im.frame), load=parse_load(im.load, lattice, im.load_sense) if im.load else None,
-              pixel_size_um=im.pixel_size_um, mask=im.mask, detect=dict(im.detect), path=str(im.file), **dict(im.match))
-    if im.euler_deg is not None:
-        kw["orientation"] = from_euler(np.asarray(im.euler_deg, float))
-    else:
-        kw.update(labels=im.labels, orientations=im.orientations)
-    return kw
-
-
-def analyse_image(im: ImageJob) -> ImageAnalysis:
-    """Detect the band families of one job image and identify their planes.
-
-    Runs :func:`tracefit.pipeline.analyse_image` (the one chain) with the image's settings and
-    turns its result into the survey's plain records.
-
-    Raises
-    ------
-    TracefitInputError
-        For a missing or unreadable file, or inconsistent settings.
-    """
-    from tracefit.pipeline import analyse_image as run_chain
-
-    if not im.file.is_file():
-        raise TracefitInputError(f"image file {str(im.file)!r} not found")
-    kw = chain_inputs(im)
-    res = run_chain(im.file, kw.pop("lattice"), **kw)
-    return analysis_from_result(res)
-
-
-def analysis_from_result(res) -> ImageAnalysis:
-    """The survey's plain view of a :class:`tracefit.pipeline.ImageResult`."""
-    recs = res.family_records()
-    families = [{k: v for k, v in r.items() if k not in ("identification", "index")} for r in recs]
-    idents = [r["identification"] for r in recs]
-    status = {g.grain: g for g in res.grains}
-    grains = []
-    for gid, g in res.orientations.items():
-        gs = status.get(gid)
-        if gs is not None and gs.status == "no orientation":
-            continue
-        grains.append(jsonable({
-            "grain": gid,
-            "euler_deg": None if gs is None else gs.euler_deg,
-            "n_pixels": None if gs is None or gid is None else gs.n_pixels,
-            "status": None if gs is None else gs.status,
-            "reason": None if gs is None else gs.reason,
-            "predicted": _predicted_dicts(res.lattice, g, res.systems, res.frame, res.load),
-        }))
-    for gs in res.grains:  # grains the chain could not analyse keep a line in the record
-        if gs.grain not in res.orientations:
-            grains.append(jsonable({**gs.to_dict(), "predicted": []}))
-    warns = list(res.warnings)
-    extra = {"frame_check": res.identification.frame_check, "artefacts": res.identification.artefacts}
-    return ImageAnalysis(image=res.image, families=families, identifications=idents, grains=grains,
-                         warnings=warns, labels=res.labels, notes=list(res.notes), extra=jsonable(extra))
 
 
 # --------------------------------------------------------------------------- figures and record
@@ -231,7 +114,30 @@ def _file_digest(p: Path | None) -> str | None:
 
 
 def image_fingerprint(im: ImageJob) -> str:
-    """Hash of an image's input files, its settings and the tracefit version (resume key)."""
+    """Hash of an image's input files, its settings and the tracefit version (resume key).
+
+    Parameters
+    ----------
+    im : ImageJob
+        One image of a job.
+
+    Returns
+    -------
+    str
+        SHA-256 hex digest (64 characters); a missing input file hashes as ``"missing"``.
+
+    Examples
+    --------
+    Any change of a setting changes the fingerprint, so ``resume`` redoes that image:
+
+    >>> import dataclasses
+    >>> from tracefit.demo import demo_job_path
+    >>> from tracefit.survey import load_job
+    >>> im = load_job(demo_job_path()).images[0]
+    >>> fp = image_fingerprint(im)
+    >>> len(fp), fp == image_fingerprint(im), fp == image_fingerprint(dataclasses.replace(im, pixel_size_um=0.25))
+    (64, True, False)
+    """
     d = {
         "settings": im.settings(),
         "files": {k: _file_digest(getattr(im, k)) for k in ("file", "mask", "labels", "orientations")},
@@ -240,19 +146,49 @@ def image_fingerprint(im: ImageJob) -> str:
     return hashlib.sha256(json.dumps(d, sort_keys=True, default=str).encode()).hexdigest()
 
 
-def process_image(im: ImageJob, out_dir, analyse: Callable[[ImageJob], ImageAnalysis] | None = None,
+def process_image(im: ImageJob, out_dir: str | Path, analyse: Callable[[ImageJob], ImageAnalysis] | None = None,
                   figures: bool = True) -> dict:
     """Analyse one image, draw its figures and write its record; never raises for a bad image.
 
     ``figures=False`` skips the overlay, stereogram and rose PNGs (faster; the report then
     shows tables only).
 
+    Parameters
+    ----------
+    im : ImageJob
+        One image of a job.
+    out_dir : str or Path
+        The survey's output folder (``images/`` is created in it).
+    analyse : callable, optional
+        Replacement for :func:`analyse_image` (``ImageJob -> ImageAnalysis``).
+    figures : bool
+        Draw the overlay, stereogram and rose PNGs.
+
     Returns
     -------
     dict
         The record written to ``OUT/images/NAME.json``: ``status`` is ``"ok"`` or
-        ``"failed"`` (with ``error``).
+        ``"failed"`` (with ``error``); ``families`` as :func:`tracefit.results.family_record`
+        gives them, ``elapsed_s`` in seconds.
+
+    Raises
+    ------
+    OSError
+        The record cannot be written (a bad image itself never raises).
+
+    Examples
+    --------
+    >>> import os, tempfile
+    >>> from tracefit.demo import demo_job_path
+    >>> from tracefit.survey import load_job
+    >>> im = load_job(demo_job_path()).images[0]
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     rec = process_image(im, d, figures=False)
+    ...     written = sorted(os.listdir(os.path.join(d, "images")))
+    >>> rec["status"], len(rec["families"]), written
+    ('ok', 2, ['coupon-A.json'])
     """
+    # Over 80 lines because of its numpydoc docstring; the code is one record built in a few steps.
     analyse = analyse or analyse_image
     out_dir = Path(out_dir)
     img_dir = out_dir / "images"
@@ -320,6 +256,21 @@ class SurveyResult:
     reused : list of str
         Names of images taken over from an earlier run (``resume``).
     csv_path, json_path, report_path : Path
+        The files written (``report_path`` None without ``report``).
+
+    Examples
+    --------
+    :func:`run_survey` returns it; here for the bundled demo's first image:
+
+    >>> import dataclasses, tempfile
+    >>> from tracefit.demo import demo_job_path
+    >>> from tracefit.survey import load_job
+    >>> job = load_job(demo_job_path())
+    >>> job = dataclasses.replace(job, images=job.images[:1])
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     res = run_survey(job, d, workers=1, progress=False, figures=False, report=False)
+    >>> res.n_ok, res.n_failed, res.exit_code, res.records[0]["name"]
+    (1, 0, 0, 'coupon-A')
     """
 
     job: Job
@@ -332,10 +283,12 @@ class SurveyResult:
 
     @property
     def n_failed(self) -> int:
+        """Images that failed."""
         return sum(r["status"] != "ok" for r in self.records)
 
     @property
     def n_ok(self) -> int:
+        """Images analysed."""
         return sum(r["status"] == "ok" for r in self.records)
 
     @property
@@ -344,6 +297,7 @@ class SurveyResult:
         return EXIT_OK if self.n_failed == 0 else EXIT_SOME_FAILED
 
     def to_dict(self) -> dict:
+        """The survey as plain values (the contents of ``results.json``)."""
         return {
             "tracefit_version": tracefit.__version__,
             "software": software_versions(),
@@ -383,8 +337,19 @@ class _Progress:
         self.stream.flush()
 
 
-def software_versions() -> dict:
-    """Versions of Python and of the libraries the results depend on (for the audit trail)."""
+def software_versions() -> dict[str, str | None]:
+    """Versions of Python and of the libraries the results depend on (for the audit trail).
+
+    Returns
+    -------
+    dict of str -> str or None
+        ``python``, ``platform`` and one entry per library (None where it is not installed).
+
+    Examples
+    --------
+    >>> sorted(software_versions())
+    ['matplotlib', 'numpy', 'opencv-python-headless', 'platform', 'python', 'scikit-image', 'scipy']
+    """
     import platform
     from importlib import metadata
 
@@ -414,7 +379,7 @@ def _previous(out_dir: Path, im: ImageJob, figures: bool) -> dict | None:
     return rec
 
 
-def run_survey(job: Job, out_dir, workers: int | None = None, resume: bool = False, progress: bool = True,
+def run_survey(job: Job, out_dir: str | Path, workers: int | None = None, resume: bool = False, progress: bool = True,
                analyse: Callable[[ImageJob], ImageAnalysis] | None = None, report: bool = True,
                figures: bool = True) -> SurveyResult:
     """Run every image of a job and write the output folder.
@@ -449,6 +414,25 @@ def run_survey(job: Job, out_dir, workers: int | None = None, resume: bool = Fal
     -------
     SurveyResult
         ``exit_code`` is 0 when every image succeeded and 1 when some failed.
+
+    Raises
+    ------
+    TracefitInputError
+        ``workers`` below 1, an output folder that cannot be written or is in use by
+        another survey, or tables that cannot be written (finished images are kept).
+
+    Examples
+    --------
+    The bundled demo (three coupons) in one process, tables only:
+
+    >>> import os, tempfile
+    >>> from tracefit.demo import demo_job_path
+    >>> from tracefit.survey import load_job
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     res = run_survey(load_job(demo_job_path()), d, workers=1, progress=False, figures=False, report=False)
+    ...     files = sorted(os.listdir(d))
+    >>> res.n_ok, res.exit_code, [len(r["families"]) for r in res.records], files
+    (3, 0, [2, 2, 1], ['images', 'results.csv', 'results.json'])
     """
     out_dir = Path(out_dir)
     n_workers = int(workers) if workers else default_workers()
@@ -505,7 +489,26 @@ def _survey(job, out_dir, n_workers, resume, progress, analyse, report, figures)
 
 def csv_rows(records: list[dict]) -> list[dict]:
     """Results table rows: one per family; a failed image gives one row with its error, and an
-    image without any band family one row with verdict "no bands found"."""
+    image without any band family one row with verdict "no bands found".
+
+    Parameters
+    ----------
+    records : list of dict
+        Per-image records (:func:`process_image`).
+
+    Returns
+    -------
+    list of dict
+        Rows keyed by the names of :data:`CSV_COLUMNS` (see :func:`tracefit.results.family_rows`).
+
+    Examples
+    --------
+    >>> for row in csv_rows([{"name": "coupon-A", "status": "ok", "families": []},
+    ...                      {"name": "coupon-D", "status": "failed", "error": "image file not found"}]):
+    ...     print(row)
+    {'image': 'coupon-A', 'status': 'ok', 'verdict': 'no bands found', 'error': ''}
+    {'image': 'coupon-D', 'status': 'failed', 'error': 'image file not found'}
+    """
     rows = []
     for rec in records:
         if rec.get("status") != "ok":
@@ -515,8 +518,36 @@ def csv_rows(records: list[dict]) -> list[dict]:
     return rows
 
 
-def write_results_csv(records: list[dict], path) -> Path:
-    """Write the one-row-per-family results CSV atomically."""
+def write_results_csv(records: list[dict], path: str | Path) -> Path:
+    """Write the one-row-per-family results CSV atomically.
+
+    Parameters
+    ----------
+    records : list of dict
+        Per-image records (:func:`process_image`).
+    path : str or Path
+        The CSV file (written via a temporary file, then renamed).
+
+    Returns
+    -------
+    Path
+        The file written.
+
+    Raises
+    ------
+    OSError
+        The file cannot be written.
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> from pathlib import Path
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     text = write_results_csv([{"name": "coupon-A", "status": "ok", "families": []}],
+    ...                              Path(d) / "results.csv").read_text()
+    >>> print(text.splitlines()[1])
+    coupon-A,ok,,,,,,,,no bands found,,,,,,,,,,,,
+    """
     buf = io.StringIO()
     w = csv.DictWriter(buf, fieldnames=CSV_COLUMNS, extrasaction="ignore", lineterminator="\n")
     w.writeheader()
