@@ -14,9 +14,10 @@ import pytest
 
 from tracefit.crystal import to_quaternion
 from tracefit.errors import TracefitInputError
-from tracefit.maps import (fit_registration, grain_boundaries, grain_map_from_orientation_map, grain_quaternions,
+from tracefit.viz import grain_boundaries, write_registration_figure
+from tracefit.maps import (fit_registration, grain_map_from_orientation_map, grain_quaternions,
                            read_control_points, scaled_registration, synthetic_crystal_map, voronoi_labels,
-                           warp_labels, write_registration_figure)
+                           warp_labels)
 
 orix_io = pytest.importorskip("orix.io")
 skt = pytest.importorskip("skimage.transform")

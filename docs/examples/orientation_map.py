@@ -19,8 +19,9 @@ from pathlib import Path
 
 import numpy as np
 
+from tracefit.viz import grain_boundaries, write_registration_figure
 from tracefit.maps import (Registration, grain_map_from_orientation_map, grain_quaternions, synthetic_crystal_map,
-                           voronoi_labels, warp_labels, write_orientation_table, write_registration_figure)
+                           voronoi_labels, warp_labels, write_orientation_table)
 
 out_dir = Path(sys.argv[1]) if len(sys.argv) > 1 else Path(tempfile.mkdtemp(prefix="tracefit-example-"))
 out_dir.mkdir(parents=True, exist_ok=True)

@@ -90,7 +90,8 @@ def map_grains_command(
             rows, residuals, notes = [], [], []
         else:
             from tracefit.image import read_image
-            from tracefit.maps import grain_map_from_orientation_map, write_registration_figure
+            from tracefit.maps import grain_map_from_orientation_map
+            from tracefit.viz import write_registration_figure
 
             gray, _ = read_image(image)
             gm = grain_map_from_orientation_map(orientation_map, gray.shape, control_points, phase, grain_threshold_deg,

@@ -5,7 +5,6 @@
 - :mod:`~tracefit.maps.segment` -- grains from neighbour misorientation, mean orientations
 - :mod:`~tracefit.maps.register` -- control points, map -> micrograph transforms, warped grain ids
 - :mod:`~tracefit.maps.grain_map` -- the whole chain: :func:`grain_map_from_orientation_map`
-- :mod:`~tracefit.maps.check_figure` -- the registration check figure
 - :mod:`~tracefit.maps.synthetic` -- synthetic maps of known grains
 """
 
@@ -35,7 +34,6 @@ from tracefit.maps.register import (
     warp_labels,
 )
 from tracefit.maps.grain_map import DEFAULT_MIN_GRAIN_PX, GrainMap, grain_map_from_orientation_map
-from tracefit.maps.check_figure import grain_boundaries, registration_figure, write_registration_figure
 from tracefit.maps.synthetic import grain_quaternions, synthetic_crystal_map, voronoi_labels
 
 __all__ = [
@@ -62,9 +60,6 @@ __all__ = [
     "GrainMap",
     "grain_map_from_orientation_map",
     "DEFAULT_MIN_GRAIN_PX",
-    "grain_boundaries",
-    "registration_figure",
-    "write_registration_figure",
     "voronoi_labels",
     "grain_quaternions",
     "synthetic_crystal_map",

@@ -156,6 +156,6 @@ def write_registration_figure(path: str | os.PathLike, image: np.ndarray, grain_
         raise TracefitInputError(f"registration figure {str(p)!r} must be a .png file")
     if not p.parent.exists():
         raise TracefitInputError(f"registration figure {str(p)!r}: the folder {str(p.parent)!r} does not exist")
-    from tracefit.viz import save_figure
+    from tracefit.viz.plots import save_figure
 
     return save_figure(registration_figure(image, grain_map), p, dpi=dpi)
