@@ -24,7 +24,7 @@ __all__ = [
 ]
 
 CSV_COLUMNS = [
-    "image", "status", "grain", "family", "angle_deg", "angle_sigma_deg", "n_bands", "spacing_um",
+    "image", "status", "grain", "grain_x_px", "grain_y_px", "grain_euler_deg", "family", "angle_deg", "angle_sigma_deg", "n_bands", "spacing_um",
     "strength", "verdict", "plane", "plane_family", "mode", "predicted_deg", "residual_deg",
     "probability", "schmid_factor", "direction", "second_plane", "second_probability", "p_none", "error",
 ]
@@ -73,7 +73,7 @@ def _line_endpoints(line) -> list[float]:
 
 
 def family_record(observed: ObservedFamily, band: BandFamily | None, identification: FamilyIdentification,
-                  index: int, pixel_size_um: float | None = None) -> dict:
+                  index: int, pixel_size_um: float | None = None, grain: GrainStatus | None = None) -> dict:
     """One family as a plain dict: what was observed, the detector's details, and its identification.
 
     Parameters
@@ -88,11 +88,14 @@ def family_record(observed: ObservedFamily, band: BandFamily | None, identificat
         1-based position of the family in its image.
     pixel_size_um : float, optional
         Micrometres per pixel, to give the spacing in um where the detector did not.
+    grain : GrainStatus, optional
+        The family's grain: its centroid (``grain_x_px``, ``grain_y_px``) and orientation
+        (``grain_euler_deg``) go into the record.
 
     Returns
     -------
     dict
-        ``grain``, ``angle_deg``, ``angle_sigma_deg``, ``n_bands``, ``spacing_px``, ``spacing_um``,
+        ``grain``, ``grain_x_px``, ``grain_y_px``, ``grain_euler_deg``, ``angle_deg``, ``angle_sigma_deg``, ``n_bands``, ``spacing_px``, ``spacing_um``,
         ``strength``, ``lines`` (pixel endpoints ``[col0, row0, col1, row1]``), ``source``, ``index``
         and ``identification`` (``FamilyIdentification.to_dict()``), JSON-ready.
 
@@ -113,8 +116,12 @@ def family_record(observed: ObservedFamily, band: BandFamily | None, identificat
         sp_um = float(sp_px) * float(pixel_size_um)
     rec = {
         "grain": observed.grain,
+        "grain_x_px": None if grain is None or grain.x_px is None else round(float(grain.x_px), 1),
+        "grain_y_px": None if grain is None or grain.y_px is None else round(float(grain.y_px), 1),
+        "grain_euler_deg": None if grain is None or grain.euler_deg is None else [round(float(x), 3) for x in grain.euler_deg],
         "angle_deg": float(band.angle_deg) if band is not None else float(observed.angle_deg),
-        "angle_sigma_deg": getattr(band, "angle_sigma_deg", None) if band is not None else observed.angle_sigma_deg,
+        # the uncertainty the identification used (the detector's, floored), the same in every output
+        "angle_sigma_deg": observed.angle_sigma_deg,
         "n_bands": getattr(band, "n_bands", None) if band is not None else observed.n_bands,
         "spacing_px": sp_px,
         "spacing_um": sp_um,
@@ -211,6 +218,9 @@ def family_rows(image_name: str, families: list[dict]) -> list[dict]:
             "image": image_name,
             "status": "ok",
             "grain": "" if fam.get("grain") is None else fam["grain"],
+            "grain_x_px": fam.get("grain_x_px"),
+            "grain_y_px": fam.get("grain_y_px"),
+            "grain_euler_deg": " ".join(f"{x:g}" for x in fam["grain_euler_deg"]) if fam.get("grain_euler_deg") else "",
             "family": f"F{fam.get('index', len(rows) + 1)}",
             "angle_deg": fam.get("angle_deg"),
             "angle_sigma_deg": fam.get("angle_sigma_deg"),
@@ -254,6 +264,9 @@ class GrainStatus:
         Its orientation as Bunge angles (degrees), where known.
     sigma_deg : float or None
         Its own orientation uncertainty from the orientation table, where given.
+    x_px, y_px : float or None
+        The grain's centroid in micrograph pixels: column to the right from the left edge, row
+        down from the top edge (None without a grain map).
 
     Examples
     --------
@@ -271,11 +284,14 @@ class GrainStatus:
     reason: str = ""
     euler_deg: list | None = None
     sigma_deg: float | None = None
+    x_px: float | None = None
+    y_px: float | None = None
 
     def to_dict(self) -> dict:
         """The status as a plain dict (the ``grain_status`` entries of ``--json``)."""
         return {"grain": self.grain, "n_pixels": self.n_pixels, "n_families": self.n_families, "status": self.status,
-                "reason": self.reason, "euler_deg": self.euler_deg, "sigma_deg": self.sigma_deg}
+                "reason": self.reason, "euler_deg": self.euler_deg, "sigma_deg": self.sigma_deg,
+                "x_px": self.x_px, "y_px": self.y_px}
 
 
 @dataclass
@@ -410,10 +426,11 @@ class ImageResult:
     def family_records(self) -> list[dict]:
         """One plain dict per family: detection details plus its identification (JSON-ready)."""
         bands = [] if self.detection is None else self.detection.bands
+        status = {g.grain: g for g in self.grains}
         out = []
         for i, (o, r) in enumerate(zip(self.observed, self.families)):
             out.append(family_record(o, bands[i] if i < len(bands) else None, r, index=i + 1,
-                                     pixel_size_um=self.settings.get("pixel_size_um")))
+                                     pixel_size_um=self.settings.get("pixel_size_um"), grain=status.get(o.grain)))
         return out
 
     def to_dict(self) -> dict:

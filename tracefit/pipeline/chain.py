@@ -137,8 +137,9 @@ def detect_families(image: np.ndarray, *, labels: np.ndarray | None = None,
                          "" if obs else "no band family passed the detector's tests")
         return FamilyDetection(obs, list(res.families), [st], list(res.notes))
 
-    present = [int(x) for x in np.unique(labels)]
+    present = [int(x) for x in np.unique(labels) if x >= 0]  # -1: outside every grain
     ids = [g for g in present if orientations is None or g in orientations]
+    centres = _centroids(labels, present)
     dets = detect_grains(image, labels, mask, pixel_size_um, path=path, min_pixels=min_px, grains=ids, **detect)
     observed, bands, grains, notes = [], [], [], []
     for gid in ids:
@@ -155,15 +156,26 @@ def detect_families(image: np.ndarray, *, labels: np.ndarray | None = None,
         status = "analysed" if fams else ("too small" if too_small else "no families")
         reason = "" if fams else (f"fewer than {min_px} analysable pixels" if too_small
                                   else "no band family passed the detector's tests")
-        grains.append(GrainStatus(gid, n_px, len(fams), status, reason))
+        grains.append(GrainStatus(gid, n_px, len(fams), status, reason, x_px=centres[gid][0], y_px=centres[gid][1]))
     if orientations is not None:
         missing = [g for g in present if g not in orientations]
         for gid in missing:
             grains.append(GrainStatus(gid, int((labels == gid).sum()), 0, "no orientation",
-                                      "the orientation table has no row for this grain"))
+                                      "the orientation table has no row for this grain",
+                                      x_px=centres[gid][0], y_px=centres[gid][1]))
         if missing:
             notes.append(f"{len(missing)} grain id(s) of the label image have no orientation and were skipped")
     return FamilyDetection(observed, bands, grains, notes)
+
+
+def _centroids(labels: np.ndarray, ids: list[int]) -> dict[int, tuple[float, float]]:
+    """Grain id -> (column, row) of its centroid in pixels."""
+    from scipy import ndimage
+
+    if not ids:
+        return {}
+    rc = ndimage.center_of_mass(np.ones(labels.shape), labels, ids)
+    return {g: (float(c), float(r)) for g, (r, c) in zip(ids, rc)}
 
 
 # --------------------------------------------------------------------------- stage 3: identification
@@ -309,7 +321,9 @@ def analyse_image(image: str | Path | np.ndarray | None, lattice: Lattice | str,
                   frame: FrameSettings | None = None, load: LoadAxis | str | np.ndarray | None = None,
                   pixel_size_um: float | None = None, mask: str | Path | np.ndarray | None = None,
                   measured: Sequence[ObservedFamily] = (), detect: dict | None = None,
-                  path: str | None = None, **settings: Any) -> ImageResult:
+                  path: str | None = None, orientation_map: str | Path | None = None,
+                  control_points: str | Path | np.ndarray | None = None, map_settings: dict | None = None,
+                  **settings: Any) -> ImageResult:
     """Detect the band families of one micrograph and identify their planes: the whole chain.
 
     Parameters
@@ -337,6 +351,16 @@ def analyse_image(image: str | Path | np.ndarray | None, lattice: Lattice | str,
         Detection settings (the ``detect`` group of :mod:`tracefit.options`).
     path : str, optional
         A name for an array image, used in notes and tables.
+    orientation_map : str or Path, optional
+        An orientation map (.ang, .ctf, orix HDF5) instead of ``labels`` and ``orientations``: its
+        grains are segmented, registered onto the micrograph and used as the grain map; each
+        grain's orientation spread becomes its uncertainty (never below ``orientation_sigma_deg``).
+    control_points : str, Path or array_like (n, 4), optional
+        Control points for ``orientation_map`` (CSV columns image_x, image_y, map_x, map_y);
+        without them the map is taken to cover the image exactly, with a warning.
+    map_settings : dict, optional
+        ``phase``, ``threshold_deg``, ``min_grain_points``, ``registration`` of
+        :func:`tracefit.maps.grain_map_from_orientation_map`.
     **settings
         The ``identify`` and ``analysis`` groups of :mod:`tracefit.options`.
 
@@ -367,7 +391,12 @@ def analyse_image(image: str | Path | np.ndarray | None, lattice: Lattice | str,
     # Over 80 lines because of its numpydoc docstring (every argument of the chain); the code
     # itself is short and delegates to the stages above.
     s, det = resolve_settings(settings, detect)
-    if orientation is None and orientations is None:
+    if orientation_map is not None:
+        if orientation is not None or labels is not None or orientations is not None:
+            raise TracefitInputError("orientation_map replaces orientation, labels and orientations: give one source")
+        if image is None:
+            raise TracefitInputError("orientation_map is registered onto an image: give the image too")
+    elif orientation is None and orientations is None:
         raise TracefitInputError("no orientation: give orientation=... (one crystal) or labels=... with "
                                  "orientations=... (a grain map)")
     if labels is not None and orientations is None:
@@ -381,6 +410,10 @@ def analyse_image(image: str | Path | np.ndarray | None, lattice: Lattice | str,
         frame = frame or FrameSettings()
         ld = _as_load(load, lat)
         img, notes, path, lab, table = _inputs(image, path, labels, orientations)
+        if orientation_map is not None:
+            lab, table, map_notes = _grains_from_map(orientation_map, img.shape, control_points, map_settings,
+                                                     s["orientation_sigma_deg"])
+            notes += map_notes
         detection = None
         if img is not None:
             detection = detect_families(img, labels=lab, orientations=table, mask=_read_mask(mask, img.shape),
@@ -475,6 +508,28 @@ def _inputs(image, path, labels, orientations):
         else:  # hand-measured traces carry their grain ids
             table = orientation_table(orientations)
     return img, notes, path, lab, table
+
+
+_MAP_SETTINGS = ("phase", "threshold_deg", "min_grain_points", "registration")
+
+
+def _grains_from_map(orientation_map, shape, control_points, map_settings, orientation_sigma_deg):
+    """Label image and grain table of an orientation map registered onto the micrograph."""
+    import dataclasses
+
+    from tracefit.maps import grain_map_from_orientation_map
+
+    extra = dict(map_settings or {})
+    unknown = sorted(set(extra) - set(_MAP_SETTINGS))
+    if unknown:
+        raise TracefitInputError(f"map_settings: unknown setting {unknown[0]!r}; known: {', '.join(_MAP_SETTINGS)}")
+    gm = grain_map_from_orientation_map(orientation_map, shape, control_points=control_points, **extra)
+    for w in gm.warnings:
+        warnings.warn(w, stacklevel=3)
+    # a grain's own spread is its uncertainty, but never below what the user stated for all
+    table = {k: dataclasses.replace(v, sigma_deg=max(float(v.sigma_deg or 0.0), orientation_sigma_deg))
+             for k, v in gm.table.items()}
+    return gm.labels, table, list(gm.notes)
 
 
 def _read_mask(mask, shape):

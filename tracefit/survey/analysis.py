@@ -118,6 +118,9 @@ def chain_inputs(im: ImageJob) -> dict[str, Any]:
               pixel_size_um=im.pixel_size_um, mask=im.mask, detect=dict(im.detect), path=str(im.file), **dict(im.match))
     if im.euler_deg is not None:
         kw["orientation"] = from_euler(np.asarray(im.euler_deg, float))
+    elif im.orientation_map is not None:
+        kw.update(orientation_map=im.orientation_map, control_points=im.control_points,
+                  map_settings=dict(im.map_settings))
     else:
         kw.update(labels=im.labels, orientations=im.orientations)
     return kw

@@ -28,8 +28,6 @@ itself (:func:`key_lines`); every validation message names the field and its lin
 
 from __future__ import annotations
 
-import difflib
-import math
 import re
 import tomllib
 from dataclasses import asdict, dataclass, field
@@ -38,7 +36,7 @@ from typing import Any
 
 from tracefit.errors import TracefitInputError
 from tracefit.options import DEFAULT_MODES, MODES
-from tracefit.survey.keylines import _Ctx, key_lines
+from tracefit.survey.keylines import _Ctx, _file, _number, _str_list, _string, _table, _unknown, key_lines
 
 __all__ = ["Job", "ImageJob", "load_job", "parse_job", "key_lines", "JOB_FORMAT"]
 
@@ -65,8 +63,15 @@ _IMAGE_ONLY_KEYS = {
     "euler_deg": "three Bunge Euler angles [phi1, Phi, phi2] in degrees",
     "labels": "a grain label image file name",
     "orientations": "an orientation table CSV file name",
+    "orientation_map": "an orientation map file (.ang, .ctf or orix HDF5) registered onto the image",
+    "control_points": "a CSV of control points image_x, image_y, map_x, map_y for orientation_map",
+    "phase": "the orientation map's phase, by name or id",
+    "grain_threshold_deg": "grain boundary misorientation in the orientation map, degrees (default 5)",
+    "min_grain_points": "smallest grain of the orientation map, in map points",
+    "registration": '"affine" (default) or "projective", the map-to-image transform',
     "notes": "free text",
 }
+_MAP_KEYS = ("orientation_map", "control_points", "phase", "grain_threshold_deg", "min_grain_points", "registration")
 _TOP_KEYS = {
     "format": f"the job format number ({JOB_FORMAT})",
     "title": "a title for the report",
@@ -150,6 +155,9 @@ class ImageJob:
     euler_deg: tuple[float, float, float] | None = None
     labels: Path | None = None
     orientations: Path | None = None
+    orientation_map: Path | None = None
+    control_points: Path | None = None
+    map_settings: dict = field(default_factory=dict)
     notes: str = ""
     line: int = 0  # line of this image's [[image]] header in the job file
 
@@ -162,7 +170,7 @@ class ImageJob:
             Every field but ``line``; paths as str, tuples as lists.
         """
         d = asdict(self)
-        for k in ("file", "mask", "labels", "orientations"):
+        for k in ("file", "mask", "labels", "orientations", "orientation_map", "control_points"):
             d[k] = None if d[k] is None else str(d[k])
         d["modes"] = list(self.modes)
         d["families"] = None if self.families is None else list(self.families)
@@ -225,46 +233,6 @@ class Job:
 
 
 # --------------------------------------------------------------------------- validation
-def _unknown(ctx: _Ctx, key: tuple, allowed: dict) -> TracefitInputError:
-    close = difflib.get_close_matches(str(key[-1]), list(allowed), n=1)
-    hint = f"; did you mean '{close[0]}'?" if close else f"; expected one of {', '.join(sorted(allowed))}"
-    return ctx.fail(key, f"is not a known field{hint}")
-
-
-def _number(ctx, key, v, positive=False) -> float:
-    if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
-        raise ctx.fail(key, f"must be a number, got {v!r}")
-    if positive and v <= 0:
-        raise ctx.fail(key, f"must be a positive number, got {v!r}")
-    return float(v)
-
-
-def _string(ctx, key, v) -> str:
-    if not isinstance(v, str) or not v.strip():
-        raise ctx.fail(key, f"must be a non-empty string, got {v!r}")
-    return v.strip()
-
-
-def _str_list(ctx, key, v) -> tuple[str, ...]:
-    if isinstance(v, str):
-        v = [v]
-    if not isinstance(v, list) or not v or not all(isinstance(x, str) and x.strip() for x in v):
-        raise ctx.fail(key, f"must be a list of strings, got {v!r}")
-    return tuple(x.strip() for x in v)
-
-
-def _table(ctx, key, v) -> dict:
-    if not isinstance(v, dict):
-        raise ctx.fail(key, f"must be a table (e.g. {{ key = value }}), got {v!r}")
-    return dict(v)
-
-
-def _file(ctx, key, v, base: Path) -> Path:
-    s = _string(ctx, key, v)
-    p = Path(s).expanduser()
-    return (p if p.is_absolute() else base / p).resolve()
-
-
 def _check_shared(ctx: _Ctx, key: tuple, name: str, v: Any, base: Path):
     """Validate one of the keys an image can inherit; return the normalised value."""
     k = key + (name,)
@@ -366,6 +334,58 @@ def _check_options(ctx: _Ctx, key: tuple, opts: dict, groups) -> dict:
         raise ctx.fail(key + (exc.name,), f"is not valid: {exc}") from None
 
 
+def _orientation_source(ctx: _Ctx, key: tuple, raw: dict, base: Path):
+    """The image's one orientation source: Euler angles, a label image with a table, or an orientation map."""
+    sources = [s for s, present in (("euler_deg", "euler_deg" in raw),
+                                    ("labels/orientations", "labels" in raw or "orientations" in raw),
+                                    ("orientation_map", "orientation_map" in raw)) if present]
+    if len(sources) > 1:
+        raise ctx.fail(key + (sources[0].split("/")[0],), f"conflicts with {sources[1]}: give one orientation source")
+    stray = [k for k in _MAP_KEYS[1:] if k in raw and "orientation_map" not in raw]
+    if stray:
+        raise ctx.fail(key + (stray[0],), "goes with orientation_map = \"...\"")
+    euler = labels = orient = omap = cpts = None
+    map_settings: dict = {}
+    if not sources:
+        raise ctx.fail(key, "has no orientation: give euler_deg = [phi1, Phi, phi2], labels = \"...\" with "
+                       "orientations = \"...\", or orientation_map = \"...\"")
+    if sources[0] == "euler_deg":
+        e = raw["euler_deg"]
+        if not isinstance(e, list) or len(e) != 3:
+            raise ctx.fail(key + ("euler_deg",), f"must be three angles [phi1, Phi, phi2] in degrees, got {e!r}")
+        euler = tuple(_number(ctx, key + ("euler_deg",), x) for x in e)
+    elif sources[0] == "labels/orientations":
+        for need in ("labels", "orientations"):
+            if need not in raw:
+                other = "orientations" if need == "labels" else "labels"
+                raise ctx.fail(key + (other,), f"needs '{need}' beside it ({_IMAGE_ONLY_KEYS[need]})")
+        labels = _file(ctx, key + ("labels",), raw["labels"], base)
+        orient = _file(ctx, key + ("orientations",), raw["orientations"], base)
+    else:
+        omap = _file(ctx, key + ("orientation_map",), raw["orientation_map"], base)
+        if "control_points" in raw:
+            cpts = _file(ctx, key + ("control_points",), raw["control_points"], base)
+        if "phase" in raw:
+            ph = raw["phase"]
+            if isinstance(ph, bool) or not isinstance(ph, (int, str)):
+                raise ctx.fail(key + ("phase",), f"must be a phase name or id, got {ph!r}")
+            map_settings["phase"] = ph
+        if "grain_threshold_deg" in raw:
+            map_settings["threshold_deg"] = _number(ctx, key + ("grain_threshold_deg",), raw["grain_threshold_deg"],
+                                                    positive=True)
+        if "min_grain_points" in raw:
+            v = raw["min_grain_points"]
+            if isinstance(v, bool) or not isinstance(v, int) or v < 1:
+                raise ctx.fail(key + ("min_grain_points",), f"must be a whole number >= 1, got {v!r}")
+            map_settings["min_grain_points"] = v
+        if "registration" in raw:
+            reg = _string(ctx, key + ("registration",), raw["registration"]).lower()
+            if reg not in ("affine", "projective"):
+                raise ctx.fail(key + ("registration",), f'must be "affine" or "projective", got {raw["registration"]!r}')
+            map_settings["registration"] = reg
+    return euler, labels, orient, omap, cpts, map_settings
+
+
 def _parse_image(ctx: _Ctx, i: int, raw: dict, defaults: dict, base: Path, seen: dict) -> ImageJob:
     """One [[image]] table, with the [defaults] applied, validated into an :class:`ImageJob`."""
     allowed = {**_SHARED_KEYS, **_IMAGE_ONLY_KEYS}
@@ -395,27 +415,7 @@ def _parse_image(ctx: _Ctx, i: int, raw: dict, defaults: dict, base: Path, seen:
         im["modes"] = DEFAULT_MODES
     file = _file(ctx, key + ("file",), raw["file"], base)
 
-    has_euler = "euler_deg" in raw
-    has_labels = "labels" in raw or "orientations" in raw
-    if has_euler and has_labels:
-        raise ctx.fail(key + ("euler_deg",), "conflicts with labels/orientations: give one orientation source")
-    euler = None
-    labels = orient = None
-    if has_euler:
-        e = raw["euler_deg"]
-        if not isinstance(e, list) or len(e) != 3:
-            raise ctx.fail(key + ("euler_deg",), f"must be three angles [phi1, Phi, phi2] in degrees, got {e!r}")
-        euler = tuple(_number(ctx, key + ("euler_deg",), x) for x in e)
-    elif has_labels:
-        for need in ("labels", "orientations"):
-            if need not in raw:
-                other = "orientations" if need == "labels" else "labels"
-                raise ctx.fail(key + (other,), f"needs '{need}' beside it ({_IMAGE_ONLY_KEYS[need]})")
-        labels = _file(ctx, key + ("labels",), raw["labels"], base)
-        orient = _file(ctx, key + ("orientations",), raw["orientations"], base)
-    else:
-        raise ctx.fail(key, "has no orientation: give euler_deg = [phi1, Phi, phi2], "
-                       "or labels = \"...\" with orientations = \"...\"")
+    euler, labels, orient, omap, cpts, map_settings = _orientation_source(ctx, key, raw, base)
     inote = raw.get("notes", "")
     if not isinstance(inote, str):
         raise ctx.fail(key + ("notes",), "must be a string")
@@ -441,6 +441,9 @@ def _parse_image(ctx: _Ctx, i: int, raw: dict, defaults: dict, base: Path, seen:
         euler_deg=euler,
         labels=labels,
         orientations=orient,
+        orientation_map=omap,
+        control_points=cpts,
+        map_settings=map_settings,
         notes=inote,
         line=ctx.line(key) or 0,
     )

@@ -6,6 +6,8 @@ Python's ``tomllib`` gives no source positions, so :func:`key_lines` finds them 
 
 from __future__ import annotations
 
+import difflib
+import math
 import re
 from pathlib import Path
 
@@ -175,3 +177,44 @@ class _Ctx:
         ln = self.line(key)
         where = f"{self.path.name}, line {ln}" if ln else f"{self.path.name}"
         return TracefitInputError(f"{where}: field '{self.label(key)}' {what}")
+
+
+# ------------------------------------------------------------------ field readers (name the field and its line)
+def _unknown(ctx: _Ctx, key: tuple, allowed: dict) -> TracefitInputError:
+    close = difflib.get_close_matches(str(key[-1]), list(allowed), n=1)
+    hint = f"; did you mean '{close[0]}'?" if close else f"; expected one of {', '.join(sorted(allowed))}"
+    return ctx.fail(key, f"is not a known field{hint}")
+
+
+def _number(ctx, key, v, positive=False) -> float:
+    if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
+        raise ctx.fail(key, f"must be a number, got {v!r}")
+    if positive and v <= 0:
+        raise ctx.fail(key, f"must be a positive number, got {v!r}")
+    return float(v)
+
+
+def _string(ctx, key, v) -> str:
+    if not isinstance(v, str) or not v.strip():
+        raise ctx.fail(key, f"must be a non-empty string, got {v!r}")
+    return v.strip()
+
+
+def _str_list(ctx, key, v) -> tuple[str, ...]:
+    if isinstance(v, str):
+        v = [v]
+    if not isinstance(v, list) or not v or not all(isinstance(x, str) and x.strip() for x in v):
+        raise ctx.fail(key, f"must be a list of strings, got {v!r}")
+    return tuple(x.strip() for x in v)
+
+
+def _table(ctx, key, v) -> dict:
+    if not isinstance(v, dict):
+        raise ctx.fail(key, f"must be a table (e.g. {{ key = value }}), got {v!r}")
+    return dict(v)
+
+
+def _file(ctx, key, v, base: Path) -> Path:
+    s = _string(ctx, key, v)
+    p = Path(s).expanduser()
+    return (p if p.is_absolute() else base / p).resolve()

@@ -140,7 +140,7 @@ def image_fingerprint(im: ImageJob) -> str:
     """
     d = {
         "settings": im.settings(),
-        "files": {k: _file_digest(getattr(im, k)) for k in ("file", "mask", "labels", "orientations")},
+        "files": {k: _file_digest(getattr(im, k)) for k in ("file", "mask", "labels", "orientations", "orientation_map", "control_points")},
         "version": tracefit.__version__,
     }
     return hashlib.sha256(json.dumps(d, sort_keys=True, default=str).encode()).hexdigest()
@@ -201,7 +201,7 @@ def process_image(im: ImageJob, out_dir: str | Path, analyse: Callable[[ImageJob
         "status": "ok",
         "error": None,
         "fingerprint": image_fingerprint(im),
-        "inputs_sha256": {k: _file_digest(getattr(im, k)) for k in ("file", "mask", "labels", "orientations")
+        "inputs_sha256": {k: _file_digest(getattr(im, k)) for k in ("file", "mask", "labels", "orientations", "orientation_map", "control_points")
                           if getattr(im, k) is not None},
         "tracefit_version": tracefit.__version__,
         "settings": jsonable(im.settings()),
@@ -546,7 +546,7 @@ def write_results_csv(records: list[dict], path: str | Path) -> Path:
     ...     text = write_results_csv([{"name": "coupon-A", "status": "ok", "families": []}],
     ...                              Path(d) / "results.csv").read_text()
     >>> print(text.splitlines()[1])
-    coupon-A,ok,,,,,,,,no bands found,,,,,,,,,,,,
+    coupon-A,ok,,,,,,,,,,,no bands found,,,,,,,,,,,,
     """
     buf = io.StringIO()
     w = csv.DictWriter(buf, fieldnames=CSV_COLUMNS, extrasaction="ignore", lineterminator="\n")
