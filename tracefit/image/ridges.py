@@ -176,8 +176,8 @@ def _lag_robust_sigma(a: np.ndarray, keep: np.ndarray | None) -> float:
 
     An image enlarged (cubic or nearest) has noise correlated over several pixels: its
     one-pixel second differences see almost none of it. When the lag-1 estimate is well
-    below the lag-3 one (not the case for white noise, whose estimates agree at every
-    lag), the largest estimate over lags 1-3 is used.
+    below the lag-3 to lag-6 ones (not the case for white noise, whose estimates agree at
+    every lag), the largest estimate over lags 1-6 is used.
 
     Parameters
     ----------
@@ -186,7 +186,7 @@ def _lag_robust_sigma(a: np.ndarray, keep: np.ndarray | None) -> float:
         Pixels that count.
     """
     est = []
-    for lag in (1, 2, 3):
+    for lag in (1, 2, 3, 4, 6):
         if min(a.shape) <= 2 * lag + 2:
             break
         d = _diagonal_second_difference(a, lag)
@@ -196,7 +196,7 @@ def _lag_robust_sigma(a: np.ndarray, keep: np.ndarray | None) -> float:
         est.append(_white_sigma(d) if d.size else 0.0)
     if not est:
         return 0.0
-    if len(est) == 3 and est[0] < 0.6 * est[2]:
+    if len(est) >= 3 and est[0] < 0.6 * max(est[2:]):
         return max(est)
     return est[0]
 
