@@ -30,6 +30,7 @@ TOML), so read them as "unmatched".
 Usage::
 
     python benchmarks/realdata.py
+    python benchmarks/realdata.py --set min_depth=0.02 --set min_significance=2
     TRACEFIT_REALDATA=/path/to/realdata python benchmarks/realdata.py
 """
 
@@ -71,11 +72,14 @@ def boxes_overlap(a, b) -> bool:
     return a[0] < b[2] and b[0] < a[2] and a[1] < b[3] and b[1] < a[3]
 
 
+SETTINGS: dict = {}  # detector settings from --set name=value
+
+
 def run_detect(detect_bands, image, mask, pixel_size_um, path):
     """Detected family angles (deg) and the seconds taken; angles None on a refused input."""
     t0 = time.perf_counter()
     try:
-        res = detect_bands(image, mask=mask, pixel_size_um=pixel_size_um, path=path)
+        res = detect_bands(image, mask=mask, pixel_size_um=pixel_size_um, path=path, **SETTINGS)
     except ValueError as exc:  # TracefitInputError is a ValueError
         return None, time.perf_counter() - t0, str(exc)
     angles = [float(f.angle_deg) for f in res.families]
@@ -105,7 +109,18 @@ def fmt_angles(angles) -> str:
     return "[" + ", ".join(f"{a:.1f}" for a in angles) + "]"
 
 
-def main() -> int:
+def main(argv=None) -> int:
+    import argparse
+    import ast
+
+    ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    ap.add_argument("--set", action="append", default=[], metavar="NAME=VALUE",
+                    help="a detect_bands setting (Python literal value), e.g. min_depth=0.02")
+    ap.add_argument("--only", default=None, help="run only this image id")
+    args = ap.parse_args(argv)
+    for item in args.set:
+        name, _, value = item.partition("=")
+        SETTINGS[name.strip()] = ast.literal_eval(value.strip())
     root = realdata_root()
     if not root.is_dir():
         print(f"realdata benchmark skipped: {root} not found (set TRACEFIT_REALDATA to the folder of the real images)")
@@ -120,7 +135,7 @@ def main() -> int:
     region_rows = []  # (family id, confidence, angle, found, spurious, detected)
     neg_rows = []  # (image, region, n_reported)
 
-    for im in ref["image"]:
+    for im in [i for i in ref["image"] if args.only in (None, i["id"])]:
         path = root / im["file"]
         print(f"\n=== {im['id']}  ({im['file']}; {im['origin']}, {im['licence']}; {im['role']})")
         if not path.exists():

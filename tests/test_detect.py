@@ -65,9 +65,11 @@ def test_spacing_in_micrometres_and_json_shape():
     assert fam.spacing_px == pytest.approx(24.0, rel=0.05)
     assert fam.spacing_um == pytest.approx(fam.spacing_px * 0.25)
     d = res.to_dict()
-    assert set(d) == {"image", "families"}
+    assert set(d) == {"image", "families", "verdict", "reason"}
+    assert d["verdict"] == "found" and "1 band family" in d["reason"]
     assert d["image"] == {"path": "x.png", "width": 384, "height": 384, "excluded": []}
     assert set(d["families"][0]) == {"angle_deg", "angle_sigma_deg", "n_bands", "spacing_px", "spacing_um", "strength"}
+    assert res.to_dict(with_lines=True)["families"][0]["significance"] > 10
 
 
 def test_data_bar_found_and_excluded_scratches_not_families():
@@ -144,9 +146,11 @@ def test_constant_and_malformed_images_are_rejected():
     with pytest.raises(TracefitInputError):
         detect_bands(np.zeros((4, 64, 64)))
     bad = np.random.default_rng(0).random((64, 64)).astype(np.float32)
-    bad[3, 3] = np.nan
-    with pytest.raises(TracefitInputError, match="NaN"):
+    bad[3, 3] = np.inf
+    with pytest.raises(TracefitInputError, match="infinite"):
         detect_bands(bad)
+    with pytest.raises(TracefitInputError, match="NaN everywhere"):
+        detect_bands(np.full((64, 64), np.nan))
 
 
 def _draw_parallel_lines(shape, p0, p1, offsets, thickness=(-1, 0, 1)):

@@ -197,6 +197,8 @@ OPTIONS: tuple[Option, ...] = (
            low=0.0, high=1.0, low_open=True),
     Option("min_depth", "detect", "float", 0.035, "least relative depth of a band below/above the local median grey",
            low=0.0),
+    Option("min_significance", "detect", "float", 16.0,
+           "least significance -log10(NFA) of a family (a contrario number of false alarms)"),
     # -- the image itself
     Option("pixel_size_um", "image", "float", None, "micrometres per pixel (band spacings in um)", low=0.0,
            low_open=True, allow_none=True, flag="--pixel-size"),

@@ -74,6 +74,7 @@ def find_databar(image: np.ndarray, max_fraction: float = 0.3, min_rows: int = 6
     body_level = float(np.median(body))
     lo, hi = np.percentile(body, [1, 99])
     body_sigma = 1.4826 * float(np.median(np.abs(body - body_level)))
+    body_exact = float(np.median(np.mean(body == body_med[:, None], axis=1)))
     span = max(float(hi - lo), 1e-6)
     full_lo, full_hi = float(image[:, ::col_step].min()), float(image[:, ::col_step].max())
     tol = max(0.03 * (full_hi - full_lo), 1e-6)
@@ -84,6 +85,11 @@ def find_databar(image: np.ndarray, max_fraction: float = 0.3, min_rows: int = 6
         sub, med = _row_stats(image, rows, col_step)
         flat = np.mean(np.abs(sub - med[:, None]) <= tol, axis=1)
         far = np.abs(med - body_level) > max(3.0 * body_sigma, 0.35 * span)
+        # A digitally drawn background repeats one value exactly; a micrograph's rows
+        # (noise, 16-bit levels) almost never do. Such rows need only a clear level step.
+        exact = np.mean(sub == med[:, None], axis=1)
+        drawn = (exact >= 0.6) & (body_exact < 0.1) & (np.abs(med - body_level) > max(1.0 * body_sigma, 0.15 * span))
+        far = far | drawn
         edge = far & (flat >= 0.5)
         if not edge[:2].any():
             continue

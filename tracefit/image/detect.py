@@ -41,35 +41,47 @@ from __future__ import annotations
 import math
 import numbers
 from collections.abc import Iterable, Sequence
+from dataclasses import dataclass
 
+import cv2
 import numpy as np
 from scipy import ndimage
 
 from tracefit.conventions import axial_difference
 from tracefit.errors import TracefitInputError
-from tracefit.image.depth import _depth_map, _hough_depth, _on_band_side
+from tracefit.image.depth import _depth_map, _hough_depth, _keep, _on_band_side
+from tracefit.image.geometry import _to_working
 from tracefit.image.families import _build_family, _FamilyContext
-from tracefit.image.hough import SECTOR_DEG, _chord_lengths, _cluster_angles, _hough_theta, _line_candidates, _vote_mean_angle
+from tracefit.image.hough import SECTOR_DEG, _chord_lengths, _cluster_angles, _hough_theta, _line_candidates, _pixels_near_angle, _vote_mean_angle
 from tracefit.image.options import DETECT_OPTIONS, check_detect_options
 from tracefit.image.prepare import (
     MIN_SIDE_PX,
     _clear_boxes,
     _exclude_databars,
     _prepare_input,
+    _reduction_factor,
     _working_copy,
     _working_size_problem,
     _WorkingCopy,
 )
 from tracefit.image.results import BandFamily, BandLine, DetectionResult
 from tracefit.image.ridges import RidgePixels, _pixel_noise, flatten_background, ridge_pixels
+from tracefit.image.significance import family_log10_nfa
 
 __all__ = ["BandLine", "BandFamily", "DetectionResult", "detect_bands", "detect_grains"]
 
 MIN_REGION_PX = 400  # fewest analysed working-copy pixels
+MIN_ANALYSED_PX = 64  # fewest analysed pixels of the image itself (before any enlargement)
+SMALL_SIDE_PX = 96  # regions narrower than this are analysed enlarged ...
+MAX_UP = 4  # ... by an integer factor up to this
+NFA_STEP_PX = 2.0  # sample spacing of the significance test, working (or original) px
+SEARCH_ROUNDS = 2  # searches for further families after taking out the bands found
+MAX_RESEARCH_PX = 600_000  # ... in regions of at most this many working pixels
 SAME_FAMILY_DEG = 2.0  # families closer than this are one
 GRAIN_MARGIN_PX = 8  # context kept around a grain's bounding box
 # keywords detect_grains passes on to detect_bands
-_PASSED_TO_DETECT_BANDS = ("find_bar", "min_bands", "max_families", "working_size", "scales", "min_coverage", "min_depth", "notes")
+_PASSED_TO_DETECT_BANDS = ("find_bar", "min_bands", "max_families", "working_size", "scales", "min_coverage", "min_depth",
+                          "min_significance", "notes")
 
 
 # --------------------------------------------------------------------------- stages
@@ -119,21 +131,33 @@ def _screen_candidates(cands, depth_of, wc: _WorkingCopy, min_depth):
     return [(rp, ln) for _, rp, ln in scored]
 
 
-def _fit_candidates(ctx: _FamilyContext, cands, max_families) -> list[BandFamily]:
-    """Stage 6: build a family from each candidate, at most ``3 * max_families`` attempts."""
+def _significance(fam: BandFamily, rp_all: RidgePixels, wc: _WorkingCopy, min_bands, step) -> float:
+    """Set ``fam.log10_nfa`` from its bands against the ridge pixels of its polarity; return it."""
+    ends = [((ln.col0, ln.row0), (ln.col1, ln.row1)) for ln in fam.lines]
+    fam.log10_nfa, _ = family_log10_nfa(rp_all, wc.region, ends, fam.angle_deg, wc.factor, step, min_bands)
+    return fam.log10_nfa
+
+
+def _fit_candidates(ctx: _FamilyContext, cands, max_families, accept, known=()) -> tuple[list[BandFamily], int]:
+    """Stage 6: build a family from each candidate, at most ``3 * max_families`` attempts.
+
+    ``accept(fam)`` is the significance test; candidates within ``SAME_FAMILY_DEG`` of a
+    family already kept (here or in ``known``) are skipped. Returns the families and the
+    number of candidates tried.
+    """
     fams: list[BandFamily] = []
     attempts = 0
     for rp, ln in cands:
         if attempts >= 3 * max_families:
             break
         a_c = _vote_mean_angle(ln)
-        if any(abs(axial_difference(a_c, fm.angle_deg)) < SAME_FAMILY_DEG for fm in fams):
+        if any(abs(axial_difference(a_c, fm.angle_deg)) < SAME_FAMILY_DEG for fm in [*fams, *known]):
             continue  # a split cluster of a family already fitted, or its gaps
         attempts += 1
         fam = _build_family(ctx, rp, ln)
-        if fam is not None:
+        if fam is not None and accept(fam):
             fams.append(fam)
-    return fams
+    return fams, attempts
 
 
 def _distinct_families(fams: list[BandFamily]) -> list[BandFamily]:
@@ -151,11 +175,160 @@ def _distinct_families(fams: list[BandFamily]) -> list[BandFamily]:
     return final
 
 
+def _without_bands(rp: RidgePixels, fams: list[BandFamily], factor: int, reach_px: float = 3.0) -> RidgePixels:
+    """Ridge pixels of ``rp`` minus those on the bands of ``fams`` (near their line and direction).
+
+    A crossing family keeps its pixels: only pixels whose sector lies near the found
+    family's angle are taken away.
+    """
+    drop = np.zeros(len(rp), bool)
+    for fam in fams:
+        if fam.polarity != ("dark" if rp.polarity < 0 else "bright"):
+            continue
+        idx = _pixels_near_angle(rp, fam.angle_deg, window_deg=SECTOR_DEG / 2)
+        if len(idx) == 0:
+            continue
+        pts = np.stack([rp.col[idx], rp.row[idx]], axis=1).astype(np.float64)
+        for ln in fam.lines:
+            a = _to_working(np.array([ln.col0, ln.row0]), factor)
+            b = _to_working(np.array([ln.col1, ln.row1]), factor)
+            d = b - a
+            t = np.clip((pts - a) @ d / max(float(d @ d), 1e-9), 0.0, 1.0)
+            dist = np.hypot(*(pts - a - t[:, None] * d).T)
+            drop[idx[dist <= reach_px]] = True
+    return _keep(rp, ~drop)
+
+
 def _summary_note(families: list[BandFamily]) -> str:
     if not families:
         return "no band families found"
     return (f"{len(families)} band famil{'y' if len(families) == 1 else 'ies'} found: "
             + ", ".join(f"{fm.angle_deg:.2f} deg ({fm.n_bands} bands)" for fm in families))
+
+
+@dataclass
+class _Settings:
+    """Checked options of one :func:`detect_bands` call."""
+
+    min_bands: int
+    max_families: int
+    working_size: int
+    scales: tuple
+    min_coverage: float
+    min_depth: float
+    min_significance: float
+    pixel_size_um: float | None
+
+
+@dataclass
+class _Outcome:
+    """What one region gave: families (pixels of the image it was run on), verdict, reason, notes."""
+
+    families: list
+    verdict: str
+    reason: str
+    notes: list
+
+
+def _detect_at_scale(img, m, bars, st: _Settings, up: int = 1) -> _Outcome:
+    """Stages 2-7 on one image and mask; ``up`` is the internal enlargement already applied (for the NFA)."""
+    notes: list[str] = []
+    wc = _working_copy(img, m, bars, st.working_size, st.scales)  # stage 2
+    if wc.note:
+        notes.append(wc.note)
+    if wc.region.sum() < MIN_REGION_PX:
+        return _Outcome([], "too_small", f"analysed region too small for band detection ({int(wc.region.sum())} "
+                        f"working pixels after the filter margin, fewer than {MIN_REGION_PX})", notes)
+    ridges, depth_of = _band_pixels(wc, st.scales, st.min_depth)  # stage 3
+    v_min = max(20.0, 0.06 * min(wc.region.shape))
+    if sum(len(rp) for rp in ridges) < v_min:
+        return _Outcome([], "low_contrast", "too little contrast: no band-like ridges stand above the noise "
+                        f"(and {100 * st.min_depth:.1f} % from the local grey level)", notes)
+    ctx = _FamilyContext(
+        image=img, valid=None if wc.mask is None else wc.mask.astype(np.uint8), factor=wc.factor,
+        pixel_noise=_pixel_noise(img, m, bars), depth_of=depth_of, diag_w=math.hypot(*wc.image.shape),
+        pixel_size_um=st.pixel_size_um, min_bands=st.min_bands, min_depth=st.min_depth,
+    )
+    by_pol = {rp.polarity: rp for rp in ridges}
+    step = max(NFA_STEP_PX, NFA_STEP_PX * up / wc.factor)
+    n_rejected = [0]
+
+    def accept(fam):
+        ok = -_significance(fam, by_pol[-1 if fam.polarity == "dark" else 1], wc, st.min_bands, step) >= st.min_significance
+        n_rejected[0] += not ok
+        return ok
+
+    found: list[BandFamily] = []
+    tried = 0
+    search = list(ridges)
+    region_px = int(wc.region.sum())
+    for _ in range(SEARCH_ROUNDS):
+        # stages 4-6; after the first round the bands already found are taken out, so a
+        # weaker family crossing or beside them gets its own candidates
+        cands = _candidate_families(search, wc.region, st.min_bands, st.min_coverage)
+        fams, n = _fit_candidates(ctx, _screen_candidates(cands, depth_of, wc, st.min_depth), st.max_families,
+                                  accept, known=found)
+        tried += n
+        new = _distinct_families(fams)  # stage 7
+        found = _distinct_families(found + new)
+        if not new or len(found) >= st.max_families or region_px > MAX_RESEARCH_PX:
+            break  # large regions hold enough votes for every family in the first round
+        search = [_without_bands(rp, found, wc.factor) for rp in search]
+    found = found[: st.max_families]
+    if found:
+        return _Outcome(found, "found", _summary_note(found), notes)
+    if tried == 0:
+        return _Outcome([], "not_significant", "no band families: no set of parallel lines reached "
+                        f"{st.min_bands} lines with {100 * st.min_coverage:.0f} % coverage", notes)
+    why = f"{n_rejected[0]} below the significance threshold" if n_rejected[0] else "none held up as a family"
+    return _Outcome([], "not_significant", f"no band families: {tried} candidate direction"
+                    f"{'s' if tried != 1 else ''} tested, {why}", notes)
+
+
+def _small_region_factor(shape, m) -> tuple[int, tuple[slice, slice]]:
+    """Internal enlargement for a small image or region, and the box (with a margin) to enlarge.
+
+    The detector's filters and tests are sized for regions of about ``SMALL_SIDE_PX`` px
+    or more; a smaller one is enlarged by an integer factor (at most ``MAX_UP``) with
+    cubic interpolation. No noise is invented: the noise estimates and the significance
+    test follow the enlargement.
+    """
+    h, w = shape
+    if m is None:
+        box = (slice(0, h), slice(0, w))
+    else:
+        rr = np.flatnonzero(m.any(axis=1))
+        cc = np.flatnonzero(m.any(axis=0))
+        box = (slice(max(0, rr[0] - 4), min(h, rr[-1] + 5)), slice(max(0, cc[0] - 4), min(w, cc[-1] + 5)))
+    side = min(box[0].stop - box[0].start, box[1].stop - box[1].start)
+    up = int(min(MAX_UP, math.ceil(SMALL_SIDE_PX / max(side, 1)))) if side < SMALL_SIDE_PX else 1
+    return up, box
+
+
+def _enlarged_outcome(img, m, bars, st: _Settings, up, box) -> _Outcome:
+    """Run :func:`_detect_at_scale` on the box enlarged ``up`` times; lines mapped back to ``img`` pixels."""
+    r0, c0 = box[0].start, box[1].start
+    crop = img[box]
+    if m is None:
+        m = np.ones(img.shape, bool)
+        _clear_boxes(m, bars)
+    size = (crop.shape[1] * up, crop.shape[0] * up)
+    big = cv2.resize(crop, size, interpolation=cv2.INTER_CUBIC)
+    big_m = cv2.resize(m[box].view(np.uint8), size, interpolation=cv2.INTER_NEAREST) > 0
+    st_up = _Settings(**{**st.__dict__, "working_size": max(st.working_size, max(size)),
+                         "pixel_size_um": None if st.pixel_size_um is None else st.pixel_size_um / up})
+    out = _detect_at_scale(big, big_m, [], st_up, up)
+    for fam in out.families:
+        fam.spacing_px /= up
+        fam.spacing_sigma_px /= up
+        # the enlarged samples along a band are correlated over ``up`` px: as many fewer independent ones
+        fam.angle_sigma_deg *= math.sqrt(up)
+        for ln in fam.lines:
+            ln.col0, ln.col1 = ((ln.col0 + 0.5) / up - 0.5 + c0, (ln.col1 + 0.5) / up - 0.5 + c0)
+            ln.row0, ln.row1 = ((ln.row0 + 0.5) / up - 0.5 + r0, (ln.row1 + 0.5) / up - 0.5 + r0)
+            ln.angle_sigma_deg *= math.sqrt(up)
+    out.notes.insert(0, f"small region ({crop.shape[1]} x {crop.shape[0]} px) analysed enlarged {up}x (cubic)")
+    return out
 
 
 # --------------------------------------------------------------------------- entry points
@@ -176,6 +349,7 @@ def detect_bands(
     scales: Sequence[float] = (1.0, 1.7, 2.8),
     min_coverage: float = 0.3,
     min_depth: float = 0.035,
+    min_significance: float = 16.0,
     notes: list[str] | None = None,
 ) -> DetectionResult:
     """Detect families of parallel straight bands.
@@ -214,6 +388,13 @@ def detect_bands(
     min_depth : float
         Least relative depth of a band below (dark) or above (bright) the local median
         grey level (>= 0), e.g. 0.035 = 3.5 %.
+    min_significance : float
+        Least significance ``-log10(NFA)`` of a family (see
+        :mod:`tracefit.image.significance`). 0 is the a contrario threshold (families
+        that aligned texture pixels, taken as independent, would give less than once per
+        picture); texture pixels come in runs, so the default 16 is calibrated on
+        negatives (scikit-image's gravel gives a family of 15.6); true families in
+        grains of a few hundred pixels score from about 13, large ones in the hundreds.
     notes : list of str, optional
         Notes to start the result with (e.g. from :func:`tracefit.image.read_image`).
 
@@ -221,7 +402,8 @@ def detect_bands(
     -------
     DetectionResult
         Families strongest first, angles in degrees (image frame), band lines in pixels of
-        ``image``; an empty list (with a note) when there are no bands.
+        ``image``, each with its ``log10_nfa``; an empty list when there are no bands, with
+        ``verdict`` and ``reason`` saying why.
 
     Raises
     ------
@@ -237,50 +419,60 @@ def detect_bands(
     >>> res = detect_bands(img)
     >>> [round(f.angle_deg, 1) for f in res.families]
     [30.0]
-    >>> res.families[0].polarity
-    'dark'
+    >>> res.families[0].polarity, res.families[0].significance > 10, res.verdict
+    ('dark', True, 'found')
+
+    A float map with missing (NaN) points and bright bands, as a strain map:
+
+    >>> img2, _ = render_micrograph((160, 160), [BandFamilySpec(120.0, 14, contrast=0.4)], seed=3)
+    >>> strain = (img2 - img2.min()) * 0.05
+    >>> strain[40:60, 40:60] = np.nan
+    >>> [round(f.angle_deg) for f in detect_bands(strain).families]
+    [120]
+    >>> detect_bands(np.random.default_rng(0).normal(size=(128, 128))).verdict
+    'not_significant'
     """
-    # Over 80 lines only through its docstring (numpydoc with a runnable example); the code is short.
+    # Over 80 lines only through its docstring (numpydoc with runnable examples); the code is short.
     opts = check_detect_options(pixel_size_um=pixel_size_um, find_bar=find_bar, min_bands=min_bands,
                                 max_families=max_families, working_size=working_size, scales=scales,
-                                min_coverage=min_coverage, min_depth=min_depth)
-    min_bands, max_families, working_size, scales = (opts[k] for k in ("min_bands", "max_families", "working_size", "scales"))
+                                min_coverage=min_coverage, min_depth=min_depth, min_significance=min_significance)
+    st = _Settings(**{k: opts[k] for k in ("min_bands", "max_families", "working_size", "scales", "min_coverage",
+                                            "min_depth", "min_significance", "pixel_size_um")})
     if grain is not None and labels is None:
         raise TracefitInputError(f"grain={grain!r} needs labels (the grain label image)")
-    img, m = _prepare_input(image, mask, labels, grain)
-    problem = _working_size_problem(img.shape, working_size)
+    pre_notes: list[str] = []
+    img, m = _prepare_input(image, mask, labels, grain, notes=pre_notes)
+    problem = _working_size_problem(img.shape, st.working_size)
     if problem:
         raise TracefitInputError(problem)
     h, w = img.shape
-    res = DetectionResult(path=path, width=w, height=h, notes=list(notes or []), pixel_size_um=pixel_size_um, grain=grain)
+    res = DetectionResult(path=path, width=w, height=h, notes=list(notes or []) + pre_notes,
+                          pixel_size_um=pixel_size_um, grain=grain)
 
     bars = _exclude_databars(img, m, opts["find_bar"])  # stage 1
     res.excluded.extend(bars)
     res.notes.extend(b["note"] for b in bars)
     if m is not None:
         if not m.any():
-            res.notes.append("no pixels left to analyse after masking; no bands reported")
+            res.verdict, res.reason = "no_pixels", "no pixels left to analyse after masking; no bands reported"
+            res.notes.append(res.reason)
             return res
         if mask is not None:
             res.excluded.append({"kind": "mask", "bbox": [0, 0, w, h], "note": f"user mask keeps {100 * m.mean():.1f} % of the pixels"})
-
-    wc = _working_copy(img, m, bars, working_size, scales)  # stage 2
-    if wc.note:
-        res.notes.append(wc.note)
-    if wc.region.sum() < MIN_REGION_PX:
-        res.notes.append("analysed region too small for band detection; no bands reported")
+    n_px = int(m.sum()) if m is not None else h * w
+    if n_px < MIN_ANALYSED_PX:
+        res.verdict = "too_small"
+        res.reason = f"too small: {n_px} pixels to analyse, fewer than {MIN_ANALYSED_PX}; no bands reported"
+        res.notes.append(res.reason)
         return res
-
-    ridges, depth_of = _band_pixels(wc, scales, min_depth)  # stage 3
-    cands = _candidate_families(ridges, wc.region, min_bands, min_coverage)  # stage 4
-    ctx = _FamilyContext(
-        image=img, valid=None if wc.mask is None else wc.mask.astype(np.uint8), factor=wc.factor,
-        pixel_noise=_pixel_noise(img, m, bars), depth_of=depth_of, diag_w=math.hypot(*wc.image.shape),
-        pixel_size_um=pixel_size_um, min_bands=min_bands, min_depth=min_depth,
-    )
-    fams = _fit_candidates(ctx, _screen_candidates(cands, depth_of, wc, min_depth), max_families)  # stages 5, 6
-    res.families = _distinct_families(fams)[:max_families]  # stage 7
-    res.notes.append(_summary_note(res.families))
+    up, box = _small_region_factor(img.shape, m)
+    if up > 1 and _reduction_factor(img.shape, st.working_size) == 1:
+        out = _enlarged_outcome(img, m, bars, st, up, box)
+    else:
+        out = _detect_at_scale(img, m, bars, st)
+    res.families, res.verdict, res.reason = out.families, out.verdict, out.reason
+    res.notes.extend(out.notes)
+    res.notes.append(out.reason)
     return res
 
 
@@ -323,14 +515,17 @@ def _detect_one_grain(img, lab, base, gid, box, res_g: DetectionResult, min_pixe
     c0, c1 = max(0, box[1].start - GRAIN_MARGIN_PX), min(w, box[1].stop + GRAIN_MARGIN_PX)
     gm = (lab[r0:r1, c0:c1] == gid) & base[r0:r1, c0:c1]
     if gm.sum() < min_pixels or min(gm.shape) < MIN_SIDE_PX:
+        res_g.verdict, res_g.reason = "too_small", f"too small: {int(gm.sum())} pixels, fewer than {min_pixels}"
         res_g.notes.append(f"grain {gid}: {int(gm.sum())} pixels, too few to analyse (< {min_pixels})")
         return res_g
     crop = img[r0:r1, c0:c1]
     if float(crop[gm].max() - crop[gm].min()) <= 0:
+        res_g.verdict, res_g.reason = "low_contrast", "too little contrast: constant grey level"
         res_g.notes.append(f"grain {gid}: constant grey level, no bands")
         return res_g
     problem = _working_size_problem(crop.shape, working_size)
     if problem:
+        res_g.verdict, res_g.reason = "too_small", problem
         res_g.notes.append(f"grain {gid}: {problem}; not analysed")
         return res_g
     r = detect_bands(crop, mask=gm, pixel_size_um=res_g.pixel_size_um, find_bar=False, **det_kw)
@@ -340,7 +535,7 @@ def _detect_one_grain(img, lab, base, gid, box, res_g: DetectionResult, min_pixe
             ln.col1 += c0
             ln.row0 += r0
             ln.row1 += r0
-    res_g.families = r.families
+    res_g.families, res_g.verdict, res_g.reason = r.families, r.verdict, r.reason
     res_g.notes.extend(f"grain {gid}: {t}" for t in r.notes)
     return res_g
 

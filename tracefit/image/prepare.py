@@ -36,8 +36,19 @@ def _same_size(name, arr, img) -> None:
         )
 
 
-def _as_grey(image) -> np.ndarray:
-    """The image as a checked 2-D float32 grey array (RGB(A) to luminance)."""
+def _as_grey(image):
+    """The image as a checked 2-D float32 grey array (RGB(A) to luminance) and its NaN holes.
+
+    NaN pixels (e.g. where a strain map's correlation failed) are filled with the median
+    of the others and returned as a mask, so that no filter spreads them; infinite values
+    are an error.
+
+    Returns
+    -------
+    img : ndarray of float32, (H, W)
+    holes : ndarray of bool, (H, W), or None
+        True at the NaN pixels (None when there are none).
+    """
     img = np.asarray(image)
     if img.ndim == 3 and img.shape[2] in (3, 4):
         img = to_gray(img)
@@ -46,16 +57,44 @@ def _as_grey(image) -> np.ndarray:
     if min(img.shape) < MIN_SIDE_PX:
         raise TracefitInputError(f"image is {_size_text(img.shape)} pixels; expected at least 16 x 16")
     img = img.astype(np.float32, copy=False)
+    holes = None
     step = max(1, (1 << 22) // max(1, img.shape[1]))  # row blocks: no full-size temporaries
     if not all(np.isfinite(img[r : r + step]).all() for r in range(0, img.shape[0], step)):
-        raise TracefitInputError("image contains NaN or infinite values; expected finite grey levels")
+        if np.isinf(img).any():
+            raise TracefitInputError("image contains infinite values; expected finite grey levels (NaN marks missing pixels)")
+        holes = np.isnan(img)
+        if holes.all():
+            raise TracefitInputError("image is NaN everywhere; expected some finite grey levels")
+        img = img.copy()
+        img[holes] = np.median(img[~holes])
     lo, hi = float(img.min()), float(img.max())
     if hi - lo <= 0:
         raise TracefitInputError(f"image is constant (every pixel = {lo:g}); expected a micrograph with contrast")
-    return img
+    return img, holes
 
 
-def _prepare_input(image, mask, labels, grain):
+def _positive_levels(img, m, notes):
+    """Shift grey levels that reach zero or below up by their range (strain maps), in place of ``img``.
+
+    The detector measures contrast relative to the local background level; a map whose
+    background sits near zero (strain, height, difference images) has no such level.
+    Adding the 1-99 % range keeps every contrast ratio finite; micrographs whose darkest
+    percent stays above a tenth of their range are left as they are.
+    """
+    sample = img[:: max(1, img.shape[0] // 512), :: max(1, img.shape[1] // 512)]
+    if m is not None:
+        ms = m[:: max(1, img.shape[0] // 512), :: max(1, img.shape[1] // 512)]
+        sample = sample[ms] if ms.any() else sample
+    p1, p99 = (float(v) for v in np.percentile(sample, [1, 99]))
+    span = p99 - p1
+    if span <= 0 or p1 >= 0.1 * span:
+        return img
+    shift = span - p1
+    notes.append(f"grey levels shifted by {shift:+.4g} (values near or below zero, e.g. a strain map)")
+    return img + np.float32(shift)
+
+
+def _prepare_input(image, mask, labels, grain, notes=None):
     """Checked grey image and the combined analysis mask.
 
     Parameters
@@ -65,19 +104,22 @@ def _prepare_input(image, mask, labels, grain):
     labels : array_like of int, (H, W), or None
     grain : int or None
         With ``labels``: only this grain's pixels are analysed.
+    notes : list of str, optional
+        What was done to the input (NaN masked, levels shifted) is appended here.
 
     Returns
     -------
     img : ndarray of float32, (H, W)
     m : ndarray of bool, (H, W), or None
-        Pixels to analyse (None: all).
+        Pixels to analyse (None: all); NaN pixels are excluded.
 
     Raises
     ------
     TracefitInputError
         Bad image, mask or labels of another size, or a grain id that does not occur.
     """
-    img = _as_grey(image)
+    notes = [] if notes is None else notes
+    img, holes = _as_grey(image)
     m = None
     if mask is not None:
         m = np.asarray(mask)
@@ -91,6 +133,10 @@ def _prepare_input(image, mask, labels, grain):
             if not g.any():
                 raise TracefitInputError(f"grain id {grain} does not occur in the label image")
             m = g if m is None else (m & g)
+    if holes is not None:
+        notes.append(f"{int(holes.sum())} NaN pixels ({100 * holes.mean():.1f} %) masked")
+        m = ~holes if m is None else (m & ~holes)
+    img = _positive_levels(img, m, notes)
     return img, m
 
 

@@ -96,13 +96,17 @@ class BandFamily:
         background (negative for dark bands), e.g. -0.2 = 20 % darker.
     lines : list of BandLine
         The fitted bands, ordered across the family.
+    log10_nfa : float
+        log10 of the family's a contrario number of false alarms: how many families at
+        least this strong texture alone would give in a picture of this size (see
+        :mod:`tracefit.image.significance`); nan when not computed.
 
     Examples
     --------
-    >>> fam = BandFamily(30.0, 0.01, 5, 24.0, 1.5, 12.0, 3.2)
-    >>> d = fam.to_dict()
-    >>> d["angle_deg"], d["n_bands"], d["spacing_um"]
-    (30.0, 5, 12.0)
+    >>> fam = BandFamily(30.0, 0.01, 5, 24.0, 1.5, 12.0, 3.2, log10_nfa=-12.5)
+    >>> d = fam.to_dict(with_lines=True)
+    >>> d["angle_deg"], d["n_bands"], d["spacing_um"], d["significance"]
+    (30.0, 5, 12.0, 12.5)
     """
 
     angle_deg: float
@@ -115,6 +119,12 @@ class BandFamily:
     polarity: str = "dark"
     contrast: float = float("nan")
     lines: list[BandLine] = field(default_factory=list)
+    log10_nfa: float = float("nan")
+
+    @property
+    def significance(self) -> float:
+        """``-log10_nfa``: 0 at one false alarm expected, 3 at one in a thousand (nan when unknown)."""
+        return -float(self.log10_nfa)
 
     def to_dict(self, with_lines: bool = False) -> dict:
         """JSON-ready dict of the family (numbers rounded, non-finite values as None).
@@ -122,7 +132,8 @@ class BandFamily:
         Parameters
         ----------
         with_lines : bool
-            Add ``spacing_sigma_px``, ``polarity``, ``contrast`` and the band ``lines``.
+            Add ``significance`` (``-log10_nfa``), ``spacing_sigma_px``, ``polarity``,
+            ``contrast`` and the band ``lines``.
 
         Returns
         -------
@@ -139,6 +150,7 @@ class BandFamily:
             "strength": round(float(self.strength), 3),
         }
         if with_lines:
+            d["significance"] = _num(self.significance, 2)
             d["spacing_sigma_px"] = _num(self.spacing_sigma_px, 3)
             d["polarity"] = self.polarity
             d["contrast"] = _num(self.contrast, 4)
@@ -167,12 +179,21 @@ class DetectionResult:
         Micrometres per pixel, when known.
     grain : int or None
         Grain id when the detection ran on one grain of a label image.
+    verdict : str
+        One word for the outcome: ``"found"`` (families), ``"too_small"`` (too few
+        analysable pixels), ``"no_pixels"`` (nothing left after masking),
+        ``"low_contrast"`` (no band-like structure above the noise),
+        ``"not_significant"`` (candidates, none significant or holding up as a family),
+        ``"not_run"`` (not analysed yet).
+    reason : str
+        One line saying why, for the user (e.g. "no band families: 3 candidate
+        directions, none significant").
 
     Examples
     --------
     >>> res = DetectionResult(path="a.png", width=64, height=48)
     >>> res.to_dict()
-    {'image': {'path': 'a.png', 'width': 64, 'height': 48, 'excluded': []}, 'families': []}
+    {'image': {'path': 'a.png', 'width': 64, 'height': 48, 'excluded': []}, 'families': [], 'verdict': 'not_run', 'reason': ''}
     """
 
     path: str | None
@@ -183,6 +204,8 @@ class DetectionResult:
     notes: list[str] = field(default_factory=list)
     pixel_size_um: float | None = None
     grain: int | None = None
+    verdict: str = "not_run"
+    reason: str = ""
 
     def to_dict(self, with_lines: bool = False) -> dict:
         """The JSON object of ``tracefit detect --json``.
@@ -195,9 +218,11 @@ class DetectionResult:
         Returns
         -------
         dict
-            ``{"image": {"path", "width", "height", "excluded"}, "families": [...]}``.
+            ``{"image": {"path", "width", "height", "excluded"}, "families": [...], "verdict", "reason"}``.
         """
         return {
             "image": {"path": self.path, "width": int(self.width), "height": int(self.height), "excluded": list(self.excluded)},
             "families": [f.to_dict(with_lines=with_lines) for f in self.families],
+            "verdict": self.verdict,
+            "reason": self.reason,
         }

@@ -126,18 +126,79 @@ def _steered(dxx, dyy, dxy, c, s_):
 
 def _white_noise_level(sigma):
     """95th percentile of the oriented ridge response to unit white noise at ``sigma``."""
+    return _white_noise_stats(sigma)[0]
+
+
+def _white_noise_stats(sigma):
+    """(95th percentile of the ridge response, robust spread of one second derivative) for unit white noise."""
     if sigma not in _WHITE:
         z = np.random.default_rng(12345).standard_normal((256, 256)).astype(np.float32)
         dxx, dyy, dxy = _hessian(z, sigma)
         dnn, dtt = _steered(dxx, dyy, dxy, 1.0, 0.0)
         r = sigma * sigma * np.maximum(dnn - np.abs(dtt), 0)[16:-16, 16:-16]
-        _WHITE[sigma] = float(np.percentile(r, 95))
+        _WHITE[sigma] = (float(np.percentile(r, 95)), _robust_spread(dxx[16:-16, 16:-16].ravel()))
     return _WHITE[sigma]
 
 
-def _diagonal_second_difference(a: np.ndarray) -> np.ndarray:
-    """``a[i+1, j+1] - 2 a[i, j] + a[i-1, j-1]`` on the interior, shape (H - 2, W - 2)."""
-    return a[2:, 2:] - 2 * a[1:-1, 1:-1] + a[:-2, :-2]
+def _robust_spread(v: np.ndarray) -> float:
+    """Standard deviation from the median absolute deviation (exact for Gaussian samples)."""
+    return 1.4826 * float(np.median(np.abs(v - np.median(v)))) if v.size else 0.0
+
+
+def _effective_noise(derivs_one_scale, mask, sn):
+    """Noise level (white-noise sigma units) that explains the image's own response at one scale.
+
+    The smallest robust spread of the curvature along four directions, over what unit
+    white noise gives. Texture and noise correlated over several pixels (an enlarged
+    image) respond more than white noise of the pixel sigma ``sn``; bands respond little
+    along their own direction. Never below ``sn``.
+    """
+    sg, dxx, dyy, dxy, tr = derivs_one_scale
+    step = max(1, int(math.sqrt(dxx.size / 60000)))
+    sel = (slice(None, None, step), slice(None, None, step))
+    keep = None if mask is None else mask[sel]
+    half = 0.5 * tr[sel]
+    spreads = []
+    for comp in (dxx[sel], dyy[sel], half - dxy[sel], half + dxy[sel]):
+        v = comp[keep] if keep is not None else comp.ravel()
+        spreads.append(_robust_spread(v))
+    return max(sn, min(spreads) / max(_white_noise_stats(sg)[1], 1e-12))
+
+
+def _diagonal_second_difference(a: np.ndarray, lag: int = 1) -> np.ndarray:
+    """``a[i+L, j+L] - 2 a[i, j] + a[i-L, j-L]`` on the interior (L = ``lag``), shape (H - 2L, W - 2L)."""
+    L = lag
+    return a[2 * L :, 2 * L :] - 2 * a[L:-L, L:-L] + a[: -2 * L, : -2 * L]
+
+
+def _lag_robust_sigma(a: np.ndarray, keep: np.ndarray | None) -> float:
+    """White-noise sigma of ``a`` from diagonal second differences, robust to oversampling.
+
+    An image enlarged (cubic or nearest) has noise correlated over several pixels: its
+    one-pixel second differences see almost none of it. When the lag-1 estimate is well
+    below the lag-3 to lag-6 ones (not the case for white noise, whose estimates agree at
+    every lag), the largest estimate over lags 1-6 is used.
+
+    Parameters
+    ----------
+    a : ndarray, (H, W)
+    keep : ndarray of bool, (H, W), or None
+        Pixels that count.
+    """
+    est = []
+    for lag in (1, 2, 3, 4, 6):
+        if min(a.shape) <= 2 * lag + 2:
+            break
+        d = _diagonal_second_difference(a, lag)
+        if keep is not None:
+            d = d[keep[lag:-lag, lag:-lag] & keep[2 * lag :, 2 * lag :] & keep[: -2 * lag, : -2 * lag]]
+        d = d.ravel()[:: max(1, d.size // 400000)]
+        est.append(_white_sigma(d) if d.size else 0.0)
+    if not est:
+        return 0.0
+    if len(est) >= 3 and est[0] < 0.6 * max(est[2:]):
+        return max(est)
+    return est[0]
 
 
 def _white_sigma(d: np.ndarray) -> float:
@@ -173,11 +234,7 @@ def noise_sigma(flat: np.ndarray, mask: np.ndarray | None) -> float:
     >>> print(round(noise_sigma(z, None), 2))
     0.05
     """
-    d = _diagonal_second_difference(flat)
-    if mask is not None:
-        d = d[mask[1:-1, 1:-1]]
-    d = d.ravel()[:: max(1, d.size // 400000)]
-    return _white_sigma(d) if d.size else 0.0
+    return _lag_robust_sigma(flat, mask)
 
 
 def _pixel_noise(img, m, bars=(), tile=512):
@@ -193,19 +250,20 @@ def _pixel_noise(img, m, bars=(), tile=512):
         bottom = min([b["bbox"][1] for b in bars if b["bbox"][1] > 0] or [h])
         if bottom - top >= 32:
             return _pixel_noise(img[top:bottom], None, (), tile)
-    vals = []
+    tiles, keeps = [], []
     for fr, fc in ((0.25, 0.25), (0.25, 0.75), (0.75, 0.25), (0.75, 0.75), (0.5, 0.5)):
         r0 = int(max(0, min(h - tile, fr * h - tile / 2)))
         c0 = int(max(0, min(w - tile, fc * w - tile / 2)))
-        t = img[r0 : r0 + tile, c0 : c0 + tile]
-        d = _diagonal_second_difference(t)
-        if m is not None:
-            d = d[m[r0 + 1 : r0 + t.shape[0] - 1, c0 + 1 : c0 + t.shape[1] - 1]]
-        vals.append(d.ravel())
-    v = np.concatenate(vals)
-    if v.size == 0:
-        return 1e-3
-    return max(_white_sigma(v), 1e-6 * float(np.ptp(img[::16, ::16]) + 1e-12))
+        tiles.append(img[r0 : r0 + tile, c0 : c0 + tile])
+        keeps.append(None if m is None else m[r0 : r0 + tile, c0 : c0 + tile])
+    # the tiles side by side (small images: the same tile five times, which is harmless)
+    t = np.concatenate([np.pad(x, 4, mode="reflect") for x in tiles], axis=1) if len(tiles) else img
+    keep = None
+    if m is not None:
+        keep = np.concatenate([np.pad(k, 4, constant_values=False) for k in keeps], axis=1)
+        if not keep.any():
+            return 1e-3
+    return max(_lag_robust_sigma(t, keep), 1e-6 * float(np.ptp(img[::16, ::16]) + 1e-12))
 
 
 def _hessian(flat, sigma):
@@ -239,7 +297,7 @@ def _sector_response(derivs, c, s_, sn, k_noise):
         # curvature across the band, and |along| = |trace - across| (trace is invariant)
         dnn = cv2.scaleAdd(dxy, float(2 * c * s_), cv2.addWeighted(dxx, float(c * c), dyy, float(s_ * s_), 0.0))
         dtt = cv2.absdiff(tr, dnn)
-        norm = float(sg * sg / (k_noise * sn * _white_noise_level(sg)))
+        norm = float(sg * sg / (k_noise * sn[sg] * _white_noise_level(sg)))
         for pol in (-1, 1):
             resp = cv2.addWeighted(dnn, -pol * norm, dtt, -norm, 0.0)
             if best[pol] is None:
@@ -295,6 +353,8 @@ def ridge_pixels(flat: np.ndarray, mask: np.ndarray | None, sector_deg: float = 
     for sg in scales:
         dxx, dyy, dxy = _hessian(flat, sg)
         derivs.append((sg, dxx, dyy, dxy, cv2.add(dxx, dyy)))
+    # per-scale noise: the pixel sigma, or more where the image's own response says so
+    sn = {d[0]: _effective_noise(d, mask, sn) for d in derivs}
     n_sec = int(round(180.0 / sector_deg))
     acc = {-1: [], 1: []}
     for k in range(n_sec):
