@@ -1,6 +1,6 @@
 """Benchmark of band detection (not part of the test suite): prints its figures.
 
-1. Accuracy on the synthetic standard suite (``tracefit.image.synthetic.standard_suite``):
+1. Accuracy on the synthetic standard suite (``tracefit.image.standard_suite``):
    median and 95th-percentile absolute family-angle error, share of true families
    found, share of spurious families, and how well ``angle_sigma_deg`` covers the error.
 2. Speed on a 16-megapixel image: ``detect_bands`` against a bare OpenCV Canny +

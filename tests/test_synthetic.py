@@ -93,11 +93,3 @@ def test_bad_arguments():
         render_micrograph((64, 64), grain_families={0: [BandFamilySpec(10.0)]})
     with pytest.raises(TracefitInputError, match="n_grains"):
         voronoi_labels((64, 64), 0)
-
-
-def test_suite_still_importable_from_the_synthetic_module():
-    import tracefit.image.synthetic as synthetic
-
-    assert synthetic.standard_suite is standard_suite
-    with pytest.raises(AttributeError):
-        synthetic.no_such_name

@@ -21,7 +21,8 @@
 """
 
 from tracefit.image.continuation import line_continuation
-from tracefit.image.detect import detect_bands, detect_grains
+from tracefit.image.detect import detect_bands
+from tracefit.image.grains import detect_grains
 from tracefit.image.draw import FAMILY_COLOURS, draw_detection, write_detection_overlay
 from tracefit.image.io import IMAGE_SUFFIXES, read_image, read_mask, to_gray
 from tracefit.image.options import DETECT_OPTIONS, check_detect_options

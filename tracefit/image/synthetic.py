@@ -8,7 +8,7 @@ instrument data bar and JPEG compression. It returns the image and a
 :class:`SyntheticTruth` with everything that was drawn, so that the detector can be
 scored against it. Everything is deterministic from ``seed``.
 
-:func:`tracefit.image.suite.standard_suite` (also importable from here) yields the
+:func:`tracefit.image.suite.standard_suite` yields the
 reference set of images used by the tests and by ``benchmarks/detect.py``.
 
 Angles follow :mod:`tracefit.conventions`: image frame, x right, y up, degrees ccw from +x,
@@ -529,12 +529,3 @@ def render_micrograph(
         bbox = _draw_databar(img, min(height, h // 3), rng, pixel_size_um)
     out = _to_output(img, jpeg_quality, bit_depth, rgb)
     return out, SyntheticTruth((h, w), truth_families, bbox, scratches, lab, pixel_size_um)
-
-
-def __getattr__(name):
-    # the standard suite moved to tracefit.image.suite; old imports keep working
-    if name in ("standard_suite", "SuiteCase"):
-        from tracefit.image import suite
-
-        return getattr(suite, name)
-    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
