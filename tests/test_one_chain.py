@@ -110,4 +110,4 @@ def test_one_set_of_defaults():
     assert job.images[0].modes == DEFAULT_MODES == ("slip", "twin")
     assert job.images[0].match == {} and defaults("identify")["orientation_sigma_deg"] == 1.0
     res = tf.analyse_image(np.zeros((64, 64)) + np.arange(64)[None, :], "fcc", orientation=np.eye(3))
-    assert res.settings["modes"] == ["slip", "twin"] and res.settings["min_grain_px"] == 2500
+    assert res.settings["modes"] == ["slip", "twin"] and res.settings["min_grain_px"] == 300

@@ -222,7 +222,7 @@ OPTIONS: tuple[Option, ...] = (
     Option("crack_k_sigma", "identify", "float", 2.0, "a crack is consistent with a plane within this many sigma",
            low=0.0, low_open=True, flag="--crack-k-sigma"),
     # -- the chain around them
-    Option("min_grain_px", "analysis", "int", 2500, "grains with fewer pixels are not analysed", low=1,
+    Option("min_grain_px", "analysis", "int", 300, "grains with fewer pixels are not analysed", low=1,
            flag="--min-grain-px"),
     Option("artefacts", "analysis", "bool", True,
            "on grain maps, test the surface-artefact hypothesis (one image angle continuing across grains)"),
@@ -255,7 +255,7 @@ def option(name: str) -> Option:
     --------
     >>> o = option("min_grain_px")
     >>> o.group, o.kind, o.default, o.flag
-    ('analysis', 'int', 2500, '--min-grain-px')
+    ('analysis', 'int', 300, '--min-grain-px')
     """
     return _BY_NAME[name]
 
@@ -281,7 +281,7 @@ def defaults(group: str) -> dict[str, Any]:
     Examples
     --------
     >>> sorted(defaults("analysis").items())
-    [('artefacts', True), ('frame_check', True), ('min_grain_px', 2500)]
+    [('artefacts', True), ('frame_check', True), ('min_grain_px', 300)]
     """
     if group not in GROUPS:
         raise ValueError(f"group must be one of {', '.join(GROUPS)}, got {group!r}")

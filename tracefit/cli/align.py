@@ -7,6 +7,7 @@ from pathlib import Path
 import typer
 
 from tracefit.cli import app
+from tracefit.options import option
 from tracefit.cli.common import (
     CoverAOpt,
     FamiliesOpt,
@@ -46,7 +47,7 @@ def align_frame(
     tilt_axis: TiltAxisOpt = "x",
     orientation_sigma: float = typer.Option(1.0, "--orientation-sigma", help="Orientation uncertainty per sample axis, degrees."),
     no_mirror: bool = typer.Option(False, "--no-mirror", help="Do not try the mirrored frame."),
-    min_grain_px: int = typer.Option(2500, "--min-grain-px", help="Grains with fewer pixels are skipped."),
+    min_grain_px: int = typer.Option(option("min_grain_px").default, "--min-grain-px", help="Grains with fewer pixels are skipped."),
     json_out: JsonOpt = False,
 ) -> None:
     """Fit the frame rotation (and a mirror) from the band families of many grains.

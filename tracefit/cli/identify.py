@@ -64,6 +64,14 @@ def identify(
     orientations: Optional[Path] = typer.Option(
         None, "--orientations", help="Grain orientation CSV: grain,phi1,Phi,phi2 (docs/orientation-table.md)."
     ),
+    orientation_map: Optional[Path] = typer.Option(
+        None, "--orientation-map", help="Orientation map (.ang, .ctf, orix HDF5) registered onto IMAGE (docs/orientation-maps.md)."),
+    control_points: Optional[Path] = typer.Option(
+        None, "--control-points", help="CSV image_x,image_y,map_x,map_y for --orientation-map (at least 3 pairs)."),
+    phase: Optional[str] = typer.Option(None, "--phase", help="Phase of the orientation map, by name or id."),
+    grain_threshold: float = typer.Option(5.0, "--grain-threshold", help="Grain boundary misorientation in the map, degrees."),
+    min_grain_points: Optional[int] = typer.Option(None, "--min-grain-points", help="Smallest grain of the map, in map points."),
+    registration: str = typer.Option("affine", "--registration", help="Map-to-image transform: affine or projective."),
     modes: ModesOpt = "slip,twin",
     families: FamiliesOpt = None,
     load: LoadOpt = None,
@@ -127,9 +135,17 @@ def identify(
                                      "measured CSV's grain column (give --orientations only)")
         per_grain = grains is not None or orientations is not None
         one = any(v is not None for v in (euler, quaternion, matrix, axis_angle, align))
+        if orientation_map is not None:
+            if per_grain or one:
+                raise TracefitInputError("--orientation-map replaces --euler/--grains/--orientations: give one source")
+            if image is None:
+                raise TracefitInputError("--orientation-map is registered onto IMAGE: give the micrograph too")
+            per_grain = True  # the map's grains
+        elif control_points is not None:
+            raise TracefitInputError("--control-points goes with --orientation-map")
         if per_grain and one:
             raise TracefitInputError("give either one orientation (--euler ...) or --grains with --orientations, not both")
-        if per_grain and image is not None and (grains is None or orientations is None):
+        if per_grain and image is not None and orientation_map is None and (grains is None or orientations is None):
             raise TracefitInputError("--grains and --orientations go together: a label image and its orientation table")
         if not per_grain and not one:
             raise TracefitInputError("no orientation: give --euler phi1,Phi,phi2 (or --quaternion, --matrix, --axis-angle, --align), "
@@ -147,7 +163,16 @@ def identify(
         g = None
         if not per_grain:
             g, extra["orientation"] = build_orientation(lat, euler, quaternion, matrix, axis_angle, align)
+        map_kw = {}
+        if orientation_map is not None:
+            ms = {"threshold_deg": grain_threshold, "registration": registration.strip().lower()}
+            if phase is not None:
+                ms["phase"] = int(phase) if phase.strip().lstrip("-").isdigit() else phase
+            if min_grain_points is not None:
+                ms["min_grain_points"] = min_grain_points
+            map_kw = dict(orientation_map=orientation_map, control_points=control_points, map_settings=ms)
         res = analyse_image(image, lat, orientation=g, labels=grains, orientations=orientations, systems=systems,
+                            **map_kw,
                             modes=parse_modes(modes), frame=frame, load=ld, pixel_size_um=pixel_size, measured=m_obs,
                             orientation_sigma_deg=orientation_sigma, frame_sigma_deg=frame_sigma, p_none=p_none,
                             schmid_weight=schmid_weight, allow_shared_planes=allow_shared_planes,

@@ -87,7 +87,7 @@ def _detect_one_grain(img, lab, base, gid, box, res_g: DetectionResult, min_pixe
 
 
 def detect_grains(image: np.ndarray, labels: np.ndarray, mask: np.ndarray | None = None, pixel_size_um: float | None = None,
-                  *, path: str | None = None, min_pixels: int = 2500, grains: Iterable[int] | None = None,
+                  *, path: str | None = None, min_pixels: int = 300, grains: Iterable[int] | None = None,
                   **kwargs) -> dict[int, DetectionResult]:
     """Run :func:`detect_bands` on every grain of a label image, each on its own pixels.
 

@@ -133,8 +133,7 @@ def detect_families(image: np.ndarray, *, labels: np.ndarray | None = None,
         res = detect_bands(image, mask, pixel_size_um, path=path, **detect)
         obs = observed_from_detection(res)
         n_px = int(np.asarray(image).shape[0] * np.asarray(image).shape[1]) if mask is None else int(np.sum(mask))
-        st = GrainStatus(None, n_px, len(obs), "analysed" if obs else "no families",
-                         "" if obs else "no band family passed the detector's tests")
+        st = GrainStatus(None, n_px, len(obs), *_grain_verdict(res, obs, None))
         return FamilyDetection(obs, list(res.families), [st], list(res.notes))
 
     present = [int(x) for x in np.unique(labels) if x >= 0]  # -1: outside every grain
@@ -152,10 +151,7 @@ def detect_families(image: np.ndarray, *, labels: np.ndarray | None = None,
         bands.extend(det.families)
         region = labels == gid
         n_px = int(region.sum() if mask is None else (region & mask).sum())
-        too_small = any("too few to analyse" in n for n in det.notes)
-        status = "analysed" if fams else ("too small" if too_small else "no families")
-        reason = "" if fams else (f"fewer than {min_px} analysable pixels" if too_small
-                                  else "no band family passed the detector's tests")
+        status, reason = _grain_verdict(det, fams, min_px)
         grains.append(GrainStatus(gid, n_px, len(fams), status, reason, x_px=centres[gid][0], y_px=centres[gid][1]))
     if orientations is not None:
         missing = [g for g in present if g not in orientations]
@@ -166,6 +162,21 @@ def detect_families(image: np.ndarray, *, labels: np.ndarray | None = None,
         if missing:
             notes.append(f"{len(missing)} grain id(s) of the label image have no orientation and were skipped")
     return FamilyDetection(observed, bands, grains, notes)
+
+
+def _grain_verdict(det, fams, min_px) -> tuple[str, str]:
+    """(status, reason) of one grain (or image) from its detection result: why it has no families."""
+    if fams:
+        return "analysed", ""
+    verdict = getattr(det, "verdict", None)
+    reason = getattr(det, "reason", "") or ""
+    if verdict == "too_small" or any("too few to analyse" in n for n in det.notes):
+        return "too small", reason or f"fewer than {min_px} analysable pixels"
+    if verdict == "low_contrast":
+        return "no families", reason or "too little contrast"
+    if verdict == "not_significant":
+        return "no families", reason or "nothing significant: every candidate family could arise from texture alone"
+    return "no families", reason or "no band family passed the detector's tests"
 
 
 def _centroids(labels: np.ndarray, ids: list[int]) -> dict[int, tuple[float, float]]:
