@@ -8,7 +8,11 @@ three coupons from a prototype bracket after a proof test and polished one face 
 * coupon B: a BCC (ferritic) grain pair, with a grain label image and an orientation
   table, one slip family per grain;
 * coupon C: an HCP (titanium-like, c/a = 1.587) alloy loaded in compression along the
-  image's horizontal axis, showing {10-12} twins.
+  image's horizontal axis, showing {10-12} twins;
+* coupon D: an FCC (nickel-alloy-like) polycrystal in tension along the image's vertical
+  axis, with an EBSD-style orientation map (``coupon_D_scan.ang``, written with orix's own
+  writer) and four control points picked in both the map and the micrograph: the grains come
+  from the map, registered onto the picture, one slip family per grain.
 
 The band angles are not typed in: each is the predicted trace of the chosen plane for the
 coupon's orientation (:func:`tracefit.predict.traces.predict_traces`), so the demo truth agrees with
@@ -75,6 +79,24 @@ COUPONS = [
         "render": dict(illumination=0.2, noise_sigma=0.025, blur_sigma=0.7, seed=12),
     },
     {
+        "name": "coupon-D",
+        "file": "coupon_D.png",
+        "orientation_map": "coupon_D_scan.ang",
+        "control_points": "coupon_D_points.csv",
+        "lattice": "fcc", "c_over_a": None, "modes": ["slip"], "families": None,
+        "load": ("y", "tension"),
+        # map grain index (Voronoi seed order) -> orientation and the plane drawn in it
+        "grains": {
+            0: {"euler": (15.0, 35.0, 50.0), "planes": []},
+            1: {"euler": (140.0, 60.0, 20.0), "planes": []},
+            2: {"euler": (260.0, 25.0, 300.0), "planes": []},
+            3: {"euler": (75.0, 80.0, 160.0), "planes": []},
+        },
+        "style": dict(spacing_px=26.0, width_px=2.4, contrast=-0.3),
+        "notes": "Nickel-alloy-like polycrystal with its orientation map and four control points; tension along the image vertical.",
+        "render": dict(illumination=0.2, noise_sigma=0.025, blur_sigma=0.7, seed=14),
+    },
+    {
         "name": "coupon-C",
         "file": "coupon_C.png",
         "lattice": "hcp", "c_over_a": 1.587, "modes": ["twin"], "families": ["{10-12}", "{11-21}"],
@@ -99,6 +121,64 @@ def _trace(lattice, systems, euler, load, plane):
     others = [o for o in traces if o is not t]
     clear = min(abs(axial_difference(t.angle_deg, o.angle_deg)) for o in others) if others else 180.0
     return t, clear
+
+
+def _best_clear_plane(lattice, systems, euler, load, min_clear=8.0):
+    """The plane with the highest Schmid factor whose trace stands at least ``min_clear`` deg clear of the others."""
+    g = from_euler(np.asarray(euler, float))
+    traces = predict_traces(lattice, g, systems, None, load)
+    best = None
+    for t in traces:
+        clear = min(abs(axial_difference(t.angle_deg, o.angle_deg)) for o in traces if o is not t)
+        if clear >= min_clear and t.inclination_deg > 30 and (best is None or t.best_schmid > best.best_schmid):
+            best = t
+    if best is None:
+        raise SystemExit(f"no plane clear of the others for Euler {euler}")
+    return tuple(int(x) for x in best.plane)
+
+
+# Coupon D's map: 40 x 50 points, 1 um step; the micrograph sees it scaled 9.4x, turned 3 deg,
+# shifted. Four features visible in both were "picked" as control points.
+MAP_SHAPE = (40, 50)
+MAP_TO_IMAGE = np.array([[9.4 * np.cos(np.radians(3)), -9.4 * np.sin(np.radians(3)), 22.0],
+                         [9.4 * np.sin(np.radians(3)), 9.4 * np.cos(np.radians(3)), 6.0], [0.0, 0.0, 1.0]])
+
+
+def _map_coupon(c, lattice, systems, load):
+    """Write coupon D's scan (.ang, with orix) and control points; return the micrograph's grain ids and specs."""
+    from orix import io as orix_io
+
+    from tracefit.maps import (Registration, grain_quaternions, synthetic_crystal_map, voronoi_labels, warp_labels)
+
+    map_labels = voronoi_labels(MAP_SHAPE, len(c["grains"]), seed=13)  # four grains of similar size
+    euler = np.array([c["grains"][k]["euler"] for k in sorted(c["grains"])])
+    cmap = synthetic_crystal_map(grain_quaternions(map_labels, euler, noise_deg=0.3, seed=4), step=1.0,
+                                 phase_name="nickel")
+    orix_io.save(str(PACKAGE_DEMO / c["orientation_map"]), cmap, overwrite=True)
+    pixels = warp_labels(map_labels, Registration(MAP_TO_IMAGE, "affine"), SHAPE)
+    map_xy = np.array([[3.0, 2.0], [46.0, 4.0], [4.0, 36.0], [45.0, 37.0]])
+    img_xy = (np.column_stack([map_xy, np.ones(4)]) @ MAP_TO_IMAGE.T)[:, :2]
+    img_xy += np.array([[0.3, -0.2], [-0.2, 0.3], [0.1, 0.2], [-0.3, -0.1]])  # a person's clicks are not exact
+    rows = ["image_x,image_y,map_x,map_y"] + [f"{a:.1f},{b:.1f},{x:g},{y:g}" for (a, b), (x, y) in zip(img_xy, map_xy)]
+    (PACKAGE_DEMO / c["control_points"]).write_text("\n".join(rows) + "\n", encoding="utf-8")
+    for k, gdef in c["grains"].items():
+        gdef["planes"] = [_best_clear_plane(lattice, systems, gdef["euler"], load)]
+    return pixels
+
+
+def _map_grain_ids(c):
+    """Map grain index -> the grain id tracefit's segmentation gives it (matched by orientation)."""
+    from tracefit.crystal import Orientation
+    from tracefit.maps import grain_map_from_orientation_map
+
+    gm = grain_map_from_orientation_map(PACKAGE_DEMO / c["orientation_map"], SHAPE,
+                                        control_points=PACKAGE_DEMO / c["control_points"])
+    lat = lattice_preset("fcc")
+    out = {}
+    for k, gdef in c["grains"].items():
+        o = Orientation.from_euler(gdef["euler"])
+        out[k] = min(gm.table, key=lambda gid: o.misorientation(Orientation.from_matrix(gm.table[gid].g), lat))
+    return out
 
 
 def _two_grain_labels(shape):
@@ -139,6 +219,9 @@ def _job_toml(coupons) -> str:
         if "labels" in c:
             out.append(f'labels = "{c["labels"]}"')
             out.append(f'orientations = "{c["orientations"]}"')
+        elif "orientation_map" in c:
+            out.append(f'orientation_map = "{c["orientation_map"]}"')
+            out.append(f'control_points = "{c["control_points"]}"')
         else:
             e = c["grains"][None]["euler"]
             out.append(f"euler_deg = [{e[0]}, {e[1]}, {e[2]}]")
@@ -155,6 +238,7 @@ def main(argv=None) -> int:
         load = parse_load(c["load"][0], lattice, c["load"][1])
         grain_specs = {}
         tgrains = []
+        pixels = _map_coupon(c, lattice, systems, load) if "orientation_map" in c else None
         for gid, gdef in c["grains"].items():
             specs = []
             for plane in gdef["planes"]:
@@ -170,7 +254,13 @@ def main(argv=None) -> int:
                       f"m = {t.best_schmid}, clear of others by {clear:.1f} deg")
             grain_specs[gid] = specs
         kw = dict(c["render"])
-        if "labels" in c:
+        if pixels is not None:
+            img, _ = render_micrograph(SHAPE, labels=np.where(pixels >= 0, pixels, 0).astype(np.int32),
+                                       grain_families=grain_specs, databar=28, pixel_size_um=PIXEL_UM, **kw)
+            ids = _map_grain_ids(c)  # the truth names grains as tracefit's segmentation of the map does
+            for tg in tgrains:
+                tg["grain"] = ids[tg["grain"]]
+        elif "labels" in c:
             lab = _two_grain_labels(SHAPE)
             img, _ = render_micrograph(SHAPE, labels=lab.astype(np.int32), grain_families={k: v for k, v in grain_specs.items()},
                                        databar=28, pixel_size_um=PIXEL_UM, **kw)

@@ -38,11 +38,13 @@ def demo_run(tmp_path_factory):
 def test_demo_files_are_bundled_and_small():
     d = demo_dir()
     job = load_job(demo_job_path())
-    assert len(job.images) == 3
+    assert len(job.images) == 4
     for im in job.images:
         assert im.file.is_file() and im.file.parent == d
         if im.labels is not None:
             assert im.labels.is_file() and im.orientations.is_file()
+        if im.orientation_map is not None:  # coupon D: an orientation map and its control points
+            assert im.orientation_map.is_file() and im.control_points.is_file()
     assert sum(p.stat().st_size for p in d.iterdir()) < 3_000_000
     # the top-level demo_images/ copy, when present (source tree), holds the same files
     top = Path(__file__).resolve().parent.parent / "demo_images"
@@ -57,7 +59,8 @@ def test_demo_command_runs_and_says_where_the_report_is(demo_run):
     m = re.search(r"^report:\s+(.+)$", out, re.M)
     assert m and Path(m.group(1).strip()) == folder / "report.html"
     assert (folder / "report.html").stat().st_size > 10_000
-    assert "demo check: 5 of 5" in out
+    n = sum(len(v) for v in json.loads((demo_dir() / "truth.json").read_text())["images"].values())
+    assert n == 9 and f"demo check: {n} of {n}" in out
     assert "survey [" in err  # the progress bar went to stderr, not stdout
     assert "survey [" not in out
 
