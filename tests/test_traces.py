@@ -254,7 +254,8 @@ def test_parse_load_rejects(text):
 def test_parse_load_accepts():
     lat = lattice_preset("hcp", 1.624)
     assert parse_load("-x").vector == (-1.0, 0.0, 0.0)
-    assert parse_load("1,1,0").frame == "sample"
+    assert parse_load("1,1,0").frame == "image"  # the picture's axes by default (issue 11)
+    assert parse_load("1,1,0", frame="sample").frame == "sample"
     ld = parse_load("[11-20]", lat, "compression")
     assert ld.frame == "crystal" and ld.sense == "compression"
     np.testing.assert_allclose(ld.vector, lat.direction_vector((1, 1, -2, 0)))
@@ -353,7 +354,7 @@ def test_load_axis_keeps_the_former_load_axis_behaviour():
     lat = Lattice.hcp(c_over_a=1.624)
     assert LoadAxis is Load
     old_style = LoadAxis((0.0, 1.0, 0.0), "sample", "compression", "y")
-    assert old_style == Load.axis("y", sense="compression") and old_style.sign == -1.0
+    assert old_style == Load.axis("y", sense="compression", frame="sample") and old_style.sign == -1.0
     assert old_style.to_dict() == {"axis": "y", "frame": "sample", "sense": "compression", "vector": [0.0, 1.0, 0.0]}
     ld = Load.axis("[11-20]", lattice=lat)
     assert ld.to_dict()["index"] == [1, 1, -2, 0] and not ld.is_stress
@@ -375,7 +376,7 @@ def test_as_load_on_every_input_form():
     assert as_load(None) is None
     ld = Load.axis("y")
     assert as_load(ld) is ld
-    assert as_load(LoadAxis((1.0, 0.0, 0.0), "sample", "tension", "x")) == Load.axis("x")
+    assert as_load(LoadAxis((1.0, 0.0, 0.0), "sample", "tension", "x")) == Load.axis("x", frame="sample")
     assert as_load("y") == Load.axis("y")
     assert as_load("-z", sense="compression") == Load.axis("-z", "compression")
     assert as_load("[110]", lat).frame == "crystal"

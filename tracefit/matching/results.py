@@ -63,11 +63,17 @@ class SystemChoice:
         Catalogue name of the system.
     active_sense : bool
         Twins: False when the load shears them against their twinning sense.
+    crss : float or None
+        The CRSS the user gave for this system (unit of the stress, MPa).
+    exceeds_crss : bool or None
+        Under a stress with a CRSS: ``resolved_shear >= crss``; None otherwise.
 
     Examples
     --------
     >>> SystemChoice((0, 1, -1), 0.40824).to_dict()
     {'direction': [0, 1, -1], 'schmid_factor': 0.4082}
+    >>> SystemChoice((0, 1, -1), None, 42.0, crss=40.0, exceeds_crss=True).to_dict()["exceeds_crss"]
+    True
     """
 
     direction: tuple
@@ -75,12 +81,18 @@ class SystemChoice:
     resolved_shear: float | None = None
     name: str | None = None
     active_sense: bool = True
+    crss: float | None = None
+    exceeds_crss: bool | None = None
 
     def to_dict(self) -> dict:
-        """JSON form: direction, Schmid factor (4 decimals), resolved shear and name when known."""
+        """JSON form: direction, Schmid factor (4 decimals); resolved shear (MPa), CRSS and the
+        CRSS check, and the name, when known."""
         d = {"direction": list(self.direction), "schmid_factor": _r(self.schmid_factor)}
         if self.resolved_shear is not None:
             d["resolved_shear"] = _r(self.resolved_shear)
+        if self.crss is not None:
+            d["crss"] = _r(self.crss)
+            d["exceeds_crss"] = None if self.exceeds_crss is None else bool(self.exceeds_crss)
         if self.name:
             d["name"] = self.name
         return d
