@@ -14,7 +14,7 @@ import numpy as np
 
 from tracefit.matching.candidates import plane_key
 
-__all__ = ["SystemChoice", "Candidate", "FamilyIdentification", "identifications_to_json", "format_plane"]
+__all__ = ["SystemChoice", "ModeShare", "Candidate", "FamilyIdentification", "identifications_to_json", "format_plane"]
 
 
 def _r(x, nd: int = 4):
@@ -99,8 +99,59 @@ class SystemChoice:
 
 
 @dataclass
+class ModeShare:
+    """One mode (slip or twin) on a candidate plane: its share of the plane's probability.
+
+    The likelihood of a trace is the same for every mode on one plane, so the share is the
+    split of the prior on that plane: the system-family prior, times the Schmid prior when it
+    is on (which also holds the twin polarity: a twin sheared against its sense gets the floor).
+
+    Attributes
+    ----------
+    mode : {"slip", "twin"}
+    family : str
+        Plane family of the mode's systems.
+    share : float
+        Fraction of the plane's probability, in [0, 1]; the shares of a plane sum to 1.
+    probability : float
+        ``share`` times the plane's probability.
+    best_system : SystemChoice or None
+        The most loaded system of this mode (None without a load, or a twin sheared the wrong way).
+    systems : list of SystemChoice
+        The mode's systems on the plane, most loaded first.
+
+    Examples
+    --------
+    >>> ModeShare("twin", "{111}", 0.5, 0.48).to_dict()["share"]
+    0.5
+    """
+
+    mode: str
+    family: str
+    share: float
+    probability: float
+    best_system: SystemChoice | None = None
+    systems: list[SystemChoice] = field(default_factory=list)
+
+    def to_dict(self) -> dict:
+        """JSON form (share and probability to 6 decimals)."""
+        return {
+            "mode": self.mode,
+            "family": self.family,
+            "share": _r(self.share, 6),
+            "probability": _r(self.probability, 6),
+            "best_system": None if self.best_system is None else self.best_system.to_dict(),
+            "systems": [s.to_dict() for s in self.systems],
+        }
+
+
+@dataclass
 class Candidate:
-    """One candidate plane (one mode) for an observed family.
+    """One candidate plane for an observed family, with the split between the modes on it.
+
+    The headline is the plane: ``probability`` is summed over the modes (and systems) on the
+    plane; ``mode``, ``best_system`` and ``systems`` are those of its most probable mode, and
+    ``modes`` gives the split (:class:`ModeShare`).
 
     Attributes
     ----------
@@ -113,7 +164,7 @@ class Candidate:
     residual_deg : float
         Observed - predicted, axial degrees.
     probability : float
-        Posterior probability that the family is this candidate.
+        Posterior probability that the family is the trace of this plane (all modes).
     sigma_deg : float
         Total spread used in the likelihood, degrees.
     predicted_sigma_deg : float
@@ -127,7 +178,9 @@ class Candidate:
     near_surface : bool
         The plane lies within ``tracefit.predict.NEAR_SURFACE_DEG`` of the surface (ill-defined trace).
     log_likelihood : float
-        Log (prior x likelihood) of the family under this candidate, per degree.
+        Log (prior x likelihood) of the family under this plane (all modes), per degree.
+    modes : list of ModeShare
+        The modes on the plane, most probable first (empty when built by hand).
 
     Examples
     --------
@@ -149,9 +202,10 @@ class Candidate:
     systems: list[SystemChoice] = field(default_factory=list)
     near_surface: bool = False
     log_likelihood: float = float("nan")
+    modes: list[ModeShare] = field(default_factory=list)
 
     def to_dict(self) -> dict:
-        """JSON form (probability to 6 decimals, angles to 4)."""
+        """JSON form (probability to 6 decimals, angles to 4); ``modes`` holds the split."""
         return {
             "plane": list(self.plane),
             "family": self.family,
@@ -165,6 +219,7 @@ class Candidate:
             "inclination_deg": _r(self.inclination_deg),
             "near_surface": bool(self.near_surface),
             "systems": [s.to_dict() for s in self.systems],
+            "modes": [m.to_dict() for m in self.modes],
         }
 
 
