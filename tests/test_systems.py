@@ -203,8 +203,9 @@ def test_10m12_twin_shear_against_yoo(metal, coa, s_published):
 @given(st.floats(1.40, 2.0).filter(lambda g: min(abs(g - math.sqrt(3)), abs(g - 1.5), abs(g - math.sqrt(2))) > 1e-3))
 @settings(max_examples=15, deadline=None)
 def test_hcp_shears_follow_yoo_closed_forms(g):
-    # Yoo 1981 Table I closed forms, gamma = c/a (written out here independently; the forms are
-    # from memory, and the catalogue computes its shears from the lattice, not from these).
+    # Yoo 1981 Table I closed forms, gamma = c/a (written out here again; the forms are from
+    # memory). The same shears are checked by geometry alone in
+    # test_hcp_twin_shear_keeps_eta2_length (the shear keeps eta2's length).
     closed = {
         "{10-12}<10-11> twin": abs(g * g - 3) / (math.sqrt(3) * g),
         "{11-21}<11-26> twin": 1 / g,
