@@ -95,6 +95,7 @@ def test_worked_example_of_docs_conventions():
     l_smp = Load.axis("y", frame="sample").in_crystal(g, frame)
     np.testing.assert_allclose(l_img, g @ [1.0, 0.0, 0.0], atol=1e-12)  # Rz(-90) e_y = e_x
     np.testing.assert_allclose(l_smp, g @ [0.0, 1.0, 0.0], atol=1e-12)
+    assert np.round(l_img, 3).tolist() == [0.88, -0.421, 0.22] and np.round(l_smp, 3).tolist() == [0.462, 0.65, -0.604]
     m_img = _schmid_reference(l_img, SLIP)
     m_smp = _schmid_reference(l_smp, SLIP)
     tr = {t.plane: t for t in predict_traces(FCC, g, SLIP, frame, load="y")}
