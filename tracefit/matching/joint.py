@@ -106,26 +106,49 @@ class SharedRotation:
         return a, z, single
 
 
-def _coupling_correction(grids: list, a: np.ndarray, z: np.ndarray, single: np.ndarray) -> np.ndarray:
+def _coupling_correction(grids: list, a: np.ndarray, z: np.ndarray, single: np.ndarray) -> np.ndarray | float:
     """log N_joint - sum_f log N_f for every joint state (information form, 3 x 3 per state).
 
     With the families' scaled gradients a_f and residuals z_f: A = I + sum a_f a_f^T,
     b = sum a_f z_f; the joint Gaussian's log density is the families' own terms plus
     b^T A^-1 b / 2 - log det A / 2 (Woodbury), and each family alone contributes its ``single``.
+
+    Only the coupled choices of each family matter (the others have a = 0 and add nothing), so
+    the algebra runs on the small grid of coupled choices plus one "uncoupled" class per family
+    and is gathered back onto the full grid (speed).
     """
+    coupled = np.any(a != 0.0, axis=2)  # (F, Q + 1)
+    if int(np.sum(coupled.any(axis=1))) < 2:
+        return 0.0  # at most one family can be coupled: the correction is zero everywhere
+    index, sub_a, sub_z, sub_single = [], [], [], []
+    for f in range(a.shape[0]):
+        rows = np.flatnonzero(coupled[f])
+        idx = np.zeros(a.shape[1], int)
+        idx[rows] = np.arange(1, len(rows) + 1)
+        index.append(idx)
+        sub_a.append(np.concatenate([np.zeros((1, 3)), a[f, rows]]))
+        sub_z.append(np.concatenate([[0.0], z[f, rows]]))
+        sub_single.append(np.concatenate([[0.0], single[f, rows]]))
+    small = np.meshgrid(*[np.arange(len(x)) for x in sub_z], indexing="ij")
+    corr = _small_grid_correction(small, sub_a, sub_z, sub_single)
+    return corr[tuple(index[f][g] for f, g in enumerate(grids))]
+
+
+def _small_grid_correction(grids: list, a: list, z: list, single: list) -> np.ndarray:
+    """The correction of :func:`_coupling_correction` on a grid; ``a[f]`` (n_f, 3), ``z[f]`` and
+    ``single[f]`` (n_f,) per family."""
     # The six entries of the symmetric A and the three of b, per state; the 3 x 3 algebra is
     # written out (cofactors): several times faster than batched LAPACK on millions of states.
     pairs = ((0, 0), (1, 1), (2, 2), (0, 1), (0, 2), (1, 2))
-    outer = np.stack([a[..., i] * a[..., j] for i, j in pairs], axis=-1)  # (F, Q + 1, 6)
-    az = a * z[..., None]  # (F, Q + 1, 3)
     m = [np.full(grids[0].shape, 1.0 if k < 3 else 0.0) for k in range(6)]
     b = [np.zeros(grids[0].shape) for _ in range(3)]
     corr = np.zeros(grids[0].shape)
     for f, gf in enumerate(grids):
-        for k in range(6):
-            m[k] += outer[f, :, k][gf]
+        af = a[f]
+        for k, (i, j) in enumerate(pairs):
+            m[k] += (af[:, i] * af[:, j])[gf]
         for k in range(3):
-            b[k] += az[f, :, k][gf]
+            b[k] += (af[:, k] * z[f])[gf]
         corr -= single[f][gf]
     xx, yy, zz, xy, xz, yz = m
     c00, c11, c22 = yy * zz - yz * yz, xx * zz - xz * xz, xx * yy - xy * xy
