@@ -35,7 +35,10 @@ Definitions printed below:
 * false-unexpl: real families reported unexplained; false-artef: those of them called a
   surface artefact (p_artefact > p_none).
 
-Usage: python benchmarks/identify.py [--quick] [--grains N] [--images]
+* ECE: expected calibration error of the headline plane probability on the real families (see
+  :func:`calibration_error`).
+
+Usage: python benchmarks/identify.py [--quick] [--grains N] [--images] [--calibration]
 """
 
 from __future__ import annotations
@@ -51,10 +54,10 @@ from scipy.spatial.transform import Rotation
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from tracefit.crystal.lattice import lattice_preset  # noqa: E402
+from tracefit.crystal import lattice_preset  # noqa: E402
 from tracefit.matching import ObservedFamily, candidate_set, identify_grains, predicted_trace_sigma  # noqa: E402
-from tracefit.crystal.systems import catalogue  # noqa: E402
-from tracefit.predict.traces import parse_load  # noqa: E402
+from tracefit.crystal import catalogue  # noqa: E402
+from tracefit.predict import parse_load  # noqa: E402
 
 SIG_DET = 0.3
 SIG_ORI = 1.0
@@ -194,6 +197,56 @@ def _pk(p):
     return p
 
 
+def _plane_probabilities(r):
+    """Probability of each distinct plane in a verdict (summed over the modes listed on it)."""
+    out: dict = {}
+    for c in r.candidates:
+        out[_pk(c.plane)] = out.get(_pk(c.plane), 0.0) + c.probability
+    return out
+
+
+def _ece(conf, ok, n_bins=10):
+    conf, ok = np.asarray(conf, float), np.asarray(ok, float)
+    if conf.size == 0:
+        return float("nan")
+    bins = np.minimum((conf * n_bins).astype(int), n_bins - 1)
+    ece = 0.0
+    for b in range(n_bins):
+        m = bins == b
+        if m.any():
+            ece += m.mean() * abs(ok[m].mean() - conf[m].mean())
+    return float(ece)
+
+
+def calibration_error(results, truth, key, every_plane=False):
+    """Expected calibration error of the plane probabilities on the real families.
+
+    ECE = sum over 10 equal-width probability bins of (bin share) x |observed frequency - mean
+    probability| (the usual definition, e.g. Guo et al. 2017, "On calibration of modern neural
+    networks", ICML; from memory). Default: one point per family, the probability of its most
+    probable distinct plane (summed over modes), right when that plane is the true one. With
+    ``every_plane``: one point per listed distinct plane of every family (a reliability check of
+    all reported probabilities, not only the top one).
+    """
+    conf, ok = [], []
+    for r, t in zip(results, truth):
+        if t["scratch"]:
+            continue
+        pp = _plane_probabilities(r)
+        tp = _pk(key[t["plane"]])
+        if every_plane:
+            conf += list(pp.values())
+            ok += [k == tp for k in pp]
+        elif not pp:
+            conf.append(0.0)
+            ok.append(False)
+        else:
+            best = max(pp, key=pp.get)
+            conf.append(pp[best])
+            ok.append(best == tp)
+    return _ece(conf, ok)
+
+
 def score(results, truth, key):
     real = [(r, t) for r, t in zip(results, truth) if not t["scratch"]]
     scr = [(r, t) for r, t in zip(results, truth) if t["scratch"] == "single"]
@@ -224,6 +277,8 @@ def score(results, truth, key):
         "map_scratches": len(mscr),
         "map_flagged": mflag / max(len(mscr), 1),
         "ambiguous": amb / max(len(real), 1),
+        "ece": calibration_error(results, truth, key),
+        "ece_all": calibration_error(results, truth, key, every_plane=True),
     }
 
 
@@ -327,13 +382,29 @@ def run_images(n, seed):
     return ok, inset, tot, t_det, t_id
 
 
+def main_calibration(n, seed):
+    """Expected calibration error (default model, artefact test on) per lattice, and the timing."""
+    rows, tot, ng = run_accuracy(n, seed)
+    print(f"expected calibration error of the plane probability ({ng} grains, seed {seed}):")
+    for name, s in rows + [("all", tot)]:
+        print(f"  {name:<4} ECE top plane {s['ece']:.3f}, every listed plane {s['ece_all']:.3f};  top-1|unamb {100 * s['top1_unamb']:.2f} %  in-set {100 * s['in_set']:.2f} %"
+              f"  false-unexpl {100 * s['false_alarm']:.2f} %  families {s['families']}")
+    print("100-grain map, identification only (synthetic families, best of 3):")
+    for name, g, f, t, tf, t0 in run_timing(seed + 1):
+        print(f"  {name}: {g} grains, {f} families: {t:.3f} s ({t0:.3f} s without the artefact scan)")
+
+
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     ap.add_argument("--quick", action="store_true", help="300 grains instead of 1500")
     ap.add_argument("--grains", type=int, default=None)
     ap.add_argument("--images", type=int, default=None, help="number of synthetic micrographs for the end-to-end run")
     ap.add_argument("--seed", type=int, default=2026)
+    ap.add_argument("--calibration", action="store_true",
+                    help="print only the expected calibration error per lattice and the timing")
     a = ap.parse_args(argv)
+    if a.calibration:
+        return main_calibration(a.grains or 1500, a.seed)
     n = a.grains or (300 if a.quick else 1500)
     n_img = a.images if a.images is not None else (4 if a.quick else 12)
     print(f"tracefit identify benchmark: {n} grains, orientation noise {SIG_ORI} deg/axis, detection noise {SIG_DET} deg")

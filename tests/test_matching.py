@@ -113,8 +113,9 @@ def test_scratch_far_from_every_trace_is_unexplained():
 
 def test_same_trace_on_a_110_surface_is_reported_ambiguous():
     # On a (110) surface of a cubic crystal, (111) and (11-1) both meet the surface along [1-10]
-    # and both make 35.26 deg with it (Cullity, Elements of X-ray Diffraction, interplanar angle
-    # table: {110}^{111} = 35.26 and 90 deg). Their traces coincide, so no angle can tell them apart.
+    # and both make 35.26 deg with it: cos = (1 + 1 + 0) / (sqrt2 sqrt3), the cubic interplanar-angle
+    # formula (tabulated in Cullity, Elements of X-ray Diffraction: {110}^{111} = 35.26 and 90 deg;
+    # table location from memory). Their traces coincide, so no angle can tell them apart.
     g = np.array(Rotation.align_vectors([[0, 0, 1], [1, 0, 0]], [[1, 1, 0], [0, 0, 1]])[0].as_matrix()).T
     n_s = g.T @ FCC.plane_normal((1, 1, 1))
     ang = (math.degrees(math.atan2(n_s[1], n_s[0])) + 90.0) % 180.0
@@ -123,7 +124,7 @@ def test_same_trace_on_a_110_surface_is_reported_ambiguous():
     planes = res.planes
     assert any(same_plane(p, (1, 1, 1)) for p in planes) and any(same_plane(p, (1, 1, -1)) for p in planes)
     for c in res.candidates:
-        assert c.inclination_deg == pytest.approx(35.26, abs=0.01)
+        assert c.inclination_deg == pytest.approx(math.degrees(math.acos(2 / math.sqrt(6))), abs=1e-9)
     # the hint says what would separate them (second surface / load)
     text = " ".join(res.separation)
     assert "second surface" in text and "load" in text
@@ -131,7 +132,8 @@ def test_same_trace_on_a_110_surface_is_reported_ambiguous():
 
 def test_schmid_factor_hint_and_ranking_with_a_load():
     # Same (110) surface with the load along sample x = crystal [001]: (111)[10-1] and (11-1)[101]
-    # both have m = 0.408 (cos 54.74 * cos 45; Dieter, Mechanical Metallurgy, Schmid factor of <100> loading).
+    # both have m = 1/sqrt6 = 0.408 (Schmid's law, cos 54.74 * cos 45; the <100> value of Dieter,
+    # Mechanical Metallurgy, from memory).
     g = np.array(Rotation.align_vectors([[0, 0, 1], [1, 0, 0]], [[1, 1, 0], [0, 0, 1]])[0].as_matrix()).T
     n_s = g.T @ FCC.plane_normal((1, 1, 1))
     ang = (math.degrees(math.atan2(n_s[1], n_s[0])) + 90.0) % 180.0
@@ -252,8 +254,10 @@ def _g_with(direction_c, axis_s, second_c, second_s):
 
 def test_worked_case_primary_system_for_a_123_tensile_axis():
     # FCC single crystal in tension along [-1 2 3]: the primary system is (111)[-101] with
-    # m = 16 / (14 sqrt 6) = 0.467 (Dieter, Mechanical Metallurgy, Schmid's law worked example;
-    # from memory). The crystal is set with [-123] along sample x and [210] along sample y.
+    # m = 16 / (14 sqrt 6) = 0.467 by Schmid's law: l.n = 4/sqrt42, l.d = 4/sqrt28 (the [-123]
+    # mirror of the [123] case, whose primary system is (-111)[101]; a worked example of Dieter,
+    # Mechanical Metallurgy, from memory). The crystal is set with [-123] along sample x and [210]
+    # along sample y.
     l_c = np.array([-1.0, 2.0, 3.0])
     perp = np.cross(l_c, [0.0, 0.0, 1.0])
     g = _g_with(l_c, [1.0, 0.0, 0.0], perp, [0.0, 1.0, 0.0])

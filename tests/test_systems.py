@@ -90,7 +90,9 @@ def test_catalogue_closed_under_symmetry(lattice):
 
 # ------------------------------------------------------------------ twinning sense and shear
 def test_fcc_twin_sense():
-    # Christian & Mahajan 1995, Prog. Mater. Sci. 39, 1: fcc twinning (111)[11-2], s = 1/sqrt2.
+    # Christian & Mahajan 1995, Prog. Mater. Sci. 39, 1: fcc twinning (111)[11-2], s = 1/sqrt2
+    # (sign convention from memory; test_cubic_twin_shear_makes_the_mirror_lattice checks the sense
+    # by computation).
     twins = {(s.plane, s.direction) for s in catalogue(FCC, modes="twin")}
     assert ((1, 1, 1), (1, 1, -2)) in twins
     assert ((1, 1, 1), (-1, -1, 2)) not in twins
@@ -98,7 +100,7 @@ def test_fcc_twin_sense():
 
 def test_bcc_twin_sense():
     # Christian & Mahajan 1995: bcc twinning (112)[-1-11] (the "twinning" sense; [11-1] would be
-    # the anti-twinning sense), s = 1/sqrt2.
+    # the anti-twinning sense), s = 1/sqrt2 (from memory; checked by computation below).
     twins = {(s.plane, s.direction) for s in catalogue(BCC, modes="twin")}
     assert ((1, 1, 2), (-1, -1, 1)) in twins
     assert ((1, 1, 2), (1, 1, -1)) not in twins
@@ -201,7 +203,9 @@ def test_10m12_twin_shear_against_yoo(metal, coa, s_published):
 @given(st.floats(1.40, 2.0).filter(lambda g: min(abs(g - math.sqrt(3)), abs(g - 1.5), abs(g - math.sqrt(2))) > 1e-3))
 @settings(max_examples=15, deadline=None)
 def test_hcp_shears_follow_yoo_closed_forms(g):
-    # Yoo 1981 Table I closed forms, gamma = c/a (written out here independently).
+    # Yoo 1981 Table I closed forms, gamma = c/a (written out here again; the forms are from
+    # memory). The same shears are checked by geometry alone in
+    # test_hcp_twin_shear_keeps_eta2_length (the shear keeps eta2's length).
     closed = {
         "{10-12}<10-11> twin": abs(g * g - 3) / (math.sqrt(3) * g),
         "{11-21}<11-26> twin": 1 / g,
@@ -403,22 +407,28 @@ def _max_twin_and_slip(lattice, axis):
 
 
 def test_fcc_twinning_tension_compression_asymmetry():
-    # Karaman et al. 2000, Acta Mater. 48, 1345 (fcc single crystals; values from memory):
-    # [111] tension favours twinning, m_twin 0.314 > m_slip 0.272; [001] twinning in compression
-    # (0.471 > 0.408) but not in tension (0.236).
+    # Karaman et al. 2000, Acta Mater. 48, 1345 (fcc single crystals; values and reference from
+    # memory): [111] tension favours twinning, m_twin 0.314 > m_slip 0.272; [001] twinning in
+    # compression (0.471 > 0.408) but not in tension (0.236). Each is checked against Schmid's law
+    # m = (l.n)(l.d) in closed form: 2 sqrt2/9, 2/(3 sqrt6), sqrt2/6, sqrt2/3, 1/sqrt6.
     t, c, s = _max_twin_and_slip(FCC, (1, 1, 1))
     assert (round(t, 3), round(s, 3)) == (0.314, 0.272)
+    assert (t, s) == (pytest.approx(2 * math.sqrt(2) / 9, abs=1e-12), pytest.approx(2 / (3 * math.sqrt(6)), abs=1e-12))
     t, c, s = _max_twin_and_slip(FCC, (0, 0, 1))
     assert (round(t, 3), round(c, 3), round(s, 3)) == (0.236, 0.471, 0.408)
+    np.testing.assert_allclose([t, c, s], [math.sqrt(2) / 6, math.sqrt(2) / 3, 1 / math.sqrt(6)], atol=1e-12)
 
 
 def test_bcc_twinning_asymmetry_is_reversed():
     # bcc twinning runs opposite to fcc (twinning vs anti-twinning sense, Christian & Mahajan 1995):
     # [001] tension 0.471, compression 0.236; [111] compression 0.314, tension 0.157 (from memory).
+    # Closed forms by Schmid's law: sqrt2/3, sqrt2/6; 2 sqrt2/9, sqrt2/9.
     t, c, _ = _max_twin_and_slip(BCC, (0, 0, 1))
     assert (round(t, 3), round(c, 3)) == (0.471, 0.236)
+    np.testing.assert_allclose([t, c], [math.sqrt(2) / 3, math.sqrt(2) / 6], atol=1e-12)
     t, c, _ = _max_twin_and_slip(BCC, (1, 1, 1))
     assert (round(t, 3), round(c, 3)) == (0.157, 0.314)
+    np.testing.assert_allclose([t, c], [math.sqrt(2) / 9, 2 * math.sqrt(2) / 9], atol=1e-12)
 
 
 def test_zero_shear_twin_is_left_out_with_a_warning():

@@ -22,10 +22,11 @@ def same_plane(a, b):
 def test_face_diagonal_traces_on_a_cube_give_the_four_111_planes(a1, a2):
     # A cube-oriented crystal (crystal axes = sample axes) cut as a block: top face (001), front
     # face (0-10). {111} planes meet both {100} faces along <110> face diagonals, and make
-    # 54.74 deg with {100} (Cullity, Elements of X-ray Diffraction, interplanar angles in cubic
-    # crystals). Each pair of diagonals picks one {111} plane.
+    # 54.74 deg with {100}: cos = (h1 h2 + k1 k2 + l1 l2) / (|h1 k1 l1| |h2 k2 l2|) = 1 / sqrt3, the
+    # cubic interplanar-angle formula (tabulated in Cullity, Elements of X-ray Diffraction; table
+    # location from memory). Each pair of diagonals picks one {111} plane.
     n, sig = plane_from_two_traces(a1, a2, FaceGeometry(0.0, 90.0), 0.3, 0.3)
-    assert math.degrees(math.acos(abs(n[2]))) == pytest.approx(54.7356, abs=1e-3)
+    assert math.degrees(math.acos(abs(n[2]))) == pytest.approx(math.degrees(math.acos(1 / math.sqrt(3))), abs=1e-9)
     assert sig < 1.0
     res = index_two_face([(a1, a2)], FaceGeometry(), FCC, np.eye(3), catalogue(FCC, ("slip",)))[0]
     best = res.matches[0]
@@ -59,11 +60,12 @@ def test_reconstruction_inverts_the_forward_traces(geom):
 
 
 def test_interplanar_angle_without_an_orientation():
-    # Two {111} normals of FCC: 70.53 deg apart (Cullity, interplanar angle table, {111}^{111}).
+    # Two {111} normals of FCC: 70.53 deg apart, cos = 1/3 by the cubic interplanar-angle formula
+    # (tabulated in Cullity, Elements of X-ray Diffraction, {111}^{111}; table location from memory).
     n1, _ = plane_from_two_traces(45, 45)
     n2, _ = plane_from_two_traces(135, 45)
     meas, rows = interplanar_pairs([n1, n2], FCC, [(1, 1, 1), (1, 1, 0), (1, 0, 0)])
-    assert meas == pytest.approx(70.5288, abs=1e-3)
+    assert meas == pytest.approx(math.degrees(math.acos(1.0 / 3.0)), abs=1e-9)
     assert rows and rows[0][0] == (1, 1, 1) and rows[0][1] == (1, 1, 1)
 
 

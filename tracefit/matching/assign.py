@@ -26,9 +26,9 @@ from tracefit.matching.artefacts import (
     artefact_family_weights,
     find_artefact_directions,
 )
-from tracefit.matching.candidates import CandidateSet, as_candidate_set, predict_candidates
+from tracefit.matching.candidates import CandidateSet, as_candidate_set, predict_candidates, system_family_prior
 from tracefit.matching.checks import check_matcher_options, orientation_matrix, orientation_table
-from tracefit.matching.joint import joint_marginals
+from tracefit.matching.joint import SharedRotation, joint_marginals
 from tracefit.matching.likelihood import (
     DEFAULT_P_NONE,
     candidate_log_prior,
@@ -45,6 +45,7 @@ __all__ = [
     "identify_families",
     "identify_grains",
     "grain_log_weights",
+    "shared_rotation",
     "DEFAULT_REPORT_THRESHOLD",
     "DEFAULT_AMBIGUITY_RATIO",
 ]
@@ -56,7 +57,8 @@ _ARTEFACT_OPTIONS = ("p_map", "line_sigma_deg", "min_witnesses", "max_directions
 
 def grain_log_weights(obs: Sequence[ObservedFamily], cands: CandidateSet, g: np.ndarray, ang: np.ndarray,
                       incl: np.ndarray, slope: np.ndarray, load: Any, osig: float, fsig: float, p_none: float,
-                      schmid_weight: float) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, list]:
+                      schmid_weight: float, frame: FrameSettings | None = None, share: np.ndarray | None = None,
+                      crss: Mapping[str, float] | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, list]:
     """Log (prior x likelihood) of every family of one grain, before the joint assignment.
 
     Parameters
@@ -75,6 +77,13 @@ def grain_log_weights(obs: Sequence[ObservedFamily], cands: CandidateSet, g: np.
         Orientation and frame sigmas, degrees.
     p_none, schmid_weight : float
         Prior of "none of these" and exponent of the Schmid prior.
+    frame : FrameSettings, optional
+        Places an image-frame load in the orientation data's frame.
+    share : ndarray, shape (P,), optional
+        Prior shares of the candidates (:func:`tracefit.matching.candidates.system_family_prior`);
+        default equal per distinct plane.
+    crss : dict, optional
+        CRSS per system family (MPa), for the CRSS check under a stress.
 
     Returns
     -------
@@ -97,10 +106,10 @@ def grain_log_weights(obs: Sequence[ObservedFamily], cands: CandidateSet, g: np.
     (1, 5)
     """
     psig = predicted_trace_sigma(incl, osig, slope)
-    systems_ranked, drive = rank_systems(load, cands, g)
+    systems_ranked, drive = rank_systems(load, cands, g, frame, crss)
     use_schmid = bool(schmid_weight) and load is not None
     log_prior = candidate_log_prior(cands.plane_ids, p_none, prior_drive(load, drive) if use_schmid else None,
-                                    schmid_weight if use_schmid else 0.0)
+                                    schmid_weight if use_schmid else 0.0, share)
     oa = np.array([o.angle_deg for o in obs])
     os_ = np.array([o.angle_sigma_deg for o in obs])
     logw, resid, sig = family_log_weights(oa, os_, ang, psig, log_prior, p_none, fsig, slope)
@@ -127,12 +136,62 @@ def _fold_in_artefact(logw: np.ndarray, art, P: int):
     return logw, share, list(aang)
 
 
-def _assign_grain(obs, cands, g, ang, incl, slope, load, pre, art, allow_shared, threshold, ratio):
-    """Verdicts for the families of one grain from its log weights ``pre`` (:func:`grain_log_weights`)."""
+def shared_rotation(obs: Sequence[ObservedFamily], cands: CandidateSet, g: np.ndarray, resid: np.ndarray,
+                    slope: np.ndarray, osig: float, fsig: float, frame: FrameSettings | None = None) -> SharedRotation:
+    """The grain's one orientation and frame error, linearised, for the joint assignment.
+
+    The orientation error is a small rotation with ``osig`` (deg, one sigma) about each sample
+    axis, the same for all of the grain's planes; the frame error adds ``fsig`` about the image
+    normal. Since the orientation sigma is the same about every axis, it is the same about the
+    image axes, and the covariance in image axes is ``diag(osig^2, osig^2, osig^2 + fsig^2)``.
+
+    Parameters
+    ----------
+    obs : sequence of ObservedFamily
+        The F families (their ``angle_sigma_deg`` is the independent part).
+    cands : CandidateSet
+        P candidates.
+    g : ndarray, shape (3, 3)
+        The grain's orientation.
+    resid : ndarray, shape (F, P)
+        Residuals, degrees (from :func:`grain_log_weights`).
+    slope : ndarray, shape (P,)
+        Stage-tilt slopes.
+    osig, fsig : float
+        Orientation and frame sigmas, degrees.
+    frame : FrameSettings, optional
+
+    Returns
+    -------
+    SharedRotation
+
+    Examples
+    --------
+    >>> from tracefit.crystal import catalogue, lattice_preset
+    >>> from tracefit.matching.candidates import candidate_set
+    >>> cs = candidate_set(catalogue(lattice_preset("fcc")), ["slip"])
+    >>> sr = shared_rotation([ObservedFamily(75.0, 0.3)], cs, np.eye(3), np.zeros((1, 4)), np.ones(4), 1.0, 0.0)
+    >>> np.round(np.linalg.norm(sr.gradient, axis=1), 4).tolist()  # 1 / sin(54.74 deg) for {111} on (001)
+    [1.2247, 1.2247, 1.2247, 1.2247]
+    """
+    from tracefit.predict import plane_normals_in_image, trace_rotation_gradient
+
+    ids = np.asarray(cands.plane_ids, int)
+    rep = np.array([int(np.flatnonzero(ids == q)[0]) for q in range(int(ids.max()) + 1)])
+    grad = trace_rotation_gradient(plane_normals_in_image(g, cands.normals[rep], frame))
+    scale = np.array([osig, osig, math.hypot(osig, fsig)])
+    return SharedRotation(residual_deg=np.asarray(resid, float)[:, rep],
+                          sigma_deg=np.array([o.angle_sigma_deg for o in obs], float),
+                          gradient=grad * scale[None, :] * np.asarray(slope, float)[rep, None])
+
+
+def _assign_grain(obs, cands, g, ang, incl, slope, load, pre, art, allow_shared, threshold, ratio, coupling=None):
+    """Verdicts for the families of one grain from its log weights ``pre`` (:func:`grain_log_weights`);
+    ``coupling`` is the grain's :class:`SharedRotation` (None: families independent)."""
     P = len(cands)
     logw, resid, sig, psig, systems_ranked = pre
     logw, art_share, art_angle = _fold_in_artefact(logw, art, P)
-    post = joint_marginals(logw, cands.plane_ids, allow_shared)
+    post = joint_marginals(logw, cands.plane_ids, allow_shared, shared_rotation=coupling)
     p_art = post[:, P] * art_share
     post = post.copy()
     post[:, P] = post[:, P] - p_art
@@ -159,6 +218,9 @@ def identify_families(
     report_threshold: float = DEFAULT_REPORT_THRESHOLD,
     ambiguity_ratio: float = DEFAULT_AMBIGUITY_RATIO,
     grain: Any = None,
+    prior: Mapping[str, float] | None = None,
+    crss: Mapping[str, float] | None = None,
+    shared_orientation: bool = True,
 ) -> list[FamilyIdentification]:
     """Identify the plane (and system) behind each observed band family of one grain.
 
@@ -174,12 +236,16 @@ def identify_families(
         Candidate systems (e.g. ``tracefit.crystal.catalogue(lattice)``); not empty.
     frame : tracefit.conventions.FrameSettings, optional
         Orientation-data frame -> image (rotation, flips, stage tilt).
-    load : str, LoadAxis or stress array, optional
-        Text such as ``"x"`` or ``"[110]"`` (read with ``tracefit.predict.parse_load``), a load
-        axis, or a stress tensor in sample coordinates, (3, 3) or Voigt (6,); used to rank
-        systems within a plane and, with ``schmid_weight``, as a prior.
+    load : str, Load or stress array, optional
+        Text such as ``"y"`` or ``"[110]"`` (read with ``tracefit.predict.parse_load``), a
+        :class:`tracefit.predict.Load`, or a stress tensor in MPa, (3, 3) or Voigt (6,). Axes
+        and stresses not given as a Load are along the picture's axes (``frame="image"``) and
+        are placed in the orientation data's frame with ``frame``; a ``Load(..., frame="sample")``
+        is used as given. Ranks the systems within a plane (Schmid factor or resolved shear)
+        and, with ``schmid_weight``, enters the prior.
     orientation_sigma_deg : float
-        One-sigma orientation error about each sample axis, degrees (default 1), >= 0.
+        One-sigma orientation error about each sample axis, degrees (default 1), >= 0; one
+        error per grain, shared by all its families (``shared_orientation``).
     frame_sigma_deg : float
         One-sigma uncertainty of the frame rotation, degrees (default 0.5), >= 0.
     p_none : float
@@ -197,6 +263,16 @@ def identify_families(
         makes the family ambiguous (default 0.1).
     grain : optional
         Grain key given to families that have none.
+    prior : dict, optional
+        Relative prior weights of system families (``{"{110}<111>": 2}``; see
+        :func:`tracefit.matching.candidates.system_family_prior`); by default every system family
+        weighs the same, spread over its planes.
+    crss : dict, optional
+        CRSS (MPa) per system family, plane family or mode; under a stress every system reports
+        its CRSS and whether its resolved shear reaches it.
+    shared_orientation : bool
+        Integrate the joint assignment over one orientation (and frame) error per grain
+        (default); False treats every family's error as independent (the former model).
 
     Returns
     -------
@@ -219,20 +295,23 @@ def identify_families(
     >>> r.best.plane, round(r.best.probability, 3), r.unexplained
     ((1, 1, 1), 0.995, False)
     """
-    # Over 80 lines only through its numpydoc docstring (parameters, example); the code is 13 lines.
+    # Over 80 lines only through its numpydoc docstring (parameters, example); the code is 16 lines.
     obs = as_observed(observed, grain)
     check_matcher_options(p_none=p_none, orientation_sigma_deg=orientation_sigma_deg, frame_sigma_deg=frame_sigma_deg,
                           schmid_weight=schmid_weight, report_threshold=report_threshold, ambiguity_ratio=ambiguity_ratio)
     g = orientation_matrix(g, "g")
     cands = as_candidate_set(systems, modes, families)
     load = resolve_load(load, lattice)
+    share = system_family_prior(cands, prior)
     if not obs:
         return []
     ang, incl, slope = predict_candidates(cands, g, frame)
     pre = grain_log_weights(obs, cands, g, ang[0], incl[0], slope[0], load, orientation_sigma_deg, frame_sigma_deg,
-                            p_none, schmid_weight)
+                            p_none, schmid_weight, frame, share, crss)
+    coupling = (shared_rotation(obs, cands, g, pre[1], slope[0], orientation_sigma_deg, frame_sigma_deg, frame)
+                if shared_orientation and len(obs) > 1 else None)
     return _assign_grain(obs, cands, g, ang[0], incl[0], slope[0], load, pre, None, allow_shared_planes,
-                         report_threshold, ambiguity_ratio)
+                         report_threshold, ambiguity_ratio, coupling)
 
 
 def identify_grains(
@@ -254,6 +333,9 @@ def identify_grains(
     grain_sigma_deg: Mapping[Any, float] | None = None,
     artefacts: bool = True,
     artefact_options: Mapping[str, Any] | None = None,
+    prior: Mapping[str, float] | None = None,
+    crss: Mapping[str, float] | None = None,
+    shared_orientation: bool = True,
 ) -> list[FamilyIdentification]:
     """Identify the families of many grains at once (a grain map).
 
@@ -277,8 +359,8 @@ def identify_grains(
     artefact_options : dict, optional
         Keyword options of :func:`tracefit.matching.artefacts.find_artefact_directions` (``p_map``,
         ``line_sigma_deg``, ``min_witnesses``, ``max_directions``).
-    frame, load, orientation_sigma_deg, frame_sigma_deg, p_none, schmid_weight, allow_shared_planes, modes, families, report_threshold, ambiguity_ratio
-        As :func:`identify_families`.
+    frame, load, orientation_sigma_deg, frame_sigma_deg, p_none, schmid_weight, allow_shared_planes, modes, families, report_threshold, ambiguity_ratio, prior, crss, shared_orientation
+        As :func:`identify_families` (one orientation error per grain).
 
     Returns
     -------
@@ -302,7 +384,7 @@ def identify_grains(
     >>> r[0].best.plane, r[1].unexplained, r[1].unexplained_reason
     ((1, 1, 1), True, 'grain has no orientation')
     """
-    # Over 80 lines only through its numpydoc docstring (parameters, example); the code is 33 lines.
+    # Over 80 lines only through its numpydoc docstring (parameters, example); the code is 37 lines.
     obs = as_observed(observed, None)
     check_matcher_options(p_none=p_none, orientation_sigma_deg=orientation_sigma_deg, frame_sigma_deg=frame_sigma_deg,
                           schmid_weight=schmid_weight, report_threshold=report_threshold, ambiguity_ratio=ambiguity_ratio,
@@ -310,6 +392,7 @@ def identify_grains(
     orientations = orientation_table(orientations)
     cands = as_candidate_set(systems, modes, families)
     load = resolve_load(load, lattice)
+    share = system_family_prior(cands, prior)
     unknown = sorted(set(artefact_options or {}) - set(_ARTEFACT_OPTIONS))
     if unknown:
         raise TracefitInputError(f"artefact_options: unknown option {unknown[0]!r}; expected some of {', '.join(_ARTEFACT_OPTIONS)}")
@@ -324,14 +407,17 @@ def identify_grains(
         osigs = {k: (orientation_sigma_deg if not grain_sigma_deg else grain_sigma_deg.get(k, orientation_sigma_deg))
                  for k in keys}
         pre = {k: grain_log_weights([obs[i] for i in by_grain[k]], cands, G[j], ang[j], incl[j], slope[j], load,
-                                    osigs[k], frame_sigma_deg, p_none, schmid_weight)
+                                    osigs[k], frame_sigma_deg, p_none, schmid_weight, frame, share, crss)
                for j, k in enumerate(keys)}
         art = _map_artefacts(obs, by_grain, keys, pre, cands, G, ang, slope, osigs, frame_sigma_deg,
                              artefact_options) if artefacts else {}
         for j, k in enumerate(keys):
             idx = by_grain[k]
-            res = _assign_grain([obs[i] for i in idx], cands, G[j], ang[j], incl[j], slope[j], load, pre[k],
-                                art.get(k), allow_shared_planes, report_threshold, ambiguity_ratio)
+            go = [obs[i] for i in idx]
+            coupling = (shared_rotation(go, cands, G[j], pre[k][1], slope[j], osigs[k], frame_sigma_deg, frame)
+                        if shared_orientation and len(idx) > 1 else None)
+            res = _assign_grain(go, cands, G[j], ang[j], incl[j], slope[j], load, pre[k],
+                                art.get(k), allow_shared_planes, report_threshold, ambiguity_ratio, coupling)
             for i, r in zip(idx, res):
                 out[i] = r
     for k, idx in by_grain.items():

@@ -16,9 +16,10 @@ import numpy as np
 from tracefit.conventions import FrameSettings
 from tracefit.errors import TracefitInputError
 
-__all__ = ["plane_key", "CandidateSet", "candidate_set", "as_candidate_set", "predict_candidates"]
+__all__ = ["plane_key", "CandidateSet", "candidate_set", "as_candidate_set", "predict_candidates",
+           "system_family_prior"]
 
-# Step of the central difference that gives the stage-tilt slope d(apparent)/d(true), degrees.
+
 def plane_key(plane: Iterable) -> tuple:
     """Sign-free key of a plane: (h k l) and (-h -k -l) are the same plane.
 
@@ -218,3 +219,106 @@ def predict_candidates(cands: CandidateSet, g: np.ndarray,
     g = np.asarray(g, float)
     tab = predicted_trace_table(None, g[None] if g.ndim == 2 else g, cands.normals, frame or FrameSettings())
     return tab.angle_deg, tab.inclination_deg, tab.slope
+
+
+def _norm_key(text: Any) -> str:
+    return str(text).replace(" ", "").lower()
+
+
+def _family_weight(name: str, plane_family: str, mode: str, weights: dict) -> float:
+    """The user's weight of one system family: by system name (with or without its trailing
+    mode word), plane family or mode; 1 when none is given."""
+    n = _norm_key(name)
+    for key in (n, n.removesuffix(mode), _norm_key(plane_family), mode):
+        if key in weights:
+            return weights[key]
+    return 1.0
+
+
+def _check_weights(prior: Any) -> dict:
+    if prior is None:
+        return {}
+    if not hasattr(prior, "items"):
+        raise TracefitInputError(f"prior must be a mapping of system family to weight, e.g. {{'{{110}}<111>': 2}}, got {type(prior).__name__}")
+    out = {}
+    for k, v in prior.items():
+        try:
+            w = float(v)
+        except (TypeError, ValueError):
+            raise TracefitInputError(f"prior: the weight of {k!r} must be a number, got {v!r}") from None
+        if not (w >= 0.0 and w < float("inf")):
+            raise TracefitInputError(f"prior: the weight of {k!r} must be a finite number >= 0, got {v!r}")
+        out[_norm_key(k)] = w
+    return out
+
+
+def system_family_prior(cands: CandidateSet, prior: Any = None) -> np.ndarray:
+    """Prior share of every candidate: equal per system family, spread over the family's planes.
+
+    Each system family (catalogue ``name``: ``"{110}<111> slip"``, ``"basal <a>"``, ...) gets the
+    same weight unless ``prior`` says otherwise; a family's weight is shared equally by the
+    distinct planes it has systems on, and a candidate (one plane, one mode) sums the shares of
+    the families on it. So a family with many planes ({123} in bcc: 24) does not take more
+    prior mass than one with few ({110}: 6).
+
+    Parameters
+    ----------
+    cands : CandidateSet
+        P candidates.
+    prior : dict, optional
+        Relative weights (>= 0) keyed by system family name (``"{110}<111> slip"`` or
+        ``"{110}<111>"``; spaces and case ignored), by plane family (``"{112}"``: all its
+        system families) or by mode (``"twin"``). Unnamed families weigh 1.
+
+    Returns
+    -------
+    ndarray, shape (P,)
+        Shares summing to 1.
+
+    Raises
+    ------
+    TracefitInputError
+        Weights that are not finite numbers >= 0, a key that names no family of ``cands``, or
+        all weights 0.
+
+    Examples
+    --------
+    bcc with {110}, {112} and {123} slip: each family a third, so a {123} plane (24 of them)
+    weighs a quarter of a {110} plane (6):
+
+    >>> from tracefit.crystal import catalogue, lattice_preset
+    >>> cs = candidate_set(catalogue(lattice_preset("bcc"), ["slip"]))
+    >>> w = system_family_prior(cs)
+    >>> fam = np.array(cs.families)
+    >>> [round(float(w[fam == f].sum()), 3) for f in ("{110}", "{112}", "{123}")]
+    [0.333, 0.333, 0.333]
+    >>> w2 = system_family_prior(cs, {"{110}<111>": 2})
+    >>> round(float(w2[fam == "{110}"].sum()), 3)
+    0.5
+    """
+    weights = _check_weights(prior)
+    fams: dict = {}  # system family name -> (weight, set of plane ids)
+    member: list = []  # per candidate, the family names on it
+    for c, ss in enumerate(cands.systems):
+        names = []
+        for sy in ss:
+            name = str(getattr(sy, "name", None) or f"{cands.families[c]} {cands.modes[c]}")
+            if name not in fams:
+                fams[name] = [_family_weight(name, cands.families[c], cands.modes[c], weights), set()]
+            fams[name][1].add(int(cands.plane_ids[c]))
+            names.append(name)
+        member.append(dict.fromkeys(names))
+    known = set()
+    for c, ss in enumerate(cands.systems):
+        for sy in ss:
+            n = _norm_key(getattr(sy, "name", "") or "")
+            known |= {n, n.removesuffix(cands.modes[c]), _norm_key(cands.families[c]), cands.modes[c]}
+    unknown = sorted(set(weights) - known)
+    if unknown:
+        raise TracefitInputError(f"prior: {unknown[0]!r} names no system family of these candidates "
+                                 f"(they are: {', '.join(fams)})")
+    total = sum(w for w, _ in fams.values())
+    if total <= 0:
+        raise TracefitInputError("prior: every system family has weight 0; give at least one a positive weight")
+    share = np.array([sum(fams[n][0] / len(fams[n][1]) for n in names) for names in member]) / total
+    return share

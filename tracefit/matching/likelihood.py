@@ -18,9 +18,11 @@ Per observed family f and candidate c (one plane variant of one mode):
   (:func:`none_log_density`; default 0.05: in our experience a few percent of detected
   families are scratches, polishing marks, grain-boundary edges or belong to a wrong
   orientation; common practice, no source);
-* prior (:func:`candidate_prior`): the remaining 1 - p_none is shared equally by the
-  distinct planes, and a plane that is both a slip and a twin plane shares its weight
-  between the two modes. An optional Schmid prior (``schmid_weight = k``, default 0 = off)
+* prior (:func:`candidate_prior`): the remaining 1 - p_none is shared by the system families
+  (``"{110}<111> slip"``, ``"basal <a>"``, ...), equally unless the user weighs them, and each
+  family's share is spread equally over its planes
+  (:func:`tracefit.matching.candidates.system_family_prior`); without family shares, equally
+  by distinct plane. An optional Schmid prior (``schmid_weight = k``, default 0 = off)
   multiplies each candidate's weight by max(m, 0.02)^k, m its best Schmid factor. Off by
   default because in a polycrystal the active system is often not the one with the highest
   Schmid factor; k = 1 is a mild choice.
@@ -192,12 +194,14 @@ def predicted_trace_sigma(inclination_deg: ArrayLike, orientation_sigma_deg: flo
 
 
 def candidate_prior(plane_ids: ArrayLike, p_none: float, drive: ArrayLike | None = None,
-                    schmid_weight: float = 0.0) -> np.ndarray:
+                    schmid_weight: float = 0.0, share: ArrayLike | None = None) -> np.ndarray:
     """Prior probability of every candidate; the candidates share 1 - ``p_none``.
 
-    Equal per distinct plane, split equally among the modes on that plane; with
-    ``schmid_weight = k > 0`` and a ``drive`` each weight is multiplied by
-    max(drive, 0.02)^k and the total renormalised to 1 - p_none.
+    In proportion to ``share`` (the matcher passes the system-family shares of
+    :func:`tracefit.matching.candidates.system_family_prior`); without it equal per distinct
+    plane, split equally among the modes on that plane. With ``schmid_weight = k > 0`` and a
+    ``drive`` each weight is multiplied by max(drive, 0.02)^k and the total renormalised to
+    1 - p_none.
 
     Parameters
     ----------
@@ -209,6 +213,8 @@ def candidate_prior(plane_ids: ArrayLike, p_none: float, drive: ArrayLike | None
         Best Schmid factor (or Schmid-like scaled resolved shear) of each candidate, >= 0.
     schmid_weight : float
         Exponent k of the Schmid prior (0 = off).
+    share : array_like, shape (P,), optional
+        Relative prior weight of every candidate (>= 0, not all 0).
 
     Returns
     -------
@@ -219,11 +225,17 @@ def candidate_prior(plane_ids: ArrayLike, p_none: float, drive: ArrayLike | None
     --------
     >>> print(candidate_prior([0, 0, 1], 0.1))
     [0.225 0.225 0.45 ]
+    >>> print(candidate_prior([0, 0, 1], 0.1, share=[1, 1, 2]))
+    [0.225 0.225 0.45 ]
     """
     ids = np.asarray(plane_ids, int)
-    npl = int(ids.max()) + 1
-    counts = np.bincount(ids, minlength=npl)
-    prior = (1.0 - p_none) / npl / counts[ids]
+    if share is not None:
+        w = np.asarray(share, float)
+        prior = (1.0 - p_none) * w / w.sum()
+    else:
+        npl = int(ids.max()) + 1
+        counts = np.bincount(ids, minlength=npl)
+        prior = (1.0 - p_none) / npl / counts[ids]
     if schmid_weight and drive is not None:
         w = np.maximum(np.asarray(drive, float), MIN_SCHMID_PRIOR) ** float(schmid_weight)
         prior = prior * w
@@ -232,12 +244,12 @@ def candidate_prior(plane_ids: ArrayLike, p_none: float, drive: ArrayLike | None
 
 
 def candidate_log_prior(plane_ids: ArrayLike, p_none: float, drive: ArrayLike | None = None,
-                        schmid_weight: float = 0.0) -> np.ndarray:
+                        schmid_weight: float = 0.0, share: ArrayLike | None = None) -> np.ndarray:
     """Log of :func:`candidate_prior` (floored at 1e-300, so always finite).
 
     Parameters
     ----------
-    plane_ids, p_none, drive, schmid_weight
+    plane_ids, p_none, drive, schmid_weight, share
         As :func:`candidate_prior`.
 
     Returns
@@ -250,7 +262,7 @@ def candidate_log_prior(plane_ids: ArrayLike, p_none: float, drive: ArrayLike | 
     >>> print(np.round(np.exp(candidate_log_prior([0, 1, 2, 3], 0.0)), 3))
     [0.25 0.25 0.25 0.25]
     """
-    return np.log(np.maximum(candidate_prior(plane_ids, p_none, drive, schmid_weight), 1e-300))
+    return np.log(np.maximum(candidate_prior(plane_ids, p_none, drive, schmid_weight, share), 1e-300))
 
 
 def none_log_density(p_none: float, support: float = 180.0) -> float:

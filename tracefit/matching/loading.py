@@ -90,6 +90,7 @@ class _FlatSystems:
     dir_idx: list  # (S) direction indices as int tuples
     names: list  # (S) catalogue names or None
     members: list  # (P) indices of each candidate's systems
+    systems: list  # (S) the systems themselves (CRSS look-up)
 
 
 def _flat_systems(cands: CandidateSet) -> _FlatSystems:
@@ -108,19 +109,30 @@ def _flat_systems(cands: CandidateSet) -> _FlatSystems:
             dir_idx=[tuple(int(round(x)) for x in s.direction) for s in flat],
             names=[getattr(s, "name", None) for s in flat],
             members=[np.flatnonzero(grp == k) for k in range(len(cands))],
+            systems=flat,
         )
     return cands._flat
 
 
-def _drive_values(load: Any, g: np.ndarray, normals: np.ndarray, dirs: np.ndarray, twin: np.ndarray):
+def _drive_values(load: Any, g: np.ndarray, normals: np.ndarray, dirs: np.ndarray, twin: np.ndarray, frame=None):
     """Signed drive of every system: Schmid factor or resolved shear, |.| for slip."""
     from tracefit.predict import resolved_drive
 
-    v = np.atleast_1d(resolved_drive(load, g, normals, dirs))
+    v = np.atleast_1d(resolved_drive(load, g, normals, dirs, frame))
     return np.where(twin, v, np.abs(v))
 
 
-def rank_systems(load: Any, cands: CandidateSet, g: np.ndarray) -> tuple[list[list[SystemChoice]], list[float | None]]:
+def _choice(fs: _FlatSystems, i: int, x: float | None, stress: bool, active: bool, crss: dict | None) -> SystemChoice:
+    from tracefit.predict import crss_of
+
+    c = crss_of(crss, fs.systems[i]) if crss else None
+    tau = x if stress else None
+    return SystemChoice(fs.dir_idx[i], None if stress else x, tau, fs.names[i], active, c,
+                        None if (c is None or tau is None) else bool(tau >= c))
+
+
+def rank_systems(load: Any, cands: CandidateSet, g: np.ndarray, frame: Any = None,
+                 crss: dict | None = None) -> tuple[list[list[SystemChoice]], list[float | None]]:
     """Per candidate: its systems ranked under the load, and the best drive (m or tau, >= 0).
 
     Parameters
@@ -131,6 +143,13 @@ def rank_systems(load: Any, cands: CandidateSet, g: np.ndarray) -> tuple[list[li
         P candidates.
     g : ndarray, shape (3, 3)
         Orientation, v_crystal = g v_sample.
+    frame : tracefit.conventions.FrameSettings, optional
+        The data -> image frame: places an image-frame load (the default frame of a load) in
+        the orientation data's frame.
+    crss : dict, optional
+        CRSS per system family, plane family or mode (MPa), as
+        :func:`tracefit.predict.predict_traces`: under a stress each system carries its CRSS and
+        whether its resolved shear reaches it.
 
     Returns
     -------
@@ -151,12 +170,12 @@ def rank_systems(load: Any, cands: CandidateSet, g: np.ndarray) -> tuple[list[li
     (0.408, (1, 0, -1))
     """
     fs = _flat_systems(cands)
-    vals = None if load is None else _drive_values(load, g, fs.normals, fs.dirs, fs.twin)
+    vals = None if load is None else _drive_values(load, g, fs.normals, fs.dirs, fs.twin, frame)
     stress = is_stress(load)
     out_sys, best_drive = [], []
     for k, idx in enumerate(fs.members):
         if vals is None:
-            out_sys.append([SystemChoice(fs.dir_idx[i], None, None, fs.names[i], True) for i in idx])
+            out_sys.append([_choice(fs, i, None, False, True, crss) for i in idx])
             best_drive.append(None)
             continue
         order = idx[np.argsort(-vals[idx], kind="stable")]
@@ -165,7 +184,7 @@ def rank_systems(load: Any, cands: CandidateSet, g: np.ndarray) -> tuple[list[li
         for i in order:
             x = float(vals[i])
             active = bool(x > 0) if twin else True
-            choices.append(SystemChoice(fs.dir_idx[i], None if stress else x, x if stress else None, fs.names[i], active))
+            choices.append(_choice(fs, i, x, stress, active, crss))
         out_sys.append(choices)
         best_drive.append(max(float(vals[order[0]]), 0.0) if choices[0].active_sense else 0.0)
     return out_sys, best_drive

@@ -14,7 +14,7 @@ import numpy as np
 
 from tracefit.matching.candidates import plane_key
 
-__all__ = ["SystemChoice", "Candidate", "FamilyIdentification", "identifications_to_json", "format_plane"]
+__all__ = ["SystemChoice", "ModeShare", "Candidate", "FamilyIdentification", "identifications_to_json", "format_plane"]
 
 
 def _r(x, nd: int = 4):
@@ -63,11 +63,17 @@ class SystemChoice:
         Catalogue name of the system.
     active_sense : bool
         Twins: False when the load shears them against their twinning sense.
+    crss : float or None
+        The CRSS the user gave for this system (unit of the stress, MPa).
+    exceeds_crss : bool or None
+        Under a stress with a CRSS: ``resolved_shear >= crss``; None otherwise.
 
     Examples
     --------
     >>> SystemChoice((0, 1, -1), 0.40824).to_dict()
     {'direction': [0, 1, -1], 'schmid_factor': 0.4082}
+    >>> SystemChoice((0, 1, -1), None, 42.0, crss=40.0, exceeds_crss=True).to_dict()["exceeds_crss"]
+    True
     """
 
     direction: tuple
@@ -75,20 +81,77 @@ class SystemChoice:
     resolved_shear: float | None = None
     name: str | None = None
     active_sense: bool = True
+    crss: float | None = None
+    exceeds_crss: bool | None = None
 
     def to_dict(self) -> dict:
-        """JSON form: direction, Schmid factor (4 decimals), resolved shear and name when known."""
+        """JSON form: direction, Schmid factor (4 decimals); resolved shear (MPa), CRSS and the
+        CRSS check, and the name, when known."""
         d = {"direction": list(self.direction), "schmid_factor": _r(self.schmid_factor)}
         if self.resolved_shear is not None:
             d["resolved_shear"] = _r(self.resolved_shear)
+        if self.crss is not None:
+            d["crss"] = _r(self.crss)
+            d["exceeds_crss"] = None if self.exceeds_crss is None else bool(self.exceeds_crss)
         if self.name:
             d["name"] = self.name
         return d
 
 
 @dataclass
+class ModeShare:
+    """One mode (slip or twin) on a candidate plane: its share of the plane's probability.
+
+    The likelihood of a trace is the same for every mode on one plane, so the share is the
+    split of the prior on that plane: the system-family prior, times the Schmid prior when it
+    is on (which also holds the twin polarity: a twin sheared against its sense gets the floor).
+
+    Attributes
+    ----------
+    mode : {"slip", "twin"}
+    family : str
+        Plane family of the mode's systems.
+    share : float
+        Fraction of the plane's probability, in [0, 1]; the shares of a plane sum to 1.
+    probability : float
+        ``share`` times the plane's probability.
+    best_system : SystemChoice or None
+        The most loaded system of this mode (None without a load, or a twin sheared the wrong way).
+    systems : list of SystemChoice
+        The mode's systems on the plane, most loaded first.
+
+    Examples
+    --------
+    >>> ModeShare("twin", "{111}", 0.5, 0.48).to_dict()["share"]
+    0.5
+    """
+
+    mode: str
+    family: str
+    share: float
+    probability: float
+    best_system: SystemChoice | None = None
+    systems: list[SystemChoice] = field(default_factory=list)
+
+    def to_dict(self) -> dict:
+        """JSON form (share and probability to 6 decimals)."""
+        return {
+            "mode": self.mode,
+            "family": self.family,
+            "share": _r(self.share, 6),
+            "probability": _r(self.probability, 6),
+            "best_system": None if self.best_system is None else self.best_system.to_dict(),
+            "systems": [s.to_dict() for s in self.systems],
+        }
+
+
+@dataclass
 class Candidate:
-    """One candidate plane (one mode) for an observed family.
+    """One candidate plane for an observed family, with the split between the modes on it.
+
+    The headline is the plane: ``probability`` is summed over the modes (and systems) on the
+    plane; ``mode``, ``best_system`` and ``systems`` are those of its most probable mode, and
+    ``modes`` gives the split (:class:`ModeShare`).
 
     Attributes
     ----------
@@ -101,7 +164,7 @@ class Candidate:
     residual_deg : float
         Observed - predicted, axial degrees.
     probability : float
-        Posterior probability that the family is this candidate.
+        Posterior probability that the family is the trace of this plane (all modes).
     sigma_deg : float
         Total spread used in the likelihood, degrees.
     predicted_sigma_deg : float
@@ -115,7 +178,9 @@ class Candidate:
     near_surface : bool
         The plane lies within ``tracefit.predict.NEAR_SURFACE_DEG`` of the surface (ill-defined trace).
     log_likelihood : float
-        Log (prior x likelihood) of the family under this candidate, per degree.
+        Log (prior x likelihood) of the family under this plane (all modes), per degree.
+    modes : list of ModeShare
+        The modes on the plane, most probable first (empty when built by hand).
 
     Examples
     --------
@@ -137,9 +202,10 @@ class Candidate:
     systems: list[SystemChoice] = field(default_factory=list)
     near_surface: bool = False
     log_likelihood: float = float("nan")
+    modes: list[ModeShare] = field(default_factory=list)
 
     def to_dict(self) -> dict:
-        """JSON form (probability to 6 decimals, angles to 4)."""
+        """JSON form (probability to 6 decimals, angles to 4); ``modes`` holds the split."""
         return {
             "plane": list(self.plane),
             "family": self.family,
@@ -153,6 +219,7 @@ class Candidate:
             "inclination_deg": _r(self.inclination_deg),
             "near_surface": bool(self.near_surface),
             "systems": [s.to_dict() for s in self.systems],
+            "modes": [m.to_dict() for m in self.modes],
         }
 
 

@@ -11,7 +11,8 @@ import numpy as np
 
 from tracefit.matching.candidates import CandidateSet, plane_key
 from tracefit.matching.observed import ObservedFamily
-from tracefit.matching.results import Candidate, FamilyIdentification, format_plane
+from tracefit.matching.likelihood import logsumexp
+from tracefit.matching.results import Candidate, FamilyIdentification, ModeShare, format_plane
 from tracefit.predict import NEAR_SURFACE_DEG
 
 # GrainPosterior, family_verdict and flag_all_unexplained serve tracefit.matching.assign only.
@@ -54,39 +55,55 @@ class GrainPosterior:
     load: Any
 
 
-def _listed_candidates(gp: GrainPosterior, f: int, threshold: float) -> list[Candidate]:
-    """Family f's candidates above the report threshold, most probable first.
+def _best_system(gp: GrainPosterior, c: int):
+    ranked = gp.systems_ranked[c]
+    return ranked[0] if ranked and gp.load is not None and ranked[0].active_sense else None
 
-    The best one is listed even below the threshold when the family is explained.
+
+def _plane_candidate(gp: GrainPosterior, f: int, members: np.ndarray, p_plane: float) -> Candidate:
+    """One plane row: the plane's probability, its most probable mode's fields, the split by mode."""
+    post = gp.post[f]
+    order = members[np.argsort(-post[members], kind="stable")]
+    c = int(order[0])
+    modes = [ModeShare(mode=gp.cands.modes[k], family=gp.cands.families[k],
+                       share=float(post[k] / p_plane) if p_plane > 0 else 1.0 / len(order),
+                       probability=float(post[k]), best_system=_best_system(gp, k), systems=gp.systems_ranked[k])
+             for k in order]
+    return Candidate(
+        plane=gp.cands.planes[c],
+        family=gp.cands.families[c],
+        mode=gp.cands.modes[c],
+        predicted_deg=float(gp.ang[c]),
+        residual_deg=float(gp.resid[f, c]),
+        probability=float(p_plane),
+        sigma_deg=float(gp.sig[f, c]),
+        predicted_sigma_deg=float(gp.psig[c]),
+        inclination_deg=float(gp.incl[c]),
+        best_system=_best_system(gp, c),
+        systems=gp.systems_ranked[c],
+        near_surface=bool(gp.incl[c] < NEAR_SURFACE_DEG),
+        log_likelihood=float(logsumexp(gp.logw[f, members])),
+        modes=modes,
+    )
+
+
+def _listed_candidates(gp: GrainPosterior, f: int, threshold: float) -> list[Candidate]:
+    """Family f's candidate planes above the report threshold, most probable first.
+
+    Plane first: a plane's probability is summed over the modes on it, and the split between
+    them is the second level (:class:`ModeShare`). The best plane is listed even below the
+    threshold when the family is explained.
     """
     P = len(gp.cands)
     post = gp.post[f]
     p_other = float(post[P]) + float(gp.p_art[f])
+    ids = np.asarray(gp.cands.plane_ids, int)
+    p_plane = np.bincount(ids, weights=post[:P], minlength=int(ids.max()) + 1)
     out = []
-    for c in np.argsort(-post[:P]):
-        if post[c] < threshold and not (len(out) == 0 and post[c] > 0 and p_other < 0.5):
+    for q in np.argsort(-p_plane, kind="stable"):
+        if p_plane[q] < threshold and not (len(out) == 0 and p_plane[q] > 0 and p_other < 0.5):
             break
-        best = None
-        ranked = gp.systems_ranked[c]
-        if ranked and gp.load is not None and ranked[0].active_sense:
-            best = ranked[0]
-        out.append(
-            Candidate(
-                plane=gp.cands.planes[c],
-                family=gp.cands.families[c],
-                mode=gp.cands.modes[c],
-                predicted_deg=float(gp.ang[c]),
-                residual_deg=float(gp.resid[f, c]),
-                probability=float(post[c]),
-                sigma_deg=float(gp.sig[f, c]),
-                predicted_sigma_deg=float(gp.psig[c]),
-                inclination_deg=float(gp.incl[c]),
-                best_system=best,
-                systems=ranked,
-                near_surface=bool(gp.incl[c] < NEAR_SURFACE_DEG),
-                log_likelihood=float(gp.logw[f, c]),
-            )
-        )
+        out.append(_plane_candidate(gp, f, np.flatnonzero(ids == q), float(p_plane[q])))
     return out
 
 
@@ -193,10 +210,24 @@ def flag_all_unexplained(results: list[FamilyIdentification], grain: Any) -> Non
 
 
 def _mixed_modes(cl: list[Candidate]) -> bool:
-    if len(cl) < 2:
+    """The best plane carries more than one mode with a share worth mentioning (>= 1 %)."""
+    if not cl:
         return False
+    if cl[0].modes:
+        return sum(m.share >= 0.01 for m in cl[0].modes) > 1
     k0 = plane_key(cl[0].plane)
     return any(plane_key(c.plane) == k0 and c.mode != cl[0].mode for c in cl[1:])
+
+
+def _mode_rows(cl: list[Candidate]) -> list:
+    """(plane, mode, best_system) of every mode listed on the candidates (or the rows themselves)."""
+    rows = []
+    for c in cl:
+        if c.modes:
+            rows += [(c.plane, m.mode, m.best_system) for m in c.modes if m.share >= 0.01]
+        else:
+            rows.append((c.plane, c.mode, c.best_system))
+    return rows
 
 
 def _plane_hints(pl: list[Candidate], load: Any) -> list[str]:
@@ -225,12 +256,12 @@ def _plane_hints(pl: list[Candidate], load: Any) -> list[str]:
     return hints
 
 
-def _mode_hints(top: list[Candidate], load: Any) -> list[str]:
-    """Hints that separate slip from twin on the listed candidates."""
+def _mode_hints(rows: list, load: Any) -> list[str]:
+    """Hints that separate slip from twin; ``rows`` from :func:`_mode_rows`."""
     hints = []
     if load is not None:
-        tw = [c for c in top if c.mode == "twin"]
-        pos = [c for c in tw if c.best_system is not None]
+        tw = [r for r in rows if r[1] == "twin"]
+        pos = [r for r in tw if r[2] is not None]
         if pos and len(pos) < len(tw):
             hints.append("twin polarity: only some twin candidates are sheared in their twinning sense by this load")
         elif not pos:
@@ -249,7 +280,8 @@ def separation_hints(cl: list[Candidate], load: Any, g: np.ndarray | None = None
     Parameters
     ----------
     cl : list of Candidate
-        The listed candidates, most probable first (the first six are considered).
+        The listed candidate planes, most probable first (the first six are considered, with
+        the modes on each).
     load : None, LoadAxis or stress array
         The load, if known.
     g, cands : optional
@@ -272,6 +304,7 @@ def separation_hints(cl: list[Candidate], load: Any, g: np.ndarray | None = None
     for c in top:
         planes.setdefault(plane_key(c.plane), c)
     hints = _plane_hints(list(planes.values()), load) if len(planes) > 1 else []
-    if any(c.mode == "twin" for c in top) and any(c.mode == "slip" for c in top):
-        hints += _mode_hints(top, load)
+    rows = _mode_rows(top)
+    if any(r[1] == "twin" for r in rows) and any(r[1] == "slip" for r in rows):
+        hints += _mode_hints(rows, load)
     return hints

@@ -5,7 +5,22 @@ Schmid factor with the load's sense, or the resolved shear stress; see
 :mod:`tracefit.predict.resolved` for the laws and the twin sign rule), so consumers need not
 branch on the load type.
 
-Loads are given in the sample (orientation-data) frame, or as crystal directions.
+The frame of a load
+-------------------
+A load axis or stress given along sample axes is read in one of two frames, stated by
+``Load.frame``:
+
+* ``"image"`` (the default): the axes of the picture as a person sees it, x to the right, y up
+  the screen, z toward the viewer. It is brought into the orientation data's frame with the
+  inverse of the frame's data -> image rotation ``M``
+  (:func:`tracefit.conventions.data_to_image_matrix`): ``l_sample = M^T l_image`` and
+  ``sigma_sample = M^T sigma_image M``. The stage tilt does not enter (it is a view, not a
+  turn of the sample).
+* ``"sample"``: the frame of the orientation data (what every load meant before the frame was
+  stated); used as given.
+
+A crystal direction (``"[110]"``) has ``frame="crystal"`` and needs no frame. Without frame
+settings (no rotation, no flips) the image and sample frames coincide.
 """
 
 from __future__ import annotations
@@ -16,6 +31,7 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import ArrayLike
 
+from tracefit.conventions import FrameSettings, data_to_image_matrix
 from tracefit.crystal import DeformationSystem, Lattice, Orientation, as_orientation_matrix, parse_index, parse_vector
 from tracefit.errors import TracefitInputError
 from tracefit.predict.resolved import reported_drive, resolved_shear, schmid_factor, stress_tensor
@@ -28,28 +44,35 @@ __all__ = [
     "resolved_drive",
     "system_schmid_factors",
     "SENSES",
+    "FRAMES",
+    "DEFAULT_LOAD_FRAME",
 ]
 
 SENSES = ("tension", "compression")
-FRAMES = ("sample", "crystal")
+#: frames a load can be stated in: the picture's axes, the orientation data's axes, the crystal's
+FRAMES = ("image", "sample", "crystal")
+#: the frame of loads along sample axes when none is said: what a person looking at the picture means
+DEFAULT_LOAD_FRAME = "image"
+_AXIS_FRAMES = ("image", "sample")
 
 
 @dataclass(frozen=True)
 class Load:
-    """A uniaxial load (axis and sense) or a stress tensor, both in sample coordinates.
+    """A uniaxial load (axis and sense) or a stress tensor, in the image, sample or crystal frame.
 
     Build one with :meth:`Load.axis` or :meth:`Load.stress` (or :func:`as_load`). An axis
     load keeps the fields of the former ``LoadAxis``: ``vector`` (unit axis, in ``frame``
-    coordinates), ``frame`` (``"sample"``, or ``"crystal"`` for a crystal direction whose
-    indices are kept in ``index``), ``sense`` and ``label``. A stress load holds
-    ``stress_mpa``, the symmetric tensor in MPa, sample frame.
+    coordinates), ``frame``, ``sense`` and ``label``; a crystal direction keeps its indices in
+    ``index``. A stress load holds ``stress_mpa``, the symmetric tensor in MPa, in ``frame``
+    coordinates.
 
     Parameters
     ----------
     vector : tuple of 3 float, optional
         Unit load axis (axis loads).
-    frame : {"sample", "crystal"}
-        Frame of ``vector``.
+    frame : {"image", "sample", "crystal"}
+        Frame of ``vector`` or ``stress_mpa`` (module doc): ``"image"`` (default) the picture's
+        axes, ``"sample"`` the orientation data's axes, ``"crystal"`` a crystal direction.
     sense : {"tension", "compression"}
     label : str
         The axis as the user gave it.
@@ -66,14 +89,14 @@ class Load:
     Examples
     --------
     >>> ld = Load.axis("y", sense="compression")
-    >>> ld.vector, ld.sign, ld.is_stress
-    ((0.0, 1.0, 0.0), -1.0, False)
+    >>> ld.vector, ld.sign, ld.is_stress, ld.frame
+    ((0.0, 1.0, 0.0), -1.0, False, 'image')
     >>> Load.stress([100, 0, 0, 0, 0, 0]).is_stress
     True
     """
 
     vector: tuple | None = None
-    frame: str = "sample"
+    frame: str = DEFAULT_LOAD_FRAME
     sense: str = "tension"
     label: str = ""
     index: tuple | None = None
@@ -85,23 +108,28 @@ class Load:
         if self.sense not in SENSES:
             raise TracefitInputError(f"sense must be 'tension' or 'compression', got {self.sense!r}")
         if self.frame not in FRAMES:
-            raise TracefitInputError(f"frame must be 'sample' or 'crystal', got {self.frame!r}")
+            raise TracefitInputError(f"frame must be 'image', 'sample' or 'crystal', got {self.frame!r}")
+        if self.stress_mpa is not None and self.frame == "crystal":
+            raise TracefitInputError("a stress load is given in the 'image' or 'sample' frame, not 'crystal'")
         if self.vector is not None and np.shape(self.vector) != (3,):
             raise TracefitInputError(f"vector must have 3 components, got shape {np.shape(self.vector)}")
 
     # ------------------------------------------------------------ constructors
     @classmethod
-    def axis(cls, axis: str | ArrayLike, sense: str = "tension", lattice: Lattice | None = None) -> "Load":
+    def axis(cls, axis: str | ArrayLike, sense: str = "tension", lattice: Lattice | None = None,
+             frame: str = DEFAULT_LOAD_FRAME) -> "Load":
         """A uniaxial load along ``axis``.
 
         Parameters
         ----------
         axis : str or array_like, shape (3,)
-            A sample axis ``"x"``, ``"-y"``, a sample vector ``"1,0,0"`` or ``[1, 0, 0]``, or a
-            crystal direction ``"[110]"``, ``"[11-20]"`` (needs ``lattice``).
+            An axis ``"x"``, ``"-y"``, a vector ``"1,0,0"`` or ``[1, 0, 0]`` (in ``frame``), or a
+            crystal direction ``"[110]"``, ``"[11-20]"`` (needs ``lattice``; frame-free).
         sense : {"tension", "compression"}
         lattice : tracefit.crystal.Lattice, optional
             Needed for crystal directions.
+        frame : {"image", "sample"}
+            Frame of an axis or vector: the picture's axes (default) or the orientation data's.
 
         Returns
         -------
@@ -118,11 +146,12 @@ class Load:
         >>> ld = Load.axis("[001]", lattice=Lattice.fcc())
         >>> ld.frame, ld.index, ld.label
         ('crystal', (0, 0, 1), '[001]')
-        >>> np.round(Load.axis([3, 4, 0]).vector, 3).tolist()
+        >>> np.round(Load.axis([3, 4, 0], frame="sample").vector, 3).tolist()
         [0.6, 0.8, 0.0]
         """
         if isinstance(axis, str):
-            return parse_load(axis, lattice, sense)
+            return parse_load(axis, lattice, sense, frame)
+        _check_axis_frame(frame)
         try:
             v = np.asarray(axis, dtype=float)
         except (TypeError, ValueError):
@@ -134,17 +163,19 @@ class Load:
         n = float(np.linalg.norm(v))
         if n < 1e-12:
             raise TracefitInputError("axis has zero length")
-        return cls(tuple(float(x) for x in v / n), "sample", sense, ",".join(f"{x:g}" for x in v))
+        return cls(tuple(float(x) for x in v / n), frame, sense, ",".join(f"{x:g}" for x in v))
 
     @classmethod
-    def stress(cls, stress_mpa: ArrayLike) -> "Load":
-        """A stress-tensor load in the sample frame.
+    def stress(cls, stress_mpa: ArrayLike, frame: str = DEFAULT_LOAD_FRAME) -> "Load":
+        """A stress-tensor load.
 
         Parameters
         ----------
         stress_mpa : array_like, shape (3, 3) or (6,)
             Stress in MPa (tension positive): a symmetric 3 x 3 tensor or Voigt values in the
             order ``(s11, s22, s33, s23, s13, s12)``.
+        frame : {"image", "sample"}
+            Axes 1, 2, 3 are the picture's x, y, z (default) or the orientation data's.
 
         Returns
         -------
@@ -160,8 +191,9 @@ class Load:
         >>> float(Load.stress([0, 200, 0, 0, 0, 0]).stress_tensor[1, 1])
         200.0
         """
+        _check_axis_frame(frame)
         s = stress_tensor(stress_mpa)
-        return cls(stress_mpa=tuple(tuple(float(x) for x in row) for row in s))
+        return cls(frame=frame, stress_mpa=tuple(tuple(float(x) for x in row) for row in s))
 
     # ------------------------------------------------------------ properties
     @property
@@ -171,8 +203,40 @@ class Load:
 
     @property
     def stress_tensor(self) -> np.ndarray | None:
-        """The stress tensor in MPa, shape (3, 3), sample frame; None for axis loads."""
+        """The stress tensor as given, MPa, shape (3, 3), in ``frame``; None for axis loads."""
         return None if self.stress_mpa is None else np.array(self.stress_mpa, float)
+
+    def stress_in_sample(self, frame_settings: FrameSettings | None = None) -> np.ndarray:
+        """The stress tensor in the orientation data's frame, MPa.
+
+        Parameters
+        ----------
+        frame_settings : tracefit.conventions.FrameSettings, optional
+            The data -> image frame; an image-frame stress becomes ``M^T sigma M``.
+
+        Returns
+        -------
+        ndarray, shape (3, 3)
+
+        Raises
+        ------
+        TracefitInputError
+            An axis load.
+
+        Examples
+        --------
+        >>> from tracefit.conventions import FrameSettings
+        >>> s = Load.stress([0, 100, 0, 0, 0, 0]).stress_in_sample(FrameSettings(rotation_deg=90))
+        >>> np.round(s, 6).tolist()  # the picture's vertical is the data's x after a 90 deg turn
+        [[100.0, 0.0, 0.0], [0.0, 0.0, 0.0], [0.0, 0.0, 0.0]]
+        """
+        if not self.is_stress:
+            raise TracefitInputError("an axis load has no stress tensor; use in_sample for its axis")
+        s = np.array(self.stress_mpa, float)
+        if self.frame == "image":
+            m = data_to_image_matrix(frame_settings)
+            s = m.T @ s @ m
+        return s
 
     @property
     def sign(self) -> float:
@@ -187,13 +251,16 @@ class Load:
             )
 
     # ------------------------------------------------------------ frames
-    def in_crystal(self, g: Orientation | ArrayLike | None = None) -> np.ndarray:
+    def in_crystal(self, g: Orientation | ArrayLike | None = None,
+                   frame_settings: FrameSettings | None = None) -> np.ndarray:
         """Unit load axis in crystal coordinates.
 
         Parameters
         ----------
         g : Orientation or array_like, shape (3, 3) or (N, 3, 3), optional
-            Needed for a sample-frame axis.
+            Needed for an image- or sample-frame axis.
+        frame_settings : tracefit.conventions.FrameSettings, optional
+            The data -> image frame, for an image-frame axis (default: image = sample).
 
         Returns
         -------
@@ -216,15 +283,18 @@ class Load:
             return v
         if g is None:
             raise TracefitInputError(f"the load {self.label!r} is a sample axis; an orientation g is needed to place it in the crystal")
-        return np.einsum("...ij,j->...i", as_orientation_matrix(g), v)
+        return np.einsum("...ij,j->...i", as_orientation_matrix(g), self.in_sample(None, frame_settings))
 
-    def in_sample(self, g: Orientation | ArrayLike | None = None) -> np.ndarray:
-        """Unit load axis in sample coordinates.
+    def in_sample(self, g: Orientation | ArrayLike | None = None,
+                  frame_settings: FrameSettings | None = None) -> np.ndarray:
+        """Unit load axis in sample (orientation-data) coordinates.
 
         Parameters
         ----------
         g : Orientation or array_like, shape (3, 3) or (N, 3, 3), optional
             Needed for a crystal-direction axis.
+        frame_settings : tracefit.conventions.FrameSettings, optional
+            The data -> image frame: an image-frame axis becomes ``M^T l`` (default: image = sample).
 
         Returns
         -------
@@ -239,11 +309,16 @@ class Load:
         --------
         >>> Load.axis("-z").in_sample().tolist()
         [0.0, 0.0, -1.0]
+        >>> from tracefit.conventions import FrameSettings
+        >>> np.round(Load.axis("y").in_sample(frame_settings=FrameSettings(rotation_deg=90)), 6).tolist()
+        [1.0, 0.0, 0.0]
         """
         self._need_axis("sample axis")
         v = np.asarray(self.vector, float)
         if self.frame == "sample":
             return v
+        if self.frame == "image":
+            return data_to_image_matrix(frame_settings).T @ v
         if g is None:
             raise TracefitInputError("a crystal-direction load needs an orientation g to place it in the sample")
         return np.einsum("...ij,i->...j", as_orientation_matrix(g), v)
@@ -254,10 +329,14 @@ class Load:
         Examples
         --------
         >>> Load.axis("y").to_dict()
-        {'axis': 'y', 'frame': 'sample', 'sense': 'tension', 'vector': [0.0, 1.0, 0.0]}
+        {'axis': 'y', 'frame': 'image', 'sense': 'tension', 'vector': [0.0, 1.0, 0.0]}
+        >>> Load.stress([0, 50, 0, 0, 0, 0], frame="sample").to_dict()["frame"]
+        'sample'
         """
         if self.is_stress:
-            return {"stress_mpa": [list(row) for row in self.stress_mpa], "frame": "sample"}
+            s = self.stress_mpa
+            voigt = [s[0][0], s[1][1], s[2][2], s[1][2], s[0][2], s[0][1]]
+            return {"stress_mpa": [list(row) for row in s], "voigt_mpa": voigt, "frame": self.frame}
         d = {"axis": self.label, "frame": self.frame, "sense": self.sense, "vector": [float(x) for x in self.vector]}
         if self.index is not None:
             d["index"] = [_num(x) for x in self.index]
@@ -268,12 +347,13 @@ class Load:
 LoadAxis = Load
 
 
-def parse_load(text: str, lattice: Lattice | None = None, sense: str = "tension") -> Load:
+def parse_load(text: str, lattice: Lattice | None = None, sense: str = "tension",
+               frame: str = DEFAULT_LOAD_FRAME) -> Load:
     """Read a load axis from text.
 
-    Accepted: a sample axis ``x``, ``y``, ``z`` (optionally signed, ``-x``), a sample vector
-    ``1,0,0``, or a crystal direction in square brackets, ``[110]``, ``[1 -1 0]``, ``[11-20]``
-    (four indices for hexagonal lattices; needs ``lattice``).
+    Accepted: an axis ``x``, ``y``, ``z`` (optionally signed, ``-x``) or a vector ``1,0,0``, both
+    in ``frame``; or a crystal direction in square brackets, ``[110]``, ``[1 -1 0]``, ``[11-20]``
+    (four indices for hexagonal lattices; needs ``lattice``; frame-free).
 
     Parameters
     ----------
@@ -282,6 +362,8 @@ def parse_load(text: str, lattice: Lattice | None = None, sense: str = "tension"
     lattice : tracefit.crystal.Lattice, optional
         Needed for crystal directions.
     sense : {"tension", "compression"}
+    frame : {"image", "sample"}
+        Frame of an axis or vector (module doc); default the picture's axes.
 
     Returns
     -------
@@ -300,6 +382,7 @@ def parse_load(text: str, lattice: Lattice | None = None, sense: str = "tension"
     """
     if sense not in SENSES:
         raise TracefitInputError(f"sense must be 'tension' or 'compression', got {sense!r}")
+    _check_axis_frame(frame)
     if not isinstance(text, str) or not text.strip():
         raise TracefitInputError("empty load axis; expected x, y, z, a sample vector like 1,0,0 or a crystal direction like [110]")
     t = text.strip()
@@ -319,7 +402,12 @@ def parse_load(text: str, lattice: Lattice | None = None, sense: str = "tension"
     n = float(np.linalg.norm(v))
     if n < 1e-12:
         raise TracefitInputError(f"the load axis {text!r} has zero length")
-    return Load(tuple(float(x) for x in v / n), "sample", sense, t)
+    return Load(tuple(float(x) for x in v / n), frame, sense, t)
+
+
+def _check_axis_frame(frame) -> None:
+    if frame not in _AXIS_FRAMES:
+        raise TracefitInputError(f"frame must be 'image' or 'sample', got {frame!r}")
 
 
 def _parse_direction(t: str, lattice) -> tuple:
@@ -332,18 +420,21 @@ def _parse_direction(t: str, lattice) -> tuple:
     return tuple(int(x) for x in idx.values)
 
 
-def as_load(x: Load | str | ArrayLike | None, lattice: Lattice | None = None, sense: str = "tension") -> Load | None:
+def as_load(x: Load | str | ArrayLike | None, lattice: Lattice | None = None, sense: str = "tension",
+            frame: str = DEFAULT_LOAD_FRAME) -> Load | None:
     """Turn any accepted load form into a :class:`Load` (or None).
 
     Parameters
     ----------
     x : None, str, Load, array_like shape (3,), (3, 3) or (6,)
-        None; an axis as text (see :func:`parse_load`); a Load (returned as is); a sample
-        axis vector (3,); or a stress in MPa, (3, 3) or Voigt (6,).
+        None; an axis as text (see :func:`parse_load`); a Load (returned as is, with its own
+        frame); an axis vector (3,); or a stress in MPa, (3, 3) or Voigt (6,).
     lattice : tracefit.crystal.Lattice, optional
         For crystal directions given as text.
     sense : {"tension", "compression"}
         For axes given as text or vectors.
+    frame : {"image", "sample"}
+        Frame of axes, vectors and stresses not given as a Load (default the picture's axes).
 
     Returns
     -------
@@ -364,21 +455,22 @@ def as_load(x: Load | str | ArrayLike | None, lattice: Lattice | None = None, se
     if x is None or isinstance(x, Load):
         return x
     if isinstance(x, str):
-        return parse_load(x, lattice, sense)
+        return parse_load(x, lattice, sense, frame)
     try:
         a = np.asarray(x, dtype=float)
     except (TypeError, ValueError):
         raise TracefitInputError(f"load must be None, text, a Load or numbers, got {type(x).__name__}") from None
     if a.shape == (3,):
-        return Load.axis(a, sense)
+        return Load.axis(a, sense, frame=frame)
     if a.shape in ((3, 3), (6,)):
-        return Load.stress(a)
+        return Load.stress(a, frame)
     raise TracefitInputError(
         f"load must be an axis (text or 3 numbers) or a stress (3 x 3 or 6 Voigt values, MPa), got shape {a.shape}"
     )
 
 
-def resolved_drive(load: Load | str | ArrayLike, g: Orientation | ArrayLike | None, normals: ArrayLike, directions: ArrayLike) -> np.ndarray:
+def resolved_drive(load: Load | str | ArrayLike, g: Orientation | ArrayLike | None, normals: ArrayLike, directions: ArrayLike,
+                   frame: FrameSettings | None = None) -> np.ndarray:
     """Signed drive of each system under a load: Schmid factor or resolved shear stress.
 
     Axis loads give ``s (l . n)(l . d)`` (Schmid's law with the sense ``s = +-1``:
@@ -394,6 +486,9 @@ def resolved_drive(load: Load | str | ArrayLike, g: Orientation | ArrayLike | No
         Orientation(s); ignored for crystal-direction axes.
     normals, directions : array_like, shape (3,) or (M, 3)
         Plane normals and shear directions in crystal coordinates (normalised here).
+    frame : tracefit.conventions.FrameSettings, optional
+        The data -> image frame, which places an image-frame load in the sample frame
+        (default: image = sample).
 
     Returns
     -------
@@ -421,11 +516,12 @@ def resolved_drive(load: Load | str | ArrayLike, g: Orientation | ArrayLike | No
     if ld.is_stress:
         if g is None:
             raise TracefitInputError("a stress load needs an orientation g to resolve it")
-        return resolved_shear(ld.stress_tensor, g, normals, directions)
-    return ld.sign * schmid_factor(ld.in_crystal(g), normals, directions)
+        return resolved_shear(ld.stress_in_sample(frame), g, normals, directions)
+    return ld.sign * schmid_factor(ld.in_crystal(g, frame), normals, directions)
 
 
-def system_schmid_factors(load: Load, g: Orientation | ArrayLike | None, systems: Sequence[DeformationSystem]) -> np.ndarray:
+def system_schmid_factors(load: Load, g: Orientation | ArrayLike | None, systems: Sequence[DeformationSystem],
+                          frame: FrameSettings | None = None) -> np.ndarray:
     """Reported Schmid factors of systems: ``|m|`` for slip, ``sense * m`` for twins (see module doc).
 
     Parameters
@@ -434,6 +530,8 @@ def system_schmid_factors(load: Load, g: Orientation | ArrayLike | None, systems
         An axis load.
     g : Orientation or array_like, shape (3, 3) or (N, 3, 3)
     systems : sequence of tracefit.crystal.DeformationSystem
+    frame : tracefit.conventions.FrameSettings, optional
+        The data -> image frame, for an image-frame load.
 
     Returns
     -------
@@ -455,7 +553,7 @@ def system_schmid_factors(load: Load, g: Orientation | ArrayLike | None, systems
     ld = as_load(load)
     if ld is None or ld.is_stress:
         raise TracefitInputError("system_schmid_factors needs an axis load; for a stress use resolved_drive")
-    drive = resolved_drive(ld, g, [s.normal for s in systems], [s.dir_unit for s in systems])
+    drive = resolved_drive(ld, g, [s.normal for s in systems], [s.dir_unit for s in systems], frame)
     return reported_drive(drive, [s.mode for s in systems])
 
 

