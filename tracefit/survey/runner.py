@@ -423,7 +423,7 @@ def run_survey(job: Job, out_dir: str | Path, workers: int | None = None, resume
 
     Examples
     --------
-    The bundled demo (three coupons) in one process, tables only:
+    The bundled demo (four coupons) in one process, tables only:
 
     >>> import os, tempfile
     >>> from tracefit.demo import demo_job_path
@@ -432,7 +432,7 @@ def run_survey(job: Job, out_dir: str | Path, workers: int | None = None, resume
     ...     res = run_survey(load_job(demo_job_path()), d, workers=1, progress=False, figures=False, report=False)
     ...     files = sorted(os.listdir(d))
     >>> res.n_ok, res.exit_code, [len(r["families"]) for r in res.records], files
-    (3, 0, [2, 2, 1], ['images', 'results.csv', 'results.json'])
+    (4, 0, [2, 2, 4, 1], ['images', 'results.csv', 'results.json'])
     """
     out_dir = Path(out_dir)
     n_workers = int(workers) if workers else default_workers()
