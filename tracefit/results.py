@@ -19,6 +19,7 @@ if TYPE_CHECKING:  # names for the hints only (results sits below matching, imag
     from tracefit.matching import FamilyIdentification, ObservedFamily
 
 __all__ = [
+    "load_text",
     "GrainStatus", "FamilyDetection", "Identification", "ImageResult", "lattice_summary",
     "CSV_COLUMNS", "jsonable", "family_record", "family_rows", "direction_label", "plane_text",
 ]
@@ -27,7 +28,30 @@ CSV_COLUMNS = [
     "image", "status", "grain", "grain_x_px", "grain_y_px", "grain_euler_deg", "family", "angle_deg", "angle_sigma_deg", "n_bands", "spacing_um",
     "strength", "verdict", "plane", "plane_family", "mode", "predicted_deg", "residual_deg",
     "probability", "schmid_factor", "direction", "second_plane", "second_probability", "p_none", "error",
+    "modes", "load", "resolved_shear_mpa", "crss_mpa", "exceeds_crss",
 ]
+
+
+def load_text(load) -> str:
+    """A load in words, with its frame: ``"y tension (image frame)"``, ``"stress s22 = 100 MPa (image frame)"``.
+
+    Examples
+    --------
+    >>> from tracefit.predict import Load
+    >>> load_text(Load.axis("y")), load_text(Load.stress([0, 100, 0, 0, 0, 0]))
+    ('y tension (image frame)', 'stress s22 = 100 MPa (image frame)')
+    >>> load_text(None)
+    'none given'
+    """
+    if load is None:
+        return "none given"
+    d = load.to_dict() if hasattr(load, "to_dict") else {}
+    frame = d.get("frame", "sample")
+    if d.get("voigt_mpa") is not None:
+        names = ("s11", "s22", "s33", "s23", "s13", "s12")
+        parts = [f"{n} = {v:g}" for n, v in zip(names, d["voigt_mpa"]) if v]
+        return f"stress {', '.join(parts) or '0'} MPa ({frame} frame)"
+    return f"{d.get('axis', '?')} {d.get('sense', 'tension')} ({frame} frame)"
 
 
 def jsonable(x: Any) -> Any:
@@ -73,7 +97,8 @@ def _line_endpoints(line) -> list[float]:
 
 
 def family_record(observed: ObservedFamily, band: BandFamily | None, identification: FamilyIdentification,
-                  index: int, pixel_size_um: float | None = None, grain: GrainStatus | None = None) -> dict:
+                  index: int, pixel_size_um: float | None = None, grain: GrainStatus | None = None,
+                  load=None) -> dict:
     """One family as a plain dict: what was observed, the detector's details, and its identification.
 
     Parameters
@@ -91,6 +116,8 @@ def family_record(observed: ObservedFamily, band: BandFamily | None, identificat
     grain : GrainStatus, optional
         The family's grain: its centroid (``grain_x_px``, ``grain_y_px``) and orientation
         (``grain_euler_deg``) go into the record.
+    load : Load, optional
+        The load the Schmid factors refer to; the record states it with its frame (``load``).
 
     Returns
     -------
@@ -128,6 +155,7 @@ def family_record(observed: ObservedFamily, band: BandFamily | None, identificat
         "strength": getattr(band, "strength", None) if band is not None else observed.strength,
         "lines": [_line_endpoints(ln) for ln in (getattr(band, "lines", None) or [])],
         "source": observed.source,
+        "load": None if load is None else load_text(load),
         "index": index,
         "identification": identification.to_dict(),
     }
@@ -240,6 +268,11 @@ def family_rows(image_name: str, families: list[dict]) -> list[dict]:
             "second_probability": second.get("probability") if second else "",
             "p_none": ident.get("p_none"),
             "error": "",
+            "modes": " / ".join(f"{m['mode']} {m['share']:.2f}" for m in best.get("modes") or []),
+            "load": fam.get("load") or "",
+            "resolved_shear_mpa": bs.get("resolved_shear"),
+            "crss_mpa": bs.get("crss"),
+            "exceeds_crss": "" if bs.get("exceeds_crss") is None else ("yes" if bs["exceeds_crss"] else "no"),
         })
     return rows
 
@@ -430,7 +463,8 @@ class ImageResult:
         out = []
         for i, (o, r) in enumerate(zip(self.observed, self.families)):
             out.append(family_record(o, bands[i] if i < len(bands) else None, r, index=i + 1,
-                                     pixel_size_um=self.settings.get("pixel_size_um"), grain=status.get(o.grain)))
+                                     pixel_size_um=self.settings.get("pixel_size_um"), grain=status.get(o.grain),
+                                     load=self.load))
         return out
 
     def to_dict(self) -> dict:

@@ -39,6 +39,10 @@ __all__ = [
     "TiltAxisOpt",
     "LoadOpt",
     "CompressionOpt",
+    "LoadFrameOpt",
+    "StressOpt",
+    "PriorOpt",
+    "parse_prior",
     "CrssOpt",
     "JsonOpt",
     "build_lattice",
@@ -93,6 +97,21 @@ LoadOpt = Annotated[
     typer.Option("--load", help="Load axis: x, y, z (sample, also -x), a sample vector 1,0,0 or a crystal direction [110] / [11-20]."),
 ]
 CompressionOpt = Annotated[bool, typer.Option("--compression", help="The load is compressive (default tension).")]
+LoadFrameOpt = Annotated[
+    str,
+    typer.Option("--load-frame", help="Frame of --load / --stress: image (the picture's axes, default) or sample "
+                                      "(the orientation data's axes; they differ when the frame is rotated or flipped)."),
+]
+StressOpt = Annotated[
+    Optional[str],
+    typer.Option("--stress", help="Stress tensor in MPa, Voigt order s11,s22,s33,s23,s13,s12 (1 = x, 2 = y, 3 = z); "
+                                  "gives resolved shear per system instead of Schmid factors."),
+]
+PriorOpt = Annotated[
+    Optional[str],
+    typer.Option("--prior", help="Prior weights per system family, e.g. '{110}<111>=2' (each family 1 by default, "
+                                 "spread over its planes; 0 removes one)."),
+]
 CrssOpt = Annotated[
     Optional[str],
     typer.Option("--crss", help="Critical resolved shear stresses per family, e.g. '{111}=10' or 'basal <a>=0.5,{10-12}=2' (gives activation stresses with --load)."),
@@ -267,14 +286,47 @@ def parse_crss(text: str | None, systems=None) -> dict | None:
     return out
 
 
-def build_load(text: str | None, lattice, compression: bool = False):
+def build_load(text: str | None, lattice, compression: bool = False, frame: str = "image", stress: str | None = None):
+    """The load from --load (axis) or --stress (Voigt, MPa), in the frame --load-frame names."""
+    from tracefit.predict import Load, parse_load
+
+    fr = str(frame).strip().lower()
+    if fr not in ("image", "sample"):
+        raise TracefitInputError(f"--load-frame must be image or sample, got {frame!r}")
+    if stress is not None:
+        if text is not None or compression:
+            raise TracefitInputError("give either --load (an axis, with --compression) or --stress (a tensor), not both")
+        try:
+            vals = [float(x) for x in stress.replace(";", ",").split(",") if x.strip()]
+        except ValueError:
+            raise TracefitInputError(f"--stress {stress!r}: expected six numbers s11,s22,s33,s23,s13,s12 in MPa") from None
+        if len(vals) != 6:
+            raise TracefitInputError(f"--stress needs six numbers s11,s22,s33,s23,s13,s12 in MPa, got {len(vals)}")
+        return Load.stress(vals, frame=fr)
     if text is None:
         if compression:
             raise TracefitInputError("--compression needs --load (the load axis)")
         return None
-    from tracefit.predict import parse_load
+    return parse_load(text, lattice, "compression" if compression else "tension", frame=fr)
 
-    return parse_load(text, lattice, "compression" if compression else "tension")
+
+def parse_prior(text: str | None) -> dict | None:
+    """--prior '{110}<111>=2,{112}<111>=1' as a dict family -> weight."""
+    if text is None:
+        return None
+    out = {}
+    for part in _split_families(text):
+        if not part.strip():
+            continue
+        name, sep, val = part.rpartition("=")
+        try:
+            w = float(val)
+        except ValueError:
+            w = None
+        if not sep or not name.strip() or w is None or w < 0:
+            raise TracefitInputError(f"--prior {text!r}: expected FAMILY=WEIGHT pairs such as '{{110}}<111>=2' (weights >= 0)")
+        out[name.strip()] = w
+    return out
 
 
 def lattice_dict(lattice) -> dict:

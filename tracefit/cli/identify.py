@@ -13,6 +13,12 @@ from tracefit.cli.common import (
     AlignOpt,
     AxisAngleOpt,
     CompressionOpt,
+    CrssOpt,
+    LoadFrameOpt,
+    PriorOpt,
+    StressOpt,
+    parse_crss,
+    parse_prior,
     CoverAOpt,
     EulerOpt,
     FamiliesOpt,
@@ -76,7 +82,11 @@ def identify(
     families: FamiliesOpt = None,
     load: LoadOpt = None,
     compression: CompressionOpt = False,
-    orientation_sigma: float = typer.Option(_default("orientation_sigma_deg"), "--orientation-sigma", help="Orientation uncertainty per sample axis, degrees."),
+    load_frame: LoadFrameOpt = "image",
+    stress: StressOpt = None,
+    crss: CrssOpt = None,
+    prior: PriorOpt = None,
+    orientation_sigma: float = typer.Option(_default("orientation_sigma_deg"), "--orientation-sigma", help="Orientation uncertainty per sample axis, degrees; one error shared by a grain's families."),
     frame_sigma: float = typer.Option(_default("frame_sigma_deg"), "--frame-sigma", help="Uncertainty of the frame rotation, degrees."),
     frame_rotation: FrameRotationOpt = 0.0,
     flip_x: FlipXOpt = False,
@@ -122,7 +132,7 @@ def identify(
         lat, file_systems = build_lattice(lattice, c_over_a, hex_setting, systems_file)
         systems = build_systems(lat, file_systems, modes, families)
         frame = build_frame(frame_rotation, flip_x, flip_y, tilt, tilt_axis)
-        ld = build_load(load, lat, compression)
+        ld = build_load(load, lat, compression, load_frame, stress)
         m_notes: list = []
         m_obs = [parse_angle_option(t, notes=m_notes) for t in (angle or [])]
         m_obs += [parse_angle_option(t, label="crack", notes=m_notes, option="--crack") for t in (crack or [])]
@@ -177,6 +187,7 @@ def identify(
                             orientation_sigma_deg=orientation_sigma, frame_sigma_deg=frame_sigma, p_none=p_none,
                             schmid_weight=schmid_weight, allow_shared_planes=allow_shared_planes,
                             crack_k_sigma=crack_k_sigma, min_grain_px=min_grain_px, artefacts=not no_artefacts,
+                            prior=parse_prior(prior), crss=parse_crss(crss, systems),
                             frame_check=not no_frame_check)
         for w in res.warnings:
             hint = " (see tracefit align-frame)" if w.startswith("frame check:") else ""
@@ -206,6 +217,7 @@ def identify(
 
 def _print_text(results, lat, ld) -> None:
     from tracefit.crystal import format_index
+    from tracefit.results import load_text
 
     if not results:
         typer.echo("no band families detected")
@@ -214,6 +226,8 @@ def _print_text(results, lat, ld) -> None:
     nb = len(results) - nc
     what = f"{nb} band famil{'y' if nb == 1 else 'ies'}" + (f", {nc} crack{'' if nc == 1 else 's'}" if nc else "")
     typer.echo(f"{what}; angles in degrees ccw from the image x axis")
+    if ld is not None:
+        typer.echo(f"load: {load_text(ld)} (Schmid factor m and resolved shear tau refer to it)")
     for r in results:
         where = f"grain {r.grain}, " if r.grain is not None else ""
         what = "crack" if getattr(r, "consistent_planes", None) is not None else "family"
@@ -229,11 +243,18 @@ def _print_text(results, lat, ld) -> None:
         typer.echo(head)
         for c in r.candidates:
             bs = ""
-            if c.best_system is not None and c.best_system.schmid_factor is not None:
-                bs = f"  best {format_index(c.best_system.direction, 'direction')} m={c.best_system.schmid_factor:.3f}"
+            b = c.best_system
+            if b is not None and b.schmid_factor is not None:
+                bs = f"  best {format_index(b.direction, 'direction')} m={b.schmid_factor:.3f}"
+            elif b is not None and getattr(b, "resolved_shear", None) is not None:
+                bs = f"  best {format_index(b.direction, 'direction')} tau={b.resolved_shear:.1f} MPa"
+                if getattr(b, "crss", None) is not None:
+                    bs += f" ({'reaches' if b.exceeds_crss else 'below'} CRSS {b.crss:g})"
+            split = getattr(c, "modes", None) or []
+            modes = "" if len(split) < 2 else "  modes " + " / ".join(f"{m.mode} {m.share:.2f}" for m in split)
             typer.echo(
                 f"   p={c.probability:5.3f}  {format_index(c.plane, 'plane'):<12} {c.family:<8} {c.mode:<4} "
-                f"predicted {c.predicted_deg:7.2f} (resid {c.residual_deg:+5.2f}, sigma {c.sigma_deg:4.2f}, incl {c.inclination_deg:4.1f}){bs}"
+                f"predicted {c.predicted_deg:7.2f} (resid {c.residual_deg:+5.2f}, sigma {c.sigma_deg:4.2f}, incl {c.inclination_deg:4.1f}){bs}{modes}"
             )
         if what == "crack":
             k = r.k_sigma

@@ -13,6 +13,8 @@ from tracefit.cli.common import (
     AlignOpt,
     AxisAngleOpt,
     CompressionOpt,
+    LoadFrameOpt,
+    StressOpt,
     CoverAOpt,
     CrssOpt,
     EulerOpt,
@@ -58,6 +60,8 @@ def predict(
     families: FamiliesOpt = None,
     load: LoadOpt = None,
     compression: CompressionOpt = False,
+    load_frame: LoadFrameOpt = "image",
+    stress: StressOpt = None,
     crss: CrssOpt = None,
     frame_rotation: FrameRotationOpt = 0.0,
     flip_x: FlipXOpt = False,
@@ -93,7 +97,7 @@ def predict(
     if not (orientation_sigma >= 0):
         raise TracefitInputError("--orientation-sigma must be >= 0 degrees")
     if grains is not None:
-        _predict_grains(lattice, c_over_a, hex_setting, systems_file, modes, families, load, compression, crss,
+        _predict_grains(lattice, c_over_a, hex_setting, systems_file, modes, families, (load, load_frame, stress), compression, crss,
                         frame_rotation, flip_x, flip_y, tilt, tilt_axis, near_surface, overlay, grains, orientations,
                         out, orientation_sigma, wedge_k_sigma, json_out)
         return
@@ -102,7 +106,7 @@ def predict(
         g, ori = build_orientation(lat, euler, quaternion, matrix, axis_angle, align)
         frame = build_frame(frame_rotation, flip_x, flip_y, tilt, tilt_axis)
         systems = build_systems(lat, file_systems, modes, families)
-        ld = build_load(load, lat, compression)
+        ld = build_load(load, lat, compression, load_frame, stress)
         crss_map = parse_crss(crss, systems)
         if crss_map and ld is None:
             raise TracefitInputError("--crss gives activation stresses only with a load; add --load (e.g. --load z)")
@@ -143,6 +147,7 @@ def _predict_grains(lattice, c_over_a, hex_setting, systems_file, modes, familie
                     frame_rotation, flip_x, flip_y, tilt, tilt_axis, near_surface, overlay, grains, orientations,
                     out, orientation_sigma, k, json_out) -> None:
     """Per-grain prediction for the drawing: each grain's traces through its centroid."""
+    load, load_frame, stress = load
     from tracefit.maps import read_label_image, read_orientation_table
     from tracefit.crystal import to_euler
     from tracefit.predict import predict_traces
@@ -151,7 +156,7 @@ def _predict_grains(lattice, c_over_a, hex_setting, systems_file, modes, familie
         lat, file_systems = build_lattice(lattice, c_over_a, hex_setting, systems_file)
         frame = build_frame(frame_rotation, flip_x, flip_y, tilt, tilt_axis)
         systems = build_systems(lat, file_systems, modes, families)
-        ld = build_load(load, lat, compression)
+        ld = build_load(load, lat, compression, load_frame, stress)
         crss_map = parse_crss(crss, systems)
         table = read_orientation_table(orientations)
         labels = read_label_image(grains)

@@ -9,6 +9,8 @@ from tracefit.cli.common import (
     AlignOpt,
     AxisAngleOpt,
     CompressionOpt,
+    LoadFrameOpt,
+    StressOpt,
     CoverAOpt,
     EulerOpt,
     FamiliesOpt,
@@ -42,6 +44,8 @@ def systems_command(
     families: FamiliesOpt = None,
     load: LoadOpt = None,
     compression: CompressionOpt = False,
+    load_frame: LoadFrameOpt = "image",
+    stress: StressOpt = None,
     euler: EulerOpt = None,
     quaternion: QuaternionOpt = None,
     matrix: MatrixOpt = None,
@@ -58,17 +62,17 @@ def systems_command(
     with cli_warnings():
         lat, file_systems = build_lattice(lattice, c_over_a, hex_setting, systems_file)
         systems = build_systems(lat, file_systems, modes, families)
-        ld = build_load(load, lat, compression)
+        ld = build_load(load, lat, compression, load_frame, stress)
         g, ori = None, None
         if any(v is not None for v in (euler, quaternion, matrix, axis_angle, align)):
             g, ori = build_orientation(lat, euler, quaternion, matrix, axis_angle, align)
-        if ld is not None and ld.frame == "sample" and g is None:
+        if ld is not None and ld.frame != "crystal" and g is None:
             from tracefit.errors import TracefitInputError
 
             raise TracefitInputError(
                 f"the load {ld.label!r} is a sample axis: give the orientation too (--euler p1,P,p2), or a crystal direction such as [001]"
             )
-        m = system_schmid_factors(ld, g, systems) if ld is not None else None
+        m = system_schmid_factors(ld, g, systems, None) if ld is not None else None  # no frame options here: identity
     rows = []
     for i, s in enumerate(systems):
         r = {

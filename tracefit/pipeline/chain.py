@@ -67,11 +67,10 @@ def _as_lattice(lattice):
 
 
 def _as_load(load, lattice):
-    if isinstance(load, str):
-        from tracefit.predict import parse_load
+    """A Load from any accepted form (text and arrays are read in the image frame)."""
+    from tracefit.predict import as_load
 
-        return parse_load(load, lattice)
-    return load
+    return as_load(load, lattice)
 
 
 # --------------------------------------------------------------------------- stage 2: detection
@@ -207,7 +206,7 @@ def identify(observed: Sequence[ObservedFamily | float], lattice: Lattice | str,
              orientation: Orientation | np.ndarray | None = None, orientations: dict | None = None,
              systems: Sequence[DeformationSystem] | None = None, modes: Sequence[str] = DEFAULT_MODES,
              families: Sequence[str] | None = None, frame: FrameSettings | None = None,
-             load: LoadAxis | str | np.ndarray | None = None, **settings: Any) -> Identification:
+             load: LoadAxis | str | np.ndarray | None = None, prior: dict | None = None, crss: dict | None = None, **settings: Any) -> Identification:
     """Identify the plane and system behind each observed family, with probabilities.
 
     Parameters
@@ -229,8 +228,15 @@ def identify(observed: Sequence[ObservedFamily | float], lattice: Lattice | str,
         Only these families, e.g. ``["{111}<1-10>"]``.
     frame : FrameSettings, optional
         How the orientation data's frame sits on the image, and stage tilt.
-    load : LoadAxis, str or stress tensor, optional
-        Uniaxial load axis (``"y"``, ``"[001]"``) or stress (Schmid factors, resolved shear).
+    load : Load, str or stress tensor, optional
+        Uniaxial load axis (``"y"``, ``"[001]"``) or stress (Schmid factors, resolved shear); text
+        and arrays are read in the image frame (``tracefit.Load`` states its frame).
+    prior : dict, optional
+        Prior weight per system family, e.g. ``{"{110}<111>": 2}`` (each family 1 by default,
+        spread over its planes).
+    crss : dict, optional
+        Critical resolved shear stress per family, MPa; with a stress load each system says
+        whether its resolved shear reaches it.
     **settings
         The ``identify`` and ``analysis`` groups of :mod:`tracefit.options`.
 
@@ -258,6 +264,7 @@ def identify(observed: Sequence[ObservedFamily | float], lattice: Lattice | str,
     >>> best.plane, round(best.predicted_deg, 2), round(best.probability, 2)
     ((1, -1, 1), 73.34, 1.0)
     """
+    # Over 80 lines only through its numpydoc docstring; the code is short.
     from tracefit.matching import identify_observed
 
     s, _ = resolve_settings(settings)
@@ -269,6 +276,7 @@ def identify(observed: Sequence[ObservedFamily | float], lattice: Lattice | str,
     ld = _as_load(load, lat)
     match = {k: s[k] for k in ("frame_sigma_deg", "p_none", "schmid_weight", "allow_shared_planes",
                                "report_threshold", "ambiguity_ratio")}
+    match.update(prior=prior, crss=crss)
     if orientation is not None:
         results = identify_observed(list(observed), lat, cands, g=_as_matrix(orientation), frame=frame, load=ld,
                                     orientation_sigma_deg=s["orientation_sigma_deg"], crack_k_sigma=s["crack_k_sigma"],
@@ -334,6 +342,7 @@ def analyse_image(image: str | Path | np.ndarray | None, lattice: Lattice | str,
                   measured: Sequence[ObservedFamily] = (), detect: dict | None = None,
                   path: str | None = None, orientation_map: str | Path | None = None,
                   control_points: str | Path | np.ndarray | None = None, map_settings: dict | None = None,
+                  prior: dict | None = None, crss: dict | None = None,
                   **settings: Any) -> ImageResult:
     """Detect the band families of one micrograph and identify their planes: the whole chain.
 
@@ -372,6 +381,8 @@ def analyse_image(image: str | Path | np.ndarray | None, lattice: Lattice | str,
     map_settings : dict, optional
         ``phase``, ``threshold_deg``, ``min_grain_points``, ``registration`` of
         :func:`tracefit.maps.grain_map_from_orientation_map`.
+    prior, crss : dict, optional
+        As :func:`identify`.
     **settings
         The ``identify`` and ``analysis`` groups of :mod:`tracefit.options`.
 
@@ -434,7 +445,7 @@ def analyse_image(image: str | Path | np.ndarray | None, lattice: Lattice | str,
         observed = (detection.observed if detection is not None else []) + list(measured)
         if table is not None and any(o.grain is None for o in measured):
             raise TracefitInputError("with a grain table every measured trace needs a grain id (the CSV's grain column)")
-        common = dict(systems=cands, modes=modes, families=families, frame=frame, load=ld, **s)
+        common = dict(systems=cands, modes=modes, families=families, frame=frame, load=ld, prior=prior, crss=crss, **s)
         if table is not None:
             ident = identify(observed, lat, orientations=table, **common)
             ori = {k: v.g for k, v in table.items()}
@@ -445,7 +456,7 @@ def analyse_image(image: str | Path | np.ndarray | None, lattice: Lattice | str,
     if lab is not None and table is not None:  # only analysed grains keep their label (figures)
         lab = np.where(np.isin(lab, list(table)), lab, -1)
     settings_used = {**s, "detect": det, "modes": list(modes), "families": None if not families else list(families),
-                     "pixel_size_um": pixel_size_um}
+                     "pixel_size_um": pixel_size_um, "prior": prior, "crss": crss}
     return ImageResult(path=None if path is None else str(path), image=img, labels=lab, lattice=lat, frame=frame,
                        load=ld, systems=cands, orientations=ori, detection=detection, observed=observed,
                        identification=ident, settings=settings_used, notes=list(dict.fromkeys(notes)),

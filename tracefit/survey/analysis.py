@@ -83,6 +83,15 @@ def _predicted_dicts(lattice, g, systems, frame, load) -> list[dict]:
     return out
 
 
+def _job_load(im: ImageJob, lattice):
+    """The image's load as a :class:`tracefit.predict.Load` (axis or stress), in the frame the job names."""
+    from tracefit.predict import Load, parse_load
+
+    if im.load_stress is not None:
+        return Load.stress(list(im.load_stress), frame=im.load_frame)
+    return parse_load(im.load, lattice, im.load_sense, frame=im.load_frame) if im.load else None
+
+
 def chain_inputs(im: ImageJob) -> dict[str, Any]:
     """The arguments of :func:`tracefit.analyse_image` that a job's image stands for.
 
@@ -110,11 +119,10 @@ def chain_inputs(im: ImageJob) -> dict[str, Any]:
     """
     from tracefit.conventions import FrameSettings
     from tracefit.crystal import from_euler, lattice_preset
-    from tracefit.predict import parse_load
 
     lattice = lattice_preset(im.lattice, im.c_over_a)
     kw = dict(lattice=lattice, modes=tuple(im.modes), families=tuple(im.families) if im.families else None,
-              frame=FrameSettings(**im.frame), load=parse_load(im.load, lattice, im.load_sense) if im.load else None,
+              frame=FrameSettings(**im.frame), load=_job_load(im, lattice),
               pixel_size_um=im.pixel_size_um, mask=im.mask, detect=dict(im.detect), path=str(im.file), **dict(im.match))
     if im.euler_deg is not None:
         kw["orientation"] = from_euler(np.asarray(im.euler_deg, float))

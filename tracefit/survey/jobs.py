@@ -36,7 +36,7 @@ from typing import Any
 
 from tracefit.errors import TracefitInputError
 from tracefit.options import DEFAULT_MODES, MODES
-from tracefit.survey.keylines import _Ctx, _file, _number, _str_list, _string, _table, _unknown, key_lines
+from tracefit.survey.keylines import _Ctx, _file, _load_field, _number, _str_list, _string, _table, _unknown, key_lines
 
 __all__ = ["Job", "ImageJob", "load_job", "parse_job", "key_lines", "JOB_FORMAT"]
 
@@ -50,7 +50,8 @@ _SHARED_KEYS = {
     "c_over_a": "a positive number (hcp or tetragonal only)",
     "modes": "a list drawn from " + ", ".join(f'"{m}"' for m in MODES),
     "families": 'a list of family strings such as "{111}<1-10>"',
-    "load": 'the load axis: "x", "0,1,0" or a crystal direction "[001]"; or a table { axis = "[001]", sense = "compression" }',
+    "load": 'the load axis: "x", "0,1,0" or a crystal direction "[001]"; or a table { axis = "y", sense = "compression", '
+            'frame = "image" } or { stress = [s11, s22, s33, s23, s13, s12], frame = "image" } (MPa)',
     "pixel_size_um": "a positive number of micrometres per pixel",
     "frame": "a table of frame settings (rotation_deg, ...)",
     "detect": "a table of band-detection settings (docs/job-file.md lists them)",
@@ -147,6 +148,8 @@ class ImageJob:
     families: tuple[str, ...] | None = None
     load: str | None = None
     load_sense: str = "tension"
+    load_frame: str = "image"
+    load_stress: tuple[float, ...] | None = None
     pixel_size_um: float | None = None
     frame: dict = field(default_factory=dict)
     detect: dict = field(default_factory=dict)
@@ -252,19 +255,7 @@ def _check_shared(ctx: _Ctx, key: tuple, name: str, v: Any, base: Path):
     if name == "families":
         return _str_list(ctx, k, v)
     if name == "load":
-        if isinstance(v, str):
-            return {"axis": _string(ctx, k, v), "sense": "tension"}
-        t = _table(ctx, k, v)
-        for kk in t:
-            if kk not in ("axis", "sense"):
-                raise _unknown(ctx, k + (kk,), {"axis": 1, "sense": 1})
-        if "axis" not in t:
-            raise ctx.fail(k + ("axis",), 'is missing: give the load axis, e.g. axis = "[001]" or "y"')
-        axis = _string(ctx, k + ("axis",), t["axis"])
-        sense = _string(ctx, k + ("sense",), t.get("sense", "tension")).lower()
-        if sense not in ("tension", "compression"):
-            raise ctx.fail(k + ("sense",), f"must be \"tension\" or \"compression\", got {t.get('sense')!r}")
-        return {"axis": axis, "sense": sense}
+        return _load_field(ctx, k, v)
     if name == "pixel_size_um":
         return _number(ctx, k, v, positive=True)
     if name in ("frame", "detect", "match"):
@@ -291,14 +282,14 @@ def _check_with_geometry(ctx: _Ctx, key_of: dict, im: dict) -> None:
     except TracefitInputError as exc:
         which = "c_over_a" if im.get("c_over_a") is not None else "lattice"
         raise ctx.fail(key_of[which], f"is not valid: {exc}") from None
-    if im.get("load") is not None:
+    if im.get("load") is not None and im["load"].get("axis") is not None:
         try:
             from tracefit.predict import parse_load
         except ImportError:
             parse_load = None
         if parse_load is not None:
             try:
-                parse_load(im["load"]["axis"], lattice, im["load"]["sense"])
+                parse_load(im["load"]["axis"], lattice, im["load"]["sense"], frame=im["load"]["frame"])
             except TracefitInputError as exc:
                 raise ctx.fail(key_of["load"], f"is not valid: {exc}") from None
     if im.get("frame"):
@@ -433,6 +424,8 @@ def _parse_image(ctx: _Ctx, i: int, raw: dict, defaults: dict, base: Path, seen:
         families=im.get("families"),
         load=im["load"]["axis"] if im.get("load") else None,
         load_sense=im["load"]["sense"] if im.get("load") else "tension",
+        load_frame=im["load"]["frame"] if im.get("load") else "image",
+        load_stress=im["load"]["stress"] if im.get("load") else None,
         pixel_size_um=im.get("pixel_size_um"),
         frame=dict(im.get("frame", {})),
         detect=dict(im.get("detect", {})),

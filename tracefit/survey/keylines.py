@@ -10,6 +10,7 @@ import difflib
 import math
 import re
 from pathlib import Path
+from typing import Any
 
 from tracefit.errors import TracefitInputError
 
@@ -218,3 +219,32 @@ def _file(ctx, key, v, base: Path) -> Path:
     s = _string(ctx, key, v)
     p = Path(s).expanduser()
     return (p if p.is_absolute() else base / p).resolve()
+
+
+def _load_field(ctx: _Ctx, k: tuple, v: Any) -> dict:
+    """``load = "y"`` or ``{ axis, sense, frame }`` or ``{ stress = [s11, s22, s33, s23, s13, s12], frame }``."""
+    if isinstance(v, str):
+        return {"axis": _string(ctx, k, v), "sense": "tension", "frame": "image", "stress": None}
+    t = _table(ctx, k, v)
+    allowed = {"axis": 1, "sense": 1, "frame": 1, "stress": 1}
+    for kk in t:
+        if kk not in allowed:
+            raise _unknown(ctx, k + (kk,), allowed)
+    frame = _string(ctx, k + ("frame",), t.get("frame", "image")).lower()
+    if frame not in ("image", "sample"):
+        raise ctx.fail(k + ("frame",), f'must be "image" (the picture\'s axes) or "sample" (the orientation data\'s), got {t.get("frame")!r}')
+    if "stress" in t:
+        if "axis" in t or "sense" in t:
+            raise ctx.fail(k + ("stress",), "replaces axis and sense: give a stress or an axis, not both")
+        s = t["stress"]
+        if not isinstance(s, list) or len(s) != 6:
+            raise ctx.fail(k + ("stress",), f"must be six numbers [s11, s22, s33, s23, s13, s12] in MPa, got {s!r}")
+        return {"axis": None, "sense": "tension", "frame": frame,
+                "stress": tuple(_number(ctx, k + ("stress",), x) for x in s)}
+    if "axis" not in t:
+        raise ctx.fail(k + ("axis",), 'is missing: give the load axis, e.g. axis = "[001]" or "y", or stress = [...]')
+    axis = _string(ctx, k + ("axis",), t["axis"])
+    sense = _string(ctx, k + ("sense",), t.get("sense", "tension")).lower()
+    if sense not in ("tension", "compression"):
+        raise ctx.fail(k + ("sense",), f"must be \"tension\" or \"compression\", got {t.get('sense')!r}")
+    return {"axis": axis, "sense": sense, "frame": frame, "stress": None}

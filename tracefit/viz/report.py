@@ -153,6 +153,18 @@ def _img_tag(path: Path, alt: str, cls: str) -> str:
             f'src="data:{mime};base64,{b64}"></a>')
 
 
+def _load_words(s: dict) -> str:
+    """The image's load with the frame it is given in (Schmid factors in this report refer to it)."""
+    frame = s.get("load_frame") or "image"
+    if s.get("load_stress"):
+        names = ("s11", "s22", "s33", "s23", "s13", "s12")
+        parts = ", ".join(f"{n} = {v:g}" for n, v in zip(names, s["load_stress"]) if v) or "0"
+        return f"stress {parts} MPa ({frame} frame)"
+    if s.get("load"):
+        return f"{s['load']} {s.get('load_sense', 'tension')} ({frame} frame)"
+    return "none given"
+
+
 def _settings_rows(s: dict) -> str:
     rows = []
     orient = ("Bunge Euler (deg): " + ", ".join(_num(x, 2) for x in s["euler_deg"])) if s.get("euler_deg") else (
@@ -163,7 +175,7 @@ def _settings_rows(s: dict) -> str:
         ("modes", ", ".join(s.get("modes") or [])),
         ("families", ", ".join(s.get("families") or []) or "all built-in"),
         ("orientation", orient),
-        ("load", f"{s['load']} ({s.get('load_sense', 'tension')})" if s.get("load") else "none given"),
+        ("load", _load_words(s)),
         ("pixel size", f"{s['pixel_size_um']:g} um" if s.get("pixel_size_um") else "not given"),
         ("frame", ", ".join(f"{k} = {v}" for k, v in (s.get("frame") or {}).items()) or "defaults (no rotation, no flips, no tilt)"),
         ("detection options", ", ".join(f"{k} = {v}" for k, v in (s.get("detect") or {}).items()) or "defaults"),
