@@ -445,6 +445,7 @@ class ImageResult:
     settings: dict
     notes: list = field(default_factory=list)
     warnings: list = field(default_factory=list)
+    grain_map: Any = None  # tracefit.maps.GrainMap when the grains came from an orientation map
 
     @property
     def families(self) -> list:

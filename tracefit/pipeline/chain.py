@@ -432,10 +432,11 @@ def analyse_image(image: str | Path | np.ndarray | None, lattice: Lattice | str,
         frame = frame or FrameSettings()
         ld = _as_load(load, lat)
         img, notes, path, lab, table = _inputs(image, path, labels, orientations)
+        grain_map = None
         if orientation_map is not None:
-            lab, table, map_notes = _grains_from_map(orientation_map, img.shape, control_points, map_settings,
+            lab, table, grain_map = _grains_from_map(orientation_map, img.shape, control_points, map_settings,
                                                      s["orientation_sigma_deg"])
-            notes += map_notes
+            notes += list(grain_map.notes)
         detection = None
         if img is not None:
             detection = detect_families(img, labels=lab, orientations=table, mask=_read_mask(mask, img.shape),
@@ -460,7 +461,7 @@ def analyse_image(image: str | Path | np.ndarray | None, lattice: Lattice | str,
     return ImageResult(path=None if path is None else str(path), image=img, labels=lab, lattice=lat, frame=frame,
                        load=ld, systems=cands, orientations=ori, detection=detection, observed=observed,
                        identification=ident, settings=settings_used, notes=list(dict.fromkeys(notes)),
-                       warnings=caught + ident.warnings)
+                       warnings=caught + ident.warnings, grain_map=grain_map)
 
 
 def observe_image(image: str | Path | np.ndarray, labels: str | Path | np.ndarray | None = None,
@@ -551,7 +552,7 @@ def _grains_from_map(orientation_map, shape, control_points, map_settings, orien
     # a grain's own spread is its uncertainty, but never below what the user stated for all
     table = {k: dataclasses.replace(v, sigma_deg=max(float(v.sigma_deg or 0.0), orientation_sigma_deg))
              for k, v in gm.table.items()}
-    return gm.labels, table, list(gm.notes)
+    return gm.labels, table, gm
 
 
 def _read_mask(mask, shape):

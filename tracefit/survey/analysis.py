@@ -66,6 +66,7 @@ class ImageAnalysis:
     labels: np.ndarray | None = None
     notes: list = field(default_factory=list)
     extra: dict = field(default_factory=dict)
+    grain_map: Any = None  # the registered orientation map, for its check figure
 
 
 def _predicted_dicts(lattice, g, systems, frame, load) -> list[dict]:
@@ -220,4 +221,5 @@ def analysis_from_result(res: ImageResult) -> ImageAnalysis:
     warns = list(res.warnings)
     extra = {"frame_check": res.identification.frame_check, "artefacts": res.identification.artefacts}
     return ImageAnalysis(image=res.image, families=families, identifications=idents, grains=grains,
-                         warnings=warns, labels=res.labels, notes=list(res.notes), extra=jsonable(extra))
+                         warnings=warns, labels=res.labels, notes=list(res.notes), extra=jsonable(extra),
+                         grain_map=res.grain_map)

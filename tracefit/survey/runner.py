@@ -79,6 +79,11 @@ def _draw_figures(im: ImageJob, a: ImageAnalysis, img_dir: Path) -> dict:
     weights = [f.get("n_bands") or 1 for f in a.families]
     fig = plots.rose_diagram(angles, weights=weights, labels=[f"F{i + 1}" for i in range(len(angles))])
     figs["rose"] = plots.save_figure(fig, img_dir / f"{im.name}.rose.png", dpi=90).name
+    if getattr(a, "grain_map", None) is not None:  # grains from an orientation map: show the registration
+        from tracefit.viz import registration_figure
+
+        fig = registration_figure(a.image, a.grain_map)
+        figs["grain_map"] = plots.save_figure(fig, img_dir / f"{im.name}.grain-map.png", dpi=90).name
     figs["stereograms"] = []
     for k, gr in enumerate(a.grains, start=1):
         matched, observed, mcolors = [], [], []

@@ -266,6 +266,11 @@ def _figures(rec: dict, img_dir: Path) -> str:
         out.append('<figure class="overlay">' + _img_tag(img_dir / figs["overlay"], f"{name}: overlay", "overlay")
                    + f"<figcaption>Detected band families drawn on the micrograph, each labelled with its identified "
                    f"plane (F1 ... F{len(fams)}; G = grain).</figcaption></figure>")
+    if figs.get("grain_map"):
+        out.append('<figure class="overlay">' + _img_tag(img_dir / figs["grain_map"], f"{name}: grain map", "overlay")
+                   + "<figcaption>The orientation map's grains warped onto the micrograph (amber boundaries, grain "
+                   "ids), with the control points (red crosses, residual in px) and where the fitted transform puts "
+                   "them (green circles): check the registration here before trusting any plane.</figcaption></figure>")
     grs = rec.get("grains") or []
     with_families = {f.get("grain") for f in fams}
     for k, sname in enumerate(figs.get("stereograms") or []):
