@@ -130,3 +130,13 @@ def test_the_report_is_small_enough_to_send(demo_run):
     assert html.count('<figure class="stereo">') == grains_with_families
     for name in re.findall(r'href="images/([^"]+)"', html):
         assert (folder / "images" / name).is_file()
+
+
+def test_the_map_coupon_shows_its_registration(demo_run):
+    # Issue 12 item 5: the report shows the warped grain map of an orientation-map image.
+    code, out, err, folder = demo_run
+    records = {r["name"]: r for r in json.loads((folder / "results.json").read_text())["images"]}
+    d = records["coupon-D"]
+    assert d["figures"]["grain_map"] == "coupon-D.grain-map.png" and (folder / "images" / "coupon-D.grain-map.png").is_file()
+    assert all(f["grain_x_px"] is not None and f["grain_euler_deg"] for f in d["families"])
+    assert "grain map" in (folder / "report.html").read_text(encoding="utf-8")
