@@ -52,7 +52,8 @@ def test_angles_only_cube_orientation_worked_vectors(run_cli):
     assert f135["ambiguous"] and f45["ambiguous"]
     assert f45["angle_sigma_deg"] == 0.3
     assert all(f["source"] == "measured" for f in d["families"])
-    assert d["measured"]["convention"] == "pixel rows down; angle ccw from +x, axial"
+    # angles typed on the command line involve no pixel rows (issue 16 item 8): say y up
+    assert "y up" in d["measured"]["convention"] and "pixel rows" not in d["measured"]["convention"]
 
 
 def test_measured_csv_end_to_end_general_orientation(run_cli, tmp_path):
@@ -190,3 +191,23 @@ def test_table_needs_grain_ids_for_angles(run_cli, tmp_path):
     (tmp_path / "grains.csv").write_text("grain,phi1,Phi,phi2\n1,0,0,0\n")
     code, out, err = run_cli("identify", "--lattice", "fcc", "--orientations", str(tmp_path / "grains.csv"), "--angle", "30")
     assert code == 2 and "grain id" in err
+
+
+def test_an_unexplained_family_shows_the_nearest_planes(run_cli):
+    # Issue 16 item 7: a typo in the Euler angles must be told from a scratch: the nearest
+    # predicted traces are listed with their distance in sigmas. At Bunge (35, 20, 60) the fcc
+    # (111) trace is at 56.24 deg (Rotation.from_euler("ZXZ") of the normal, conventions doc).
+    from scipy.spatial.transform import Rotation
+
+    n = Rotation.from_euler("ZXZ", [35, 20, 60], degrees=True).apply(np.array([1.0, 1.0, 1.0]) / np.sqrt(3))
+    t111 = (np.degrees(np.arctan2(n[1], n[0])) + 90) % 180
+    code, out, err = run_cli("identify", "--lattice", "fcc", "--euler", "35,20,60", "--angle", "71", "--json")
+    assert code == 0
+    fam = json.loads(out)["families"][0]
+    assert fam["unexplained"] and fam["candidates"] == []
+    near = fam["nearest"][0]
+    assert near["plane"] == [1, 1, 1] and abs(near["predicted_deg"] - t111) < 0.01
+    assert near["n_sigma"] == pytest.approx(abs(71 - t111) / (abs(71 - t111) / near["n_sigma"]), rel=1e-6) and near["n_sigma"] > 3
+    code, out, err = run_cli("identify", "--lattice", "fcc", "--euler", "35,20,60", "--angle", "71")
+    assert "nearest predicted traces: (111) at 56.24 deg" in out
+    assert "pixel rows" not in out

@@ -157,3 +157,14 @@ def test_miller_bravais_direction_hand_values():
     assert MillerIndex((2, -1, -1, 0), "direction").three() == (3, 0, 0)
     assert MillerIndex((-1, -1, 2, 3), "direction").three() == (-3, -3, 3)
     np.testing.assert_allclose(HCP.direction_vector((2, -1, -1, 0)), [1, 0, 0], atol=1e-12)
+
+
+def test_huge_indices_are_an_input_error_not_an_overflow():
+    # Issue 16 item 1: a fuzzed family string overflowed the integer arithmetic (OverflowError).
+    from tracefit.crystal import Lattice, catalogue
+
+    with pytest.raises(TracefitInputError, match="no slip/twin system family matches"):
+        catalogue(Lattice.fcc(), families=["(-1825482714681933,-628504979075438560298,93151219425112021)"])
+    with pytest.raises(TracefitInputError, match="indices above 999"):
+        parse_index("(1000 0 1)")
+    assert parse_index("(999 0 1)").values == (999, 0, 1)

@@ -48,6 +48,10 @@ from tracefit.errors import TracefitInputError
 from tracefit.options import option
 
 
+# --angle / --crack values are typed as angles, so no pixel rows are involved (the CSV may hold endpoints)
+TYPED_ANGLES = "degrees counterclockwise from the image's x axis, y up the screen; axial (0-180)"
+
+
 def _default(name):
     return option(name).default
 
@@ -193,7 +197,8 @@ def identify(
             hint = " (see tracefit align-frame)" if w.startswith("frame check:") else ""
             print(f"tracefit: warning: {w}{hint}", file=sys.stderr)
         if m_obs:
-            extra["measured"] = {"convention": MEASURED_CONVENTION, "n_families": len(m_obs),
+            extra["measured"] = {"convention": MEASURED_CONVENTION if measured is not None else TYPED_ANGLES,
+                                 "n_families": len(m_obs),
                                  "n_cracks": sum(is_crack(o) for o in m_obs),
                                  "file": str(measured) if measured is not None else None}
         if any(is_crack(o) for o in m_obs):
@@ -210,7 +215,7 @@ def identify(
         return
     _print_text(res.families, lat, ld)
     if "measured" in extra:
-        typer.echo(f"measured traces read as: {MEASURED_CONVENTION}")
+        typer.echo(f"measured traces read as: {extra['measured']['convention']}")
     if "caution" in extra:
         typer.echo(extra["caution"])
 
@@ -267,6 +272,10 @@ def _print_text(results, lat, ld) -> None:
             typer.echo(f"   crack consistent within {k:g} sigma with: {cons}")
             inc = ", ".join(format_index(q.plane, "plane") for q in r.inconsistent_planes) or "none"
             typer.echo(f"   not consistent with: {inc}")
+        if r.unexplained and getattr(r, "nearest", None):
+            near = ", ".join(f"{format_index(n['plane'], 'plane')} at {n['predicted_deg']:.2f} deg ({n['n_sigma']:.1f} sigma)"
+                             for n in r.nearest)
+            typer.echo(f"   nearest predicted traces: {near}")
         for h in r.separation:
             typer.echo(f"   - {h}")
         for n in r.notes:

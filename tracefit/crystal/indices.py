@@ -220,6 +220,9 @@ def parse_index(text: str, lattice: Lattice | None = None, expect: str | None = 
     return MillerIndex(values, kind, family)
 
 
+MAX_INDEX = 999  # the largest index magnitude accepted (common practice, no source: real systems stay below 10)
+
+
 def check_values(values: Sequence[int], kind: str, lattice: Lattice | None = None, text: str | None = None, hex_three_index: bool = False) -> None:
     """Validate integer indices of a plane or direction (count, all-zero, four-index sum rule).
 
@@ -266,6 +269,10 @@ def check_values(values: Sequence[int], kind: str, lattice: Lattice | None = Non
         )
     if all(v == 0 for v in values):
         raise TracefitInputError(f"{shown} is all zero, which is no {kind}; at least one index must be non-zero")
+    if any(abs(v) > MAX_INDEX for v in values):
+        # real deformation planes and directions have small indices; huge ones only overflow the arithmetic
+        raise TracefitInputError(f"{shown[:60]}{'...' if len(shown) > 60 else ''}: indices above {MAX_INDEX} in size are "
+                                 f"not {kind} indices of a slip or twin system")
     if n == 4:
         a, b, c = values[0], values[1], values[2]
         s = a + b + c

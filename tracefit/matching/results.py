@@ -251,6 +251,12 @@ class FamilyIdentification:
         Why the family is unexplained.
     artefact_angle_deg : float or None
         Angle of the surface-artefact direction the family sits on.
+    nearest : list of dict
+        The three planes whose predicted traces lie nearest the observed angle, whatever their
+        probability: ``plane``, ``family``, ``mode``, ``predicted_deg``, ``residual_deg``,
+        ``n_sigma`` (the residual in units of its total sigma).
+    margin : float or None
+        The best plane's probability over the runner-up plane's (None with fewer than two).
     boundary_continuation : float or None
         Carried from the observed family.
 
@@ -278,6 +284,10 @@ class FamilyIdentification:
     unexplained_reason: str | None = field(default=None, init=False)
     artefact_angle_deg: float | None = field(default=None, init=False)
     boundary_continuation: float | None = field(default=None, init=False)
+    # the nearest predicted traces whatever their probability (a typo in the orientation and a
+    # scratch look alike until one sees how far the nearest plane is), and the best plane's margin
+    nearest: list = field(default_factory=list, init=False)
+    margin: float | None = field(default=None, init=False)
 
     @property
     def best(self) -> Candidate | None:
@@ -316,6 +326,8 @@ class FamilyIdentification:
             "unexplained_reason": (self.unexplained_reason or "no candidate fits") if self.unexplained else None,
             "artefact_angle_deg": _r(self.artefact_angle_deg, 3),
             "boundary_continuation": _r(self.boundary_continuation, 3),
+            "nearest": [dict(n) for n in self.nearest],
+            "margin": _r(self.margin, 4),
         }
 
 

@@ -185,7 +185,37 @@ def family_verdict(o: ObservedFamily, f: int, gp: GrainPosterior, g: np.ndarray,
             "typical of a surface scratch (a slip or twin band stops at the boundary or turns); not used in the probabilities"
         )
     r.artefact_angle_deg = None if art_angle is None or pa < threshold else float(art_angle)
+    r.nearest = _nearest(gp, f)
+    r.margin = _margin(gp, f)
     return r
+
+
+def _nearest(gp: GrainPosterior, f: int, n: int = 3) -> list[dict]:
+    """The ``n`` planes whose predicted traces are nearest the family, in sigmas, whatever their probability."""
+    P = len(gp.cands)
+    z = np.abs(gp.resid[f, :P]) / np.maximum(gp.sig[f, :P], 1e-9)
+    ids = np.asarray(gp.cands.plane_ids, int)
+    out, seen = [], set()
+    for c in np.argsort(z, kind="stable"):
+        if ids[c] in seen:
+            continue
+        seen.add(ids[c])
+        out.append({"plane": [int(x) for x in gp.cands.planes[c]], "family": gp.cands.families[c],
+                    "mode": gp.cands.modes[c], "predicted_deg": round(float(gp.ang[c]), 3),
+                    "residual_deg": round(float(gp.resid[f, c]), 3), "n_sigma": round(float(z[c]), 2)})
+        if len(out) == n:
+            break
+    return out
+
+
+def _margin(gp: GrainPosterior, f: int) -> float | None:
+    """Best plane's probability over the runner-up plane's."""
+    P = len(gp.cands)
+    ids = np.asarray(gp.cands.plane_ids, int)
+    p_plane = np.sort(np.bincount(ids, weights=gp.post[f, :P], minlength=int(ids.max()) + 1))[::-1]
+    if len(p_plane) < 2 or p_plane[0] <= 0:
+        return None
+    return float(p_plane[0] / max(p_plane[1], p_plane[0] * 1e-12))  # capped at 1e12: beyond that it means "certain"
 
 
 def flag_all_unexplained(results: list[FamilyIdentification], grain: Any) -> None:
