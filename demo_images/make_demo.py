@@ -196,7 +196,7 @@ def _job_toml(coupons) -> str:
         "# Regenerate the images with: python demo_images/make_demo.py",
         "format = 1",
         'title = "Harrow Lane Instruments: bracket coupon study (fictional demo)"',
-        'notes = "Three polished coupons from a prototype bracket (an invented scenario). Synthetic micrographs '
+        'notes = "Four polished coupons from a prototype bracket (an invented scenario). Synthetic micrographs '
         'drawn by tracefit.image.synthetic from the predicted traces of known planes."',
         "",
         "[defaults]",
