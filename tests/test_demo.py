@@ -97,11 +97,14 @@ def test_demo_report_in_the_browser(demo_run, tmp_path):
         assert b.errors(session) == []
     finally:
         b.close()
-    # 3 images: overlay + rose each, one stereogram per grain (1 + 2 + 1)
-    assert len(state["images"]) == 10
+    # per image: overlay + rose, one stereogram per grain with families, and coupon D's grain map
+    records = json.loads((folder / "results.json").read_text())["images"]
+    expected = sum(2 + len({f.get("grain") for f in r["families"]}) + bool(r["figures"].get("grain_map")) for r in records)
+    assert expected == 17 and len(state["images"]) == expected
     assert all(i["complete"] and i["w"] > 0 for i in state["images"])
     assert [(t["image"], t["family"]) for t in state["candidates"]] == [
-        ("coupon-A", "F1"), ("coupon-A", "F2"), ("coupon-B", "F1"), ("coupon-B", "F2"), ("coupon-C", "F1")]
+        ("coupon-A", "F1"), ("coupon-A", "F2"), ("coupon-B", "F1"), ("coupon-B", "F2"),
+        ("coupon-D", "F1"), ("coupon-D", "F2"), ("coupon-D", "F3"), ("coupon-D", "F4"), ("coupon-C", "F1")]
     assert all(t["rows"] >= 1 for t in state["candidates"])
 
 
