@@ -274,8 +274,9 @@ def _compare_verdicts(old: list, new: list) -> str:
     other_plane = sum((a[1] is None) != (b[1] is None) or (a[1] is not None and a[1][:2] != b[1][:2])
                       for a, b in zip(old, new))
     dp = [abs(a[1][2] - b[1][2]) for a, b in zip(old, new) if a[1] is not None and b[1] is not None]
-    return (f"most probable plane {'identical' if other_plane == 0 else 'DIFFERS'} for "
-            f"{len(new) - other_plane}/{len(new)} families; max probability difference {max(dp, default=0.0):.2e}")
+    return (f"most probable plane and mode: the same for {len(new) - other_plane}/{len(new)} families, different for "
+            f"{other_plane}; max probability difference {max(dp, default=0.0):.2e} (a model change between the trees, "
+            f"such as the per-family prior or the shared orientation error, moves these)")
 
 
 def _fmt_ratio_spread(ratios: list[float]) -> str:
