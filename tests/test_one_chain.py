@@ -111,3 +111,18 @@ def test_one_set_of_defaults():
     assert job.images[0].match == {} and defaults("identify")["orientation_sigma_deg"] == 1.0
     res = tf.analyse_image(np.zeros((64, 64)) + np.arange(64)[None, :], "fcc", orientation=np.eye(3))
     assert res.settings["modes"] == ["slip", "twin"] and res.settings["min_grain_px"] == 300
+
+
+def test_the_matchers_own_defaults_are_the_declared_ones():
+    # One set of defaults: the matcher's keyword defaults equal the settings declared in tracefit.options.
+    import inspect
+
+    from tracefit.matching import identify_families, identify_grains
+    from tracefit.options import defaults
+
+    declared = {**defaults("identify")}
+    for func in (identify_families, identify_grains):
+        params = inspect.signature(func).parameters
+        for name, value in declared.items():
+            if name in params:
+                assert params[name].default == value, (func.__name__, name)

@@ -1,51 +1,23 @@
-"""Many images: job files, the parallel runner with resume, and the results tables.
-"""
+"""Many images: job files, the parallel runner with resume, and the results tables."""
 
-
-from tracefit.survey.jobs import (
-    Job,
-    ImageJob,
-    load_job,
-    parse_job,
-    key_lines,
-    JOB_FORMAT,
-)
+from tracefit.survey import jobs, runner
+from tracefit.survey.jobs import JOB_FORMAT, ImageJob, Job, key_lines, load_job, parse_job
 from tracefit.survey.runner import (
-    SurveyResult,
-    ImageAnalysis,
-    run_survey,
-    analyse_image,
-    process_image,
-    image_fingerprint,
-    csv_rows,
-    write_results_csv,
-    software_versions,
-    available_cores,
     CSV_COLUMNS,
+    EXIT_BAD_JOB,
     EXIT_OK,
     EXIT_SOME_FAILED,
-    EXIT_BAD_JOB,
+    ImageAnalysis,
+    SurveyResult,
+    analyse_image,
+    available_cores,
+    csv_rows,
+    image_fingerprint,
+    process_image,
+    run_survey,
+    software_versions,
+    write_results_csv,
 )
 
-__all__ = [
-    "Job",
-    "ImageJob",
-    "load_job",
-    "parse_job",
-    "key_lines",
-    "JOB_FORMAT",
-    "SurveyResult",
-    "ImageAnalysis",
-    "run_survey",
-    "analyse_image",
-    "process_image",
-    "image_fingerprint",
-    "csv_rows",
-    "write_results_csv",
-    "software_versions",
-    "available_cores",
-    "CSV_COLUMNS",
-    "EXIT_OK",
-    "EXIT_SOME_FAILED",
-    "EXIT_BAD_JOB",
-]
+# each module lists its public names once; the package offers them all
+__all__ = list(dict.fromkeys(jobs.__all__ + runner.__all__))
