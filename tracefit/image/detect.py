@@ -75,6 +75,23 @@ NFA_STEP_PX = 2.0  # sample spacing of the significance test, working (or origin
 SEARCH_ROUNDS = 2  # searches for further families after taking out the bands found
 MAX_RESEARCH_PX = 600_000  # ... in regions of at most this many working pixels
 SAME_FAMILY_DEG = 2.0  # families closer than this are one
+RELAXED_SIGNIFICANCE = 40.0  # least significance of a family of 2 bands or irregular spacing
+DEPTH_NOISE_K = 4.0  # an adaptive depth threshold stands this many pixel-noise sigmas deep ...
+RELAXED_MAX_SPACING = 0.3  # ... and bands closer than this share of the region's diagonal
+MIN_DEPTH_SHARE = 0.3  # ... and at least this share of ``min_depth``
+
+
+def _effective_min_depth(img, m, pixel_noise: float, min_depth: float) -> float:
+    """The depth threshold of one region: ``min_depth``, lowered where the region's noise is low.
+
+    A band of an optical micrograph with little noise can be 1 % deep and plain to see;
+    the relative noise (pixel noise over the median grey level of the region) sets how
+    deep a band must be, between ``MIN_DEPTH_SHARE * min_depth`` and ``min_depth``.
+    """
+    level = float(np.median(img[m] if m is not None and m.any() else img[:: max(1, img.shape[0] // 256), :: max(1, img.shape[1] // 256)]))
+    if level <= 0:
+        return min_depth
+    return float(np.clip(DEPTH_NOISE_K * pixel_noise / level, MIN_DEPTH_SHARE * min_depth, min_depth))
 
 
 # --------------------------------------------------------------------------- stages
@@ -134,7 +151,7 @@ def _significance(fam: BandFamily, rp_all: RidgePixels, wc: _WorkingCopy, min_ba
 def _fit_candidates(ctx: _FamilyContext, cands, max_families, accept, known=()) -> tuple[list[BandFamily], int]:
     """Stage 6: build a family from each candidate, at most ``3 * max_families`` attempts.
 
-    ``accept(fam)`` is the significance test; candidates within ``SAME_FAMILY_DEG`` of a
+    ``accept(fam, strict)`` is the significance test; candidates within ``SAME_FAMILY_DEG`` of a
     family already kept (here or in ``known``) are skipped. Returns the families and the
     number of candidates tried.
     """
@@ -147,9 +164,9 @@ def _fit_candidates(ctx: _FamilyContext, cands, max_families, accept, known=()) 
         if any(abs(axial_difference(a_c, fm.angle_deg)) < SAME_FAMILY_DEG for fm in [*fams, *known]):
             continue  # a split cluster of a family already fitted, or its gaps
         attempts += 1
-        fam = _build_family(ctx, rp, ln)
-        if fam is not None and accept(fam):
-            fams.append(fam)
+        built = _build_family(ctx, rp, ln)
+        if built is not None and accept(*built):
+            fams.append(built[0])
     return fams, attempts
 
 
@@ -232,22 +249,31 @@ def _detect_at_scale(img, m, bars, st: _Settings, up: int = 1) -> _Outcome:
     if wc.region.sum() < MIN_REGION_PX:
         return _Outcome([], "too_small", f"analysed region too small for band detection ({int(wc.region.sum())} "
                         f"working pixels after the filter margin, fewer than {MIN_REGION_PX})", notes)
-    ridges, depth_of = _band_pixels(wc, st.scales, st.min_depth)  # stage 3
+    pixel_noise = _pixel_noise(img, m, bars)
+    min_depth = _effective_min_depth(img, m, pixel_noise, st.min_depth)
+    ridges, depth_of = _band_pixels(wc, st.scales, min_depth)  # stage 3
     v_min = max(20.0, 0.06 * min(wc.region.shape))
     if sum(len(rp) for rp in ridges) < v_min:
         return _Outcome([], "low_contrast", "too little contrast: no band-like ridges stand above the noise "
-                        f"(and {100 * st.min_depth:.1f} % from the local grey level)", notes)
+                        f"(and {100 * min_depth:.1f} % from the local grey level)", notes)
     ctx = _FamilyContext(
         image=img, valid=None if wc.mask is None else wc.mask.astype(np.uint8), factor=wc.factor,
-        pixel_noise=_pixel_noise(img, m, bars), depth_of=depth_of, diag_w=math.hypot(*wc.image.shape),
-        pixel_size_um=st.pixel_size_um, min_bands=st.min_bands, min_depth=st.min_depth,
+        pixel_noise=pixel_noise, depth_of=depth_of, diag_w=math.hypot(*wc.image.shape),
+        pixel_size_um=st.pixel_size_um, min_bands=st.min_bands, min_depth=min_depth, relaxed=True,
     )
     by_pol = {rp.polarity: rp for rp in ridges}
     step = max(NFA_STEP_PX, NFA_STEP_PX * up / wc.factor)
     n_rejected = [0]
 
-    def accept(fam):
-        ok = -_significance(fam, by_pol[-1 if fam.polarity == "dark" else 1], wc, st.min_bands, step) >= st.min_significance
+    rr, cc = np.nonzero(wc.region.any(axis=1))[0], np.nonzero(wc.region.any(axis=0))[0]
+    region_diag = math.hypot(rr[-1] - rr[0] + 1, cc[-1] - cc[0] + 1) * wc.factor
+
+    def accept(fam, strict):
+        if not strict and not fam.spacing_px <= RELAXED_MAX_SPACING * region_diag:
+            # two far-apart straight lines are edges of a tile or a square, not a band family
+            return False
+        need = st.min_significance if strict else max(st.min_significance, RELAXED_SIGNIFICANCE)
+        ok = -_significance(fam, by_pol[-1 if fam.polarity == "dark" else 1], wc, min(st.min_bands, fam.n_bands), step) >= need
         n_rejected[0] += not ok
         return ok
 
@@ -258,8 +284,8 @@ def _detect_at_scale(img, m, bars, st: _Settings, up: int = 1) -> _Outcome:
     for _ in range(SEARCH_ROUNDS):
         # stages 4-6; after the first round the bands already found are taken out, so a
         # weaker family crossing or beside them gets its own candidates
-        cands = _candidate_families(search, wc.region, st.min_bands, st.min_coverage)
-        fams, n = _fit_candidates(ctx, _screen_candidates(cands, depth_of, wc, st.min_depth), st.max_families,
+        cands = _candidate_families(search, wc.region, min(st.min_bands, 2), st.min_coverage)
+        fams, n = _fit_candidates(ctx, _screen_candidates(cands, depth_of, wc, min_depth), st.max_families,
                                   accept, known=found)
         tried += n
         new = _distinct_families(fams)  # stage 7
