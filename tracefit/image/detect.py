@@ -312,7 +312,7 @@ def _detect_at_scale(img, m, bars, st: _Settings, up: int = 1) -> _Outcome:
         return _Outcome(found, "found", _summary_note(found), notes)
     if tried == 0:
         return _Outcome([], "not_significant", "no band families: no set of parallel lines reached "
-                        f"{st.min_bands} lines with {100 * st.min_coverage:.0f} % coverage", notes)
+                        f"{min(st.min_bands, 2)} lines with {100 * st.min_coverage:.0f} % coverage", notes)
     why = f"{n_rejected[0]} below the significance threshold" if n_rejected[0] else "none held up as a family"
     return _Outcome([], "not_significant", f"no band families: {tried} candidate direction"
                     f"{'s' if tried != 1 else ''} tested, {why}", notes)
