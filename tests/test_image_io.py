@@ -175,3 +175,14 @@ def test_infinite_values_in_a_float_map_are_refused(tmp_path):
     np.save(tmp_path / "bad.npy", field)
     with pytest.raises(TracefitInputError, match="infinite"):
         read_image(tmp_path / "bad.npy")
+
+
+def test_overlay_of_a_float_map_with_nan_shows_holes_black(tmp_path):
+    from tracefit.image import detect_bands, draw_detection
+
+    field, _ = _strain_map_with_holes()
+    gray, _ = read_image(_write_float_map(tmp_path, field, "npy"))
+    rgb = draw_detection(gray, detect_bands(gray), legend=False)
+    assert rgb.dtype == np.uint8 and rgb.shape == field.shape + (3,)
+    assert (rgb[44, 40] == 0).all()  # inside the hole [40:52, 30:60]
+    assert rgb[~np.isnan(field)].max() > 100  # the rest keeps its stretch
