@@ -101,3 +101,88 @@ def test_mask_must_match_size(tmp_path, gray8):
     assert m.dtype == bool and np.array_equal(m, gray8 > 128)
     with pytest.raises(TracefitInputError, match="same size"):
         read_mask(tmp_path / "m.png", (41, 50))
+
+
+# --- float maps: .npy and floating-point TIFF, NaN kept (issue 13) -------------------------
+
+
+def _strain_map_with_holes():
+    """A 200 x 300 strain-like float field (numpy only, see tests/test_detect_strainmaps.py).
+
+    Six grains of 100 x 100 px, each with bright thin bands of its own angle, and two
+    NaN holes; returns (field, {(row0, col0): angle_deg}).
+    """
+    from tests.test_detect_strainmaps import band_field
+
+    field = np.zeros((200, 300), np.float32)
+    truth = {}
+    angles = iter([15.0, 60.0, 105.0, 150.0, 40.0, 125.0])
+    for r0 in (0, 100):
+        for c0 in (0, 100, 200):
+            ang = next(angles)
+            truth[(r0, c0)] = ang
+            field[r0 : r0 + 100, c0 : c0 + 100] = band_field((100, 100), [(ang, 9.0)], seed=int(r0 + c0))
+    field[40:52, 30:60] = np.nan  # failed correlation
+    field[130:140, 150:290] = np.nan
+    return field, truth
+
+
+def _write_float_map(tmp_path, field, kind):
+    import tifffile
+
+    path = tmp_path / f"strain.{kind}"
+    if kind == "npy":
+        np.save(path, field.astype(np.float64))
+    else:
+        tifffile.imwrite(path, field.astype(np.float32))
+    return path
+
+
+@pytest.mark.parametrize("kind", ["npy", "tif"])
+def test_float_map_keeps_values_and_nan(tmp_path, kind):
+    field, _ = _strain_map_with_holes()
+    gray, notes = read_image(_write_float_map(tmp_path, field, kind))
+    assert gray.dtype == np.float32 and gray.shape == field.shape
+    # no rescaling: the strain values come back as written (float32 precision)
+    ok = ~np.isnan(field)
+    assert np.allclose(gray[ok], field[ok], rtol=1e-6, atol=0)
+    assert np.array_equal(np.isnan(gray), ~ok)
+    assert any("NaN" in n for n in notes)
+
+
+@pytest.mark.parametrize("kind", ["npy", "tif"])
+def test_float_map_read_from_file_gives_each_small_grains_family(tmp_path, kind):
+    """Bands of the drawn angle (image frame, tracefit.conventions) in grains of 100 x 100 px."""
+    from tracefit.conventions import axial_difference
+    from tracefit.image import detect_bands
+
+    field, truth = _strain_map_with_holes()
+    gray, notes = read_image(_write_float_map(tmp_path, field, kind))
+    found = 0
+    for (r0, c0), ang in truth.items():
+        m = np.zeros(gray.shape, bool)
+        m[r0 : r0 + 100, c0 : c0 + 100] = True
+        res = detect_bands(gray, mask=m, notes=notes)
+        assert all(np.isfinite([f.angle_deg for f in res.families]))
+        found += any(abs(axial_difference(f.angle_deg, ang)) <= 1.0 for f in res.families)
+        assert all(f.polarity == "bright" for f in res.families)
+    assert found >= 5
+
+
+def test_infinite_values_in_a_float_map_are_refused(tmp_path):
+    field = np.ones((32, 32))
+    field[3, 3] = np.inf
+    np.save(tmp_path / "bad.npy", field)
+    with pytest.raises(TracefitInputError, match="infinite"):
+        read_image(tmp_path / "bad.npy")
+
+
+def test_overlay_of_a_float_map_with_nan_shows_holes_black(tmp_path):
+    from tracefit.image import detect_bands, draw_detection
+
+    field, _ = _strain_map_with_holes()
+    gray, _ = read_image(_write_float_map(tmp_path, field, "npy"))
+    rgb = draw_detection(gray, detect_bands(gray), legend=False)
+    assert rgb.dtype == np.uint8 and rgb.shape == field.shape + (3,)
+    assert (rgb[44, 40] == 0).all()  # inside the hole [40:52, 30:60]
+    assert rgb[~np.isnan(field)].max() > 100  # the rest keeps its stretch

@@ -188,6 +188,9 @@ def _fit_band(img, valid, p, d, half_width, polarity, pixel_noise, max_samples=1
         return None
     nt = len(s.t)
     upk, snr, good, step = _row_centres(s, polarity, pixel_noise)
+    # shares of the rows inside the analysed region, not of the whole line across the
+    # image: a band in a small grain of a large image is short
+    nt = int(s.inside.sum())
     if good.sum() < max(12, 0.08 * nt):
         return None
     tg, ug = s.t[good].astype(np.float64), upk[good].astype(np.float64)

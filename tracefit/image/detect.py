@@ -24,6 +24,14 @@ label image. The pipeline, one concern per stage and module:
    angle and spacing tests.
 7. **Selection**: dark and bright "families" at one angle (bands and the gaps between
    them) resolved in favour of the one further from the median grey; strongest first.
+8. **Coarser looks**: when fewer than two families are found on a large image, copies
+   reduced 2x and 4x (area average) are searched too, so that bands wider than the
+   ridge filters (an enlarged picture, wide lamellae) are found as on a smaller file.
+
+Real micrographs: the depth threshold follows the region's own noise (between 0.3 and
+1 times ``min_depth``), and a family of two bands or of irregular spacing is kept when
+its significance is at least ``RELAXED_SIGNIFICANCE``, its spacing at most
+``RELAXED_MAX_SPACING`` of the region's diagonal and it does not lie along an image axis.
 
 Angles are image-frame, axial, degrees ccw from +x (:mod:`tracefit.conventions`); pixel
 coordinates are (column, row), rows down. The options and their ranges are declared in
@@ -75,6 +83,26 @@ NFA_STEP_PX = 2.0  # sample spacing of the significance test, working (or origin
 SEARCH_ROUNDS = 2  # searches for further families after taking out the bands found
 MAX_RESEARCH_PX = 600_000  # ... in regions of at most this many working pixels
 SAME_FAMILY_DEG = 2.0  # families closer than this are one
+RELAXED_SIGNIFICANCE = 40.0  # least significance of a family of 2 bands or irregular spacing
+DEPTH_NOISE_K = 4.0  # an adaptive depth threshold stands this many pixel-noise sigmas deep ...
+AXIS_GUARD_DEG = 0.5  # ... and not along an image axis
+RELAXED_MAX_SPACING = 0.3  # ... and bands closer than this share of the region's diagonal
+COARSER_LOOKS = (2, 4)  # reductions tried when the first look finds fewer than two families ...
+COARSE_MIN_SIDE_PX = 256  # ... while the reduced copy keeps this many pixels on its short side
+MIN_DEPTH_SHARE = 0.3  # ... and at least this share of ``min_depth``
+
+
+def _effective_min_depth(img, m, pixel_noise: float, min_depth: float) -> float:
+    """The depth threshold of one region: ``min_depth``, lowered where the region's noise is low.
+
+    A band of an optical micrograph with little noise can be 1 % deep and plain to see;
+    the relative noise (pixel noise over the median grey level of the region) sets how
+    deep a band must be, between ``MIN_DEPTH_SHARE * min_depth`` and ``min_depth``.
+    """
+    level = float(np.median(img[m] if m is not None and m.any() else img[:: max(1, img.shape[0] // 256), :: max(1, img.shape[1] // 256)]))
+    if level <= 0:
+        return min_depth
+    return float(np.clip(DEPTH_NOISE_K * pixel_noise / level, MIN_DEPTH_SHARE * min_depth, min_depth))
 
 
 # --------------------------------------------------------------------------- stages
@@ -134,7 +162,7 @@ def _significance(fam: BandFamily, rp_all: RidgePixels, wc: _WorkingCopy, min_ba
 def _fit_candidates(ctx: _FamilyContext, cands, max_families, accept, known=()) -> tuple[list[BandFamily], int]:
     """Stage 6: build a family from each candidate, at most ``3 * max_families`` attempts.
 
-    ``accept(fam)`` is the significance test; candidates within ``SAME_FAMILY_DEG`` of a
+    ``accept(fam, strict)`` is the significance test; candidates within ``SAME_FAMILY_DEG`` of a
     family already kept (here or in ``known``) are skipped. Returns the families and the
     number of candidates tried.
     """
@@ -147,9 +175,9 @@ def _fit_candidates(ctx: _FamilyContext, cands, max_families, accept, known=()) 
         if any(abs(axial_difference(a_c, fm.angle_deg)) < SAME_FAMILY_DEG for fm in [*fams, *known]):
             continue  # a split cluster of a family already fitted, or its gaps
         attempts += 1
-        fam = _build_family(ctx, rp, ln)
-        if fam is not None and accept(fam):
-            fams.append(fam)
+        built = _build_family(ctx, rp, ln)
+        if built is not None and accept(*built):
+            fams.append(built[0])
     return fams, attempts
 
 
@@ -232,22 +260,34 @@ def _detect_at_scale(img, m, bars, st: _Settings, up: int = 1) -> _Outcome:
     if wc.region.sum() < MIN_REGION_PX:
         return _Outcome([], "too_small", f"analysed region too small for band detection ({int(wc.region.sum())} "
                         f"working pixels after the filter margin, fewer than {MIN_REGION_PX})", notes)
-    ridges, depth_of = _band_pixels(wc, st.scales, st.min_depth)  # stage 3
+    pixel_noise = _pixel_noise(img, m, bars)
+    min_depth = _effective_min_depth(img, m, pixel_noise, st.min_depth)
+    ridges, depth_of = _band_pixels(wc, st.scales, min_depth)  # stage 3
     v_min = max(20.0, 0.06 * min(wc.region.shape))
     if sum(len(rp) for rp in ridges) < v_min:
         return _Outcome([], "low_contrast", "too little contrast: no band-like ridges stand above the noise "
-                        f"(and {100 * st.min_depth:.1f} % from the local grey level)", notes)
+                        f"(and {100 * min_depth:.1f} % from the local grey level)", notes)
     ctx = _FamilyContext(
         image=img, valid=None if wc.mask is None else wc.mask.astype(np.uint8), factor=wc.factor,
-        pixel_noise=_pixel_noise(img, m, bars), depth_of=depth_of, diag_w=math.hypot(*wc.image.shape),
-        pixel_size_um=st.pixel_size_um, min_bands=st.min_bands, min_depth=st.min_depth,
+        pixel_noise=pixel_noise, depth_of=depth_of, diag_w=math.hypot(*wc.image.shape),
+        pixel_size_um=st.pixel_size_um, min_bands=st.min_bands, min_depth=min_depth, relaxed=True,
     )
     by_pol = {rp.polarity: rp for rp in ridges}
     step = max(NFA_STEP_PX, NFA_STEP_PX * up / wc.factor)
     n_rejected = [0]
 
-    def accept(fam):
-        ok = -_significance(fam, by_pol[-1 if fam.polarity == "dark" else 1], wc, st.min_bands, step) >= st.min_significance
+    rr, cc = np.nonzero(wc.region.any(axis=1))[0], np.nonzero(wc.region.any(axis=0))[0]
+    region_diag = math.hypot(rr[-1] - rr[0] + 1, cc[-1] - cc[0] + 1) * wc.factor
+
+    def accept(fam, strict):
+        if not strict and not fam.spacing_px <= RELAXED_MAX_SPACING * region_diag:
+            # two far-apart straight lines are edges of a tile or a square, not a band family
+            return False
+        if not strict and min(abs(axial_difference(fam.angle_deg, a)) for a in (0.0, 90.0)) < AXIS_GUARD_DEG:
+            # tile seams of stitched mosaics and scan lines follow the image axes
+            return False
+        need = st.min_significance if strict else max(st.min_significance, RELAXED_SIGNIFICANCE)
+        ok = -_significance(fam, by_pol[-1 if fam.polarity == "dark" else 1], wc, min(st.min_bands, fam.n_bands), step) >= need
         n_rejected[0] += not ok
         return ok
 
@@ -258,8 +298,8 @@ def _detect_at_scale(img, m, bars, st: _Settings, up: int = 1) -> _Outcome:
     for _ in range(SEARCH_ROUNDS):
         # stages 4-6; after the first round the bands already found are taken out, so a
         # weaker family crossing or beside them gets its own candidates
-        cands = _candidate_families(search, wc.region, st.min_bands, st.min_coverage)
-        fams, n = _fit_candidates(ctx, _screen_candidates(cands, depth_of, wc, st.min_depth), st.max_families,
+        cands = _candidate_families(search, wc.region, min(st.min_bands, 2), st.min_coverage)
+        fams, n = _fit_candidates(ctx, _screen_candidates(cands, depth_of, wc, min_depth), st.max_families,
                                   accept, known=found)
         tried += n
         new = _distinct_families(fams)  # stage 7
@@ -272,7 +312,7 @@ def _detect_at_scale(img, m, bars, st: _Settings, up: int = 1) -> _Outcome:
         return _Outcome(found, "found", _summary_note(found), notes)
     if tried == 0:
         return _Outcome([], "not_significant", "no band families: no set of parallel lines reached "
-                        f"{st.min_bands} lines with {100 * st.min_coverage:.0f} % coverage", notes)
+                        f"{min(st.min_bands, 2)} lines with {100 * st.min_coverage:.0f} % coverage", notes)
     why = f"{n_rejected[0]} below the significance threshold" if n_rejected[0] else "none held up as a family"
     return _Outcome([], "not_significant", f"no band families: {tried} candidate direction"
                     f"{'s' if tried != 1 else ''} tested, {why}", notes)
@@ -298,29 +338,72 @@ def _small_region_factor(shape, m) -> tuple[int, tuple[slice, slice]]:
     return up, box
 
 
-def _enlarged_outcome(img, m, bars, st: _Settings, up, box) -> _Outcome:
-    """Run :func:`_detect_at_scale` on the box enlarged ``up`` times; lines mapped back to ``img`` pixels."""
+def _rescaled_outcome(img, m, bars, st: _Settings, up: int, box, down: int = 1) -> _Outcome:
+    """Run :func:`_detect_at_scale` on ``img[box]`` enlarged ``up`` times (cubic) or reduced ``down`` times (area).
+
+    Lines, spacings and angle uncertainties are mapped back to ``img`` pixels.
+    """
     r0, c0 = box[0].start, box[1].start
     crop = img[box]
     if m is None:
         m = np.ones(img.shape, bool)
         _clear_boxes(m, bars)
-    size = (crop.shape[1] * up, crop.shape[0] * up)
-    big = cv2.resize(crop, size, interpolation=cv2.INTER_CUBIC)
-    big_m = cv2.resize(m[box].view(np.uint8), size, interpolation=cv2.INTER_NEAREST) > 0
-    st_up = _Settings(**{**st.__dict__, "working_size": max(st.working_size, max(size)),
-                         "pixel_size_um": None if st.pixel_size_um is None else st.pixel_size_um / up})
-    out = _detect_at_scale(big, big_m, [], st_up, up)
+    if down > 1:
+        size = (crop.shape[1] // down, crop.shape[0] // down)
+        crop = np.ascontiguousarray(crop[: size[1] * down, : size[0] * down])
+        small = cv2.resize(crop, size, interpolation=cv2.INTER_AREA)
+        small_m = cv2.resize(m[box][: size[1] * down, : size[0] * down].view(np.uint8) * np.uint8(255), size,
+                             interpolation=cv2.INTER_AREA) >= 250
+        st_s = _Settings(**{**st.__dict__, "pixel_size_um": None if st.pixel_size_um is None else st.pixel_size_um * down})
+        out = _detect_at_scale(small, small_m, [], st_s)
+        scale = float(down)
+    else:
+        size = (crop.shape[1] * up, crop.shape[0] * up)
+        big = cv2.resize(crop, size, interpolation=cv2.INTER_CUBIC)
+        big_m = cv2.resize(m[box].view(np.uint8), size, interpolation=cv2.INTER_NEAREST) > 0
+        st_up = _Settings(**{**st.__dict__, "working_size": max(st.working_size, max(size)),
+                             "pixel_size_um": None if st.pixel_size_um is None else st.pixel_size_um / up})
+        out = _detect_at_scale(big, big_m, [], st_up, up)
+        scale = 1.0 / up
     for fam in out.families:
-        fam.spacing_px /= up
-        fam.spacing_sigma_px /= up
-        # the enlarged samples along a band are correlated over ``up`` px: as many fewer independent ones
+        fam.spacing_px *= scale
+        fam.spacing_sigma_px *= scale
+        # enlarged samples along a band are correlated over ``up`` px: as many fewer independent ones
         fam.angle_sigma_deg *= math.sqrt(up)
         for ln in fam.lines:
-            ln.col0, ln.col1 = ((ln.col0 + 0.5) / up - 0.5 + c0, (ln.col1 + 0.5) / up - 0.5 + c0)
-            ln.row0, ln.row1 = ((ln.row0 + 0.5) / up - 0.5 + r0, (ln.row1 + 0.5) / up - 0.5 + r0)
+            ln.col0, ln.col1 = ((ln.col0 + 0.5) * scale - 0.5 + c0, (ln.col1 + 0.5) * scale - 0.5 + c0)
+            ln.row0, ln.row1 = ((ln.row0 + 0.5) * scale - 0.5 + r0, (ln.row1 + 0.5) * scale - 0.5 + r0)
             ln.angle_sigma_deg *= math.sqrt(up)
-    out.notes.insert(0, f"small region ({crop.shape[1]} x {crop.shape[0]} px) analysed enlarged {up}x (cubic)")
+    if down > 1:
+        out.notes.insert(0, f"also analysed reduced {down}x (area average), for bands wider than the ridge filters")
+    else:
+        out.notes.insert(0, f"small region ({crop.shape[1]} x {crop.shape[0]} px) analysed enlarged {up}x (cubic)")
+    return out
+
+
+def _with_coarser_looks(out: _Outcome, img, m, bars, st: _Settings) -> _Outcome:
+    """Add the families of copies reduced 2x and 4x (anti-aliased) when the first look found fewer than two.
+
+    Bands several pixels wide (an enlarged picture, wide twin lamellae) outgrow the ridge
+    filters and the sharpness tests of the full-resolution fits; on a copy reduced to
+    their width they are thin again. Families within ``SAME_FAMILY_DEG`` of one already
+    found are not added.
+    """
+    if len(out.families) >= min(2, st.max_families):
+        return out
+    h, w = img.shape
+    for down in COARSER_LOOKS:
+        if min(h, w) // down < COARSE_MIN_SIDE_PX:
+            break
+        box = (slice(0, h), slice(0, w))
+        more = _rescaled_outcome(img, m, bars, st, 1, box, down=down)
+        new = [fm for fm in more.families
+               if not any(abs(axial_difference(fm.angle_deg, g.angle_deg)) < SAME_FAMILY_DEG for g in out.families)]
+        if new:
+            fams = sorted(out.families + new, key=lambda fm: -fm.strength)[: st.max_families]
+            out = _Outcome(fams, "found", _summary_note(fams), out.notes + more.notes[:1])
+        if len(out.families) >= 2:
+            break
     return out
 
 
@@ -367,7 +450,8 @@ def detect_bands(
         Look for an instrument data bar and exclude it.
     min_bands : int
         Fewest parallel bands that make a family (>= 1; isolated scratches make none at
-        the default 3).
+        the default 3). Two bands also make one when their family is highly significant
+        (``RELAXED_SIGNIFICANCE``), as short real bands often are.
     max_families : int
         Most families reported (>= 1).
     working_size : int
@@ -380,7 +464,8 @@ def detect_bands(
         Least fraction of a Hough chord that must lie on ridge pixels (>= 0).
     min_depth : float
         Least relative depth of a band below (dark) or above (bright) the local median
-        grey level (>= 0), e.g. 0.035 = 3.5 %.
+        grey level (>= 0), e.g. 0.035 = 3.5 %; lowered to as little as 0.3 times this
+        where the region's noise is low enough (4 pixel-noise sigmas).
     min_significance : float
         Least significance ``-log10(NFA)`` of a family (see
         :mod:`tracefit.image.significance`). 0 is the a contrario threshold (families
@@ -460,9 +545,9 @@ def detect_bands(
         return res
     up, box = _small_region_factor(img.shape, m)
     if up > 1 and _reduction_factor(img.shape, st.working_size) == 1:
-        out = _enlarged_outcome(img, m, bars, st, up, box)
+        out = _rescaled_outcome(img, m, bars, st, up, box)
     else:
-        out = _detect_at_scale(img, m, bars, st)
+        out = _with_coarser_looks(_detect_at_scale(img, m, bars, st), img, m, bars, st)
     res.families, res.verdict, res.reason = out.families, out.verdict, out.reason
     res.notes.extend(out.notes)
     res.notes.append(out.reason)

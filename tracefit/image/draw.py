@@ -30,13 +30,18 @@ FAMILY_COLOURS = [
 
 
 def _to_rgb8(image: np.ndarray) -> np.ndarray:
-    """Grey 8-bit RGB copy for display: luminance, stretched between the 0.5 and 99.5 percentiles."""
+    """Grey 8-bit RGB copy for display: luminance, stretched between the 0.5 and 99.5 percentiles.
+
+    NaN (missing points of a float map, see :func:`tracefit.image.read_image`) shows black.
+    """
     a = np.asarray(image)
     if a.ndim == 3:
         a = a[..., :3].astype(np.float32) @ _LUMA
     a = a.astype(np.float32)
-    lo, hi = np.percentile(a[:: max(1, a.shape[0] // 512), :: max(1, a.shape[1] // 512)], [0.5, 99.5])
-    g = np.clip((a - lo) / max(hi - lo, 1e-6) * 255.0, 0, 255).astype(np.uint8)
+    sample = a[:: max(1, a.shape[0] // 512), :: max(1, a.shape[1] // 512)]
+    sample = sample[np.isfinite(sample)]
+    lo, hi = np.percentile(sample, [0.5, 99.5]) if sample.size else (0.0, 1.0)
+    g = np.nan_to_num(np.clip((a - lo) / max(hi - lo, 1e-6) * 255.0, 0, 255), nan=0.0).astype(np.uint8)
     return np.repeat(g[..., None], 3, axis=2)
 
 

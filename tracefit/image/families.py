@@ -50,6 +50,7 @@ class _FamilyContext:
     pixel_size_um: float | None
     min_bands: int
     min_depth: float
+    relaxed: bool = False  # also build families of 2 bands or irregular spacing (see _build_family)
 
 
 def _family_sigma(prof, ss, s0, spacing, bin_px=PROFILE_BIN_PX):
@@ -191,14 +192,15 @@ def _family_angle(fits, fallback_deg, min_bands):
     return fits, angle, angle_sigma
 
 
-def _family_spacing(fits, normal, max_spacing_cv=MAX_SPACING_CV):
+def _family_spacing(fits, normal, max_spacing_cv=MAX_SPACING_CV, check_gaps=True):
     """Mean spacing and its standard deviation (full-resolution px), or None when irregular.
 
     Bands of a family keep a spacing; missed bands only make gaps of several spacings.
+    ``check_gaps=False`` and an infinite ``max_spacing_cv`` only measure.
     """
     offs = np.sort(np.array([ft.point @ normal for ft in fits]))
     gaps = np.diff(offs)
-    if len(gaps) >= 2 and np.mean(gaps < 0.45 * np.median(gaps)) > 0.25:
+    if check_gaps and len(gaps) >= 2 and np.mean(gaps < 0.45 * np.median(gaps)) > 0.25:
         return None
     spacing = float(np.mean(gaps)) if len(gaps) else float("nan")
     spacing_sd = float(np.std(gaps, ddof=1)) if len(gaps) > 1 else float("nan")
@@ -214,6 +216,11 @@ def _family_spacing(fits, normal, max_spacing_cv=MAX_SPACING_CV):
 def _build_family(ctx: _FamilyContext, rp: RidgePixels, lines):
     """Refine one candidate family; None when it does not hold up as ``min_bands`` bands.
 
+    With ``ctx.relaxed`` a family of two bands (when ``min_bands`` asks for more) or of
+    irregular spacing is built too and returned as not ``strict``: real slip bands are
+    short, staggered and unevenly spaced, and the caller then asks a higher significance
+    of it.
+
     Parameters
     ----------
     ctx : _FamilyContext
@@ -225,28 +232,34 @@ def _build_family(ctx: _FamilyContext, rp: RidgePixels, lines):
 
     Returns
     -------
-    BandFamily or None
+    (BandFamily, strict) or None
+        ``strict`` is False when the family passed only the relaxed tests.
     """
     fp = _family_profile(rp, lines)
     if fp is None:
         return None
+    least = min(ctx.min_bands, 2) if ctx.relaxed else ctx.min_bands
     uniq = _band_positions(lines, fp)
-    if len(uniq) < ctx.min_bands:
+    if len(uniq) < least:
         return None
     fits = _fit_family_bands(ctx, rp.polarity, fp, uniq)
     if fits is None:
         return None
     fits = _depth_test(ctx, rp.polarity, fits)
-    if len(fits) < ctx.min_bands:
+    if len(fits) < least:
         return None
-    angle_fit = _family_angle(fits, fp.angle_deg, ctx.min_bands)
+    angle_fit = _family_angle(fits, fp.angle_deg, least)
     if angle_fit is None:
         return None
     fits, angle, angle_sigma = angle_fit
+    strict = len(fits) >= ctx.min_bands
     _, n_f = _direction_and_normal(angle)
     spacing_fit = _family_spacing(fits, n_f)
     if spacing_fit is None:
-        return None
+        if not ctx.relaxed:
+            return None
+        strict = False
+        spacing_fit = _family_spacing(fits, n_f, max_spacing_cv=math.inf, check_gaps=False)
     spacing, spacing_sd = spacing_fit
     diag_full = ctx.diag_w * ctx.factor
     strength = float(sum(ft.seen / diag_full * ft.snr for ft in fits))
@@ -265,4 +278,4 @@ def _build_family(ctx: _FamilyContext, rp: RidgePixels, lines):
         polarity="dark" if rp.polarity < 0 else "bright",
         contrast=float(rp.polarity * np.median([ft.depth for ft in fits])),
         lines=band_lines,
-    )
+    ), strict

@@ -1,7 +1,10 @@
-"""Read micrographs (PNG, TIFF, JPEG, BMP) into a float32 grey array.
+"""Read micrographs (PNG, TIFF, JPEG, BMP) and float maps (NumPy .npy) into a float32 grey array.
 
-:func:`read_image` accepts 8- and 16-bit, grayscale, RGB and RGBA files, and multi-page
-TIFF (first page, with a note). 16-bit samples are kept at full precision (float32
+:func:`read_image` accepts 8- and 16-bit, grayscale, RGB and RGBA files, multi-page
+TIFF (first page, with a note), floating-point TIFF and 2-D NumPy ``.npy`` arrays (e.g.
+HR-DIC strain maps). Values are never rescaled: a strain map stays in strain units.
+NaN (where a map has no value, e.g. failed correlation) is kept as NaN, with a note
+of how many; :func:`tracefit.image.detect_bands` masks it. Infinite values are an error. 16-bit samples are kept at full precision (float32
 holds every integer up to 2**24 exactly); colour becomes luminance with the Rec. 601
 luma weights (0.299 R + 0.587 G + 0.114 B; common practice, ITU-R BT.601). Every bad
 input raises :class:`tracefit.errors.TracefitInputError` with what was wrong.
@@ -20,7 +23,7 @@ from tracefit.errors import TracefitInputError
 __all__ = ["read_image", "read_mask", "to_gray", "IMAGE_SUFFIXES"]
 
 #: File suffixes :func:`read_image` reads (lower case, with the dot).
-IMAGE_SUFFIXES = (".png", ".tif", ".tiff", ".jpg", ".jpeg", ".bmp")
+IMAGE_SUFFIXES = (".png", ".tif", ".tiff", ".jpg", ".jpeg", ".bmp", ".npy")
 _LUMA = np.array([0.299, 0.587, 0.114], np.float32)  # R, G, B (ITU-R BT.601)
 
 
@@ -33,7 +36,20 @@ def _kind_from_magic(head: bytes) -> str | None:
         return "jpeg"
     if head.startswith(b"BM"):
         return "bmp"
+    if head.startswith(b"\x93NUMPY"):
+        return "npy"
     return None
+
+
+def _read_npy(path: str) -> np.ndarray:
+    """A NumPy ``.npy`` array of real numbers (no pickled objects)."""
+    try:
+        arr = np.load(path, allow_pickle=False)
+    except Exception as exc:  # truncated header or data, object arrays
+        raise TracefitInputError(f"{path}: cannot read the .npy file ({exc}); expected a saved 2-D numeric array") from None
+    if arr.dtype.kind not in "biuf":
+        raise TracefitInputError(f"{path}: the .npy array has dtype {arr.dtype}; expected real numbers")
+    return arr
 
 
 def _bgr_to_rgb(arr: np.ndarray) -> np.ndarray:
@@ -153,20 +169,22 @@ def read_image(path: str | os.PathLike) -> tuple[np.ndarray, list[str]]:
     Parameters
     ----------
     path : str or Path
-        PNG, TIFF (8/16-bit, multi-page: first page), JPEG or BMP file; grey, RGB or RGBA.
+        PNG, TIFF (8/16-bit or floating point, multi-page: first page), JPEG or BMP
+        file, grey, RGB or RGBA; or a NumPy ``.npy`` file of a 2-D real array.
 
     Returns
     -------
     gray : ndarray of float32, (H, W)
-        Grey values in the file's units (0..255 for 8-bit, 0..65535 for 16-bit).
+        Grey values in the file's units (0..255 for 8-bit, 0..65535 for 16-bit, a float
+        map's own units), NaN where a float map has no value.
     notes : list of str
         What was done on the way (bit depth, colour conversion, pages used).
 
     Raises
     ------
     TracefitInputError
-        Missing file, empty file, not an image, truncated file, zero-size or
-        non-finite image.
+        Missing file, empty file, not an image, truncated file, zero-size image,
+        infinite values or NaN everywhere.
 
     Examples
     --------
@@ -177,7 +195,18 @@ def read_image(path: str | os.PathLike) -> tuple[np.ndarray, list[str]]:
     >>> gray, notes = read_image(path)
     >>> gray.shape, gray.dtype.name, float(gray[0, 0]), notes
     ((32, 48), 'float32', 40000.0, ['16-bit PNG'])
+
+    A strain map with a hole, saved by NumPy:
+
+    >>> strain = np.full((20, 30), 0.012)
+    >>> strain[5, 5] = np.nan
+    >>> np.save(os.path.join(tempfile.gettempdir(), "strain.npy"), strain)
+    >>> gray, notes = read_image(os.path.join(tempfile.gettempdir(), "strain.npy"))
+    >>> round(float(gray[0, 0]), 4), bool(np.isnan(gray[5, 5])), notes
+    (0.012, True, ['floating-point NPY', '1 NaN pixels (0.2 %) kept as NaN (masked by the detector)'])
     """
+    # Over 80 lines only through its docstring (numpydoc with runnable examples) and one
+    # check per kind of bad file, each with its own message.
     p = str(path)
     if not os.path.exists(p):
         raise TracefitInputError(f"{p}: no such file; expected the path of a PNG, TIFF, JPEG or BMP image")
@@ -191,12 +220,15 @@ def read_image(path: str | os.PathLike) -> tuple[np.ndarray, list[str]]:
     kind = _kind_from_magic(data[:16])
     if kind is None:
         raise TracefitInputError(
-            f"{p}: not a recognised image (suffix {Path(p).suffix or 'none'}); expected a PNG, TIFF, JPEG or BMP file"
+            f"{p}: not a recognised image (suffix {Path(p).suffix or 'none'}); expected a PNG, TIFF, JPEG or BMP file or a .npy array"
         )
     notes: list[str] = []
     if kind == "tiff":
         del data
         arr = _read_tiff(p, notes)
+    elif kind == "npy":
+        del data
+        arr = _read_npy(p)
     else:
         _check_complete(data, kind, p)
         buf = np.frombuffer(data, np.uint8)
@@ -217,8 +249,13 @@ def read_image(path: str | os.PathLike) -> tuple[np.ndarray, list[str]]:
     del arr
     if gray.ndim != 2 or min(gray.shape) < 16:
         raise TracefitInputError(f"{p}: the image is {gray.shape[1]} x {gray.shape[0]} pixels; expected at least 16 x 16")
-    if not np.isfinite(gray).all():
-        raise TracefitInputError(f"{p}: the image contains NaN or infinite values; expected finite grey levels")
+    if gray.dtype.kind == "f" and not np.isfinite(gray).all():
+        if np.isinf(gray).any():
+            raise TracefitInputError(f"{p}: the image contains infinite values; expected finite values (NaN marks missing points)")
+        n_nan = int(np.isnan(gray).sum())
+        if n_nan == gray.size:
+            raise TracefitInputError(f"{p}: the image is NaN everywhere; expected some finite values")
+        notes.append(f"{n_nan} NaN pixels ({100 * n_nan / gray.size:.1f} %) kept as NaN (masked by the detector)")
     return gray, notes
 
 
