@@ -143,3 +143,13 @@ def test_the_map_coupon_shows_its_registration(demo_run):
     assert d["figures"]["grain_map"] == "coupon-D.grain-map.png" and (folder / "images" / "coupon-D.grain-map.png").is_file()
     assert all(f["grain_x_px"] is not None and f["grain_euler_deg"] for f in d["families"])
     assert "grain map" in (folder / "report.html").read_text(encoding="utf-8")
+
+
+def test_the_report_lists_every_grain_with_why_it_has_no_families(demo_run):
+    # Issue 13 item 6: every grain with its size and, where it has no families, why.
+    code, out, err, folder = demo_run
+    html = (folder / "report.html").read_text(encoding="utf-8")
+    records = {r["name"]: r for r in json.loads((folder / "results.json").read_text())["images"]}
+    b = [g for g in records["coupon-B"]["grains"] if g.get("grain") is not None]
+    assert {g["grain"] for g in b} >= {1, 2} and all(g.get("status") for g in b)
+    assert '<table class="grains" data-image="coupon-B">' in html and "no orientation" in html

@@ -214,6 +214,9 @@ def identify(
         print_json(d)
         return
     _print_text(res.families, lat, ld)
+    for gs in res.grains:  # every grain of a grain map says what happened to it
+        if gs.grain is not None and gs.n_families == 0:
+            typer.echo(f"grain {gs.grain} ({gs.n_pixels} px): {gs.status}" + (f": {gs.reason}" if gs.reason else ""))
     if "measured" in extra:
         typer.echo(f"measured traces read as: {extra['measured']['convention']}")
     if "caution" in extra:

@@ -312,6 +312,23 @@ def _families_table(rec: dict) -> str:
             f"<th>residual (deg)</th></tr></thead><tbody>{''.join(rows)}</tbody></table>")
 
 
+def _grains_table(rec: dict) -> str:
+    """Every grain of a grain map: its size, the families found and, where none, why."""
+    grs = [g for g in rec.get("grains") or [] if g.get("grain") is not None]
+    if not grs:
+        return ""
+    rows = []
+    for g in grs:
+        n_fam = sum(1 for f in rec.get("families") or [] if f.get("grain") == g["grain"])
+        rows.append(f"<tr><td>{_e(g['grain'])}</td><td class=\"num\">{_e(g.get('n_pixels'))}</td>"
+                    f"<td class=\"num\">{n_fam}</td><td>{_e(g.get('status') or '')}</td><td>{_e(g.get('reason') or '')}</td></tr>")
+    return (f'<details class="grains"><summary>Grains: {len(grs)}, with families: '
+            f'{len({f.get("grain") for f in rec.get("families") or []})}</summary>'
+            f'<table class="grains" data-image="{_e(rec["name"])}"><thead><tr><th>grain</th><th>pixels</th>'
+            "<th>families</th><th>status</th><th>why none</th></tr></thead><tbody>"
+            f"{''.join(rows)}</tbody></table></details>")
+
+
 def _image_section(rec: dict, img_dir: Path) -> str:
     out = _image_header(rec)
     if rec.get("status") != "ok":
@@ -325,6 +342,7 @@ def _image_section(rec: dict, img_dir: Path) -> str:
                    + "".join(f"<li>{_e(n)}</li>" for n in rec["notes"]) + "</ul></details>")
     out.append(_figures(rec, img_dir))
     out.append(_families_table(rec))
+    out.append(_grains_table(rec))
     for fam in rec.get("families") or []:
         out.append(_candidate_table(rec, fam))
     out.append("</section>")
