@@ -102,3 +102,18 @@ def test_results_csv_states_the_load_and_the_resolved_shear(tmp_path):
         assert r["load"] == "stress s22 = 150 MPa (image frame)"
         assert float(r["resolved_shear_mpa"]) != 0 and math.isfinite(float(r["resolved_shear_mpa"]))
         assert r["modes"].startswith("slip")
+
+
+def test_the_report_shows_resolved_shear_the_crss_check_and_the_mode_split(tmp_path):
+    from tracefit.demo import demo_dir
+    from tracefit.survey import run_survey
+
+    job = parse_job(f'[[image]]\nname = "a"\nfile = "{demo_dir() / "coupon_A.png"}"\nlattice = "fcc"\n'
+                    f'euler_deg = [263, 50, 135]\nload = {{ stress = [0, 150, 0, 0, 0, 0] }}\n', tmp_path / "j.toml")
+    res = run_survey(job, tmp_path / "out", workers=1, progress=False, figures=False, report=True)
+    html = res.report_path.read_text(encoding="utf-8")
+    assert "resolved shear (MPa) / CRSS" in html and "stress s22 = 150 MPa (image frame)" in html
+    import re
+
+    # fcc {111} planes carry both slip and twinning: the row is the plane, the split is shown inside it
+    assert re.search(r"(slip|twin) [01]\.\d\d / (twin|slip) [01]\.\d\d", html)

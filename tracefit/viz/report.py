@@ -196,14 +196,37 @@ def _verdict(ident: dict) -> str:
     return f"<strong>{lab}</strong>"
 
 
+def _drive_head(cands: list) -> str:
+    """Schmid factor, or resolved shear (MPa) when the load is a stress tensor."""
+    shear = any((c.get("best_system") or {}).get("resolved_shear") is not None for c in cands)
+    return "resolved shear (MPa) / CRSS" if shear else "Schmid factor"
+
+
+def _drive(bs: dict) -> str:
+    if bs.get("resolved_shear") is not None:
+        text = _num(bs["resolved_shear"], 1)
+        if bs.get("crss") is not None:
+            text += f" / {_num(bs['crss'], 1)} ({'reached' if bs.get('exceeds_crss') else 'not reached'})"
+        return _e(text)
+    return _num(bs.get("schmid_factor"), 3)
+
+
+def _mode_split(c: dict) -> str:
+    """The candidate's mode, or the split between the modes on its plane ("slip 0.50 / twin 0.50")."""
+    modes = c.get("modes") or []
+    if len(modes) < 2:
+        return c.get("mode") or ""
+    return " / ".join(f"{m['mode']} {m['share']:.2f}" for m in modes)
+
+
 def _candidate_table(rec: dict, fam: dict) -> str:
     ident = fam.get("identification") or {}
     cands = ident.get("candidates") or []
     fid = f"F{fam.get('index', '?')}"
     head = (
-        "<tr><th>#</th><th>plane</th><th>family</th><th>mode</th><th>predicted (deg)</th>"
+        "<tr><th>#</th><th>plane</th><th>family</th><th>mode (share)</th><th>predicted (deg)</th>"
         "<th>residual (deg)</th><th>probability</th><th>inclination (deg)</th><th>best system</th>"
-        "<th>Schmid factor</th></tr>"
+        f"<th>{_drive_head(cands)}</th></tr>"
     )
     body = []
     for r, c in enumerate(cands, start=1):
@@ -211,10 +234,10 @@ def _candidate_table(rec: dict, fam: dict) -> str:
         cls = ' class="best"' if r == 1 and not ident.get("unexplained") else ""
         body.append(
             f"<tr{cls}><td class=\"num\">{r}</td><td>{_e(_plane(c.get('plane')))}</td><td>{_e(c.get('family'))}</td>"
-            f"<td>{_e(c.get('mode'))}</td><td class=\"num\">{_num(c.get('predicted_deg'))}</td>"
+            f"<td>{_e(_mode_split(c))}</td><td class=\"num\">{_num(c.get('predicted_deg'))}</td>"
             f"<td class=\"num\">{_num(c.get('residual_deg'))}</td><td class=\"num\">{_num(c.get('probability'), 3)}</td>"
             f"<td class=\"num\">{_num(c.get('inclination_deg'), 1)}</td><td>{_e(_direction(bs.get('direction')))}</td>"
-            f"<td class=\"num\">{_num(bs.get('schmid_factor'), 3)}</td></tr>"
+            f"<td class=\"num\">{_drive(bs)}</td></tr>"
         )
     grain = "" if fam.get("grain") is None else f" in grain {_e(fam['grain'])}"
     spacing = f", mean spacing {_num(fam['spacing_um'], 2)} um" if fam.get("spacing_um") else (
@@ -226,6 +249,10 @@ def _candidate_table(rec: dict, fam: dict) -> str:
     )
     pn = ident.get("p_none")
     extra = f'<p class="notes">Probability that none of the candidates made this family: {_num(pn, 3)}.</p>' if pn is not None else ""
+    if ident.get("unexplained") and ident.get("nearest"):
+        near = ", ".join(f"{_plane(n['plane'])} at {_num(n['predicted_deg'])} deg ({_num(n['n_sigma'], 1)} sigma)"
+                         for n in ident["nearest"])
+        extra += f'<p class="notes">Nearest predicted traces: {_e(near)}.</p>'
     hints = "".join(f"<li>{_e(h)}</li>" for h in (ident.get("separation") or []) + (ident.get("notes") or []))
     if hints:
         extra += f'<ul class="notes">{hints}</ul>'
