@@ -88,7 +88,7 @@ DEPTH_NOISE_K = 4.0  # an adaptive depth threshold stands this many pixel-noise 
 AXIS_GUARD_DEG = 0.5  # ... and not along an image axis
 RELAXED_MAX_SPACING = 0.3  # ... and bands closer than this share of the region's diagonal
 COARSER_LOOKS = (2, 4)  # reductions tried when the first look finds fewer than two families ...
-COARSE_MIN_SIDE_PX = 256  # ... while the reduced copy keeps this many pixels on its short side
+COARSE_MIN_SIDE_PX = 384  # ... while the reduced copy keeps this many pixels on its short side (512-px images: none)
 MIN_DEPTH_SHARE = 0.3  # ... and at least this share of ``min_depth``
 
 
