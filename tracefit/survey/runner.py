@@ -523,6 +523,34 @@ def csv_rows(records: list[dict]) -> list[dict]:
     return rows
 
 
+def _significant(x: float, digits: int) -> str:
+    return f"{x:.{digits}g}"
+
+
+def _csv_text(col: str, row: dict) -> str:
+    """A table cell rounded to what the measurement supports (angles to their uncertainty)."""
+    v = row.get(col)
+    if v is None or v == "" or isinstance(v, (str, bool)):
+        return "" if v is None else str(v)
+    x = float(v)
+    if not np.isfinite(x):
+        return ""
+    if col in ("angle_deg", "predicted_deg", "residual_deg"):
+        sigma = row.get("angle_sigma_deg")
+        sigma = float(sigma) if sigma not in (None, "") and float(sigma) > 0 else 0.1
+        decimals = int(min(4, max(1, 1 - np.floor(np.log10(sigma)))))  # two significant digits of the sigma
+        return f"{x:.{decimals}f}"
+    if col in ("angle_sigma_deg", "spacing_um", "strength"):
+        return _significant(x, 2 if col == "angle_sigma_deg" else 3)
+    if col in ("probability", "second_probability", "p_none"):
+        return f"{x:.4f}"
+    if col == "schmid_factor":
+        return f"{x:.3f}"
+    if col in ("resolved_shear_mpa", "crss_mpa", "grain_x_px", "grain_y_px"):
+        return f"{x:.1f}"
+    return str(v)
+
+
 def write_results_csv(records: list[dict], path: str | Path) -> Path:
     """Write the one-row-per-family results CSV atomically.
 
@@ -557,5 +585,5 @@ def write_results_csv(records: list[dict], path: str | Path) -> Path:
     w = csv.DictWriter(buf, fieldnames=CSV_COLUMNS, extrasaction="ignore", lineterminator="\n")
     w.writeheader()
     for row in csv_rows(records):
-        w.writerow({k: ("" if row.get(k) is None else row.get(k, "")) for k in CSV_COLUMNS})
+        w.writerow({k: _csv_text(k, row) for k in CSV_COLUMNS})
     return write_text(path, buf.getvalue())
