@@ -181,3 +181,12 @@ def test_matplotlib_loads_only_when_a_figure_is_made():
     )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.split() == ["False", "True"]
+
+
+def test_a_strain_map_overlay_states_its_grey_scale():
+    # Issue 12 item 6: float maps are data; the figure says which values black and white stand for.
+    strain = np.linspace(-0.02, 0.05, 64 * 80).reshape(64, 80)
+    strain[10:20, 10:20] = np.nan  # correlation holes stay holes
+    fig = plots.overlay_figure(strain, [])
+    texts = [t.get_text() for ax in fig.axes for t in ax.texts]
+    assert any(t == "grey: -0.02 (black) to 0.05 (white)" for t in texts), texts

@@ -526,6 +526,9 @@ def overlay_figure(image: np.ndarray, families: Sequence, labels: Sequence[str] 
     ax.axis("off")
     if title:
         fig.suptitle(title, fontsize=9, y=0.995)
+    if view.ndim == 2 and hi > lo:  # the grey scale stated: a strain map's values are data, not brightness
+        ax.text(0.995, 0.005, f"grey: {lo:.4g} (black) to {hi:.4g} (white)", transform=ax.transAxes, ha="right",
+                va="bottom", fontsize=7, color="white", bbox={"facecolor": "black", "alpha": 0.6, "pad": 1.5, "linewidth": 0})
     return fig
 
 
