@@ -194,6 +194,10 @@ def test_mg_tension_twin_reorientation_is_86_degrees():
     c = np.array([0, 0, 1.0])
     ct = c - 2 * (c @ n) * n
     assert math.degrees(math.acos(abs(float(c @ ct)))) == pytest.approx(86.3, abs=0.05)
+    # and exactly twice the (0001)^(10-12) interplanar angle of the hexagonal formula
+    # cos phi = l / sqrt(4/3 (c/a)^2 (h^2 + hk + k^2) + l^2) (common practice, no source)
+    phi = math.degrees(math.acos(2.0 / math.sqrt(4.0 / 3.0 * 1.624 ** 2 + 4.0)))
+    assert math.degrees(math.acos(abs(float(c @ ct)))) == pytest.approx(2 * phi, abs=1e-9)
 
 
 @pytest.mark.parametrize(
