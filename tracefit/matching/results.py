@@ -26,7 +26,7 @@ def _r(x, nd: int = 4):
 
 
 def format_plane(plane: Sequence) -> str:
-    """Plane indices as text, ``(1 1 -1)``.
+    """Plane indices as text in the project's one notation (:func:`tracefit.crystal.format_index`).
 
     Parameters
     ----------
@@ -36,14 +36,16 @@ def format_plane(plane: Sequence) -> str:
     Returns
     -------
     str
-        Space-separated integers in round brackets.
+        E.g. ``(11-1)``; space separated when an index has two digits.
 
     Examples
     --------
-    >>> format_plane((1, 1, -1))
-    '(1 1 -1)'
+    >>> format_plane((1, 1, -1)), format_plane((1, 0, -1, 2))
+    ('(11-1)', '(10-12)')
     """
-    return "(" + " ".join(str(int(x)) for x in plane) + ")"
+    from tracefit.crystal import format_index
+
+    return format_index(tuple(int(x) for x in plane), "plane")
 
 
 @dataclass

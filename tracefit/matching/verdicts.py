@@ -327,7 +327,7 @@ def separation_hints(cl: list[Candidate], load: Any, g: np.ndarray | None = None
     >>> a = Candidate((1, 1, 1), "{111}", "slip", 135.0, 0.2, 0.5, 1.0, 1.0, 54.7)
     >>> b = Candidate((1, 1, -1), "{111}", "slip", 135.0, 0.2, 0.5, 1.0, 1.0, 54.7)
     >>> separation_hints([a, b], None)[0]
-    'several planes predict this trace within the uncertainty: (1 1 1) slip, (1 1 -1) slip'
+    'several planes predict this trace within the uncertainty: (111) slip, (11-1) slip'
     """
     top = cl[:6]
     planes: dict = {}
