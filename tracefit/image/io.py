@@ -132,7 +132,46 @@ def to_gray(arr: np.ndarray, notes: list[str] | None = None, channels_last: bool
     return out
 
 
+class _QuietDecoders:
+    """While decoding, native libraries (libpng via OpenCV) and tifffile's logger stay silent.
+
+    A damaged file is reported once, as tracefit's own one-line error; libpng writes its own
+    complaint straight to file descriptor 2 and tifffile logs one, which would add lines
+    beside it. Descriptor 2 goes to /dev/null for the decode only.
+    """
+
+    def __enter__(self):
+        import logging
+        import sys
+
+        self._logger = logging.getLogger("tifffile")
+        self._level = self._logger.level
+        self._logger.setLevel(logging.CRITICAL)
+        self._saved = None
+        try:
+            sys.stderr.flush()
+            self._saved = os.dup(2)
+            devnull = os.open(os.devnull, os.O_WRONLY)
+            os.dup2(devnull, 2)
+            os.close(devnull)
+        except OSError:  # no real descriptor 2 (embedded interpreter): nothing to silence
+            self._saved = None
+        return self
+
+    def __exit__(self, *exc):
+        if self._saved is not None:
+            os.dup2(self._saved, 2)
+            os.close(self._saved)
+        self._logger.setLevel(self._level)
+        return False
+
+
 def _read_tiff(path: str, notes: list[str]) -> np.ndarray:
+    with _QuietDecoders():
+        return _read_tiff_quietly(path, notes)
+
+
+def _read_tiff_quietly(path: str, notes: list[str]) -> np.ndarray:
     import tifffile
 
     try:
@@ -232,7 +271,8 @@ def read_image(path: str | os.PathLike) -> tuple[np.ndarray, list[str]]:
     else:
         _check_complete(data, kind, p)
         buf = np.frombuffer(data, np.uint8)
-        arr = cv2.imdecode(buf, cv2.IMREAD_UNCHANGED)
+        with _QuietDecoders():
+            arr = cv2.imdecode(buf, cv2.IMREAD_UNCHANGED)
         del buf, data
         if arr is None:
             raise TracefitInputError(f"{p}: the {kind.upper()} file could not be decoded (damaged?); expected a valid image")
