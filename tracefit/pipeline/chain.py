@@ -192,10 +192,18 @@ def _centroids(labels: np.ndarray, ids: list[int]) -> dict[int, tuple[float, flo
 def _candidates(lattice, systems, modes, families):
     from tracefit.crystal import catalogue, filter_systems
 
+    # A single string is one mode or one family (list("twin") would be four letters); other types are
+    # refused by the catalogue's own checks.
+    modes = [modes] if isinstance(modes, str) else modes
+    families = [families] if isinstance(families, str) else families
+    modes = list(modes) if isinstance(modes, (list, tuple, set, frozenset)) else modes
+    families = list(families) if isinstance(families, (list, tuple, set, frozenset)) and families else (families or None)
     if systems is None:
-        systems = catalogue(lattice, modes=list(modes), families=list(families) if families else None)
+        systems = catalogue(lattice, modes=modes, families=families)
     else:
-        systems = filter_systems(list(systems), lattice, modes=list(modes), families=list(families) if families else None)
+        if isinstance(systems, (str, bytes)) or not hasattr(systems, "__iter__"):
+            raise TracefitInputError(f"systems must be a list of DeformationSystem, got {type(systems).__name__}")
+        systems = filter_systems(list(systems), lattice, modes=modes, families=families)
     if not systems:
         raise TracefitInputError(f"no candidate systems for this lattice with modes {', '.join(modes)}"
                                  + (f" and families {', '.join(families)}" if families else ""))
