@@ -771,8 +771,20 @@ def run_cli(n: int, seed: int, tally: Tally | None = None) -> Tally:
     return tally
 
 
+# Native messages printed while tracefit/image/io.py decodes a damaged picture (tifffile's logger,
+# OpenCV's PNG decoder); silencing them belongs in that module (issue 16, item 5).
+IMAGE_IO_NOISE = re.compile(r"<tifffile\.TiffFile|\[ WARN:[^]]*\] global grfmt_|libpng")
+
+
+def is_image_io_noise(failure: Failure) -> bool:
+    """The failure is only native noise from reading a damaged picture (tracefit/image/io.py)."""
+    return failure.kind.endswith(("stderr not one error line", "native noise")) and bool(IMAGE_IO_NOISE.search(failure.detail))
+
+
 def summary(title: str, tally: Tally, n_repro: int = 3) -> str:
-    lines = [f"{title}: {tally.calls} calls, {len(tally.failures)} failures"]
+    io_noise = sum(is_image_io_noise(f) for f in tally.failures)
+    lines = [f"{title}: {tally.calls} calls, {len(tally.failures)} failures"
+             + (f" ({io_noise} of them native noise while reading a damaged picture)" if io_noise else "")]
     for kind, count in tally.kinds().most_common():
         lines.append(f"  {count:6d}  {kind}")
         shown = [f for f in tally.failures if f.kind == kind][:n_repro]
