@@ -88,13 +88,7 @@ def predict(
     """
     from tracefit.predict import predict_traces
 
-    if (overlay is not None or canvas is not None) != (out is not None):
-        raise TracefitInputError("drawing needs a picture or canvas and a file: --overlay IMAGE --out OUT.png "
-                                 "or --canvas WIDTHxHEIGHT --out OUT.png")
-    if out is not None:
-        check_output_file(out, "--out")
-    if overlay is not None and canvas is not None:
-        raise TracefitInputError("give --overlay IMAGE or --canvas WIDTHxHEIGHT, not both")
+    _check_drawing(overlay, canvas, out)
     if (grains is None) != (orientations is None) or (grains is not None and overlay is None):
         raise TracefitInputError("--grains and --orientations go together, with --overlay IMAGE: the picture's label image and its orientation table")
     if not (orientation_sigma >= 0):
@@ -128,6 +122,17 @@ def predict(
         )
         return
     _print_table(lat, ori, frame, ld, traces, near_surface)
+
+
+def _check_drawing(overlay, canvas, out) -> None:
+    """Refuse an incomplete drawing request or an unwritable --out before any work."""
+    if (overlay is not None or canvas is not None) != (out is not None):
+        raise TracefitInputError("drawing needs a picture or canvas and a file: --overlay IMAGE --out OUT.png "
+                                 "or --canvas WIDTHxHEIGHT --out OUT.png")
+    if out is not None:
+        check_output_file(out, "--out")
+    if overlay is not None and canvas is not None:
+        raise TracefitInputError("give --overlay IMAGE or --canvas WIDTHxHEIGHT, not both")
 
 
 def _draw(traces, overlay, canvas, out, orientation_sigma, frame, k, labels=None) -> None:

@@ -86,7 +86,7 @@ class Lattice:
 
     def __post_init__(self):
         for k in ("a", "b", "c", "alpha", "beta", "gamma"):
-            object.__setattr__(self, k, real_number(getattr(self, k), k))
+            real_number(getattr(self, k), k)  # checked only: the values are kept as given
         for k in ("a", "b", "c"):
             v = getattr(self, k)
             if not v > 0:
