@@ -433,19 +433,134 @@ def gen_analyse(rng, nrng):
         kw["pixel_size_um"] = number(rng, 0.01, 5, hostile=0.6)
     if rng.random() < 0.2:
         kw["measured"] = observed_list(rng)
+    if rng.random() < 0.1:
+        kw["frame"] = pick(rng, ["image", 0.0, None, {}])
     return Case("analyse_image", f"tf.analyse_image({_r(img)}, {lat!r}, orientation={_r(g)}, **{kw!r})",
                 lambda: tf.analyse_image(img, lat, orientation=g, **kw))
+
+
+def frame_value(rng: random.Random) -> Any:
+    import tracefit as tf
+
+    kw: dict[str, Any] = {}
+    if rng.random() < 0.5:
+        kw["rotation_deg"] = number(rng, -360, 360, hostile=0.5)
+    if rng.random() < 0.3:
+        kw["flip_x"] = pick(rng, [True, False, 1, "yes", None])
+    if rng.random() < 0.3:
+        kw["tilt_deg"] = number(rng, -89, 89, hostile=0.5)
+    if rng.random() < 0.2:
+        kw["tilt_axis"] = pick(rng, ["x", "y", "z", "", None, 1])
+    return kw
+
+
+def gen_frame(rng):
+    import tracefit as tf
+
+    kw = frame_value(rng)
+    return Case("FrameSettings", f"tf.FrameSettings(**{kw!r})", lambda: tf.FrameSettings(**kw))
+
+
+def gen_format_index(rng):
+    import tracefit as tf
+
+    values = pick(rng, [[1, 1, 1], [1, 0, -1, 0], [0, 0, 0], [], [1.5, 1, 1], [huge_int(rng)] * 3, "111", None,
+                        [NAN, 1, 1], [1, 2], np.array([1, -1, 0]), [[1, 1, 1]], [True, 1, 0]])
+    kind = pick(rng, ["plane", "direction", "bogus", None])
+    fam = pick(rng, [False, True, "x"])
+    return Case("format_index", f"tf.format_index({_r(values)}, {kind!r}, family={fam!r})",
+                lambda: tf.format_index(values, kind, family=fam))
+
+
+def gen_identify_more(rng):
+    """identify with frames, per-grain orientation tables, CRSS and priors of odd kinds."""
+    import tracefit as tf
+
+    lat = some_lattice(rng)
+    obs = observed_list(rng)
+    kw: dict[str, Any] = {}
+    frame_kw = frame_value(rng)
+    try:
+        kw["frame"] = tf.FrameSettings(**frame_kw) if rng.random() < 0.7 else pick(rng, ["image", 3, {}, None])
+    except ValueError:
+        kw["frame"] = None
+    if rng.random() < 0.5:
+        grains = pick(rng, [None, 1, "A", -1, 2.5])
+        obs = [tf.ObservedFamily(o.angle_deg, grain=grains) if isinstance(o, tf.ObservedFamily) else o for o in obs]
+        kw["orientations"] = pick(rng, [{grains: orientation_value(rng)}, {}, {1: [1, 2, 3], 2: "x"}, [1, 2, 3],
+                                        {grains: np.eye(3)}, {grains: None}])
+    else:
+        kw["orientation"] = orientation_value(rng)
+    if rng.random() < 0.3:
+        kw["crss"] = pick(rng, [{"{111}<110>": 10.0}, {"{111}<110>": -1.0}, {"{111}<110>": NAN}, {"x": 1}, [1], "10"])
+        kw["load"] = pick(rng, ["y", None, [0, 1, 0]])
+    if rng.random() < 0.2:
+        kw["families"] = pick(rng, [["{111}"], "{111}", [], None, [3], ["{10-12}"]])
+    return Case("identify", f"tf.identify({obs!r}, {lat!r}, **{kw!r})", lambda: tf.identify(obs, lat, **kw))
+
+
+def gen_search(rng):
+    import tracefit as tf
+
+    lat = some_lattice(rng)
+    obs = observed_list(rng)
+    kw: dict[str, Any] = {"n_samples": pick(rng, [200, 0, -1, 1, 2.5, "x", 50]), "n_seeds": pick(rng, [4, 0, 1, -3])}
+    if rng.random() < 0.3:
+        kw["known_direction"] = pick(rng, [[1, 1, 0], [0, 0, 0], "110", [1, 2], None])
+        kw["known_axis"] = pick(rng, [[0, 0, 1], [0, 0, 0], [NAN, 0, 1], "z", None])
+    if rng.random() < 0.2:
+        kw["direction_tol_deg"] = number(rng, 0, 10, hostile=0.6)
+    if rng.random() < 0.2:
+        kw["max_solutions"] = pick(rng, [0, 1, -1, 8, 10**9])
+
+    def call():
+        return tf.search_orientations(obs, lat, tf.catalogue(lat), **kw)
+
+    return Case("search_orientations", f"tf.search_orientations({obs!r}, {lat!r}, tf.catalogue(lat), **{kw!r})", call)
+
+
+def gen_detect_edges(rng, nrng):
+    """detect_bands just above the size limit, with masks, labels and grains of odd kinds."""
+    import tracefit as tf
+
+    h, w = pick(rng, [(16, 16), (16, 300), (300, 16), (17, 19), (24, 24), (40, 33)])
+    img = lined_image(nrng, h, w)
+    roll = rng.random()
+    if roll < 0.2:
+        img = np.dstack([img] * pick(rng, [2, 3, 4]))
+    elif roll < 0.4:
+        img = img.astype(pick(rng, ["uint16", "float32", "bool", "int64", "float16"]))
+    elif roll < 0.5:
+        img = img.astype(float)
+        img[: h // 2] = pick(rng, [NAN, INF, -INF])
+    kw: dict[str, Any] = {}
+    if rng.random() < 0.3:
+        kw["mask"] = pick(rng, [np.ones((h, w), bool), np.zeros((h, w), bool), np.ones((h, w), np.uint8) * 255,
+                                np.ones((w, h), bool), np.eye(h, w, dtype=bool)])
+    if rng.random() < 0.3:
+        lab = np.ones((h, w), np.int32)
+        lab[:, w // 2:] = 2
+        kw["labels"] = pick(rng, [lab, lab.astype(float), lab[:-1], -lab, np.zeros((h, w), np.int32)])
+        kw["grain"] = pick(rng, [1, 2, 3, 0, -1, "1", None, 1.5])
+    if rng.random() < 0.2:
+        name, make = pick(rng, DETECT_OPTIONS)
+        kw[name] = make(rng)
+    return Case("detect_bands", f"tf.detect_bands({_r(img)}, **{ {k: _r(v) for k, v in kw.items()} })",
+                lambda: tf.detect_bands(img, **kw))
 
 
 # Relative weights: cheap geometry calls dominate, image calls are few (they cost milliseconds).
 LIBRARY_GENERATORS: list[tuple[str, float, bool]] = [
     ("lattice", 10, False), ("orientation", 10, False), ("load", 8, False), ("catalogue", 10, False),
     ("parse_index", 14, False), ("predict", 8, False), ("identify", 20, False), ("two_traces", 8, False),
-    ("check_options", 8, False), ("observed", 5, False), ("detect", 3, True), ("analyse", 1.2, True),
+    ("check_options", 8, False), ("observed", 5, False), ("frame", 4, False), ("format_index", 4, False),
+    ("identify_more", 10, False), ("search", 0.5, False), ("detect_edges", 1.5, True), ("detect", 3, True), ("analyse", 1.2, True),
 ]
 _GEN = {"lattice": gen_lattice, "orientation": gen_orientation, "load": gen_load, "catalogue": gen_catalogue,
         "parse_index": gen_parse_index, "predict": gen_predict, "identify": gen_identify,
-        "two_traces": gen_two_traces, "check_options": gen_check_options, "observed": gen_observed, "detect": gen_detect,
+        "two_traces": gen_two_traces, "check_options": gen_check_options, "observed": gen_observed,
+        "frame": gen_frame, "format_index": gen_format_index, "identify_more": gen_identify_more, "search": gen_search,
+        "detect_edges": gen_detect_edges, "detect": gen_detect,
         "analyse": gen_analyse}
 
 

@@ -54,6 +54,34 @@ def test_bad_input_raises_input_error_naming_the_parameter(call, name):
         call()
 
 
+@pytest.mark.parametrize("values", [None, "111", [1.5, 1, 1], [float("nan"), 1, 1], [1, 2], [True, 1, 0]])
+def test_format_index_refuses_what_is_not_whole_numbers(values):
+    # [1.5, 1, 1] printed "(111)" before (silent truncation); None and NaN raised raw errors.
+    with pytest.raises(TracefitInputError, match="values"):
+        tf.format_index(values, "plane")
+
+
+def test_format_index_keeps_whole_floats_and_numpy_ints():
+    assert tf.format_index([1.0, -1.0, 0.0], "plane") == tf.format_index(np.array([1, -1, 0]), "plane")
+
+
+def test_identify_grain_table_must_be_a_mapping_and_frame_a_frame_settings():
+    lat = tf.Lattice.fcc()
+    with pytest.raises(TracefitInputError, match="orientations"):
+        tf.identify([30.0], lat, orientations=[1, 2, 3])
+    with pytest.raises(TracefitInputError, match="frame"):
+        tf.identify([30.0], lat, orientation=tf.Orientation.from_euler([1, 2, 3]), frame="image")
+    with pytest.raises(TracefitInputError, match="frame"):
+        tf.analyse_image(np.zeros((32, 32), np.uint8), lat, orientation=tf.Orientation.from_euler([1, 2, 3]), frame=0.0)
+
+
+def test_identify_grain_table_with_bare_angles():
+    # The frame check of a grain map read .grain of every item: bare angles crashed there.
+    g = tf.Orientation.from_euler([1, 2, 3])
+    res = tf.identify([30.0, tf.ObservedFamily(60.0, grain=1)], tf.Lattice.fcc(), orientations={1: g})
+    assert len(res.families) == 2 and res.families[1].grain == 1
+
+
 def test_matrix_tolerance_nan_does_not_accept_a_non_rotation():
     # NaN compared false against every deviation, so any matrix passed before.
     with pytest.raises(TracefitInputError):
