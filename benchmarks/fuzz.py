@@ -684,6 +684,14 @@ def make_files(folder: Path) -> dict[str, Path]:
     f["job_bad"].write_text(
         'format = 1\n[[image]]\nname = "a"\nfile = "good.png"\nlattice = "fcc"\neuler_deg = [10.0, 20.0, 30.0]\n'
         'detect = { min_bands = "three" }\nmatch = { p_none = 2.0 }\n')
+    # Option tables of the job file with one bad value each (issue 16, item 3): refused as a job-file error.
+    for i, table in enumerate(['detect = { min_bands = 0 }', 'detect = { working_size = 0 }', 'detect = { scales = [] }',
+                               'detect = { max_families = 0 }', 'detect = { min_bands = -5 }', 'match = { p_none = 2.0 }',
+                               'match = { p_none = "x" }', 'detect = { bogus = 1 }', 'detect = { min_depth = nan }']):
+        f[f"job_table{i}"] = folder / f"job_table{i}.toml"
+        f[f"job_table{i}"].write_text(
+            'format = 1\n[[image]]\nname = "a"\nfile = "good.png"\nlattice = "fcc"\neuler_deg = [10.0, 20.0, 30.0]\n'
+            + table + "\n")
     f["job_garbage"] = folder / "job_garbage.toml"
     f["job_garbage"].write_text("this is = = not toml [[[\n")
     f["job_missing_img"] = folder / "job_missing.toml"
@@ -783,6 +791,7 @@ def cli_cases(rng: random.Random, files: dict[str, Path], out: Path) -> list[tup
         (["map-grains", pick(rng, [F["ang"], F["missing"], F["png"], F["text_png"], F["dir_png"]]), *j], "any"),
         (["survey", F["job"], "--out", o, "-w", "1", "-q", *j], "good"),
         (["survey", pick(rng, [F["job_bad"], F["job_garbage"], F["missing"], F["png"], F["dir_png"]]), "--out", o, "-w", "1", "-q", *j], "bad"),
+        (["survey", F[f"job_table{rng.randrange(9)}"], "--out", o, "-w", "1", "-q", *j], "bad"),
         (["survey", F["job_missing_img"], "--out", o, "-w", "1", "-q", *j], "any"),
         (["survey", F["job"], "--out", F["existing_file"], "-w", "1", "-q", *j], "bad"),
         (["survey", F["job"], "--out", o, "-w", pick(rng, ["0", "-1", "abc", "1e9"]), "-q", *j], "any"),

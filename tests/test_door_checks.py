@@ -186,3 +186,15 @@ def test_cli_bad_input_error_is_not_buried_under_warnings(run_cli):
     assert err.strip().splitlines() == [err.strip()] and err.startswith("tracefit: error:"), err
     code, _out, err = run_cli("predict", "-l", "hcp", "-e", "1,2,3")
     assert code == 0 and "tracefit: warning: no c/a given" in err
+
+
+@pytest.mark.parametrize("direction, axis, name", [
+    ([1, 1, 0], [0, 0, 0], "known_axis"),      # zero axis: scipy's 'zero norm quaternions' before
+    ([1, 1, 0], [float("nan"), 0, 1], "known_axis"),
+    ("110", [0, 0, 1], "direction"),            # a bare string: IndexError before
+])
+def test_search_orientations_known_direction_checked(direction, axis, name):
+    lat = tf.Lattice.fcc()
+    with pytest.raises(TracefitInputError, match=name):
+        tf.search_orientations([10.0, 50.0, 120.0], lat, tf.catalogue(lat), known_direction=direction, known_axis=axis,
+                               n_samples=100, n_seeds=2)

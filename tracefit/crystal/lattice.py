@@ -22,7 +22,7 @@ from numpy.typing import ArrayLike
 
 from tracefit.conventions import miller_bravais_to_miller, miller_to_miller_bravais, rotation_z
 from tracefit.crystal.symmetry import proper_rotations as symmetry_rotations
-from tracefit.errors import TracefitInputError, real_number
+from tracefit.errors import TracefitInputError, real_array, real_number
 
 __all__ = [
     "Lattice",
@@ -295,7 +295,9 @@ class Lattice:
 
     # ----------------------------------------------------------------- vectors
     def _three(self, idx, kind: str) -> np.ndarray:
-        v = np.asarray(idx, dtype=float)
+        v = real_array(idx, kind)
+        if v.ndim == 0:
+            raise TracefitInputError(f"a {kind} needs 3 (or, hexagonal, 4) indices, got {idx!r}")
         if v.shape[-1] == 4:
             if not self.is_hexagonal:
                 raise TracefitInputError(f"four-index {kind} given for a non-hexagonal lattice ({self.name})")
