@@ -677,21 +677,18 @@ def make_files(folder: Path) -> dict[str, Path]:
     f["measured_bad"].write_text("angle_deg\nabc\n\n1e400\n")
     f["points"] = folder / "points.csv"
     f["points"].write_text("image_x,image_y,map_x,map_y\n1,1,1,1\n2,2,2,2\n")
+    job_head = 'format = 1\n[[image]]\nname = "a"\nfile = "good.png"\nlattice = "fcc"\neuler_deg = [10.0, 20.0, 30.0]\n'
     f["job"] = folder / "job.toml"
-    f["job"].write_text(
-        'format = 1\n[[image]]\nname = "a"\nfile = "good.png"\nlattice = "fcc"\neuler_deg = [10.0, 20.0, 30.0]\n')
+    f["job"].write_text(job_head)
     f["job_bad"] = folder / "job_bad.toml"
     f["job_bad"].write_text(
-        'format = 1\n[[image]]\nname = "a"\nfile = "good.png"\nlattice = "fcc"\neuler_deg = [10.0, 20.0, 30.0]\n'
-        'detect = { min_bands = "three" }\nmatch = { p_none = 2.0 }\n')
+        job_head + 'detect = { min_bands = "three" }\nmatch = { p_none = 2.0 }\n')
     # Option tables of the job file with one bad value each (issue 16, item 3): refused as a job-file error.
     for i, table in enumerate(['detect = { min_bands = 0 }', 'detect = { working_size = 0 }', 'detect = { scales = [] }',
                                'detect = { max_families = 0 }', 'detect = { min_bands = -5 }', 'match = { p_none = 2.0 }',
                                'match = { p_none = "x" }', 'detect = { bogus = 1 }', 'detect = { min_depth = nan }']):
         f[f"job_table{i}"] = folder / f"job_table{i}.toml"
-        f[f"job_table{i}"].write_text(
-            'format = 1\n[[image]]\nname = "a"\nfile = "good.png"\nlattice = "fcc"\neuler_deg = [10.0, 20.0, 30.0]\n'
-            + table + "\n")
+        f[f"job_table{i}"].write_text(job_head + table + "\n")
     f["job_garbage"] = folder / "job_garbage.toml"
     f["job_garbage"].write_text("this is = = not toml [[[\n")
     f["job_missing_img"] = folder / "job_missing.toml"
