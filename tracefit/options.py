@@ -164,8 +164,12 @@ class Option:
                 ok = False
             if isinstance(value, bool) or not ok:
                 raise OptionError(self.name, f"{self.name} must be {what}{self._range()}, got {value!r}")
-        v = int(value) if whole else float(value)
-        if not math.isfinite(v) or not self._in_range(v):
+        try:
+            v = int(value) if whole else float(value)
+            finite = math.isfinite(v)  # an int beyond float range overflows here
+        except OverflowError:
+            raise OptionError(self.name, f"{self.name} must be {what}{self._range()}, got {value!r:.40}") from None
+        if not finite or not self._in_range(v):
             raise OptionError(self.name, f"{self.name} must be {what}{self._range()}, got {value!r}")
         return v
 
@@ -317,7 +321,12 @@ def check_options(values: dict[str, Any], group: str | tuple[str, ...]) -> dict[
     ...
     tracefit.options.OptionError: unknown identify setting 'p_nnoe' (did you mean 'p_none'?)
     """
-    groups = (group,) if isinstance(group, str) else tuple(group)
+    groups = (group,) if isinstance(group, str) else tuple(group) if isinstance(group, (tuple, list)) else ()
+    unknown = [g for g in groups if g not in GROUPS]
+    if not groups or unknown:
+        raise TracefitInputError(f"group must be one of {', '.join(GROUPS)} or a tuple of them, got {group!r}")
+    if not isinstance(values, dict):
+        raise TracefitInputError(f"values must be a dict of setting name -> value, got {type(values).__name__}")
     out = {}
     for name, value in values.items():
         opt = _BY_NAME.get(name)

@@ -21,6 +21,7 @@ import typer
 from tracefit.errors import TracefitInputError
 
 __all__ = [
+    "check_output_file",
     "LatticeOpt",
     "CoverAOpt",
     "HexSettingOpt",
@@ -347,6 +348,52 @@ def lattice_dict(lattice) -> dict:
 
 
 # ------------------------------------------------------------------ output
+#: Picture formats the drawing commands can write (OpenCV's writers, chosen by suffix).
+PICTURE_SUFFIXES = (".png", ".jpg", ".jpeg", ".tif", ".tiff", ".bmp")
+
+
+def check_output_file(path, flag: str, suffixes: tuple[str, ...] = PICTURE_SUFFIXES) -> None:
+    """Refuse an output file that cannot be written, before any work is done.
+
+    Checked at the door so a bad path gives one error line, not a finished analysis followed by
+    an error (or a native library's message).
+
+    Parameters
+    ----------
+    path : str or Path
+        The file to be written.
+    flag : str
+        The option that named it, for the message (e.g. ``"--overlay"``).
+    suffixes : tuple of str
+        Accepted suffixes (lower case).
+
+    Raises
+    ------
+    TracefitInputError
+        Unknown suffix, a folder, a missing or read-only parent folder.
+
+    Examples
+    --------
+    >>> check_output_file("out.xyz", "--overlay")
+    Traceback (most recent call last):
+    ...
+    tracefit.errors.TracefitInputError: --overlay out.xyz: unknown picture type '.xyz'; expected .png, .jpg, .jpeg, .tif, .tiff or .bmp
+    """
+    import os
+
+    p = Path(path)
+    kinds = ", ".join(suffixes[:-1]) + " or " + suffixes[-1]
+    if p.is_dir():
+        raise TracefitInputError(f"{flag} {p}: is a folder; expected a file name ending in {kinds}")
+    if p.suffix.lower() not in suffixes:
+        raise TracefitInputError(f"{flag} {p}: unknown picture type {p.suffix or '(none)'!r}; expected {kinds}")
+    parent = p.parent if str(p.parent) else Path(".")
+    if not parent.is_dir():
+        raise TracefitInputError(f"{flag} {p}: the folder {parent} does not exist")
+    if not os.access(parent, os.W_OK | os.X_OK):
+        raise TracefitInputError(f"{flag} {p}: the folder {parent} is not writable")
+
+
 @contextlib.contextmanager
 def cli_warnings():
     """Collect Python warnings and print each as one ``tracefit: warning:`` line on stderr."""
@@ -354,6 +401,11 @@ def cli_warnings():
         warnings.simplefilter("always")
         try:
             yield
+        except TracefitInputError:
+            # Bad input ends the command with one error line; warnings about the refused run would
+            # only bury it.
+            caught.clear()
+            raise
         finally:
             seen = set()
             for w in caught:

@@ -11,6 +11,7 @@ from typing import Optional
 import typer
 
 from tracefit.cli import app
+from tracefit.cli.common import check_output_file
 from tracefit.errors import TracefitInputError
 from tracefit.options import option
 
@@ -64,6 +65,8 @@ def detect_command(
 
     if pixel_size is not None and not (pixel_size > 0 and math.isfinite(pixel_size)):
         raise TracefitInputError(f"--pixel-size {pixel_size!r}: expected a positive number of micrometres per pixel")
+    if overlay:
+        check_output_file(overlay, "--overlay")
     gray, notes = read_image(image)
     m = read_mask(mask, gray.shape) if mask else None
     lo, hi = float(gray.min()), float(gray.max())

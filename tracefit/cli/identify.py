@@ -10,6 +10,7 @@ import typer
 
 from tracefit.cli import app
 from tracefit.cli.common import (
+    check_output_file,
     AlignOpt,
     AxisAngleOpt,
     CompressionOpt,
@@ -170,6 +171,8 @@ def identify(
                                      "or --measured FILE.csv")
         if image is None and overlay is not None:
             raise TracefitInputError("--overlay draws on IMAGE; without an image use tracefit predict --canvas WxH --out OUT.png")
+        if overlay is not None:
+            check_output_file(overlay, "--overlay")
         if per_grain and m_obs and any(o.grain is None for o in m_obs):
             raise TracefitInputError("with --orientations every measured trace needs a grain id (the CSV's grain column); "
                                      "--angle and --crack give none")

@@ -10,6 +10,7 @@ import typer
 
 from tracefit.cli import app
 from tracefit.cli.common import (
+    check_output_file,
     AlignOpt,
     AxisAngleOpt,
     CompressionOpt,
@@ -87,11 +88,7 @@ def predict(
     """
     from tracefit.predict import predict_traces
 
-    if (overlay is not None or canvas is not None) != (out is not None):
-        raise TracefitInputError("drawing needs a picture or canvas and a file: --overlay IMAGE --out OUT.png "
-                                 "or --canvas WIDTHxHEIGHT --out OUT.png")
-    if overlay is not None and canvas is not None:
-        raise TracefitInputError("give --overlay IMAGE or --canvas WIDTHxHEIGHT, not both")
+    _check_drawing(overlay, canvas, out)
     if (grains is None) != (orientations is None) or (grains is not None and overlay is None):
         raise TracefitInputError("--grains and --orientations go together, with --overlay IMAGE: the picture's label image and its orientation table")
     if not (orientation_sigma >= 0):
@@ -125,6 +122,17 @@ def predict(
         )
         return
     _print_table(lat, ori, frame, ld, traces, near_surface)
+
+
+def _check_drawing(overlay, canvas, out) -> None:
+    """Refuse an incomplete drawing request or an unwritable --out before any work."""
+    if (overlay is not None or canvas is not None) != (out is not None):
+        raise TracefitInputError("drawing needs a picture or canvas and a file: --overlay IMAGE --out OUT.png "
+                                 "or --canvas WIDTHxHEIGHT --out OUT.png")
+    if out is not None:
+        check_output_file(out, "--out")
+    if overlay is not None and canvas is not None:
+        raise TracefitInputError("give --overlay IMAGE or --canvas WIDTHxHEIGHT, not both")
 
 
 def _draw(traces, overlay, canvas, out, orientation_sigma, frame, k, labels=None) -> None:
@@ -191,14 +199,18 @@ def _print_table(lat, ori, frame, ld, traces, near_surface) -> None:
         parts.append("flipped " + "+".join(a for a, f in (("x", frame.flip_x), ("y", frame.flip_y)) if f))
     if frame.tilt_deg:
         parts.append(f"tilt {frame.tilt_deg:g} deg about image {frame.tilt_axis}")
-    if ld is not None:
+    stress = ld is not None and ld.is_stress
+    if stress:
+        parts.append(f"stress {', '.join(f'{x:g}' for x in ld.to_dict()['voigt_mpa'])} MPa (Voigt, {ld.frame} frame)")
+    elif ld is not None:
         parts.append(f"{ld.sense} along {ld.label}")
     typer.echo(head + ("; " + ", ".join(parts) if parts else ""))
     typer.echo("angles in the image frame, degrees counterclockwise from the image x axis (right)")
     with_m = ld is not None
     cols = f"{'angle':>7}  {'incl':>5}  {'plane':<12} {'family':<10} {'modes':<10}"
     with_sigma = with_m and any(s.activation_stress is not None for t in traces for s in t.systems)
-    cols += f" {'best m':>7}  best system" if with_m else "  systems"
+    # A stress load ranks by resolved shear stress (MPa); an axis load by Schmid factor.
+    cols += f" {'tau MPa' if stress else 'best m':>7}  best system" if with_m else "  systems"
     if with_sigma:
         cols += "  (activation stress)"
     typer.echo(cols)
@@ -207,7 +219,9 @@ def _print_table(lat, ori, frame, ld, traces, near_surface) -> None:
         row = f"{t.angle_deg:7.2f}  {t.inclination_deg:5.1f}  {plane:<12} {t.family:<10} {','.join(t.modes):<10}"
         if with_m:
             best = t.systems[0]
-            row += f" {best.schmid_factor:7.3f}  {format_index(best.direction, 'direction')} {best.mode}"
+            value = best.resolved_shear if stress else best.schmid_factor
+            row += (f" {value:7.3f}" if value is not None else f" {'-':>7}")
+            row += f"  {format_index(best.direction, 'direction')} {best.mode}"
             if with_sigma and best.activation_stress is not None:
                 row += f"  ({best.activation_stress:.4g})"
         else:
@@ -217,5 +231,7 @@ def _print_table(lat, ori, frame, ld, traces, near_surface) -> None:
         typer.echo(row)
     if frame.tilt_deg:
         typer.echo("angle = apparent angle under tilt; --json also gives true_angle_deg")
-    if with_m:
+    if stress:
+        typer.echo("tau: resolved shear stress on the system, MPa (twins signed: <= 0 cannot form the twin)")
+    elif with_m:
         typer.echo("m: Schmid factor; slip |m|, twins signed (<= 0: this load cannot form the twin)")

@@ -236,6 +236,8 @@ def filter_systems(systems: Sequence[DeformationSystem], lattice: Lattice | None
         return kept
     if isinstance(families, str):
         families = [families]
+    if not isinstance(families, (list, tuple, set, frozenset)) or not all(isinstance(f, str) for f in families):
+        raise TracefitInputError(f"families must be a family label such as '{{111}}' or a list of them, got {families!r}")
     chosen: list[DeformationSystem] = []
     for label in families:
         hits = _match(kept, lattice, label)
@@ -291,6 +293,8 @@ def _match(systems, lattice, label):
 def _check_modes(modes):
     if isinstance(modes, str):
         modes = (modes,)
+    if not isinstance(modes, (list, tuple, set, frozenset)) or not all(isinstance(m, str) for m in modes):
+        raise TracefitInputError(f"modes must be 'slip', 'twin' or a list of them, got {modes!r}")
     modes = tuple(m.strip().lower() for m in modes)
     bad = [m for m in modes if m not in MODES]
     if bad:

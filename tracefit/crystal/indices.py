@@ -28,6 +28,7 @@ indices on the hexagonal a1, a2, c cell) and other lattices reject four.
 
 from __future__ import annotations
 
+import math
 import re
 from collections.abc import Sequence
 from dataclasses import dataclass
@@ -340,7 +341,7 @@ def format_index(values: Sequence[int], kind: str = "plane", family: bool = Fals
     """
     if kind not in ("plane", "direction"):
         raise TracefitInputError(f"kind must be 'plane' or 'direction', not {kind!r}")
-    vals = [int(v) for v in values]
+    vals = _whole_numbers(values)
     opening = _OPEN_FOR[(kind, bool(family))]
     closing = BRACKETS[opening][0]
     if any(abs(v) > 9 for v in vals):
@@ -348,3 +349,17 @@ def format_index(values: Sequence[int], kind: str = "plane", family: bool = Fals
     else:
         body = "".join(str(v) for v in vals)
     return f"{opening}{body}{closing}"
+
+
+def _whole_numbers(values) -> list[int]:
+    """``values`` as 3 or 4 whole numbers; anything else is an input error (no silent truncation)."""
+    import numbers
+
+    if isinstance(values, (str, bytes)) or not hasattr(values, "__iter__"):
+        raise TracefitInputError(f"values must be 3 or 4 whole numbers, got {values!r}")
+    vals = list(values)
+    ok = len(vals) in (3, 4) and all(
+        isinstance(v, numbers.Real) and not isinstance(v, bool) and math.isfinite(v) and float(v) == int(v) for v in vals)
+    if not ok:
+        raise TracefitInputError(f"values must be 3 or 4 whole numbers, got {values!r}")
+    return [int(v) for v in vals]

@@ -22,7 +22,7 @@ from numpy.typing import ArrayLike
 
 from tracefit.conventions import miller_bravais_to_miller, miller_to_miller_bravais, rotation_z
 from tracefit.crystal.symmetry import proper_rotations as symmetry_rotations
-from tracefit.errors import TracefitInputError
+from tracefit.errors import TracefitInputError, real_array, real_number
 
 __all__ = [
     "Lattice",
@@ -85,21 +85,28 @@ class Lattice:
     _cache: dict = field(default_factory=dict, repr=False, compare=False, hash=False)
 
     def __post_init__(self):
+        for k in ("a", "b", "c", "alpha", "beta", "gamma"):
+            real_number(getattr(self, k), k)  # checked only: the values are kept as given
         for k in ("a", "b", "c"):
             v = getattr(self, k)
-            if not (np.isfinite(v) and v > 0):
+            if not v > 0:
                 raise TracefitInputError(f"lattice parameter {k} must be a positive number, got {v!r}")
+        # Edges far apart in size overflow the metric tensor (and are no crystal).
+        if max(self.a, self.b, self.c) / min(self.a, self.b, self.c) > 1e6:
+            raise TracefitInputError(
+                f"lattice parameters a, b, c differ by more than a factor 1e6: {self.a!r}, {self.b!r}, {self.c!r}"
+            )
         for k in ("alpha", "beta", "gamma"):
             v = getattr(self, k)
-            if not (np.isfinite(v) and 0 < v < 180):
+            if not (0 < v < 180):
                 raise TracefitInputError(f"lattice angle {k} must lie strictly between 0 and 180 deg, got {v!r}")
-        if self.hex_setting not in HEX_SETTINGS:
+        if not isinstance(self.hex_setting, str) or self.hex_setting not in HEX_SETTINGS:
             raise TracefitInputError(
                 f"hexagonal setting must be one of {', '.join(HEX_SETTINGS)}, got {self.hex_setting!r}"
             )
         if self.laue is None:
             object.__setattr__(self, "laue", self._infer_laue())
-        elif self.laue not in LAUE_CLASSES:
+        elif not isinstance(self.laue, str) or self.laue not in LAUE_CLASSES:
             raise TracefitInputError(f"unknown Laue class {self.laue!r}; use one of {', '.join(LAUE_CLASSES)}")
         # Cell volume must be real (the three angles must be able to close a cell).
         ca, cb, cg = (math.cos(math.radians(x)) for x in (self.alpha, self.beta, self.gamma))
@@ -288,7 +295,9 @@ class Lattice:
 
     # ----------------------------------------------------------------- vectors
     def _three(self, idx, kind: str) -> np.ndarray:
-        v = np.asarray(idx, dtype=float)
+        v = real_array(idx, kind)
+        if v.ndim == 0:
+            raise TracefitInputError(f"a {kind} needs 3 (or, hexagonal, 4) indices, got {idx!r}")
         if v.shape[-1] == 4:
             if not self.is_hexagonal:
                 raise TracefitInputError(f"four-index {kind} given for a non-hexagonal lattice ({self.name})")
@@ -411,6 +420,7 @@ def _check_c_over_a(c_over_a, required: str | None = None) -> float | None:
 
 def _hcp(c_over_a, a: float, hex_setting: str, stacklevel: int) -> Lattice:
     c_over_a = _check_c_over_a(c_over_a)
+    a = real_number(a, "a")
     if c_over_a is None:
         warnings.warn(
             f"no c/a given for hcp: using the ideal {IDEAL_C_OVER_A:.3f}; real metals differ "

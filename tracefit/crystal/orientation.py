@@ -44,7 +44,7 @@ from tracefit.crystal.orientation_input import (
     parse_quaternion,
     parse_vector,
 )
-from tracefit.errors import TracefitInputError
+from tracefit.errors import TracefitInputError, real_array
 
 if TYPE_CHECKING:  # names used in annotations only
     from tracefit.crystal.lattice import Lattice
@@ -72,7 +72,7 @@ __all__ = [
 
 # ------------------------------------------------------------------ Euler angles
 def _euler_array(euler, name: str) -> np.ndarray:
-    e = np.asarray(euler, dtype=float)
+    e = real_array(euler, name, finite=False)
     if e.shape[-1:] != (3,):
         raise TracefitInputError(f"{name} must have 3 angles (phi1, Phi, phi2) per orientation, got shape {e.shape}")
     if not np.all(np.isfinite(e)):
@@ -349,7 +349,7 @@ class Orientation:
         >>> np.round(Orientation.from_quaternion([1, 0, 0, 0]).as_euler(), 6).tolist()
         [0.0, 0.0, 0.0]
         """
-        qa = np.asarray(q, dtype=float)
+        qa = real_array(q, "q", finite=False)
         _batch(qa, 1, "q", "4 components (q0, q1, q2, q3)")
         return cls._trusted(from_quaternion(qa))
 

@@ -20,7 +20,7 @@ from __future__ import annotations
 import numpy as np
 from numpy.typing import ArrayLike
 
-from tracefit.errors import TracefitInputError
+from tracefit.errors import TracefitInputError, real_array, real_number
 
 __all__ = [
     "from_quaternion",
@@ -170,7 +170,10 @@ def from_matrix(m: ArrayLike, tol: float = 1e-3) -> np.ndarray:
     >>> np.round(from_matrix([[0, 1, 0], [-1, 0, 0], [0, 0, 1.0001]]), 3).tolist()
     [[0.0, 1.0, 0.0], [-1.0, 0.0, 0.0], [0.0, 0.0, 1.0]]
     """
-    m = np.asarray(m, dtype=float)
+    m = real_array(m, "matrix", finite=False)
+    tol = real_number(tol, "tol")
+    if tol < 0:
+        raise TracefitInputError(f"tol must be >= 0, got {tol!r}")
     if m.shape[-2:] != (3, 3):
         raise TracefitInputError(f"an orientation matrix must be 3 x 3 (nine numbers), got shape {m.shape}")
     if not np.all(np.isfinite(m)):
@@ -321,7 +324,7 @@ def sample_to_crystal(g: ArrayLike, v_sample: ArrayLike) -> np.ndarray:
 
 
 def _matrix_array(g, name: str) -> np.ndarray:
-    g = np.asarray(g, dtype=float)
+    g = real_array(g, name, finite=False)
     if g.shape[-2:] != (3, 3):
         raise TracefitInputError(f"{name} must hold 3 x 3 orientation matrices, shape (..., 3, 3), got {g.shape}")
     return g

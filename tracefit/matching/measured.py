@@ -30,6 +30,7 @@ from tracefit.errors import TracefitInputError
 from tracefit.matching.assign import identify_families, identify_grains
 from tracefit.matching.candidates import CandidateSet, as_candidate_set, predict_candidates
 from tracefit.matching.checks import check_sigma, orientation_matrix, orientation_table
+from tracefit.matching.observed import as_observed
 from tracefit.matching.likelihood import family_log_weights, predicted_trace_sigma
 from tracefit.matching.observed import ObservedFamily
 from tracefit.matching.results import FamilyIdentification
@@ -531,7 +532,7 @@ def identify_observed(
         g = orientation_matrix(g, "g")
     else:
         orientations = orientation_table(orientations)
-    obs = list(observed)
+    obs = as_observed(observed)  # plain angles become families; anything else is refused here
     if not obs:
         return []
     cands = as_candidate_set(systems, modes, families)

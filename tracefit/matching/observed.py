@@ -9,7 +9,7 @@ from typing import Any, Iterable
 import numpy as np
 
 from tracefit.conventions import fold_axial
-from tracefit.errors import TracefitInputError
+from tracefit.errors import TracefitInputError, real_number
 
 __all__ = ["ObservedFamily", "observed_from_detection", "as_observed"]
 
@@ -62,8 +62,8 @@ class ObservedFamily:
     boundary_continuation: float | None = None
 
     def __post_init__(self):
-        a = float(self.angle_deg)
-        s = float(self.angle_sigma_deg)
+        a = real_number(self.angle_deg, "angle_deg", finite=False)
+        s = real_number(self.angle_sigma_deg, "angle_sigma_deg", finite=False)
         if not math.isfinite(a):
             raise TracefitInputError(f"a family angle must be a finite number of degrees, got {self.angle_deg!r}")
         if not (math.isfinite(s) and s >= 0):

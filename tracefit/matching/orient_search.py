@@ -31,7 +31,7 @@ from scipy.spatial.transform import Rotation
 
 from tracefit.conventions import FrameSettings, axial_difference
 from tracefit.crystal import proper_rotations
-from tracefit.errors import TracefitInputError
+from tracefit.errors import TracefitInputError, real_array
 from tracefit.matching.assign import identify_families
 from tracefit.matching.candidates import as_candidate_set, candidate_set, predict_candidates
 from tracefit.matching.checks import check_fraction, orientation_matrix
@@ -207,6 +207,16 @@ class _Scorer:
         if best_only:
             return np.maximum(ll.max(axis=2), self.lnone).sum(axis=1)
         return mixture_log_evidence(ll, self.lnone, axis=2).sum(axis=1)
+
+
+def _known_axis(known_axis) -> np.ndarray:
+    """The sample axis of a known direction: 3 finite numbers, not all zero (default x)."""
+    if known_axis is None:
+        return np.array([1.0, 0.0, 0.0])
+    axis = real_array(known_axis, "known_axis")
+    if axis.shape != (3,) or not np.linalg.norm(axis) > 0:
+        raise TracefitInputError(f"known_axis must be 3 numbers, not all zero, got {known_axis!r}")
+    return axis
 
 
 def _constraint_family(lattice, direction, axis, n_steps):
@@ -499,7 +509,7 @@ def search_orientations(
     S = proper_rotations(lattice)
     known = None
     if known_direction is not None:
-        axis = np.array([1.0, 0.0, 0.0]) if known_axis is None else np.asarray(known_axis, float)
+        axis = _known_axis(known_axis)
         G, dvec = _constraint_family(lattice, known_direction, axis, 1440)
         known = _KnownDirection(dvec, axis / np.linalg.norm(axis), float(direction_tol_deg))
     else:

@@ -28,7 +28,7 @@ import numpy as np
 from scipy.spatial.transform import Rotation
 
 from tracefit.conventions import FrameSettings, data_to_image_matrix, fold_axial
-from tracefit.errors import TracefitInputError
+from tracefit.errors import TracefitInputError, real_number
 from tracefit.matching.candidates import CandidateSet, as_candidate_set
 from tracefit.matching.checks import check_fraction, check_sigma, orientation_matrix
 from tracefit.matching.likelihood import DEFAULT_P_NONE, candidate_log_prior, logsumexp, none_log_density
@@ -255,13 +255,15 @@ def plane_from_two_traces(face1_deg: float, face2_deg: float, geom: FaceGeometry
     >>> np.round(n, 3).tolist(), round(s, 3)
     ([0.577, 0.577, 0.577], 0.667)
     """
-    for name, v in (("face1_deg", face1_deg), ("face2_deg", face2_deg), ("sigma1_deg", sigma1_deg), ("sigma2_deg", sigma2_deg)):
-        try:
-            ok = math.isfinite(float(v))
-        except (TypeError, ValueError):
-            ok = False
-        if not ok:
-            raise TracefitInputError(f"{name} must be a finite number of degrees, got {v!r}")
+    # Trace angles are axial: fold them, so huge values keep their meaning (and +0.1 deg below stays a step).
+    face1_deg = fold_axial(real_number(face1_deg, "face1_deg"))
+    face2_deg = fold_axial(real_number(face2_deg, "face2_deg"))
+    sigma1_deg, sigma2_deg = real_number(sigma1_deg, "sigma1_deg"), real_number(sigma2_deg, "sigma2_deg")
+    for name, v in (("sigma1_deg", sigma1_deg), ("sigma2_deg", sigma2_deg)):
+        if not 0 <= v <= 90:
+            raise TracefitInputError(f"{name} must be between 0 and 90 degrees, got {v!r}")
+    if geom is not None and not isinstance(geom, FaceGeometry):
+        raise TracefitInputError(f"geom must be a FaceGeometry, got {type(geom).__name__}")
     geom = geom or FaceGeometry()
     t1, t2 = _t1(face1_deg), _t2(face2_deg, geom)
     n = np.cross(t1, t2)

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import warnings
 from pathlib import Path
-from typing import TYPE_CHECKING, Any, Sequence
+from typing import TYPE_CHECKING, Any, Mapping, Sequence
 
 import numpy as np
 
@@ -192,10 +192,18 @@ def _centroids(labels: np.ndarray, ids: list[int]) -> dict[int, tuple[float, flo
 def _candidates(lattice, systems, modes, families):
     from tracefit.crystal import catalogue, filter_systems
 
+    # A single string is one mode or one family (list("twin") would be four letters); other types are
+    # refused by the catalogue's own checks.
+    modes = [modes] if isinstance(modes, str) else modes
+    families = [families] if isinstance(families, str) else families
+    modes = list(modes) if isinstance(modes, (list, tuple, set, frozenset)) else modes
+    families = list(families) if isinstance(families, (list, tuple, set, frozenset)) and families else (families or None)
     if systems is None:
-        systems = catalogue(lattice, modes=list(modes), families=list(families) if families else None)
+        systems = catalogue(lattice, modes=modes, families=families)
     else:
-        systems = filter_systems(list(systems), lattice, modes=list(modes), families=list(families) if families else None)
+        if isinstance(systems, (str, bytes)) or not hasattr(systems, "__iter__"):
+            raise TracefitInputError(f"systems must be a list of DeformationSystem, got {type(systems).__name__}")
+        systems = filter_systems(list(systems), lattice, modes=modes, families=families)
     if not systems:
         raise TracefitInputError(f"no candidate systems for this lattice with modes {', '.join(modes)}"
                                  + (f" and families {', '.join(families)}" if families else ""))
@@ -265,12 +273,15 @@ def identify(observed: Sequence[ObservedFamily | float], lattice: Lattice | str,
     ((1, -1, 1), 73.34, 1.0)
     """
     # Over 80 lines only through its numpydoc docstring; the code is short.
-    from tracefit.matching import identify_observed
+    from tracefit.matching import as_observed, identify_observed
 
     s, _ = resolve_settings(settings)
     if (orientation is None) == (orientations is None):
         raise TracefitInputError("give one orientation (orientation=...) or a grain table (orientations=...), not "
                                  + ("both" if orientation is not None else "neither"))
+    observed = as_observed(observed)  # bare angles become families; anything else is refused
+    if frame is not None and not isinstance(frame, FrameSettings):
+        raise TracefitInputError(f"frame must be a FrameSettings, got {type(frame).__name__}")
     lat = _as_lattice(lattice)
     cands = _candidates(lat, systems, modes, families)
     ld = _as_load(load, lat)
@@ -282,6 +293,8 @@ def identify(observed: Sequence[ObservedFamily | float], lattice: Lattice | str,
                                     orientation_sigma_deg=s["orientation_sigma_deg"], crack_k_sigma=s["crack_k_sigma"],
                                     **match)
         return Identification(results)
+    if not isinstance(orientations, Mapping):
+        raise TracefitInputError(f"orientations must map grain -> orientation, got {type(orientations).__name__}")
     ori = {k: (v.g if hasattr(v, "g") else _as_matrix(v)) for k, v in orientations.items()}
     sig = {k: v.sigma_deg for k, v in orientations.items() if getattr(v, "sigma_deg", None) is not None}
     results = identify_observed(list(observed), lat, cands, orientations=ori, frame=frame, load=ld,
@@ -425,6 +438,8 @@ def analyse_image(image: str | Path | np.ndarray | None, lattice: Lattice | str,
         raise TracefitInputError("labels and orientations go together: a label image and its orientation table")
     if image is None and not measured:
         raise TracefitInputError("no image and no measured traces: give an image or measured families")
+    if frame is not None and not isinstance(frame, FrameSettings):
+        raise TracefitInputError(f"frame must be a FrameSettings, got {type(frame).__name__}")
     with warnings.catch_warnings(record=True) as wlist:
         warnings.simplefilter("always")
         lat = _as_lattice(lattice)

@@ -21,7 +21,7 @@ from numpy.typing import ArrayLike
 from collections.abc import Sequence
 
 from tracefit.crystal import Orientation, as_orientation_matrix
-from tracefit.errors import TracefitInputError
+from tracefit.errors import TracefitInputError, real_array
 
 __all__ = [
     "schmid_factor",
@@ -121,7 +121,7 @@ def stress_tensor(stress: ArrayLike) -> np.ndarray:
     >>> stress_tensor([1, 2, 3, 4, 5, 6]).tolist()
     [[1.0, 6.0, 5.0], [6.0, 2.0, 4.0], [5.0, 4.0, 3.0]]
     """
-    s = np.asarray(stress, float)
+    s = real_array(stress, "stress_mpa", finite=False)
     if s.shape == (6,):
         s11, s22, s33, s23, s13, s12 = s
         s = np.array([[s11, s12, s13], [s12, s22, s23], [s13, s23, s33]])

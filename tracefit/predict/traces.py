@@ -19,7 +19,7 @@ from numpy.typing import ArrayLike
 
 from tracefit.conventions import FrameSettings, apparent_angle, axial_difference, data_to_image_matrix, fold_axial
 from tracefit.crystal import DeformationSystem, Lattice, Orientation, as_orientation_matrix
-from tracefit.errors import TracefitInputError
+from tracefit.errors import TracefitInputError, real_number
 from tracefit.predict.loading import Load, _num, as_load, resolved_drive
 from tracefit.predict.resolved import _unit_rows, activation_stress, crss_of, reported_drive, resolved_shear
 
@@ -552,8 +552,11 @@ def predict_traces(
     if not systems:
         raise TracefitInputError("no slip or twin systems to predict traces for")
     load, stress = _loads(lattice, load, stress, frame)
-    if sort not in ("auto", "angle", "schmid"):
+    if not isinstance(sort, str) or sort not in ("auto", "angle", "schmid"):
         raise TracefitInputError(f"sort must be auto, angle or schmid, got {sort!r}")
+    near_surface_deg = real_number(near_surface_deg, "near_surface_deg")
+    if not 0 <= near_surface_deg <= 90:
+        raise TracefitInputError(f"near_surface_deg must be between 0 and 90 degrees, got {near_surface_deg!r}")
 
     normals_all = np.array([s.normal for s in systems], float)
     dirs_all = np.array([s.dir_unit for s in systems], float)
