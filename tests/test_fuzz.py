@@ -36,14 +36,9 @@ def test_library_fuzz_has_no_failures(fuzz, seed):
 def test_cli_fuzz_has_no_failures(fuzz):
     tally = fuzz.run_cli(60, 21)
     assert tally.calls == 60
-    # Damaged pictures still make tifffile/OpenCV print beside the error line: that is fixed in
-    # tracefit/image/io.py (see the xfail below), not here.
-    real = [f for f in tally.failures if not fuzz.is_image_io_noise(f)]
-    assert not real, fuzz.summary("command line", fuzz.Tally(tally.calls, real))
+    assert not tally.failures, fuzz.summary("command line", tally)
 
 
-@pytest.mark.xfail(strict=True, raises=AssertionError, reason="tracefit/image/io.py lets tifffile/OpenCV print while decoding a damaged "
-                                       "picture (issue 16, item 5); remove this mark once it is silenced there")
 @pytest.mark.parametrize("name", ["bad_tif", "corrupt"])
 def test_damaged_picture_gives_one_error_line(fuzz, tmp_path, name, caplog):
     # Outside pytest, a library's logged warning reaches stderr; pytest's log capture takes it
