@@ -85,15 +85,17 @@ def detect_command(
         sys.stdout.write(json.dumps(result.to_dict()) + "\n")
         return
     if not result.families:
-        print("no band families found")
+        reason = getattr(result, "reason", "") or ""
+        print("no band families found" + (f": {reason}" if reason else ""))
         return
     um = pixel_size is not None
-    head = f"{'family':>6}  {'angle deg':>10}  {'+/- deg':>8}  {'bands':>5}  {'spacing px':>10}" + (f"  {'spacing um':>10}" if um else "") + f"  {'strength':>8}  polarity"
+    head = f"{'family':>6}  {'angle deg':>10}  {'+/- deg':>8}  {'bands':>5}  {'spacing px':>10}" + (f"  {'spacing um':>10}" if um else "") + f"  {'strength':>8}  {'signif':>6}  polarity"
     print(head)
     for i, fam in enumerate(result.families, 1):
         sp = "-" if not math.isfinite(fam.spacing_px) else f"{fam.spacing_px:.1f}"
         row = f"{i:>6}  {fam.angle_deg:>10.3f}  {fam.angle_sigma_deg:>8.3f}  {fam.n_bands:>5}  {sp:>10}"
         if um:
             row += f"  {'-' if fam.spacing_um is None else f'{fam.spacing_um:.3f}':>10}"
-        row += f"  {fam.strength:>8.2f}  {fam.polarity}"
+        sig = getattr(fam, "significance", None)
+        row += f"  {fam.strength:>8.2f}  {'-' if sig is None else f'{sig:.0f}':>6}  {fam.polarity}"
         print(row)
