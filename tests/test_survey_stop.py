@@ -120,3 +120,31 @@ def test_output_folder_faults_are_one_line(tmp_path, run_cli):
         ro.chmod(0o500)
         code, _, err = run_cli("survey", str(job), "--out", str(ro / "out"))
         assert code == 2 and err.count("\n") == 1
+
+
+def test_a_full_disk_at_the_final_write_is_one_line_and_keeps_the_images(tmp_path, run_cli, monkeypatch):
+    # Issue 16 item 1: a full disk during the results/report write gave a 50-80-line traceback.
+    import errno
+
+    import tracefit.survey.runner as runner
+
+    def full(*a, **k):
+        raise OSError(errno.ENOSPC, "No space left on device")
+
+    monkeypatch.setattr(runner, "write_results_csv", full)
+    out = tmp_path / "out"
+    code, _, err = run_cli("survey", str(_job(tmp_path, 1)), "--out", str(out), "--workers", "1", "--quiet")
+    assert code == 2 and err.count("\n") == 1 and "No space left on device" in err and "--resume" in err
+    assert (out / "images" / "a0.json").is_file()  # the finished image is kept
+
+
+def test_a_read_only_output_folder_is_one_line(tmp_path, run_cli, monkeypatch):
+    # Issue 16 item 1 (staged with os.access, since the tests may run as root, who writes anywhere)
+    import tracefit.survey.guard as guard
+
+    real_access = os.access
+    ro = tmp_path / "ro"
+    monkeypatch.setattr(guard.os, "access",
+                        lambda path, mode, **kw: False if str(path).startswith(str(ro)) else real_access(path, mode, **kw))
+    code, _, err = run_cli("survey", str(_job(tmp_path, 1)), "--out", str(ro))
+    assert code == 2 and err.count("\n") == 1 and "not writable" in err
