@@ -90,7 +90,8 @@ def _positive_levels(img, m, notes):
     if span <= 0 or p1 >= 0.1 * span:
         return img
     shift = span - p1
-    notes.append(f"grey levels shifted by {shift:+.4g} (values near or below zero, e.g. a strain map)")
+    notes.append(f"grey levels shifted by {shift:+.4g} so that the darkest values stay positive (the depth test is a ratio "
+                 f"to the local grey level)")
     return img + np.float32(shift)
 
 
