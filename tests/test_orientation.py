@@ -8,7 +8,7 @@ Outside references:
   quaternion of g itself, ``o.to_matrix() == g``, ``o * v`` maps sample -> crystal and ``~o * v``
   crystal -> sample. orix's quaternion equals tracefit's (Rowenhorst et al. 2015, P = +1), and its
   hexagonal Cartesian setting for a diffpy Lattice(a, a, c, 90, 90, 120) is x along a1, tracefit's
-  default ``hex_setting="x_a1"``.
+  default ``hex_setting="x-along-a1"``.
 """
 
 import warnings

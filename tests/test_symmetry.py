@@ -38,12 +38,12 @@ HEX = dict(a=1.0, b=1.0, c=1.587, alpha=90, beta=90, gamma=120)
         (Lattice(1, 1, 1, laue="m-3m"), "O"),
         (Lattice(1, 1, 1, laue="m-3"), "T"),
         (Lattice(**HEX, laue="6/mmm"), "D6"),
-        (Lattice(**HEX, laue="6/mmm", hex_setting="x_a1star"), "D6"),
+        (Lattice(**HEX, laue="6/mmm", hex_setting="x-along-a1-reciprocal"), "D6"),
         (Lattice(**HEX, laue="6/m"), "C6"),
         # 32 with 2-folds along a1, a2, a3: along x when x || a1 (orix D3x) ...
         (Lattice(**HEX, laue="-3m"), "D3x"),
         # ... and along y when x || a1* (a1 is then at -30 deg, a2 along y): orix D3y.
-        (Lattice(**HEX, laue="-3m", hex_setting="x_a1star"), "D3y"),
+        (Lattice(**HEX, laue="-3m", hex_setting="x-along-a1-reciprocal"), "D3y"),
         (Lattice(**HEX, laue="-3"), "C3"),
         (Lattice(1, 1, 0.5456, laue="4/mmm"), "D4"),
         (Lattice(1, 1, 0.5456, laue="4/m"), "C4"),
@@ -91,7 +91,7 @@ def test_index_rotations_are_integral_and_agree_with_cartesian(laue):
     lat = {
         "m-3m": CUBIC,
         "6/mmm": Lattice(**HEX),
-        "-3m": Lattice(**HEX, laue="-3m", hex_setting="x_a1star"),
+        "-3m": Lattice(**HEX, laue="-3m", hex_setting="x-along-a1-reciprocal"),
         "4/mmm": Lattice(1, 1, 0.5456),
         "mmm": Lattice(1, 1.3, 0.7),
         "2/m": Lattice(1, 1.3, 0.7, 90, 103.0, 90),
@@ -157,7 +157,7 @@ def _hex_cos_cullity(p, q, c_over_a):
 hkl = st.tuples(st.integers(-4, 4), st.integers(-4, 4), st.integers(-4, 4)).filter(any)
 
 
-@given(hkl, hkl, st.floats(1.45, 1.95), st.sampled_from(["x_a1", "x_a1star"]))
+@given(hkl, hkl, st.floats(1.45, 1.95), st.sampled_from(["x-along-a1", "x-along-a1-reciprocal"]))
 @settings(max_examples=80, deadline=None)
 def test_hexagonal_angles_match_the_handbook_formula_in_both_settings(p, q, coa, setting):
     lat = Lattice(1, 1, coa, 90, 90, 120, hex_setting=setting)
@@ -178,7 +178,7 @@ def test_basal_to_10m12_angle_closed_form(metal, c_over_a):
     # of Cullity & Stock's appendix for (0001)^(10-1l), and the same angle sets the {10-12} twin
     # geometry in Yoo 1981, Metall. Trans. A 12, 409 -- citations from memory.)
     expected = math.degrees(math.atan((2 / math.sqrt(3)) * c_over_a / 2))
-    for setting in ("x_a1", "x_a1star"):
+    for setting in ("x-along-a1", "x-along-a1-reciprocal"):
         lat = lattice_preset("hcp", c_over_a, hex_setting=setting)
         n0 = lat.plane_normal((0, 0, 0, 1))
         for v in plane_variants(lat, (1, 0, -1, 2)):
@@ -262,7 +262,7 @@ LATTICES = [
     CUBIC,
     Lattice(1, 1, 1, laue="m-3"),
     lattice_preset("hcp", 1.587),
-    lattice_preset("hcp", 1.587, hex_setting="x_a1star"),
+    lattice_preset("hcp", 1.587, hex_setting="x-along-a1-reciprocal"),
     Lattice(1, 1, 2.5, 90, 90, 120, laue="-3m"),
     Lattice(1, 1, 0.5456),
     Lattice(1, 1.3, 0.7, 90, 103.0, 90),
@@ -298,7 +298,7 @@ def test_variants_are_closed_under_the_group(li, v):
         (Lattice.fcc(), "O"),
         (Lattice.bcc(a=2.87), "O"),
         (Lattice.hcp(c_over_a=1.587), "D6"),
-        (Lattice.hcp(c_over_a=1.624, a=3.21, hex_setting="x_a1star"), "D6"),
+        (Lattice.hcp(c_over_a=1.624, a=3.21, hex_setting="x-along-a1-reciprocal"), "D6"),
         (Lattice.tetragonal(c_over_a=0.5456), "D4"),
     ],
 )
@@ -313,7 +313,7 @@ def test_named_constructors_match_the_presets():
 
     assert Lattice.fcc() == lattice_preset("fcc") and Lattice.bcc() == lattice_preset("bcc")
     assert Lattice.hcp(c_over_a=1.587) == lattice_preset("hcp", 1.587)
-    assert Lattice.hcp(c_over_a=1.587, hex_setting="x_a1star") == lattice_preset("hcp", 1.587, "x_a1star")
+    assert Lattice.hcp(c_over_a=1.587, hex_setting="x-along-a1-reciprocal") == lattice_preset("hcp", 1.587, "x-along-a1-reciprocal")
     assert Lattice.tetragonal(c_over_a=0.546) == lattice_preset("tetragonal", 0.546)
     hcp = Lattice.hcp(c_over_a=1.587, a=3.0)
     assert (hcp.a, hcp.c) == (3.0, pytest.approx(3.0 * 1.587)) and hcp.c_over_a == pytest.approx(1.587)

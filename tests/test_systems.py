@@ -58,7 +58,7 @@ def _physical_key(s: DeformationSystem):
     return ("twin", tuple(sorted([(tuple(n), tuple(d)), (tuple(-n), tuple(-d))])))
 
 
-@pytest.mark.parametrize("lattice", [FCC, BCC, hcp(1.587), hcp(1.856), lattice_preset("hcp", 1.624, hex_setting="x_a1star")])
+@pytest.mark.parametrize("lattice", [FCC, BCC, hcp(1.587), hcp(1.856), lattice_preset("hcp", 1.624, hex_setting="x-along-a1-reciprocal")])
 def test_invariants(lattice):
     systems = catalogue(lattice)
     for s in systems:
@@ -258,8 +258,8 @@ def test_twin_shear_errors_and_cubic_values():
 def test_hex_settings_give_the_same_geometry():
     # Changing the Cartesian setting turns every vector by the same rotation about c
     # (common practice, no source): interplanar and plane-direction angles are unchanged.
-    a = catalogue(lattice_preset("hcp", 1.624, hex_setting="x_a1"))
-    b = catalogue(lattice_preset("hcp", 1.624, hex_setting="x_a1star"))
+    a = catalogue(lattice_preset("hcp", 1.624, hex_setting="x-along-a1"))
+    b = catalogue(lattice_preset("hcp", 1.624, hex_setting="x-along-a1-reciprocal"))
     assert [(s.plane, s.direction) for s in a] == [(s.plane, s.direction) for s in b]
     na, nb = np.array([s.normal for s in a]), np.array([s.normal for s in b])
     da, db = np.array([s.dir_unit for s in a]), np.array([s.dir_unit for s in b])

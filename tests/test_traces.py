@@ -266,11 +266,11 @@ def test_parse_load_accepts():
         parse_load("z", lat, "shear")
 
 
-def test_hex_setting_x_a1star_is_a_phi2_shift():
-    # x along a1* is the x_a1 basis turned by -30 deg about c (lattice.py), so the same physical
-    # orientation has phi2 larger by 30 deg in the x_a1star setting (derived from the definitions).
+def test_hex_setting_x_along_a1_reciprocal_is_a_phi2_shift():
+    # x along a1* is the x-along-a1 basis turned by -30 deg about c (lattice.py), so the same physical
+    # orientation has phi2 larger by 30 deg in the x-along-a1-reciprocal setting (derived from the definitions).
     lat = lattice_preset("hcp", 1.587)
-    star = lat.with_setting("x_a1star")
+    star = lat.with_setting("x-along-a1-reciprocal")
     e = SciRot.random(200, random_state=5).as_euler("ZXZ", degrees=True)
     e_star = e + [0.0, 0.0, 30.0]
     hkil = np.array([[1, 0, -1, 2], [0, 1, -1, 0], [1, 1, -2, 2], [0, 0, 0, 1]])
@@ -428,3 +428,14 @@ def test_slope_against_numerical_and_analytic_derivative():
     fy = FrameSettings(tilt_deg=40.0, tilt_axis="y")
     cy = math.cos(math.radians(40.0))
     np.testing.assert_allclose(tilt_slope([0.0, 90.0], fy), [1 / cy, cy], rtol=1e-6)
+
+
+def test_the_old_hexagonal_setting_names_are_read_with_a_warning():
+    # Issue 16 item 11: setting values in words; the old values are aliases for one release.
+    from tracefit.crystal import Lattice
+
+    with pytest.warns(FutureWarning, match="now called 'x-along-a1-reciprocal'"):
+        old = Lattice.hcp(c_over_a=1.587, hex_setting="x_a1star")
+    new = Lattice.hcp(c_over_a=1.587, hex_setting="x-along-a1-reciprocal")
+    assert old.hex_setting == new.hex_setting == "x-along-a1-reciprocal"
+    assert np.allclose(old.plane_normal((1, 0, -1, 2)), new.plane_normal((1, 0, -1, 2)))

@@ -36,7 +36,7 @@ def align_frame(
     orientations: Path = typer.Option(..., "--orientations", help="Grain orientation CSV (docs/orientation-table.md)."),
     lattice: LatticeOpt = None,
     c_over_a: CoverAOpt = None,
-    hex_setting: HexSettingOpt = "x_a1",
+    hex_setting: HexSettingOpt = "x-along-a1",
     systems_file: SystemsFileOpt = None,
     modes: ModesOpt = "slip,twin",
     families: FamiliesOpt = None,

@@ -65,7 +65,7 @@ LatticeOpt = Annotated[
 ]
 CoverAOpt = Annotated[Optional[float], typer.Option("--c-over-a", help="c/a ratio for hcp (default ideal 1.633, with a warning) or tetragonal.")]
 HexSettingOpt = Annotated[
-    str, typer.Option("--hex-setting", help="Hexagonal Cartesian setting: x_a1 (x along a1, default) or x_a1star (x along a1*).")
+    str, typer.Option("--hex-setting", help="Hexagonal Cartesian setting: x-along-a1 (x along a1, default) or x-along-a1-reciprocal (x along a1*).")
 ]
 SystemsFileOpt = Annotated[
     Optional[Path], typer.Option("--systems-file", help="TOML file with a lattice and/or slip and twin systems (docs/systems-file.md).")
@@ -121,7 +121,7 @@ JsonOpt = Annotated[bool, typer.Option("--json", help="Print one JSON object to 
 
 
 # ------------------------------------------------------------------ builders
-def build_lattice(lattice: str | None, c_over_a: float | None = None, hex_setting: str = "x_a1", systems_file: Path | None = None):
+def build_lattice(lattice: str | None, c_over_a: float | None = None, hex_setting: str = "x-along-a1", systems_file: Path | None = None):
     """The lattice, and the systems file's systems if a file was given.
 
     Returns
@@ -147,7 +147,7 @@ def build_lattice(lattice: str | None, c_over_a: float | None = None, hex_settin
     if file_lattice is not None and base is not None:
         raise TracefitInputError(f"{systems_file} defines its own [lattice]; drop --lattice/--c-over-a or remove the table from the file")
     lat = file_lattice or base
-    if file_lattice is not None and hex_setting != "x_a1":
+    if file_lattice is not None and hex_setting != "x-along-a1":
         lat = lat.with_setting(hex_setting)
     return lat, systems
 

@@ -64,7 +64,7 @@ def identify(
     image: Optional[Path] = typer.Argument(None, help="Micrograph (PNG/TIFF/JPEG/BMP); optional with --angle/--crack/--measured."),
     lattice: LatticeOpt = None,
     c_over_a: CoverAOpt = None,
-    hex_setting: HexSettingOpt = "x_a1",
+    hex_setting: HexSettingOpt = "x-along-a1",
     systems_file: SystemsFileOpt = None,
     euler: EulerOpt = None,
     quaternion: QuaternionOpt = None,

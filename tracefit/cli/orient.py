@@ -38,7 +38,7 @@ def find_orientation(
     sigma: float = typer.Option(0.5, "--sigma", help="Uncertainty of the --angle values, degrees."),
     lattice: LatticeOpt = None,
     c_over_a: CoverAOpt = None,
-    hex_setting: HexSettingOpt = "x_a1",
+    hex_setting: HexSettingOpt = "x-along-a1",
     systems_file: SystemsFileOpt = None,
     modes: ModesOpt = "slip",
     families: FamiliesOpt = None,

@@ -55,7 +55,7 @@ def predict(
     axis_angle: AxisAngleOpt = None,
     align: AlignOpt = None,
     c_over_a: CoverAOpt = None,
-    hex_setting: HexSettingOpt = "x_a1",
+    hex_setting: HexSettingOpt = "x-along-a1",
     systems_file: SystemsFileOpt = None,
     modes: ModesOpt = "slip,twin",
     families: FamiliesOpt = None,

@@ -38,7 +38,7 @@ from tracefit.cli.common import (
 def systems_command(
     lattice: LatticeOpt = None,
     c_over_a: CoverAOpt = None,
-    hex_setting: HexSettingOpt = "x_a1",
+    hex_setting: HexSettingOpt = "x-along-a1",
     systems_file: SystemsFileOpt = None,
     modes: ModesOpt = "slip,twin",
     families: FamiliesOpt = None,

@@ -49,7 +49,7 @@ def two_face(
     sigma: float = typer.Option(0.5, "--sigma", help="Uncertainty of each measured angle, degrees."),
     lattice: LatticeOpt = None,
     c_over_a: CoverAOpt = None,
-    hex_setting: HexSettingOpt = "x_a1",
+    hex_setting: HexSettingOpt = "x-along-a1",
     systems_file: SystemsFileOpt = None,
     euler: EulerOpt = None,
     quaternion: QuaternionOpt = None,

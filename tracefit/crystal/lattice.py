@@ -4,7 +4,7 @@ Cartesian crystal frame ("standard setting"): x along a, b in the x-y plane,
 z completing a right-handed set (so z is along c* ). For a hexagonal lattice this is
 x along a1, z along c, y = z x x (the tracefit default). The other common
 hexagonal setting, x along a1* (then y along a2), is the same basis turned by
--30 deg about c and is selected with ``hex_setting="x_a1star"``.
+-30 deg about c and is selected with ``hex_setting="x-along-a1-reciprocal"``.
 
 Plane normals always come from the reciprocal basis, n = h a* + k b* + l c*;
 (hkl) is reused as a direction only where that is exact (cubic lattices), and even
@@ -35,7 +35,9 @@ __all__ = [
 
 IDEAL_C_OVER_A = math.sqrt(8.0 / 3.0)  # 1.63299..., hard-sphere ideal (common practice, no source)
 
-HEX_SETTINGS = ("x_a1", "x_a1star")
+HEX_SETTINGS = ("x-along-a1", "x-along-a1-reciprocal")
+# The names before 0.2, still read (with a warning) for one release.
+OLD_HEX_SETTINGS = {"x_a1": "x-along-a1", "x_a1star": "x-along-a1-reciprocal"}
 LAUE_CLASSES = ("m-3m", "m-3", "6/mmm", "6/m", "-3m", "-3", "4/mmm", "4/m", "mmm", "2/m", "-1")
 
 
@@ -54,7 +56,7 @@ class Lattice:
     laue : str, optional
         Laue class whose proper rotations give the crystal symmetry. Inferred from the
         cell when omitted (trigonal cells must say ``"-3m"`` or ``"-3"``).
-    hex_setting : {"x_a1", "x_a1star"}
+    hex_setting : {"x-along-a1", "x-along-a1-reciprocal"}
         Cartesian setting for hexagonal/trigonal cells (ignored otherwise).
 
     Raises
@@ -81,7 +83,7 @@ class Lattice:
     gamma: float = 90.0
     name: str = "custom"
     laue: str | None = None
-    hex_setting: str = "x_a1"
+    hex_setting: str = "x-along-a1"
     _cache: dict = field(default_factory=dict, repr=False, compare=False, hash=False)
 
     def __post_init__(self):
@@ -100,6 +102,11 @@ class Lattice:
             v = getattr(self, k)
             if not (0 < v < 180):
                 raise TracefitInputError(f"lattice angle {k} must lie strictly between 0 and 180 deg, got {v!r}")
+        if isinstance(self.hex_setting, str) and self.hex_setting in OLD_HEX_SETTINGS:
+            new = OLD_HEX_SETTINGS[self.hex_setting]
+            warnings.warn(f"the hexagonal setting {self.hex_setting!r} is now called {new!r}; the old name is read "
+                          f"until the next release", FutureWarning, stacklevel=3)
+            object.__setattr__(self, "hex_setting", new)
         if not isinstance(self.hex_setting, str) or self.hex_setting not in HEX_SETTINGS:
             raise TracefitInputError(
                 f"hexagonal setting must be one of {', '.join(HEX_SETTINGS)}, got {self.hex_setting!r}"
@@ -165,7 +172,7 @@ class Lattice:
         return cls(a, a, a, name="bcc")
 
     @classmethod
-    def hcp(cls, c_over_a: float | None = None, a: float = 1.0, hex_setting: str = "x_a1") -> "Lattice":
+    def hcp(cls, c_over_a: float | None = None, a: float = 1.0, hex_setting: str = "x-along-a1") -> "Lattice":
         """Hexagonal close-packed lattice (Laue class 6/mmm), named ``"hcp"``.
 
         Parameters
@@ -175,7 +182,7 @@ class Lattice:
             pyramidal traces move with c/a; real metals differ).
         a : float
             Basal edge.
-        hex_setting : {"x_a1", "x_a1star"}
+        hex_setting : {"x-along-a1", "x-along-a1-reciprocal"}
             Cartesian setting: x along a1 (default) or along a1*.
 
         Returns
@@ -269,7 +276,7 @@ class Lattice:
                     [0.0, 0.0, cz],
                 ]
             )
-            if self.is_hexagonal and self.hex_setting == "x_a1star":
+            if self.is_hexagonal and self.hex_setting == "x-along-a1-reciprocal":
                 A = rotation_z(-30.0) @ A  # brings a1* (30 deg from a1) onto x
             A[np.abs(A) < 1e-14] = 0.0
             self._cache["A"] = A
@@ -379,12 +386,12 @@ class Lattice:
         return 1.0 / np.linalg.norm(v, axis=-1)
 
     def with_setting(self, hex_setting: str) -> "Lattice":
-        """The same cell in another hexagonal Cartesian setting (``"x_a1"`` or ``"x_a1star"``).
+        """The same cell in another hexagonal Cartesian setting (``"x-along-a1"`` or ``"x-along-a1-reciprocal"``).
 
         Examples
         --------
-        >>> Lattice.hcp(c_over_a=1.587).with_setting("x_a1star").hex_setting
-        'x_a1star'
+        >>> Lattice.hcp(c_over_a=1.587).with_setting("x-along-a1-reciprocal").hex_setting
+        'x-along-a1-reciprocal'
         """
         return Lattice(self.a, self.b, self.c, self.alpha, self.beta, self.gamma, self.name, self.laue, hex_setting)
 
@@ -435,12 +442,12 @@ def _hcp(c_over_a, a: float, hex_setting: str, stacklevel: int) -> Lattice:
 PRESETS = {
     "fcc": lambda c_over_a=None: Lattice.fcc(),
     "bcc": lambda c_over_a=None: Lattice.bcc(),
-    "hcp": lambda c_over_a=None, hex_setting="x_a1": _hcp(c_over_a, 1.0, hex_setting, stacklevel=4),
+    "hcp": lambda c_over_a=None, hex_setting="x-along-a1": _hcp(c_over_a, 1.0, hex_setting, stacklevel=4),
     "tetragonal": lambda c_over_a=None: Lattice.tetragonal(c_over_a),
 }
 
 
-def lattice_preset(name: str, c_over_a: float | None = None, hex_setting: str = "x_a1") -> Lattice:
+def lattice_preset(name: str, c_over_a: float | None = None, hex_setting: str = "x-along-a1") -> Lattice:
     """A named lattice: ``fcc``, ``bcc``, ``hcp`` (c/a, default ideal with a warning) or ``tetragonal`` (c/a required).
 
     The same cells as :meth:`Lattice.fcc`, :meth:`Lattice.bcc`, :meth:`Lattice.hcp` and
@@ -452,7 +459,7 @@ def lattice_preset(name: str, c_over_a: float | None = None, hex_setting: str = 
         Case and surrounding spaces are ignored.
     c_over_a : float, optional
         Axial ratio (hcp, tetragonal); must be omitted for cubic lattices.
-    hex_setting : {"x_a1", "x_a1star"}
+    hex_setting : {"x-along-a1", "x-along-a1-reciprocal"}
         Hexagonal Cartesian setting (hcp only).
 
     Returns

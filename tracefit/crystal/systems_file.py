@@ -60,7 +60,7 @@ def _read_lattice(tab, path) -> Lattice:
         extra = set(tab) & {"a", "b", "c", "alpha", "beta", "gamma"}
         if extra:
             raise TracefitInputError(f"{where}: give either preset (with c_over_a) or the cell a, b, c, alpha, beta, gamma, not both")
-        lat = lattice_preset(str(tab["preset"]), c_over_a=num("c_over_a"), hex_setting=tab.get("hex_setting", "x_a1"))
+        lat = lattice_preset(str(tab["preset"]), c_over_a=num("c_over_a"), hex_setting=tab.get("hex_setting", "x-along-a1"))
         if name or "laue" in tab:
             lat = Lattice(lat.a, lat.b, lat.c, lat.alpha, lat.beta, lat.gamma, name or lat.name, tab.get("laue", lat.laue), lat.hex_setting)
         return lat
@@ -73,7 +73,7 @@ def _read_lattice(tab, path) -> Lattice:
     c = num("c") if "c" in tab else a * coa
     b = num("b", a)
     return Lattice(a, b, c, num("alpha", 90.0), num("beta", 90.0), num("gamma", 90.0), name or "custom",
-                   tab.get("laue"), tab.get("hex_setting", "x_a1"))
+                   tab.get("laue"), tab.get("hex_setting", "x-along-a1"))
 
 
 def load_systems_file(path: str | PathLike, lattice: Lattice | None = None) -> tuple[Lattice | None, list[DeformationSystem]]:
