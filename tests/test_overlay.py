@@ -127,22 +127,33 @@ def test_lines_on_a_picture_leave_other_pixels_alone():
             assert np.array_equal(pixel(rgb, c, r), pixel(plain, c, r))
 
 
-def test_per_grain_lines_through_centroids():
+def test_per_grain_traces_as_dials_about_the_centroids():
+    # Each grain's traces are a dial about its centroid: tick pairs between DIAL_INNER and 1 of the
+    # ring radius (0.8 of the grain's equivalent radius), nothing over the grain's middle, so the
+    # bands there stay visible (issue 16, item 11).
+    from tracefit.viz.overlay import DIAL_INNER
+
     h, w = 200, 400
     labels = np.ones((h, w), np.int64)
     labels[:, 200:] = 2
     per = {1: traces(BUNGE), 2: traces((100.0, 50.0, 10.0))}
-    rgb = draw_predicted(per, image=np.full((h, w), 0.5) + 0.1 * (labels == 2), labels=labels, legend=False)
+    picture = np.full((h, w), 0.5) + 0.1 * (labels == 2)
+    rgb = draw_predicted(per, image=picture, labels=labels, legend=False)
     cents = grain_centres(labels)
     assert cents[1][:2] == pytest.approx((99.5, 99.5)) and cents[2][:2] == pytest.approx((299.5, 99.5))
     rad = cents[1][2]
     assert rad == pytest.approx(math.sqrt(200 * 200 / math.pi))
+    ring = 0.8 * rad
     for gid in (1, 2):
         c0, r0, _ = cents[gid]
-        ts = [t for t in np.arange(-rad * 0.7, rad * 0.7, 3.0) if abs(t) >= 20]
+        on = [s for s in np.arange(DIAL_INNER * ring + 3, ring - 3, 2.0)] + [-s for s in np.arange(DIAL_INNER * ring + 3, ring - 3, 2.0)]
         for i, t in enumerate(per[gid]):
-            ts_in = [s for s in ts if 0 <= point(c0, r0, t.angle_deg, s)[1] <= h - 1]
+            ts_in = [s for s in on if 0 <= point(c0, r0, t.angle_deg, s)[1] <= h - 1]
             assert fraction_with_colour(rgb, c0, r0, t.angle_deg, FAMILY_COLOURS[i], ts_in) >= 0.85, (gid, t.plane)
+        # the middle of the grain is left as it was
+        mid = rgb[int(r0) - 5:int(r0) + 6, int(c0) - 5:int(c0) + 6]
+        plain = draw_predicted({}, image=picture, labels=labels, legend=False)[int(r0) - 5:int(r0) + 6, int(c0) - 5:int(c0) + 6]
+        assert np.array_equal(mid, plain)
 
 
 def test_curved_grain_centre_stays_inside():

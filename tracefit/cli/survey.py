@@ -11,7 +11,7 @@ from tracefit.cli import app
 
 OutOpt = Annotated[Optional[Path], typer.Option("--out", "-o", help="Output folder (default: out/<job file name>).")]
 WorkersOpt = Annotated[
-    Optional[int], typer.Option("--workers", "-w", min=1, help="Worker processes (default: all cores; 1 = no subprocesses).")
+    Optional[int], typer.Option("--workers", "-w", min=1, help="Worker processes (default: one per core, fewer when free memory would not hold them at about 1.2 GB each; 1 = no subprocesses).")
 ]
 ResumeOpt = Annotated[bool, typer.Option("--resume", help="Keep finished images of an earlier run into the same folder; redo the rest.")]
 QuietOpt = Annotated[bool, typer.Option("--quiet", "-q", help="No progress bar.")]

@@ -279,36 +279,63 @@ def _label_trace(base, t, name, end, centre, style) -> None:
     _text(base, name, org, scale, col, th)
 
 
+# A grain's predicted traces are drawn as a dial: a ring about the grain's centre with a tick pair
+# per trace between DIAL_INNER and 1 of the ring's radius, so the bands inside the grain stay
+# visible and the traces read as directions, not as lines in the picture.
+DIAL_INNER = 0.45
+# With more traces than this about one centre, each is labelled by its number (keyed in the legend).
+MAX_NAMED_TRACES = 8
+
+
 def _draw_group(base, gid, trs, centre, sig, k_sigma, lw, scale, th) -> list:
-    """Draw one group's wedges, lines and labels in place; return its legend entries (colour, text)."""
+    """Draw one group's wedges, traces and labels in place; return its legend entries (colour, text).
+
+    One orientation for the whole picture: full lines through the centre. Per grain: a dial
+    (ring and tick pairs) about the grain's centroid.
+    """
     h, w = base.shape[:2]
     c0, r0, rad = centre
-    half = math.hypot(w, h) if rad is None else max(15.0, rad)
-    # wedges first, all lines on top: a line's pixels keep its exact colour
-    for i, (t, s) in enumerate(zip(trs, sig)):
+    dial = rad is not None
+    half = math.hypot(w, h) if not dial else max(15.0, 0.8 * rad)
+    for i, (t, s) in enumerate(zip(trs, sig)):  # wedges first, all lines on top
         col = np.array(FAMILY_COLOURS[i % len(FAMILY_COLOURS)], np.float32)
         hw = k_sigma * float(s)
         if 0.0 < hw < 90.0:
             m = _wedge_mask((h, w), c0, r0, t.angle_deg, hw, half)
+            if dial:
+                m &= (np.hypot(*np.meshgrid(np.arange(w) - c0, np.arange(h) - r0)) >= DIAL_INNER * half)
             base[m] = np.clip(base[m].astype(np.float32) * (1 - WEDGE_ALPHA) + col * WEDGE_ALPHA + 0.5, 0, 255).astype(np.uint8)
+    if dial:
+        cv2.circle(base, _pt(c0, r0), int(round(half * (1 << _SHIFT))), _TEXT_COLOUR, 1, cv2.LINE_AA, _SHIFT)
+    numbered = dial or len(trs) > MAX_NAMED_TRACES
     entries = []
     for i, (t, s) in enumerate(zip(trs, sig)):
         col = FAMILY_COLOURS[i % len(FAMILY_COLOURS)]
-        seg = _clipped_segment(w, h, c0, r0, t.angle_deg, half)
-        if seg is None:
-            continue
-        q0, q1 = seg
-        if t.near_surface:
-            _dashed(base, q0, q1, col, lw, max(6.0, 8.0 * lw))
-        else:
-            cv2.line(base, _pt(*q0), _pt(*q1), col, lw, cv2.LINE_AA, _SHIFT)
         name = plane_label(t.plane)
-        # label near one end (alternating)
-        _label_trace(base, t, name, q1 if i % 2 == 0 else q0, (c0, r0), (scale, th, lw, col))
+        segments = _dial_ticks(c0, r0, t.angle_deg, half) if dial else [_clipped_segment(w, h, c0, r0, t.angle_deg, half)]
+        for seg in segments:
+            if seg is None:
+                continue
+            if t.near_surface:
+                _dashed(base, seg[0], seg[1], col, lw, max(6.0, 8.0 * lw))
+            else:
+                cv2.line(base, _pt(*seg[0]), _pt(*seg[1]), col, lw, cv2.LINE_AA, _SHIFT)
+        if segments and segments[0] is not None:
+            end = segments[0][1] if (dial or i % 2 == 0) else segments[0][0]
+            _label_trace(base, t, str(i + 1) if numbered else name, end, (c0, r0), (scale, th, lw, col))
         g = "" if gid is None else f"grain {gid}: "
         ns = ", near surface" if t.near_surface else ""
-        entries.append((col, f"{g}{name} {'/'.join(t.modes)}  {t.angle_deg:.2f} +- {k_sigma * float(s):.2f} deg{ns}"))
+        key = f"{i + 1}  " if numbered else ""
+        entries.append((col, f"{key}{g}{name} {'/'.join(t.modes)}  {t.angle_deg:.2f} +- {k_sigma * float(s):.2f} deg{ns}"))
     return entries
+
+
+def _dial_ticks(c0, r0, angle_deg, radius) -> list:
+    """The two ticks of a trace on a dial: from DIAL_INNER to 1 of ``radius``, on both sides of the centre."""
+    dc, dr = angle_to_pixel_direction(angle_deg)
+    a, b = DIAL_INNER * radius, radius
+    return [((c0 + a * dc, r0 + a * dr), (c0 + b * dc, r0 + b * dr)),
+            ((c0 - a * dc, r0 - a * dr), (c0 - b * dc, r0 - b * dr))]
 
 
 def _with_legend(base, head, entries, scale, th, lw) -> np.ndarray:
@@ -461,10 +488,10 @@ _PREDICTED_RGB = (0, 128, 255)
 def draw_identified(image: np.ndarray, identifications: Sequence, labels: np.ndarray | None = None) -> np.ndarray:
     """The micrograph with each family's observed direction and its identified plane's predicted trace.
 
-    Each family is drawn through its grain's centre (the image centre without a grain map): a
-    solid line at the observed angle, coloured by verdict (green identified, amber ambiguous,
-    red unexplained), and for an identified family a dashed line at the best plane's predicted
-    angle, labelled with the plane.
+    Each family is drawn as a dial about its grain's centre (the image centre without a grain
+    map): solid ticks at the observed angle, coloured by verdict (green identified, amber
+    ambiguous, red unexplained), and for an identified family dashed ticks at the best plane's
+    predicted angle, labelled with the plane.
 
     Parameters
     ----------
@@ -506,17 +533,18 @@ def draw_identified(image: np.ndarray, identifications: Sequence, labels: np.nda
             c0, r0 = float(cc.mean()), float(rr.mean())
         verdict = "unexplained" if r.unexplained else ("ambiguous" if r.ambiguous else "identified")
         colour = _VERDICT_RGB[verdict]
-        dc, dr = angle_to_pixel_direction(r.angle_deg)
-        end = (int(round(c0 + half * dc)), int(round(r0 + half * dr)))
-        cv2.line(out, (int(round(c0 - half * dc)), int(round(r0 - half * dr))), end, colour, 2, cv2.LINE_AA)
+        # a dial about the grain's centre, as for predicted traces: the bands inside stay visible
+        cv2.circle(out, _pt(c0, r0), int(round(half * (1 << _SHIFT))), _TEXT_COLOUR, 1, cv2.LINE_AA, _SHIFT)
+        ticks = _dial_ticks(c0, r0, r.angle_deg, half)
+        for q0, q1 in ticks:
+            cv2.line(out, _pt(*q0), _pt(*q1), colour, 2, cv2.LINE_AA, _SHIFT)
         best = r.best
         if best is not None and not r.unexplained:
-            dc, dr = angle_to_pixel_direction(best.predicted_deg)
-            q0 = (c0 - half * dc, r0 - half * dr)
-            q1 = (c0 + half * dc, r0 + half * dr)
-            _dashed(out, q0, q1, _PREDICTED_RGB, 1, max(4.0, half / 10))
+            for q0, q1 in _dial_ticks(c0, r0, best.predicted_deg, half):
+                _dashed(out, q0, q1, _PREDICTED_RGB, 1, max(3.0, half / 12))
             text = plane_label(best.plane)
         else:
             text = "?"
-        _text(out, text, end, 0.4, colour, 1)
+        end = ticks[0][1]
+        _text(out, text, (int(round(end[0])), int(round(end[1]))), 0.4, colour, 1)
     return out
