@@ -211,3 +211,11 @@ def test_an_unexplained_family_shows_the_nearest_planes(run_cli):
     code, out, err = run_cli("identify", "--lattice", "fcc", "--euler", "35,20,60", "--angle", "71")
     assert "nearest predicted traces: (111) at 56.24 deg" in out
     assert "pixel rows" not in out
+
+
+def test_identify_json_states_the_hexagonal_lattice(run_cli):
+    # the lattice in --json is the one summary every command uses (c/a and setting for hexagonal)
+    code, out, err = run_cli("identify", "--lattice", "hcp", "--c-over-a", "1.587", "--euler", "1,2,3", "--angle", "30",
+                             "--json")
+    lat = json.loads(out)["lattice"]
+    assert code == 0 and lat["c_over_a"] == 1.587 and lat["hex_setting"] == "x-along-a1" and lat["laue"] == "6/mmm"

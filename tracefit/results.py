@@ -508,14 +508,19 @@ def lattice_summary(lat: Lattice) -> dict:
     -------
     dict
         ``name``, cell lengths ``a``, ``b``, ``c`` (relative units, as the lattice holds them),
-        angles ``alpha``, ``beta``, ``gamma`` (degrees), ``laue`` (Laue group) and ``hex_setting``.
+        angles ``alpha``, ``beta``, ``gamma`` (degrees), ``laue`` (Laue group), and for a
+        hexagonal lattice ``c_over_a`` and ``hex_setting``.
 
     Examples
     --------
     >>> from tracefit.crystal import lattice_preset
     >>> s = lattice_summary(lattice_preset("hcp", 1.587))
-    >>> s["name"], s["c"], s["gamma"], s["laue"]
-    ('hcp', 1.587, 120.0, '6/mmm')
+    >>> s["name"], s["c"], s["gamma"], s["laue"], s["c_over_a"]
+    ('hcp', 1.587, 120.0, '6/mmm', 1.587)
     """
-    return {"name": lat.name, "a": lat.a, "b": lat.b, "c": lat.c, "alpha": lat.alpha, "beta": lat.beta,
-            "gamma": lat.gamma, "laue": lat.laue, "hex_setting": lat.hex_setting}
+    d = {"name": lat.name, "a": lat.a, "b": lat.b, "c": lat.c, "alpha": lat.alpha, "beta": lat.beta,
+         "gamma": lat.gamma, "laue": lat.laue}
+    if lat.is_hexagonal:
+        d["c_over_a"] = lat.c_over_a
+        d["hex_setting"] = lat.hex_setting
+    return d

@@ -331,20 +331,10 @@ def parse_prior(text: str | None) -> dict | None:
 
 
 def lattice_dict(lattice) -> dict:
-    d = {
-        "name": lattice.name,
-        "a": lattice.a,
-        "b": lattice.b,
-        "c": lattice.c,
-        "alpha": lattice.alpha,
-        "beta": lattice.beta,
-        "gamma": lattice.gamma,
-        "laue": lattice.laue,
-    }
-    if lattice.is_hexagonal:
-        d["c_over_a"] = lattice.c_over_a
-        d["hex_setting"] = lattice.hex_setting
-    return d
+    """The lattice as ``--json`` shows it (:func:`tracefit.results.lattice_summary`)."""
+    from tracefit.results import lattice_summary
+
+    return lattice_summary(lattice)
 
 
 # ------------------------------------------------------------------ output
