@@ -49,6 +49,8 @@ _LAZY = {
     "catalogue": "tracefit.crystal",
     "parse_index": "tracefit.crystal",
     "format_index": "tracefit.crystal",
+    "index_notation": "tracefit.crystal",
+    "restate_label": "tracefit.crystal",
     "predict_traces": "tracefit.predict",
     "Load": "tracefit.predict",
     "FrameSettings": "tracefit.conventions",

@@ -185,6 +185,12 @@ def plane_text(p: Sequence[int]) -> str:
     return format_index(tuple(int(x) for x in p), kind="plane")
 
 
+def _restated(label: str) -> str:
+    from tracefit.crystal.indices import restate_label
+
+    return restate_label(label)
+
+
 def direction_label(d: Sequence[int]) -> str:
     """A direction's indices in the project's one notation, e.g. ``[-101]``.
 
@@ -257,7 +263,7 @@ def family_rows(image_name: str, families: list[dict]) -> list[dict]:
             "strength": fam.get("strength"),
             "verdict": verdict,
             "plane": plane_text(best["plane"]) if best else "",
-            "plane_family": best.get("family", ""),
+            "plane_family": _restated(best.get("family", "")),
             "mode": best.get("mode", ""),
             "predicted_deg": best.get("predicted_deg"),
             "residual_deg": best.get("residual_deg"),

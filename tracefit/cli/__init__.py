@@ -34,8 +34,19 @@ def _print_version(value: bool) -> None:
 def _root(
     version: bool = typer.Option(False, "--version", help="Print the version and exit.", callback=_print_version,
                                  is_eager=True),
+    hex_indices: str = typer.Option("four", "--hex-indices", metavar="four|three",
+                                    help="Print hexagonal planes and directions with four (Miller-Bravais, default) or "
+                                         "three (Miller, on the a1 a2 c cell) indices, in every table, CSV and report. "
+                                         "Give it before the command: tracefit --hex-indices three identify ..."),
 ) -> None:
     """tracefit: slip- and twin-trace analysis of micrographs."""
+    from tracefit.crystal.indices import _HEX_NOTATION, HEX_NOTATIONS
+    from tracefit.errors import TracefitInputError
+
+    if hex_indices not in HEX_NOTATIONS:
+        raise TracefitInputError(f"--hex-indices must be four or three, got {hex_indices!r}")
+    # main() runs each command in a copied context, so this lasts for the one command
+    _HEX_NOTATION.set(hex_indices)
 
 
 def _register() -> None:
@@ -75,9 +86,12 @@ def main(argv: list[str] | None = None) -> int:
     """Entry point of the ``tracefit`` console script."""
     from tracefit.errors import TracefitInputError
 
+    import contextvars
+
     _register()
     try:
-        code = app(args=argv, standalone_mode=False)
+        # a fresh copy of the context: display settings made by one call never leak into the next
+        code = contextvars.copy_context().run(app, args=argv, standalone_mode=False)
     except TracefitInputError as exc:
         print(f"tracefit: error: {_in_flag_terms(exc)}", file=sys.stderr)
         return 2

@@ -227,7 +227,7 @@ def identify(
 
 
 def _print_text(results, lat, ld) -> None:
-    from tracefit.crystal import format_index
+    from tracefit.crystal import format_index, restate_label
     from tracefit.results import load_text
 
     if not results:
@@ -264,7 +264,7 @@ def _print_text(results, lat, ld) -> None:
             split = getattr(c, "modes", None) or []
             modes = "" if len(split) < 2 else "  modes " + " / ".join(f"{m.mode} {m.share:.2f}" for m in split)
             typer.echo(
-                f"   p={c.probability:5.3f}  {format_index(c.plane, 'plane'):<12} {c.family:<8} {c.mode:<4} "
+                f"   p={c.probability:5.3f}  {format_index(c.plane, 'plane'):<12} {restate_label(c.family):<8} {c.mode:<4} "
                 f"predicted {c.predicted_deg:7.2f} (resid {c.residual_deg:+5.2f}, sigma {c.sigma_deg:4.2f}, incl {c.inclination_deg:4.1f}){bs}{modes}"
             )
         if what == "crack":

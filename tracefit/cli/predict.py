@@ -186,7 +186,7 @@ def _predict_grains(lattice, c_over_a, hex_setting, systems_file, modes, familie
 
 
 def _print_table(lat, ori, frame, ld, traces, near_surface) -> None:
-    from tracefit.crystal import format_index
+    from tracefit.crystal import format_index, restate_label
 
     e = ori["euler_deg"]
     head = f"{lat.name}, Bunge Euler ({e[0]:.2f}, {e[1]:.2f}, {e[2]:.2f}) deg"
@@ -216,7 +216,7 @@ def _print_table(lat, ori, frame, ld, traces, near_surface) -> None:
     typer.echo(cols)
     for t in traces:
         plane = format_index(t.plane, "plane")
-        row = f"{t.angle_deg:7.2f}  {t.inclination_deg:5.1f}  {plane:<12} {t.family:<10} {','.join(t.modes):<10}"
+        row = f"{t.angle_deg:7.2f}  {t.inclination_deg:5.1f}  {plane:<12} {restate_label(t.family):<10} {','.join(t.modes):<10}"
         if with_m:
             best = t.systems[0]
             value = best.resolved_shear if stress else best.schmid_factor

@@ -57,6 +57,7 @@ def systems_command(
 
     A crystal-direction load ([110]) needs no orientation; a sample-axis load (x, 1,0,0) needs one (--euler, --align, ...).
     """
+    from tracefit.crystal import restate_label
     from tracefit.predict import system_schmid_factors
 
     with cli_warnings():
@@ -78,8 +79,8 @@ def systems_command(
         r = {
             "name": s.name,
             "mode": s.mode,
-            "family": s.family,
-            "direction_family": s.direction_family,
+            "family": restate_label(s.family),
+            "direction_family": restate_label(s.direction_family),
             "plane": [int(x) for x in s.plane],
             "direction": [int(x) for x in s.direction],
             "plane_label": s.plane_label,

@@ -20,7 +20,18 @@ from tracefit.crystal import symmetry as _symmetry
 from tracefit.crystal import systems as _systems
 from tracefit.crystal import systems_file as _systems_file
 from tracefit.crystal.builtin_systems import TRADE_NAMES, available_families, catalogue, filter_systems
-from tracefit.crystal.indices import BRACKETS, MillerIndex, check_values, format_index, parse_index, to_three
+from tracefit.crystal.indices import (
+    BRACKETS,
+    HEX_NOTATIONS,
+    MillerIndex,
+    check_values,
+    current_index_notation,
+    format_index,
+    index_notation,
+    parse_index,
+    restate_label,
+    to_three,
+)
 from tracefit.crystal.lattice import (
     IDEAL_C_OVER_A,
     PRESETS,

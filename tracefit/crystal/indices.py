@@ -30,7 +30,9 @@ from __future__ import annotations
 
 import math
 import re
-from collections.abc import Sequence
+from collections.abc import Iterator, Sequence
+from contextlib import contextmanager
+from contextvars import ContextVar
 from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
@@ -42,7 +44,15 @@ from tracefit.errors import TracefitInputError
 if TYPE_CHECKING:  # names used in annotations only
     from tracefit.crystal.lattice import Lattice
 
-__all__ = ["MillerIndex", "parse_index", "format_index", "check_values", "to_three", "BRACKETS"]
+__all__ = ["MillerIndex", "parse_index", "format_index", "check_values", "to_three", "BRACKETS", "HEX_NOTATIONS",
+           "index_notation", "current_index_notation", "restate_label"]
+
+#: How hexagonal planes and directions are printed: four Miller-Bravais indices (the default)
+#: or three Miller indices on the a1, a2, c cell.
+HEX_NOTATIONS = ("four", "three")
+# A display setting, like numpy's print options: set once at the edge (a command's flag, a
+# notebook), read by every label printer, never by the science. A ContextVar keeps threads apart.
+_HEX_NOTATION: ContextVar[str] = ContextVar("tracefit_hex_notation", default="four")
 
 #: opening bracket -> (closing bracket, kind, family)
 BRACKETS = {
@@ -310,7 +320,7 @@ def _sum_text(a: int, b: int, c: int) -> str:
     return f"{' '.join(terms)} = {a + b + c}"
 
 
-def format_index(values: Sequence[int], kind: str = "plane", family: bool = False) -> str:
+def format_index(values: Sequence[int], kind: str = "plane", family: bool = False, notation: str | None = None) -> str:
     """Print indices in the compact trade form with minus signs for bars.
 
     Parameters
@@ -320,6 +330,12 @@ def format_index(values: Sequence[int], kind: str = "plane", family: bool = Fals
     kind : {"plane", "direction"}
     family : bool
         Curly/angle brackets for families.
+    notation : {"four", "three"} or None
+        How four-index (hexagonal) input is printed: as given (``"four"``) or converted to
+        three Miller indices on the a1, a2, c cell (``"three"``: (hkil) -> (hkl),
+        [uvtw] -> [u-t, v-t, w] in lowest terms). None (default): the setting of
+        :func:`index_notation`, which is ``"four"`` unless changed. Three-index input is
+        printed as given either way.
 
     Returns
     -------
@@ -330,7 +346,7 @@ def format_index(values: Sequence[int], kind: str = "plane", family: bool = Fals
     Raises
     ------
     TracefitInputError
-        Unknown ``kind``.
+        Unknown ``kind`` or ``notation``.
 
     Examples
     --------
@@ -338,10 +354,17 @@ def format_index(values: Sequence[int], kind: str = "plane", family: bool = Fals
     '<11-20>'
     >>> format_index((1, 0, -1, 12))
     '(1 0 -1 12)'
+    >>> format_index((1, 0, -1, 2), notation="three"), format_index((1, 1, -2, 3), "direction", notation="three")
+    ('(102)', '[111]')
     """
     if kind not in ("plane", "direction"):
         raise TracefitInputError(f"kind must be 'plane' or 'direction', not {kind!r}")
     vals = _whole_numbers(values)
+    if len(vals) == 4 and _checked_notation(notation) == "three":
+        vals = list(to_three(vals, kind))
+        if kind == "direction":  # [uvtw] -> [UVW] may carry a common factor, e.g. [11-23] -> [333]
+            common = math.gcd(*vals) or 1
+            vals = [v // common for v in vals]
     opening = _OPEN_FOR[(kind, bool(family))]
     closing = BRACKETS[opening][0]
     if any(abs(v) > 9 for v in vals):
@@ -349,6 +372,119 @@ def format_index(values: Sequence[int], kind: str = "plane", family: bool = Fals
     else:
         body = "".join(str(v) for v in vals)
     return f"{opening}{body}{closing}"
+
+
+def _checked_notation(notation: str | None) -> str:
+    if notation is None:
+        return _HEX_NOTATION.get()
+    if notation not in HEX_NOTATIONS:
+        raise TracefitInputError(f"notation must be one of {', '.join(HEX_NOTATIONS)}, got {notation!r}")
+    return notation
+
+
+def current_index_notation() -> str:
+    """The hexagonal index notation labels are printed in now: ``"four"`` or ``"three"``.
+
+    Returns
+    -------
+    str
+        The setting of the innermost :func:`index_notation` block, else ``"four"``.
+
+    Examples
+    --------
+    >>> current_index_notation()
+    'four'
+    """
+    return _HEX_NOTATION.get()
+
+
+@contextmanager
+def index_notation(notation: str) -> Iterator[str]:
+    """Print hexagonal planes and directions with four (Miller-Bravais) or three (Miller) indices.
+
+    A display setting only: inside the block every label tracefit prints (tables, ``--json``
+    labels, CSV, report) uses ``notation``; the analysis and the stored index tuples do not
+    change. Blocks nest; the setting is restored on exit.
+
+    Parameters
+    ----------
+    notation : {"four", "three"}
+        ``"four"``: (hkil) and [uvtw], the default. ``"three"``: (hkl) and [UVW] on the
+        a1, a2, c cell.
+
+    Yields
+    ------
+    str
+        The notation now in force.
+
+    Raises
+    ------
+    TracefitInputError
+        An unknown notation.
+
+    Examples
+    --------
+    >>> with index_notation("three"):
+    ...     format_index((-1, 0, 1, 1), "plane", family=True)
+    '{-101}'
+    >>> format_index((-1, 0, 1, 1), "plane", family=True)
+    '{-1011}'
+    """
+    if notation not in HEX_NOTATIONS:
+        raise TracefitInputError(f"notation must be one of {', '.join(HEX_NOTATIONS)}, got {notation!r}")
+    token = _HEX_NOTATION.set(notation)
+    try:
+        yield notation
+    finally:
+        _HEX_NOTATION.reset(token)
+
+
+_BRACKETED = re.compile(r"([({\[<])([^(){}\[\]<>]*)([)}\]>])")
+
+
+def restate_label(text: str, notation: str | None = None) -> str:
+    """A label with every four-index group printed in ``notation`` (other text untouched).
+
+    Labels of system families are stored with four indices on hexagonal lattices
+    (``"{10-12}<-1011>"``); this prints them in the notation in force at the edge.
+
+    Parameters
+    ----------
+    text : str
+        Any label, e.g. ``"{10-12}<-1011> twin"`` or ``"basal <a>"``.
+    notation : {"four", "three"} or None
+        As in :func:`format_index`; None: the :func:`index_notation` setting.
+
+    Returns
+    -------
+    str
+        ``text`` with each bracketed group of four whole indices restated; groups that are
+        not four indices (``<a>``, three-index groups) are left as they are.
+
+    Examples
+    --------
+    >>> restate_label("{10-12}<-1011> twin", notation="three")
+    '{102}<-2-11> twin'
+    >>> restate_label("basal <a>", notation="three")
+    'basal <a>'
+    """
+    if _checked_notation(notation) == "four" or not isinstance(text, str):
+        return text
+
+    def one(match: re.Match) -> str:
+        opening, body, closing = match.groups()
+        if BRACKETS.get(opening, (None,))[0] != closing:
+            return match.group(0)
+        try:
+            values = _split_body(body, match.group(0))
+        except TracefitInputError:
+            return match.group(0)
+        if len(values) != 4 or sum(values[:3]) != 0:
+            return match.group(0)
+        _, kind, family = BRACKETS[opening]
+        return format_index(values, kind, family, notation="three")
+
+    return _BRACKETED.sub(one, text)
 
 
 def _whole_numbers(values) -> list[int]:

@@ -249,7 +249,7 @@ def _zone(plane, direction) -> int:
 
 
 def _family_label(lattice, values, kind) -> str:
-    return format_index(values, kind, family=True)
+    return format_index(values, kind, family=True, notation="four")  # stored keys stay four-index
 
 
 def expand_slip(lattice: Lattice, plane: Sequence[int], direction: Sequence[int], name: str | None = None, source: str = "built-in",

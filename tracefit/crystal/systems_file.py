@@ -245,7 +245,7 @@ def _slip_entry(lat, pl, di, name, expand, source) -> list[DeformationSystem]:
     if expand:
         return expand_slip(lat, pl.values, di.values, name, source=source)
     p, d = canonical_sign(pl.values), canonical_sign(di.values)
-    pf, df = format_index(p, "plane", True), format_index(d, "direction", True)
+    pf, df = format_index(p, "plane", True, "four"), format_index(d, "direction", True, "four")
     n, u = _unit_vectors(lat, p, d, name or f"{pf}{df} slip")
     return [DeformationSystem("slip", pf, df, name or f"{pf}{df} slip", p, d, n, u, None, source)]
 
@@ -264,6 +264,6 @@ def _twin_entry(lat, pl, di, name, expand, shear, eta2, source) -> list[Deformat
     p, d = pl.values, di.values
     if canonical_sign(p) != p:
         p, d = canonical_sign(p), tuple(-x for x in d)
-    pf, df = format_index(p, "plane", True), format_index(canonical_sign(d), "direction", True)
+    pf, df = format_index(p, "plane", True, "four"), format_index(canonical_sign(d), "direction", True, "four")
     n, u = _unit_vectors(lat, p, d, name or f"{pf}{df} twin")
     return [DeformationSystem("twin", pf, df, name or f"{pf}{df} twin", p, d, n, u, shear, source)]

@@ -206,6 +206,9 @@ def read_orientation_map(path: str | Path, phase: int | str | None = None, latti
     import io
     import warnings
 
+    from tracefit.maps.orix_import import import_orix
+
+    import_orix()
     from orix import io as orix_io
 
     try:

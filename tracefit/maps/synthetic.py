@@ -124,6 +124,9 @@ def synthetic_crystal_map(quaternions: np.ndarray, valid: np.ndarray | None = No
     >>> xm.shape, float(xm.dx)
     ((2, 3), 0.5)
     """
+    from tracefit.maps.orix_import import import_orix
+
+    import_orix()
     from diffpy.structure import Lattice as DiffpyLattice
     from diffpy.structure import Structure
     from orix.crystal_map import CrystalMap, PhaseList

@@ -12,6 +12,7 @@ from typing import Any, Sequence
 
 import numpy as np
 
+from tracefit.crystal.indices import restate_label
 from tracefit.matching.candidates import plane_key
 
 __all__ = ["SystemChoice", "ModeShare", "Candidate", "FamilyIdentification", "identifications_to_json", "format_plane"]
@@ -139,7 +140,7 @@ class ModeShare:
         """JSON form (share and probability to 6 decimals)."""
         return {
             "mode": self.mode,
-            "family": self.family,
+            "family": restate_label(self.family),
             "share": _r(self.share, 6),
             "probability": _r(self.probability, 6),
             "best_system": None if self.best_system is None else self.best_system.to_dict(),
@@ -210,7 +211,7 @@ class Candidate:
         """JSON form (probability to 6 decimals, angles to 4); ``modes`` holds the split."""
         return {
             "plane": list(self.plane),
-            "family": self.family,
+            "family": restate_label(self.family),
             "mode": self.mode,
             "predicted_deg": _r(self.predicted_deg),
             "residual_deg": _r(self.residual_deg),

@@ -18,7 +18,7 @@ import numpy as np
 from numpy.typing import ArrayLike
 
 from tracefit.conventions import FrameSettings, apparent_angle, axial_difference, data_to_image_matrix, fold_axial
-from tracefit.crystal import DeformationSystem, Lattice, Orientation, as_orientation_matrix
+from tracefit.crystal import DeformationSystem, Lattice, Orientation, as_orientation_matrix, restate_label
 from tracefit.errors import TracefitInputError, real_number
 from tracefit.predict.loading import Load, _num, as_load, resolved_drive
 from tracefit.predict.resolved import _unit_rows, activation_stress, crss_of, reported_drive, resolved_shear
@@ -403,7 +403,7 @@ class PredictedTrace:
         """JSON-ready dict (``best_schmid_factor`` only under an axis load)."""
         d = {
             "plane": [_num(x) for x in self.plane],
-            "family": self.family,
+            "family": restate_label(self.family),
             "modes": list(self.modes),
             "angle_deg": float(self.angle_deg),
             "true_angle_deg": float(self.true_angle_deg),

@@ -64,7 +64,7 @@ def default_workers(memory_per_worker_gb: float = 1.2) -> int:
     return max(1, min(cores, int(avail // memory_per_worker_gb)))
 
 
-def _mp_context():
+def _mp_context(with_orix: bool = False):
     # Workers come from a fresh server process ("forkserver"), not from a fork of this
     # possibly multi-threaded process (BLAS, OpenCV and GUI threads do not survive a fork
     # reliably); where forkserver does not exist (Windows, macOS default) use spawn.
@@ -75,8 +75,12 @@ def _mp_context():
         return mp.get_context("spawn")
     ctx = mp.get_context("forkserver")
     # the server imports the heavy modules once; each worker forked from it starts warm
-    ctx.set_forkserver_preload(["tracefit.survey.runner", "tracefit.pipeline", "tracefit.image", "tracefit.matching",
-                                "tracefit.viz.plots", "matplotlib.figure", "matplotlib.backends.backend_agg"])
+    preload = ["tracefit.survey.runner", "tracefit.pipeline", "tracefit.image", "tracefit.matching",
+               "tracefit.viz.plots", "matplotlib.figure", "matplotlib.backends.backend_agg"]
+    if with_orix:
+        # orix compiles with numba on import: once, in the server, not in every worker at once
+        preload.append("tracefit.maps.orix_preload")
+    ctx.set_forkserver_preload(preload)
     return ctx
 
 
@@ -143,7 +147,8 @@ def run_in_pool(process: Callable, failed_record: Callable, todo: list, out_dir:
     >>> list(inspect.signature(run_in_pool).parameters)[:3]
     ['process', 'failed_record', 'todo']
     """
-    pool = ProcessPoolExecutor(max_workers=n_workers, mp_context=_mp_context(), initializer=_init_worker)
+    with_orix = any(getattr(im, "orientation_map", None) for im in todo)
+    pool = ProcessPoolExecutor(max_workers=n_workers, mp_context=_mp_context(with_orix), initializer=_init_worker)
     try:
         futs = {pool.submit(_worker, (process, im, out_dir, analyse, figures)): im for im in todo}
         for fut in as_completed(futs):

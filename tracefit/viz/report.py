@@ -20,6 +20,7 @@ from typing import Protocol, Union
 
 import tracefit
 from tracefit.atomic import write_text
+from tracefit.crystal.indices import restate_label
 from tracefit.errors import TracefitInputError
 from tracefit.viz.labels import direction_label, family_label, plane_label
 
@@ -233,7 +234,7 @@ def _candidate_table(rec: dict, fam: dict) -> str:
         bs = c.get("best_system") or {}
         cls = ' class="best"' if r == 1 and not ident.get("unexplained") else ""
         body.append(
-            f"<tr{cls}><td class=\"num\">{r}</td><td>{_e(_plane(c.get('plane')))}</td><td>{_e(c.get('family'))}</td>"
+            f"<tr{cls}><td class=\"num\">{r}</td><td>{_e(_plane(c.get('plane')))}</td><td>{_e(restate_label(c.get('family')))}</td>"
             f"<td>{_e(_mode_split(c))}</td><td class=\"num\">{_num(c.get('predicted_deg'))}</td>"
             f"<td class=\"num\">{_num(c.get('residual_deg'))}</td><td class=\"num\">{_num(c.get('probability'), 3)}</td>"
             f"<td class=\"num\">{_num(c.get('inclination_deg'), 1)}</td><td>{_e(_direction(bs.get('direction')))}</td>"
