@@ -76,6 +76,25 @@ def _axial(a):
     return (np.asarray(a) + 90.0) % 180.0 - 90.0
 
 
+#: How the active planes are drawn: "plane" (every usable plane by its Schmid factor^2, the
+#: benchmark's original rule) or "family" (a system family uniformly among those with a usable
+#: plane, then a plane of it by Schmid factor^2: the model's own prior per system family).
+DRAW = {"mode": "plane"}
+
+
+def _draw_plane(ww, cs, npl, rng):
+    if DRAW["mode"] == "plane":
+        return int(rng.choice(npl, p=ww / ww.sum()))
+    members: dict = {}
+    for c in range(len(cs.systems)):
+        for sy in cs.systems[c]:
+            members.setdefault(sy.name, set()).add(int(cs.plane_ids[c]))
+    live = [sorted(m) for m in members.values() if ww[sorted(m)].sum() > 0]
+    fam = live[int(rng.integers(len(live)))]
+    w = ww[fam]
+    return int(fam[int(rng.choice(len(fam), p=w / w.sum()))])
+
+
 def _grain(cs, npl, normals, rng, subgrain_of=None):
     """One grain: (true rotation, chosen planes, noise-free traces, model sigmas), or None without usable planes."""
     x = np.array([1.0, 0.0, 0.0])
@@ -106,7 +125,7 @@ def _grain(cs, npl, normals, rng, subgrain_of=None):
                 ww[np.abs(_axial(ang - ang[c])) < 2.0] = 0.0
             if ww.sum() <= 0:
                 break
-            chosen.append(int(rng.choice(npl, p=ww / ww.sum())))
+            chosen.append(_draw_plane(ww, cs, npl, rng))
     sig = np.sqrt(SIG_DET**2 + predicted_trace_sigma(incl, SIG_ORI) ** 2 + SIG_FRAME**2)
     return R, chosen, ang, sig
 
@@ -382,6 +401,69 @@ def run_images(n, seed):
     return ok, inset, tot, t_det, t_id
 
 
+def _calibration_points(results, truth, key, every_plane):
+    """(confidence, correct, family index) of each point that enters the ECE (see calibration_error)."""
+    conf, ok, fam = [], [], []
+    for i, (r, t) in enumerate(zip(results, truth)):
+        if t["scratch"]:
+            continue
+        pp = _plane_probabilities(r)
+        tp = _pk(key[t["plane"]])
+        if every_plane:
+            conf += list(pp.values())
+            ok += [k == tp for k in pp]
+            fam += [i] * len(pp)
+        elif not pp:
+            conf.append(0.0), ok.append(False), fam.append(i)
+        else:
+            best = max(pp, key=pp.get)
+            conf.append(pp[best]), ok.append(best == tp), fam.append(i)
+    return np.asarray(conf, float), np.asarray(ok, float), np.asarray(fam)
+
+
+def per_plane_prior(cs):
+    """Prior weights that give every (system family, plane) pair the same mass: the former per-plane prior."""
+    planes: dict = {}
+    for c in range(len(cs.systems)):
+        for s in cs.systems[c]:
+            planes.setdefault(s.name, set()).add(int(cs.plane_ids[c]))
+    return {label: float(len(ids)) for label, ids in planes.items()}
+
+
+def main_paired_calibration(n, seeds, n_boot=1000):
+    """ECE of the present model and of the former one (prior per plane, independent orientation errors)
+    on the same simulated families, with bootstrap 95 % intervals (families resampled) of each and of
+    the paired difference (present - former)."""
+    rng_boot = np.random.default_rng(12345)
+    load = parse_load("x")
+    lats = [("fcc", lattice_preset("fcc")), ("bcc", lattice_preset("bcc")), ("hcp", lattice_preset("hcp", 1.587))]
+    print(f"paired calibration: {n // 3 + 1} grains per lattice and seed, seeds {seeds}, {n_boot} bootstrap resamples of families, "
+          f"active planes drawn per {DRAW['mode']}")
+    print(f"{'lattice':<8}{'seed':>6}  {'points':<12}{'present ECE [95 %]':<26}{'former ECE [95 %]':<26}{'present - former [95 %]'}")
+    for seed in seeds:
+        rng = np.random.default_rng(seed)
+        for name, lat in lats:
+            obs, ori, truth, cs, key, maps = simulate(lat, n // 3 + 1, rng)
+            common = dict(load=load, orientation_sigma_deg=SIG_ORI)
+            new = identify_maps(obs, lat, ori, cs, maps, **common)
+            old = identify_maps(obs, lat, ori, cs, maps, prior=per_plane_prior(cs), shared_orientation=False, **common)
+            for every in (False, True):
+                cn, kn, fn = _calibration_points(new, truth, key, every)
+                co, ko, fo = _calibration_points(old, truth, key, every)
+                fams = np.unique(np.concatenate([fn, fo]))
+                boots = []
+                for _ in range(n_boot):
+                    pick = rng_boot.choice(fams, size=fams.size, replace=True)
+                    counts = np.bincount(pick, minlength=int(fams.max()) + 1)
+                    wn, wo = counts[fn], counts[fo]
+                    boots.append((_ece(np.repeat(cn, wn), np.repeat(kn, wn)), _ece(np.repeat(co, wo), np.repeat(ko, wo))))
+                b = np.asarray(boots)
+                en, eo = _ece(cn, kn), _ece(co, ko)
+                ci = lambda x: f"[{np.percentile(x, 2.5):.3f}, {np.percentile(x, 97.5):.3f}]"  # noqa: E731
+                print(f"{name:<8}{seed:>6}  {'every plane' if every else 'top plane':<12}{en:.3f} {ci(b[:, 0]):<20}"
+                      f"{eo:.3f} {ci(b[:, 1]):<20}{en - eo:+.3f} {ci(b[:, 0] - b[:, 1])}")
+
+
 def main_calibration(n, seed):
     """Expected calibration error (default model, artefact test on) per lattice, and the timing."""
     rows, tot, ng = run_accuracy(n, seed)
@@ -402,7 +484,15 @@ def main(argv=None):
     ap.add_argument("--seed", type=int, default=2026)
     ap.add_argument("--calibration", action="store_true",
                     help="print only the expected calibration error per lattice and the timing")
+    ap.add_argument("--draw", choices=("plane", "family"), default="plane",
+                    help="draw active planes per plane (default) or per system family (the model's prior)")
+    ap.add_argument("--paired", type=int, default=None, metavar="SEEDS",
+                    help="ECE of the present and the former model on the same families, with bootstrap "
+                         "intervals, for SEEDS seeds")
     a = ap.parse_args(argv)
+    DRAW["mode"] = a.draw
+    if a.paired:
+        return main_paired_calibration(a.grains or 1500, [a.seed + k for k in range(a.paired)])
     if a.calibration:
         return main_calibration(a.grains or 1500, a.seed)
     n = a.grains or (300 if a.quick else 1500)

@@ -42,6 +42,12 @@ Guards against killing real systems
 * At least ``min_witnesses`` (default 3) independent witnesses: two grains at one angle are a
   coincidence that crystallography predicts often enough (any family pair matches within a
   degree with probability ~ 1/90).
+* Slip transfer: a direction whose every witness lies on a steep candidate plane's predicted
+  trace in its own grain (within 3 sigma, trace and angle spread combined) is slip carried across
+  the boundaries, not a scratch, and is dropped however many grains it crosses, provided such a
+  fit is telling: a line at a random angle would fit in all those grains with probability under
+  1 % (the product over the witnesses of the share of angles their grain's steep planes cover).
+  In a dense catalogue (bcc with {123}) almost any angle fits, and the continuity evidence decides.
 * Directions with posterior < 0.5 are dropped (their families keep the M0 answer), so a
   borderline direction slightly under-states p_artefact; accepted directions enter each
   family's prior as q pi (q the posterior of the direction), exact when q is near 0 or 1.
@@ -85,6 +91,8 @@ _WINDOW_DEG = 3.0
 _MAX_PEAKS = 12  # peaks examined per map (rejected ones are masked and the next is tried)
 _LINK_K = 2.0  # normals of one plane agree within _LINK_K hypot(s_A, s_B) degrees
 _MAX_LINK_SIGMA_DEG = 3.0  # ~ inclination >= 20 deg at 1 deg orientation sigma
+_FIT_K = 3.0  # a line "fits" a plane within 3 sigma (trace and angle spread combined): slip transfer
+_TRANSFER_CHANCE = 0.01  # ... and a random line would fit in all its grains with lower probability
 
 # Uniform prior on pi, integrated on a grid dense at small fractions (trapezoid weights).
 _PI = np.unique(np.concatenate([np.geomspace(1e-4, 0.3, 80), np.linspace(0.3, 0.999, 21)]))
@@ -177,12 +185,17 @@ class CrystalContext:
     orientation_sigma_deg: dict
     families: Sequence | None = None
 
-    def planes_at(self, grain: Any, theta: float, k: float = 2.5) -> np.ndarray:
-        """Indices of the grain's candidates whose predicted trace lies within k sigma of theta."""
+    def planes_at(self, grain: Any, theta: float, k: float = 2.5, extra_sigma_deg: float = 0.0) -> np.ndarray:
+        """Indices of the grain's candidates whose predicted trace lies within k sigma of theta.
+
+        sigma is the predicted trace's spread, combined with ``extra_sigma_deg`` (e.g. the
+        observed angle's own uncertainty) in quadrature; shallow planes never count.
+        """
         if grain not in self.pred_deg:
             return np.zeros(0, int)
         d = np.abs(axial_difference(self.pred_deg[grain], theta))
         sig = np.maximum(self.pred_sigma_deg[grain], 1e-6)
+        d = d * sig / np.hypot(sig, extra_sigma_deg)  # d <= k hypot(sig, extra) <=> this <= k sig
         # shallow planes (broad predicted traces, normals near the surface normal) would link
         # any two grains; they cannot draw a sharp common line anyway
         return np.flatnonzero((d <= k * sig) & (sig <= _MAX_LINK_SIGMA_DEG))
@@ -267,6 +280,35 @@ def _witness_groups(members, grains, context, th) -> list[list[int]]:
     for i, f in enumerate(members):
         groups.setdefault(find(i), []).append(f)
     return list(groups.values())
+
+
+def _all_fit_a_plane(groups, a, s_eff, grains, context) -> bool:
+    """True when the line is slip carried across the boundaries (slip transfer), not a scratch.
+
+    That is: every witness lies on the predicted trace of a steep plane of its own grain
+    (within 3 sigma, trace and angle spread combined), and a straight line at a random angle
+    would fit a plane in all those grains by chance with probability below 1 %. The chance per
+    grain is the share of the half circle its steep planes' traces cover; where a dense
+    catalogue (bcc with {123}) covers most angles, a fit says nothing and the continuity
+    evidence decides.
+    """
+    if context is None:
+        return False
+    grid = np.arange(0.0, 180.0, 0.25)
+    chance = 1.0
+    for grp in groups:
+        best = None
+        for f in grp:
+            g = grains[f]
+            if len(context.planes_at(g, float(a[f]), k=_FIT_K, extra_sigma_deg=float(s_eff[f]))) == 0:
+                continue
+            covered = [len(context.planes_at(g, float(t), k=_FIT_K, extra_sigma_deg=float(s_eff[f]))) > 0 for t in grid]
+            share = float(np.mean(covered))
+            best = share if best is None else min(best, share)
+        if best is None:
+            return False  # a witness that no plane explains: the line may be a scratch
+        chance *= best
+    return chance < _TRANSFER_CHANCE
 
 
 def _window_evidence(a, s_eff, l0, lr_hat, groups, th, tw):
@@ -387,7 +429,7 @@ def find_artefact_directions(
         masked[win] = True
         members, lr_hat = _members_at(acc[i_hat], a, s_eff, l0, th)
         groups = _witness_groups(members, grains, context, th)
-        if len(groups) < min_witnesses:
+        if len(groups) < min_witnesses or _all_fit_a_plane(groups, a, s_eff, grains, context):
             continue
         Iw = _window_evidence(a, s_eff, l0, lr_hat, groups, th, grid[win])
         log_b = logsumexp(Iw) + math.log(_STEP_DEG / 180.0)

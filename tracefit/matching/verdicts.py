@@ -215,7 +215,9 @@ def _margin(gp: GrainPosterior, f: int) -> float | None:
     p_plane = np.sort(np.bincount(ids, weights=gp.post[f, :P], minlength=int(ids.max()) + 1))[::-1]
     if len(p_plane) < 2 or p_plane[0] <= 0:
         return None
-    return float(p_plane[0] / max(p_plane[1], p_plane[0] * 1e-12))  # capped at 1e12: beyond that it means "certain"
+    if p_plane[1] <= p_plane[0] * 1e-12:  # (also when that product underflows to zero)
+        return 1e12  # capped: beyond that the margin means "certain"
+    return float(p_plane[0] / p_plane[1])
 
 
 def flag_all_unexplained(results: list[FamilyIdentification], grain: Any) -> None:
