@@ -282,6 +282,18 @@ def _witness_groups(members, grains, context, th) -> list[list[int]]:
     return list(groups.values())
 
 
+def _covered_share(context, grain, extra_sigma_deg: float) -> float:
+    """Share of image angles (0.25 deg grid) within 3 sigma of a steep plane's trace in the grain."""
+    pred = np.asarray(context.pred_deg[grain], float)
+    sig = np.maximum(np.asarray(context.pred_sigma_deg[grain], float), 1e-6)
+    steep = sig <= _MAX_LINK_SIGMA_DEG
+    if not steep.any():
+        return 0.0
+    grid = np.arange(0.0, 180.0, 0.25)
+    d = np.abs(axial_difference(grid[:, None], pred[None, steep]))
+    return float(np.mean((d <= _FIT_K * np.hypot(sig[steep], extra_sigma_deg)[None, :]).any(axis=1)))
+
+
 def _all_fit_a_plane(groups, a, s_eff, grains, context) -> bool:
     """True when the line is slip carried across the boundaries (slip transfer), not a scratch.
 
@@ -294,7 +306,6 @@ def _all_fit_a_plane(groups, a, s_eff, grains, context) -> bool:
     """
     if context is None:
         return False
-    grid = np.arange(0.0, 180.0, 0.25)
     chance = 1.0
     for grp in groups:
         best = None
@@ -302,8 +313,7 @@ def _all_fit_a_plane(groups, a, s_eff, grains, context) -> bool:
             g = grains[f]
             if len(context.planes_at(g, float(a[f]), k=_FIT_K, extra_sigma_deg=float(s_eff[f]))) == 0:
                 continue
-            covered = [len(context.planes_at(g, float(t), k=_FIT_K, extra_sigma_deg=float(s_eff[f]))) > 0 for t in grid]
-            share = float(np.mean(covered))
+            share = _covered_share(context, g, float(s_eff[f]))
             best = share if best is None else min(best, share)
         if best is None:
             return False  # a witness that no plane explains: the line may be a scratch
