@@ -138,7 +138,7 @@ def _pick_lattice(cases_by_lattice: dict, lattice: str | None, notes: list) -> s
     for other, cs in cases_by_lattice.items():
         if other != key:
             notes.append(f"{len(cs)} grain(s) of lattice {other} left out: the statistics are about {key} "
-                         "(choose with lattice=...)")
+                         "(choose another with --lattice, or lattice= in the API)")
     return key
 
 
