@@ -30,7 +30,7 @@ def stats(
     figures) and adds a statistics section to OUT/report.html.
     """
     from tracefit.stats import survey_statistics
-    from tracefit.viz.stats_report import write_statistics
+    from tracefit.viz.stats_plots import write_statistics
 
     if interval not in ("profile", "bootstrap"):
         from tracefit.errors import TracefitInputError

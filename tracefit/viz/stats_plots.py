@@ -10,7 +10,7 @@ from pathlib import Path
 
 import numpy as np
 
-__all__ = ["schmid_histograms", "crss_ratio_figure", "onset_figure", "write_stats_figures", "STATS_FIGURES"]
+__all__ = ["schmid_histograms", "crss_ratio_figure", "onset_figure", "write_stats_figures", "write_statistics", "STATS_FIGURES"]
 
 #: figure files :func:`write_stats_figures` writes (those that have data)
 STATS_FIGURES = ("schmid-histograms.png", "crss-ratios.png", "onsets.png")
@@ -176,4 +176,52 @@ def write_stats_figures(stats: dict, folder: str | os.PathLike) -> list[Path]:
         out.append(save_figure(crss_ratio_figure(stats), folder / STATS_FIGURES[1], dpi=90))
     if stats.get("series"):
         out.append(save_figure(onset_figure(stats), folder / STATS_FIGURES[2], dpi=90))
+    return out
+
+
+def write_statistics(stats, out_dir: str | Path, figures: bool = True, report: bool = True) -> dict:
+    """Write a survey's statistics beside it: ``OUT/stats/`` tables and figures, and the report's section.
+
+    Parameters
+    ----------
+    stats : SurveyStatistics
+        From :func:`tracefit.survey_statistics` (anything with ``to_dict()`` and ``write_tables(folder)``).
+    out_dir : str or Path
+        The survey folder; the statistics go to ``OUT/stats/``.
+    figures : bool
+        Draw the figures.
+    report : bool
+        Write ``OUT/report.html`` again with the statistics section (needs ``OUT/results.json``).
+
+    Returns
+    -------
+    dict
+        ``tables``, ``figures`` (lists of paths) and ``report`` (path or None).
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> class Fake:
+    ...     def to_dict(self): return {"activity": {"histograms": {}}, "series": []}
+    ...     def write_tables(self, folder): return []
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     out = write_statistics(Fake(), d, figures=False)
+    >>> out["report"] is None
+    True
+    """
+    import json
+
+    from tracefit.viz.report import write_report
+
+    out_dir = Path(out_dir)
+    folder = out_dir / "stats"
+    d = stats.to_dict()
+    out = {"tables": [str(p) for p in stats.write_tables(folder)], "figures": [], "report": None}
+    if figures:
+        out["figures"] = [str(p) for p in write_stats_figures(d, folder)]
+    res = out_dir / "results.json"
+    if report and res.is_file():
+        payload = json.loads(res.read_text(encoding="utf-8"))
+        payload["statistics"] = d
+        out["report"] = str(write_report(payload, out_dir / "report.html"))
     return out

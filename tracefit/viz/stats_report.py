@@ -3,11 +3,14 @@
 from __future__ import annotations
 
 import base64
+import html
 from pathlib import Path
 
-from tracefit.viz.report import _e
+__all__ = ["stats_section"]
 
-__all__ = ["stats_section", "write_statistics"]
+
+def _e(x) -> str:
+    return html.escape("" if x is None else str(x))
 
 
 def _num(x, nd=3) -> str:
@@ -95,51 +98,3 @@ def stats_section(stats: dict, stats_dir: str | Path | None = None) -> str:
         parts.append('<div class="figs">' + "".join(figs) + "</div>")
     return "\n".join(parts)
 
-
-def write_statistics(stats, out_dir: str | Path, figures: bool = True, report: bool = True) -> dict:
-    """Write a survey's statistics beside it: ``OUT/stats/`` tables and figures, and the report's section.
-
-    Parameters
-    ----------
-    stats : SurveyStatistics
-        From :func:`tracefit.survey_statistics` (anything with ``to_dict()`` and ``write_tables(folder)``).
-    out_dir : str or Path
-        The survey folder; the statistics go to ``OUT/stats/``.
-    figures : bool
-        Draw the figures.
-    report : bool
-        Write ``OUT/report.html`` again with the statistics section (needs ``OUT/results.json``).
-
-    Returns
-    -------
-    dict
-        ``tables``, ``figures`` (lists of paths) and ``report`` (path or None).
-
-    Examples
-    --------
-    >>> import tempfile
-    >>> class Fake:
-    ...     def to_dict(self): return {"activity": {"histograms": {}}, "series": []}
-    ...     def write_tables(self, folder): return []
-    >>> with tempfile.TemporaryDirectory() as d:
-    ...     out = write_statistics(Fake(), d, figures=False)
-    >>> out["report"] is None
-    True
-    """
-    import json
-
-    from tracefit.viz.report import write_report
-    from tracefit.viz.stats_plots import write_stats_figures
-
-    out_dir = Path(out_dir)
-    folder = out_dir / "stats"
-    d = stats.to_dict()
-    out = {"tables": [str(p) for p in stats.write_tables(folder)], "figures": [], "report": None}
-    if figures:
-        out["figures"] = [str(p) for p in write_stats_figures(d, folder)]
-    res = out_dir / "results.json"
-    if report and res.is_file():
-        payload = json.loads(res.read_text(encoding="utf-8"))
-        payload["statistics"] = d
-        out["report"] = str(write_report(payload, out_dir / "report.html"))
-    return out
