@@ -36,7 +36,7 @@ ALLOWED = {
     "viz": BASE | {"crystal", "predict", "image", "matching", "results"},
     "stats": BASE | {"crystal", "predict", "results"},
     "survey": BASE | {"crystal", "predict", "image", "maps", "matching", "results", "pipeline", "viz"},
-    "demo": BASE | {"survey", "matching", "crystal", "conventions"},
+    "demo": BASE | {"survey", "stats", "matching", "crystal", "conventions"},
     "cli": None,  # the command line may import anything
     "__init__": None,
     "__main__": None,

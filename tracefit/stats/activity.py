@@ -169,6 +169,7 @@ def activity_tables(cases: list[GrainCase]) -> ActivityTables:
             hist[s.mode]["active"] += ob.weight * ob.probability * np.histogram(np.clip([v], edges[0], edges[-1]), edges)[0]
             events.append({"image": ob.image, "grain": c.grain, "family": ob.family, "label": labels[s.name],
                            "system_family": s.name, "mode": s.mode, "plane": list(ob.plane or []),
+                           "angle_deg": round(ob.angle_deg, 2),
                            "probability": round(ob.probability, 4), "weight": round(ob.weight, 4),
                            "identified": ob.identified, "drive": round(v, 4),
                            "grain_max_drive": round(float(np.max(c.drive)), 4),

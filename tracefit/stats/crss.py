@@ -106,7 +106,8 @@ class CrssFit:
         One per system family: ``label``, ``name``, ``mode``, ``estimate``, ``low``, ``high``
         (None where the data give no bound on that side), ``status`` (in words),
         ``separated_from_reference``, ``soft_count`` (families seen, summed probabilities),
-        ``grains_tested`` (grains in which it had at least a 5 % chance under the fit).
+        ``grains_tested`` (grains in which it had at least a 5 % chance under the fit, its own
+        ratio at the low end of its interval).
     scale : float
         The fitted scatter ``beta`` (drive units: Schmid factor or MPa).
     loglik : float
@@ -270,9 +271,8 @@ def fit_crss(cases: list[GrainCase], reference: str | None = None, method: str =
     ref = _reference_index(reference, d.names, labels, systems, soft)
     model = _Model(d, ref)
     ll_max, best = model.fit()
-    P = _probabilities(best, d)
-    tested = [int(sum((P[g][d.F[g] == k].sum() >= _TESTED_P) for g in range(len(P)))) for k in range(len(d.names))]
     lo, hi = _intervals(model, best, ll_max, method, n_boot, seed)
+    tested = [_tested(d, best, k, -_LOG_R_MAX if lo[k] is None else min(lo[k], best[k])) for k in range(len(d.names))]
     fams, notes = [], []
     for k, name in enumerate(d.names):
         s = systems[name]
@@ -314,6 +314,14 @@ def _probabilities(theta, d: _Design) -> np.ndarray:
     return E / E.sum(axis=1, keepdims=True)
 
 
+def _tested(d: _Design, theta, k: int, log_r: float) -> int:
+    """Grains in which family ``k`` has at least a 5 % chance with its ratio at the low end of its interval."""
+    th = np.array(theta, float)
+    th[k] = log_r
+    P = _probabilities(th, d)
+    return int(sum((P[g][d.F[g] == k].sum() >= _TESTED_P) for g in range(len(P))))
+
+
 def _intervals(model: _Model, best, ll_max, method, n_boot, seed):
     K = model.K
     lo: list = [best[k] for k in range(K)]
@@ -346,14 +354,12 @@ def _intervals(model: _Model, best, ll_max, method, n_boot, seed):
 def _status(is_ref, low, high, soft, tested) -> str:
     if is_ref:
         return "reference"
-    if soft < 0.5 and tested == 0:
-        return "never seen and never stressed enough to be tested: the data say nothing about it"
+    if low is None and high is None:
+        return ("never seen and " if soft < 0.5 else "") + "not separated: the likelihood is flat, the data do not constrain it"
     if soft < 0.5:
-        return "never seen: only a lower bound (harder than the bound)"
+        return "never seen: only a lower bound (harder than the low end)"
     if tested == 0:
         return "never stressed enough to be tested against the others"
-    if low is None and high is None:
-        return "not separated: the likelihood is flat, the data do not constrain it"
     if high is None:
         return "lower bound only"
     if low is None:

@@ -34,7 +34,7 @@ class SeriesOnsets:
     stresses : list of float or None
         Applied stress of each frame, MPa (None where not given).
     onsets : list of dict
-        One per track: ``grain``, ``track``, ``label``, ``system_family``, ``mode``, ``plane``,
+        One per track: ``grain``, ``track``, ``label``, ``system_family``, ``mode``, ``plane``, ``angle_deg``,
         ``probability``, ``identified``, ``onset_frame``, ``onset_strain``, ``previous_strain``,
         ``stress_mpa``, ``previous_stress_mpa``, ``schmid_factor``, ``rss_onset_mpa``,
         ``rss_previous_mpa``, ``frames_seen``.
@@ -166,7 +166,8 @@ def track_series(frames: list[dict]) -> tuple[list[GrainCase], SeriesOnsets]:
             axis = case.unit == "Schmid factor"
             onsets.append({
                 "series": name, "grain": gid, "track": f"T{n}", "label": labels[s.name], "system_family": s.name,
-                "mode": s.mode, "plane": list(ob.plane or []), "probability": round(ob.probability, 4),
+                "mode": s.mode, "plane": list(ob.plane or []), "angle_deg": round(ob.angle_deg, 2),
+                "probability": round(ob.probability, 4),
                 "identified": ob.identified, "onset_frame": k + 1, "onset_strain": strains[k],
                 "previous_strain": onset["previous_strain"], "stress_mpa": stresses[k],
                 "previous_stress_mpa": onset["previous_stress_mpa"], "schmid_factor": round(m, 4) if axis else None,
