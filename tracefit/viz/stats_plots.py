@@ -95,7 +95,8 @@ def crss_ratio_figure(stats: dict):
     ax.axhline(1.0, color="0.6", lw=0.8)
     for i, f in enumerate(fams):
         est, lo, hi = f["estimate"], f.get("low"), f.get("high")
-        ax.plot([i], [est], "o", color="#17324d")
+        # an estimate at the edge of the search (no upper bound) is drawn hollow: only its interval means anything
+        ax.plot([i], [est], "o", color="#17324d", mfc="#17324d" if hi is not None else "white")
         ax.plot([i, i], [lo if lo is not None else 1 / 50, hi if hi is not None else 50], color="#17324d", lw=2)
         if hi is None:
             ax.annotate("", (i, 50), (i, 25), arrowprops=dict(arrowstyle="->", color="#17324d"))
