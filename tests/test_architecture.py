@@ -34,8 +34,9 @@ ALLOWED = {
     "results": {"errors", "conventions", "crystal"},
     "pipeline": BASE | {"crystal", "predict", "image", "maps", "matching", "results"},
     "viz": BASE | {"crystal", "predict", "image", "matching", "results"},
+    "stats": BASE | {"crystal", "predict", "results"},
     "survey": BASE | {"crystal", "predict", "image", "maps", "matching", "results", "pipeline", "viz"},
-    "demo": BASE | {"survey", "matching", "crystal", "conventions"},
+    "demo": BASE | {"survey", "stats", "matching", "crystal", "conventions"},
     "cli": None,  # the command line may import anything
     "__init__": None,
     "__main__": None,
@@ -169,7 +170,7 @@ def test_long_functions_say_why():
 def _public_names():
     seen = set()
     for modname in ["tracefit", "tracefit.crystal", "tracefit.predict", "tracefit.image", "tracefit.maps",
-                    "tracefit.matching", "tracefit.pipeline", "tracefit.results", "tracefit.options", "tracefit.survey",
+                    "tracefit.matching", "tracefit.pipeline", "tracefit.results", "tracefit.options", "tracefit.survey", "tracefit.stats",
                     "tracefit.viz", "tracefit.conventions"]:
         mod = importlib.import_module(modname)
         for n in getattr(mod, "__all__", []):

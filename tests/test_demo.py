@@ -153,3 +153,25 @@ def test_the_report_lists_every_grain_with_why_it_has_no_families(demo_run):
     b = [g for g in records["coupon-B"]["grains"] if g.get("grain") is not None]
     assert {g["grain"] for g in b} >= {1, 2} and all(g.get("status") for g in b)
     assert '<table class="grains" data-image="coupon-B">' in html and "no orientation" in html
+
+
+def test_demo_series_shows_onsets_and_an_estimate(demo_run):
+    """The in-situ series (demo_images/make_series_demo.py): each drawn family is found switching on at
+    the frame it was drawn in, through the stage drift, and the CRSS ratio it was drawn with is inside
+    the interval (truth: ramp_truth.json, basal / prismatic = 225 / 150 MPa)."""
+    code, out, err, folder = demo_run
+    assert code == 0, err
+    stats = json.loads((folder / "series" / "stats" / "statistics.json").read_text(encoding="utf-8"))
+    truth = json.loads((demo_dir() / "ramp_truth.json").read_text(encoding="utf-8"))
+    onsets = stats["series"][0]["onsets"]
+    drawn = sorted((int(g), d["onset_frame"], tuple(d["plane"])) for g, ds in truth["grains"].items() for d in ds)
+    found = sorted((o["grain"], o["onset_frame"], tuple(o["plane"])) for o in onsets)
+    same = lambda a, b: a[:2] == b[:2] and (a[2] == b[2] or a[2] == tuple(-x for x in b[2]))
+    assert len(found) == len(drawn) and all(same(a, b) for a, b in zip(found, drawn)), (found, drawn)
+    basal = stats["crss_ratios"]["{0001}"]
+    assert stats["reference"] == "{10-10}" and basal["low"] <= 1.5 <= basal["high"]
+    # the drawn onset stresses: prismatic 150 MPa, basal 225 MPa (each an upper bound by one frame's step)
+    summ = {r["label"]: r for r in stats["series"][0]["summary"]}
+    assert 150 <= summ["{10-10}"]["rss_onset_mean_mpa"] < summ["{0001}"]["rss_onset_mean_mpa"]
+    assert (folder / "series" / "stats" / "onsets.png").is_file()
+    assert "in-situ series ramp" in out

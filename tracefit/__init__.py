@@ -38,6 +38,7 @@ _LAZY = {
     "ImageResult": "tracefit.pipeline",
     "run_survey": "tracefit.survey",
     "load_job": "tracefit.survey",
+    "survey_statistics": "tracefit.stats",
     # images
     "read_image": "tracefit.image",
     "detect_bands": "tracefit.image",

@@ -8,7 +8,10 @@ and orientation table, the job file ``job.toml`` and ``truth.json`` (what was dr
 
 Scenario (invented): Harrow Lane Instruments, a fictional maker of sensor mounts,
 examines three coupons from a prototype bracket: an FCC single crystal in tension, a BCC
-grain pair and an HCP alloy with {10-12} twins.
+grain pair and an HCP alloy with {10-12} twins. A second job, ``series.toml``
+(``demo_images/make_series_demo.py``), is an in-situ tensile series of a titanium-like strip at
+four strain steps with a drifting stage: the statistics show when each family switched on and
+estimate the relative CRSS.
 """
 
 from __future__ import annotations
@@ -20,7 +23,8 @@ from pathlib import Path
 
 from tracefit.errors import TracefitInputError
 
-__all__ = ["demo_dir", "demo_job_path", "run_demo", "check_demo", "DemoCheck", "DEFAULT_DEMO_OUT"]
+__all__ = ["demo_dir", "demo_job_path", "run_demo", "check_demo", "DemoCheck", "DEFAULT_DEMO_OUT",
+           "series_job_path", "run_series_demo", "check_series_demo"]
 
 DEFAULT_DEMO_OUT = "tracefit-demo-out"
 
@@ -103,3 +107,53 @@ def run_demo(out_dir=DEFAULT_DEMO_OUT, workers: int | None = None, progress: boo
     from tracefit.survey import run_survey
 
     return run_survey(load_job(demo_job_path()), out_dir, workers=workers, resume=resume, progress=progress)
+
+
+def series_job_path() -> Path:
+    """The demo's in-situ series job file."""
+    return demo_dir() / "series.toml"
+
+
+def run_series_demo(out_dir, workers: int | None = None, progress: bool = True, resume: bool = False):
+    """Run the survey on the demo's in-situ series and its statistics.
+
+    Parameters
+    ----------
+    out_dir : str or Path
+        Output folder of the series survey.
+    workers : int, optional
+        Worker processes (default all cores).
+
+    Returns
+    -------
+    result : tracefit.survey.runner.SurveyResult
+    stats : tracefit.stats.SurveyStatistics
+    """
+    from tracefit.stats import survey_statistics
+    from tracefit.survey import load_job, run_survey
+
+    result = run_survey(load_job(series_job_path()), out_dir, workers=workers, resume=resume, progress=progress)
+    return result, survey_statistics(out_dir, "prismatic")
+
+
+def check_series_demo(stats) -> list[dict]:
+    """Each drawn family of the series beside the track found for it (same grain, angle within 3 deg).
+
+    Returns
+    -------
+    list of dict
+        ``grain``, ``drawn_onset_frame``, ``found_onset_frame`` (None if not found), ``system``, ``ok``.
+    """
+    from tracefit.conventions import axial_difference
+
+    truth = json.loads((demo_dir() / "ramp_truth.json").read_text(encoding="utf-8"))
+    onsets = [o for s in stats.series for o in s.onsets]
+    out = []
+    for gid, drawn in truth["grains"].items():
+        for d in drawn:
+            near = [o for o in onsets if o["grain"] == int(gid) and abs(axial_difference(o["angle_deg"], d["angle_deg"])) < 3]
+            found = near[0] if near else None
+            out.append({"grain": int(gid), "system": d["system"], "drawn_onset_frame": d["onset_frame"],
+                        "found_onset_frame": None if found is None else found["onset_frame"],
+                        "ok": found is not None and found["onset_frame"] == d["onset_frame"]})
+    return out

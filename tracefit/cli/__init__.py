@@ -64,7 +64,7 @@ def _register() -> None:
 
 
 # One entry per command module, in the order of ``tracefit --help``.
-_COMMAND_MODULES: list[str] = ["demo", "survey", "identify", "detect", "predict", "systems", "align", "orient", "twoface", "maps"]
+_COMMAND_MODULES: list[str] = ["demo", "survey", "stats", "identify", "detect", "predict", "systems", "align", "orient", "twoface", "maps"]
 
 
 def _in_flag_terms(exc) -> str:

@@ -6,7 +6,7 @@ and the Schmid factors and resolved shear they give (:mod:`~tracefit.predict.res
 from tracefit.predict import loading as _loading
 from tracefit.predict import resolved as _resolved
 from tracefit.predict import traces as _traces
-from tracefit.predict.loading import DEFAULT_LOAD_FRAME, FRAMES, SENSES, Load, LoadAxis, as_load, parse_load, resolved_drive, system_schmid_factors
+from tracefit.predict.loading import DEFAULT_LOAD_FRAME, FRAMES, SENSES, Load, LoadAxis, as_load, load_from_fields, parse_load, resolved_drive, system_schmid_factors
 from tracefit.predict.resolved import activation_stress, crss_of, reported_drive, resolved_shear, schmid_factor, stress_tensor
 from tracefit.predict.traces import (
     NEAR_SURFACE_DEG,

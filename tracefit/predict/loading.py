@@ -41,6 +41,7 @@ __all__ = [
     "LoadAxis",
     "parse_load",
     "as_load",
+    "load_from_fields",
     "resolved_drive",
     "system_schmid_factors",
     "SENSES",
@@ -467,6 +468,39 @@ def as_load(x: Load | str | ArrayLike | None, lattice: Lattice | None = None, se
     raise TracefitInputError(
         f"load must be an axis (text or 3 numbers) or a stress (3 x 3 or 6 Voigt values, MPa), got shape {a.shape}"
     )
+
+
+def load_from_fields(axis: str | None, sense: str = "tension", frame: str = DEFAULT_LOAD_FRAME,
+                     stress: ArrayLike | None = None, lattice: Lattice | None = None) -> Load | None:
+    """The load of a job image's fields (``load``, ``load_sense``, ``load_frame``, ``load_stress``).
+
+    The survey's job images and the statistics of a survey folder read their load here, so both
+    mean the same by the same fields.
+
+    Parameters
+    ----------
+    axis : str or None
+        The axis as written (see :func:`parse_load`), or None.
+    sense : {"tension", "compression"}
+    frame : {"image", "sample"}
+    stress : array_like, shape (6,) or (3, 3), optional
+        A stress in MPa; replaces ``axis``.
+    lattice : Lattice, optional
+        For crystal-direction axes.
+
+    Returns
+    -------
+    Load or None
+        None when neither an axis nor a stress is given.
+
+    Examples
+    --------
+    >>> load_from_fields("y", "compression").sign, load_from_fields(None) is None
+    (-1.0, True)
+    """
+    if stress is not None:
+        return Load.stress(list(stress), frame=frame)
+    return parse_load(axis, lattice, sense, frame=frame) if axis else None
 
 
 def resolved_drive(load: Load | str | ArrayLike, g: Orientation | ArrayLike | None, normals: ArrayLike, directions: ArrayLike,

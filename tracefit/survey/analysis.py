@@ -86,11 +86,9 @@ def _predicted_dicts(lattice, g, systems, frame, load) -> list[dict]:
 
 def _job_load(im: ImageJob, lattice):
     """The image's load as a :class:`tracefit.predict.Load` (axis or stress), in the frame the job names."""
-    from tracefit.predict import Load, parse_load
+    from tracefit.predict import load_from_fields
 
-    if im.load_stress is not None:
-        return Load.stress(list(im.load_stress), frame=im.load_frame)
-    return parse_load(im.load, lattice, im.load_sense, frame=im.load_frame) if im.load else None
+    return load_from_fields(im.load, im.load_sense, im.load_frame, im.load_stress, lattice)
 
 
 def chain_inputs(im: ImageJob) -> dict[str, Any]:
@@ -172,8 +170,47 @@ def analyse_image(im: ImageJob) -> ImageAnalysis:
     if not im.file.is_file():
         raise TracefitInputError(f"image file {str(im.file)!r} not found")
     kw = chain_inputs(im)
-    res = run_chain(im.file, kw.pop("lattice"), **kw)
-    return analysis_from_result(res)
+    image, move = im.file, None
+    if im.series and im.series.get("frame", 1) > 1:  # a later frame of an in-situ series
+        image, move = _onto_first_frame(im, kw)
+    res = run_chain(image, kw.pop("lattice"), **kw)
+    a = analysis_from_result(res)
+    if im.series:
+        a.extra["series_frame"] = jsonable({**im.series, "registration": move})
+    return a
+
+
+def _onto_first_frame(im: ImageJob, kw: dict):
+    """A later frame of a series on the first frame's pixels, where its grain map belongs.
+
+    Frames of the first frame's size are used as they are unless the series asks for
+    registration; then the frame (and its mask) is moved onto the first frame by phase
+    correlation (:func:`tracefit.image.frames.register_frame`) and the pixels it does not cover
+    are masked out.
+    """
+    from tracefit.image import read_image
+    from tracefit.image.frames import register_frame, warp_frame
+
+    img, _ = read_image(im.file)
+    ref_path = im.series.get("reference")
+    ref, _ = read_image(ref_path)
+    if not im.series.get("register"):
+        if img.shape != ref.shape:
+            raise TracefitInputError(f"frame {im.name!r} is {img.shape[1]} x {img.shape[0]} px but the series' first "
+                                     f"frame is {ref.shape[1]} x {ref.shape[0]} px; set register = true for the series")
+        return im.file, None
+    try:
+        move = register_frame(ref, img)
+    except TracefitInputError as exc:
+        raise TracefitInputError(f"frame {im.name!r} of series {im.series.get('name')!r}: {exc}") from None
+    warped = warp_frame(img, move)
+    valid = np.isfinite(warped)
+    if kw.get("mask") is not None:
+        m, _ = read_image(kw["mask"])
+        valid &= np.nan_to_num(warp_frame(m, move, order=0, fill=0.0)) > 0
+    kw["mask"] = valid
+    warped[~valid] = float(np.nanmedian(warped)) if valid.any() else 0.0
+    return warped.astype(np.float32), move.to_dict()
 
 
 def analysis_from_result(res: ImageResult) -> ImageAnalysis:

@@ -79,6 +79,7 @@ _TOP_KEYS = {
     "notes": "free text for the report",
     "defaults": "a table of settings every image inherits",
     "image": "one [[image]] table per image",
+    "series": "one [[series]] table per in-situ series of frames (docs/job-file.md)",
 }
 
 _NAME_RE = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.\-]*$")
@@ -122,6 +123,8 @@ class ImageJob:
         Free text.
     line : int
         Line of this image's ``[[image]]`` header in the job file (1-based).
+    series : dict or None
+        For a frame of an in-situ series: ``name``, ``frame``, ``strain``, ... (:mod:`tracefit.survey.series`).
 
     Examples
     --------
@@ -163,6 +166,7 @@ class ImageJob:
     map_settings: dict = field(default_factory=dict)
     notes: str = ""
     line: int = 0  # line of this image's [[image]] header in the job file
+    series: dict | None = None  # a frame of an in-situ series: name, frame, strain, ... (survey/series.py)
 
     def settings(self) -> dict:
         """The analysis settings as plain JSON-ready values (for reports and resume checks).
@@ -377,10 +381,10 @@ def _orientation_source(ctx: _Ctx, key: tuple, raw: dict, base: Path):
     return euler, labels, orient, omap, cpts, map_settings
 
 
-def _parse_image(ctx: _Ctx, i: int, raw: dict, defaults: dict, base: Path, seen: dict) -> ImageJob:
-    """One [[image]] table, with the [defaults] applied, validated into an :class:`ImageJob`."""
+def _parse_image(ctx: _Ctx, i: int, raw: dict, defaults: dict, base: Path, seen: dict, key=None) -> ImageJob:
+    """One [[image]] table (or a series' frame, at ``key``), with the [defaults] applied, as an :class:`ImageJob`."""
     allowed = {**_SHARED_KEYS, **_IMAGE_ONLY_KEYS}
-    key = ("image", i)
+    key = key or ("image", i)
     for k in raw:
         if k not in allowed:
             raise _unknown(ctx, key + (k,), allowed)
@@ -513,18 +517,23 @@ def parse_job(text: str, path: str | Path = "job.toml") -> Job:
             raise _unknown(ctx, ("defaults", k), _SHARED_KEYS)
         defaults[k] = _check_shared(ctx, ("defaults",), k, v, base)
 
-    images_raw = data.get("image")
+    images_raw = data.get("image", [] if "series" in data else None)
     if images_raw is None:
         raise TracefitInputError(f"{path.name}: the job lists no images; add one [[image]] table per image (with name and file)")
     if not isinstance(images_raw, list) or not all(isinstance(x, dict) for x in images_raw):
         raise ctx.fail(("image",), "must be written as [[image]] tables")
-    if not images_raw:
+    if not images_raw and "series" not in data:
         raise ctx.fail(("image",), "lists no images")
 
     images: list[ImageJob] = []
     seen: dict[str, int] = {}
     for i, raw in enumerate(images_raw):
         images.append(_parse_image(ctx, i, raw, defaults, base, seen))
+    if "series" in data:  # in-situ series: each frame is an image (survey/series.py)
+        from tracefit.survey.series import parse_series
+
+        images += parse_series(ctx, data["series"], base, lambda k, r: _parse_image(ctx, 0, r, defaults, base, seen, k),
+                               len(images))
     jdefaults = {k: (list(v) if isinstance(v, tuple) else str(v) if isinstance(v, Path) else v) for k, v in defaults.items()}
     return Job(path=path.resolve(), title=title, images=tuple(images), notes=notes, defaults=jdefaults, text=text)
 

@@ -520,6 +520,10 @@ def render_report(result: _Results, img_dir: _PathLike, generated_utc: str | Non
     parts.append(_HOW_TO_READ)
     parts += _summary(images)
     parts += [_image_section(r, img_dir) for r in images]
+    if d.get("statistics"):  # added by 'tracefit stats' (viz/stats_report.py)
+        from tracefit.viz.stats_report import stats_section
+
+        parts.append(stats_section(d["statistics"], img_dir.parent / "stats"))
     parts += _settings_and_conventions(d, job)
     parts.append(_footer())
     return "\n".join(parts)
