@@ -88,5 +88,6 @@ def _print_series(stats, checks, result) -> None:
             continue
         hi = "unbounded" if f["high"] is None else f"{f['high']:.2g}"
         lo = "0" if f["low"] is None else f"{f['low']:.2g}"
-        print(f"  CRSS {f['label']} / {stats.crss.reference}: {f['estimate']:.2g} (95 % {lo} to {hi}; {f['status']})")
+        est = "no estimate" if f["estimate"] is None else f"{f['estimate']:.2g}"
+        print(f"  CRSS {f['label']} / {stats.crss.reference}: {est} (95 % {lo} to {hi}; {f['status']})")
     print(f"series report: {result.report_path.resolve().as_uri()}")

@@ -50,7 +50,8 @@ def stats(
     for f in (d.get("crss") or {}).get("families", []):
         lo = "0" if f["low"] is None else f"{f['low']:.3g}"
         hi = "unbounded" if f["high"] is None else f"{f['high']:.3g}"
-        print(f"  {f['label']:16s} {f['name']:28s} CRSS ratio {f['estimate']:.3g}  [{lo}, {hi}]  {f['status']}")
+        est = "-" if f["estimate"] is None else f"{f['estimate']:.3g}"
+        print(f"  {f['label']:16s} {f['name']:28s} CRSS ratio {est}  [{lo}, {hi}]  {f['status']}")
     for s in d["series"]:
         print(f"series {s['name']}: {len(s['onsets'])} tracked families in {s['n_grains']} grains")
     for n in d["notes"]:

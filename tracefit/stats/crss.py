@@ -105,7 +105,8 @@ class CrssFit:
     families : list of dict
         One per system family: ``label``, ``name``, ``mode``, ``estimate``, ``low``, ``high``
         (None where the data give no bound on that side), ``status`` (in words),
-        ``separated_from_reference``, ``soft_count`` (families seen, summed probabilities),
+        ``separated_from_reference``; ``estimate`` is None where the likelihood is largest at the edge
+        of the search range (1/50 to 50: a family never seen, or never outrun), ``soft_count`` (families seen, summed probabilities),
         ``grains_tested`` (grains in which it had at least a 5 % chance under the fit, its own
         ratio at the low end of its interval).
     scale : float
@@ -276,9 +277,10 @@ def fit_crss(cases: list[GrainCase], reference: str | None = None, method: str =
     fams, notes = [], []
     for k, name in enumerate(d.names):
         s = systems[name]
-        est = float(np.exp(best[k]))
-        low = None if lo[k] is None else float(np.exp(lo[k]))
-        high = None if hi[k] is None else float(np.exp(hi[k]))
+        # a maximum at the edge of the search range is no estimate: only the interval's finite end means anything
+        est = None if abs(best[k]) >= _LOG_R_MAX - 1e-3 else _sig(np.exp(best[k]))
+        low = None if lo[k] is None else _sig(np.exp(lo[k]))
+        high = None if hi[k] is None else _sig(np.exp(hi[k]))
         status = _status(k == ref, low, high, soft[k], tested[k])
         if k != ref and status != "estimated":
             notes.append(f"{labels[name]} ({name}): {status}")
@@ -289,6 +291,11 @@ def fit_crss(cases: list[GrainCase], reference: str | None = None, method: str =
     notes += _overlaps(fams, ref)
     return CrssFit(labels[d.names[ref]], fams, float(np.exp(best[-1])), ll_max, len(d.X), len(d.og), method,
                    cases[0].unit, notes)
+
+
+def _sig(x: float, digits: int = 4) -> float:
+    """x to ``digits`` significant figures (the intervals are far wider than that)."""
+    return float(f"{float(x):.{digits}g}")
 
 
 def _reference_index(reference, names, labels, systems, soft) -> int:

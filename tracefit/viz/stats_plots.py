@@ -84,7 +84,7 @@ def crss_ratio_figure(stats: dict):
     >>> d = {"reference": "{10-10}", "crss": {"families": [
     ...     {"label": "{10-10}", "estimate": 1.0, "low": 1.0, "high": 1.0, "status": "reference"},
     ...     {"label": "{0001}", "estimate": 1.5, "low": 1.3, "high": 1.7, "status": "estimated"},
-    ...     {"label": "{11-22}", "estimate": 40.0, "low": 3.0, "high": None, "status": "lower bound only"}]}}
+    ...     {"label": "{11-22}", "estimate": None, "low": 3.0, "high": None, "status": "lower bound only"}]}}
     >>> fig = crss_ratio_figure(d); fig.axes[0].get_yscale()
     'log'
     """
@@ -96,7 +96,8 @@ def crss_ratio_figure(stats: dict):
     for i, f in enumerate(fams):
         est, lo, hi = f["estimate"], f.get("low"), f.get("high")
         # an estimate at the edge of the search (no upper bound) is drawn hollow: only its interval means anything
-        ax.plot([i], [est], "o", color="#17324d", mfc="#17324d" if hi is not None else "white")
+        if est is not None:  # None: the likelihood peaks at the edge of the search, only the interval counts
+            ax.plot([i], [est], "o", color="#17324d", mfc="#17324d" if hi is not None else "white")
         ax.plot([i, i], [lo if lo is not None else 1 / 50, hi if hi is not None else 50], color="#17324d", lw=2)
         if hi is None:
             ax.annotate("", (i, 50), (i, 25), arrowprops=dict(arrowstyle="->", color="#17324d"))
