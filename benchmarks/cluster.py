@@ -1,0 +1,204 @@
+"""Survey throughput on local processes and on a Dask LocalCluster, and what an image costs by size.
+
+Prints figures; asserts nothing about speed (the machine is shared). Run from the repository root::
+
+    python benchmarks/cluster.py                 # 200 demo-sized images, 4 routes, then the size table
+    python benchmarks/cluster.py --images 60 --no-sizes
+    python benchmarks/cluster.py --figures       # draw the overlay/rose/stereogram PNGs too
+
+1. Throughput: ``--images`` synthetic micrographs of the demo's size (384 x 512 px), drawn by
+   :func:`tracefit.image.render_micrograph` with the two slip-line families of the demo's coupon A
+   (new noise per image), surveyed in one run by the local pool at 1 and 2 workers and by a
+   LocalCluster (``scheduler="local:N"``) at 1 and 2 workers. For each: wall time, images per
+   second, and the speed-up of 2 workers over 1 (target >= 1.7 on a 2-core machine). For the
+   cluster the start-up (cluster, worker check, imports) is shown apart from the steady state.
+2. Scheduling overhead of the cluster route: per image, the time from the first task submitted to
+   the last record written x workers / images, minus the analysis time measured inside the task
+   (``elapsed_s``), as a share of that analysis time; and the same route with an analysis that
+   does nothing against the local run of it (target < 5 % of the analysis of a demo-sized image).
+3. Cost by image size (unless ``--no-sizes``): per-image time and peak memory (VmHWM of a fresh
+   process that analyses 2 images) at 0.2, 1, 4 and 16 megapixels, the size of a record (what the
+   client holds per image), and the extrapolation to 10,000 frames of 16 MP.
+
+Targets from issue 15.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+# The demo's coupon A: fcc, Euler (263, 50, 135) deg, tension along y; its two drawn families
+# lie on the predicted traces of (11-1) and (111) (tracefit/data/demo/truth.json).
+EULER = (263.0, 50.0, 135.0)
+ANGLES = (21.45, 144.56)
+DEMO_SHAPE = (384, 512)
+
+
+def make_images(folder: Path, n: int, shape=DEMO_SHAPE, name="img") -> Path:
+    """Draw ``n`` micrographs of ``shape`` into ``folder`` and write a job file listing them."""
+    import cv2
+    import numpy as np
+
+    from tracefit.image import BandFamilySpec, render_micrograph
+
+    folder.mkdir(parents=True, exist_ok=True)
+    fams = [BandFamilySpec(a, spacing_px=34.0, width_px=2.6, contrast=-0.32) for a in ANGLES]
+    parts = ['title = "benchmark"\n[defaults]\nlattice = "fcc"\nmodes = ["slip"]\npixel_size_um = 0.5\n'
+             'load = { axis = "y", sense = "tension" }\n']
+    for i in range(n):
+        img, _ = render_micrograph(shape, fams, illumination=0.25, noise_sigma=0.025, blur_sigma=0.7, seed=1000 + i)
+        f = folder / f"{name}{i:04d}.png"
+        cv2.imwrite(str(f), np.asarray(img))
+        parts.append(f'[[image]]\nname = "{name}{i:04d}"\nfile = "{f.name}"\neuler_deg = [{EULER[0]}, {EULER[1]}, {EULER[2]}]\n')
+    job = folder / "job.toml"
+    job.write_text("\n".join(parts), encoding="utf-8")
+    return job
+
+
+def no_analysis(im):
+    """A stand-in analysis that does nothing: what is left of a task is the route's own cost."""
+    import numpy as np
+
+    from tracefit.survey import ImageAnalysis
+
+    return ImageAnalysis(image=np.zeros((4, 4)), families=[], identifications=[], grains=[])
+
+
+def run_route(job_path: Path, out: Path, figures: bool, workers: int | None = None, scheduler: str | None = None,
+              analyse=None):
+    from tracefit.survey import load_job, run_survey
+
+    job = load_job(job_path)
+    t0 = time.perf_counter()
+    res = run_survey(job, out, workers=workers, scheduler=scheduler, progress=False, figures=figures, report=False,
+                     analyse=analyse)
+    wall = time.perf_counter() - t0
+    assert res.exit_code == 0, [r.get("error") for r in res.records if r["status"] != "ok"][:3]
+    work = [r["elapsed_s"] for r in res.records]
+    return {"wall": wall, "work_sum": sum(work), "work_mean": sum(work) / len(work),
+            "startup": res.run.get("startup_s", 0.0), "tasks": res.run.get("tasks_s"),
+            "csv": (out / "results.csv").read_bytes()}
+
+
+def throughput(n: int, figures: bool) -> None:
+    with tempfile.TemporaryDirectory(prefix="tracefit-bench-") as tmp:
+        tmp = Path(tmp)
+        t0 = time.perf_counter()
+        job = make_images(tmp / "images", n)
+        print(f"{n} synthetic images of {DEMO_SHAPE[1]} x {DEMO_SHAPE[0]} px drawn in {time.perf_counter() - t0:.1f} s; "
+              f"figures {'on' if figures else 'off'}")
+        rows = {}
+        for label, kw in (("local pool, 1 worker", {"workers": 1}), ("local pool, 2 workers", {"workers": 2}),
+                          ("LocalCluster, 1 worker", {"scheduler": "local:1"}),
+                          ("LocalCluster, 2 workers", {"scheduler": "local:2"})):
+            r = run_route(job, tmp / f"out-{len(rows)}", figures, **kw)
+            rows[label] = r
+            extra = (f"  (start-up {r['startup']:.1f} s, tasks {r['tasks']:.1f} s = {n / r['tasks']:.2f} img/s, "
+                     f"close and tables {r['wall'] - r['startup'] - r['tasks']:.1f} s)" if r["tasks"] else "")
+            print(f"  {label:24s} {r['wall']:7.1f} s wall  {n / r['wall']:6.2f} img/s  "
+                  f"analysis {r['work_mean'] * 1000:.0f} ms/img{extra}", flush=True)
+        same = len({r["csv"] for r in rows.values()}) == 1
+        print(f"  results.csv identical across the four runs: {same}")
+        lp1, lp2 = rows["local pool, 1 worker"], rows["local pool, 2 workers"]
+        lc1, lc2 = rows["LocalCluster, 1 worker"], rows["LocalCluster, 2 workers"]
+        print(f"speed-up 2 workers over 1 (target >= 1.7): local pool {lp1['wall'] / lp2['wall']:.2f}x; "
+              f"LocalCluster {lc1['wall'] / lc2['wall']:.2f}x overall, "
+              f"{lc1['tasks'] / lc2['tasks']:.2f}x on the tasks alone")
+        for label, r, k in (("1 worker", lc1, 1), ("2 workers", lc2, 2)):
+            per = r["tasks"] * k / n
+            over = per - r["work_mean"]
+            print(f"cluster scheduling overhead, {label}: {over * 1000:.1f} ms per image = "
+                  f"{100 * over / r['work_mean']:.1f} % of the {r['work_mean'] * 1000:.0f} ms analysis (target < 5 %)")
+        per_local = lp1["wall"] / n - lp1["work_mean"]
+        print(f"(the local pool's own per-image overhead at 1 worker, for comparison: {per_local * 1000:.1f} ms = "
+              f"{100 * per_local / lp1['work_mean']:.1f} %)")
+        # The route's cost alone: the same images with an analysis that does nothing, 1 worker each.
+        noop_l = run_route(job, tmp / "noop-local", False, workers=1, analyse=no_analysis)
+        noop_c = run_route(job, tmp / "noop-cluster", False, scheduler="local:1", analyse=no_analysis)
+        per_l = noop_l["wall"] / n
+        per_c = noop_c["tasks"] / n
+        print(f"with an analysis that does nothing: {per_c * 1000:.1f} ms per image on the cluster route "
+              f"(its tasks alone), {per_l * 1000:.1f} ms in this process (all of it); the difference, "
+              f"{(per_c - per_l) * 1000:.1f} ms, is {100 * (per_c - per_l) / lp1['work_mean']:.1f} % of the "
+              f"{lp1['work_mean'] * 1000:.0f} ms demo-sized analysis (target < 5 %)")
+
+
+_SIZE_CHILD = r"""
+import json, resource, sys, time
+from pathlib import Path
+from tracefit.survey import load_job, run_survey
+job = load_job(sys.argv[1])
+res = run_survey(job, sys.argv[2], workers=1, progress=False, figures=sys.argv[3] == "1", report=False)
+hwm = 0
+for line in open("/proc/self/status"):
+    if line.startswith("VmHWM:"):
+        hwm = int(line.split()[1]) * 1024
+if not hwm:
+    hwm = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
+rec_bytes = [len(json.dumps(r)) for r in res.records]
+print(json.dumps({"elapsed": [r["elapsed_s"] for r in res.records], "status": [r["status"] for r in res.records],
+                  "hwm": hwm, "record_bytes": sum(rec_bytes) / len(rec_bytes)}))
+"""
+
+
+def sizes(figures: bool) -> None:
+    print("\ncost by image size (one fresh process each, 2 images, the first one counted too):")
+    rows = []
+    with tempfile.TemporaryDirectory(prefix="tracefit-bench-") as tmp:
+        for shape in ((384, 512), (1024, 1024), (2048, 2048), (4096, 4096)):
+            mp = shape[0] * shape[1] / 1e6
+            folder = Path(tmp) / f"s{shape[0]}"
+            t0 = time.perf_counter()
+            job = make_images(folder, 2, shape, name="s")
+            draw = time.perf_counter() - t0
+            env = dict(os.environ, MPLBACKEND="Agg")
+            out = subprocess.run([sys.executable, "-c", _SIZE_CHILD, str(job), str(folder / "out"), "1" if figures else "0"],
+                                 capture_output=True, text=True, env=env)
+            if out.returncode:
+                print(f"  {mp:5.1f} MP: failed: {out.stderr.strip().splitlines()[-1:]}")
+                continue
+            d = json.loads(out.stdout.strip().splitlines()[-1])
+            t = min(d["elapsed"])
+            rows.append((mp, t, d["hwm"]))
+            print(f"  {mp:5.2f} MP ({shape[1]} x {shape[0]}): {t:6.2f} s per image (best of 2; {d['elapsed']}), "
+                  f"peak memory {d['hwm'] / 1e6:6.0f} MB, record {d['record_bytes'] / 1e3:.0f} kB "
+                  f"[drawing the test images took {draw:.1f} s]", flush=True)
+    if len(rows) >= 2 and rows[-1][0] >= 16:
+        mp, t16, hwm = rows[-1]
+        total = 10_000 * t16
+        print(f"\n10,000 frames of 16 MP at {t16:.2f} s each = {total / 3600:.1f} core-hours of analysis; "
+              f"wall time at 90 % parallel efficiency: ")
+        for w in (2, 16, 64, 256):
+            print(f"  {w:4d} workers: {total / (w * 0.9) / 3600:6.2f} h; cluster memory {w * hwm / 1e9:6.1f} GB "
+                  f"({hwm / 1e9:.2f} GB per worker)")
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--images", type=int, default=200, help="images in the throughput runs (default 200)")
+    ap.add_argument("--figures", action="store_true", help="draw each image's PNG figures as well")
+    ap.add_argument("--no-sizes", action="store_true", help="skip the cost-by-size table")
+    ap.add_argument("--sizes-only", action="store_true", help="only the cost-by-size table")
+    args = ap.parse_args()
+    import platform
+
+    from tracefit.survey import available_cores
+
+    print(f"tracefit cluster benchmark, {time.strftime('%Y-%m-%d %H:%M', time.gmtime())} UTC, {platform.platform(terse=True)}, "
+          f"Python {platform.python_version()}, {available_cores()} cores, load average "
+          f"{' '.join(f'{x:.1f}' for x in os.getloadavg())}")
+    if not args.sizes_only:
+        throughput(args.images, args.figures)
+    if not args.no_sizes:
+        sizes(args.figures)
+
+
+if __name__ == "__main__":
+    main()
