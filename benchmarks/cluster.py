@@ -28,6 +28,7 @@ from __future__ import annotations
 import argparse
 import json
 import os
+import statistics
 import subprocess
 import sys
 import tempfile
@@ -87,25 +88,31 @@ def run_route(job_path: Path, out: Path, figures: bool, workers: int | None = No
             "csv": (out / "results.csv").read_bytes()}
 
 
-def throughput(n: int, figures: bool) -> None:
+def throughput(n: int, figures: bool, repeat: int = 1) -> float:
     with tempfile.TemporaryDirectory(prefix="tracefit-bench-") as tmp:
         tmp = Path(tmp)
         t0 = time.perf_counter()
         job = make_images(tmp / "images", n)
         print(f"{n} synthetic images of {DEMO_SHAPE[1]} x {DEMO_SHAPE[0]} px drawn in {time.perf_counter() - t0:.1f} s; "
               f"figures {'on' if figures else 'off'}")
-        rows = {}
-        for label, kw in (("local pool, 1 worker", {"workers": 1}), ("local pool, 2 workers", {"workers": 2}),
-                          ("LocalCluster, 1 worker", {"scheduler": "local:1"}),
-                          ("LocalCluster, 2 workers", {"scheduler": "local:2"})):
-            r = run_route(job, tmp / f"out-{len(rows)}", figures, **kw)
-            rows[label] = r
-            extra = (f"  (start-up {r['startup']:.1f} s, tasks {r['tasks']:.1f} s = {n / r['tasks']:.2f} img/s, "
-                     f"close and tables {r['wall'] - r['startup'] - r['tasks']:.1f} s)" if r["tasks"] else "")
-            print(f"  {label:24s} {r['wall']:7.1f} s wall  {n / r['wall']:6.2f} img/s  "
-                  f"analysis {r['work_mean'] * 1000:.0f} ms/img{extra}", flush=True)
-        same = len({r["csv"] for r in rows.values()}) == 1
-        print(f"  results.csv identical across the four runs: {same}")
+        routes = [("local pool, 1 worker", {"workers": 1}), ("local pool, 2 workers", {"workers": 2}),
+                  ("LocalCluster, 2 workers", {"scheduler": "local:2"}), ("LocalCluster, 1 worker", {"scheduler": "local:1"})]
+        rows, csvs = {}, set()
+        for rep in range(repeat):  # there and back (ABCD DCBA ...), so a drifting load hits every route alike
+            for k, (label, kw) in enumerate(routes if rep % 2 == 0 else routes[::-1]):
+                r = run_route(job, tmp / f"out-{rep}-{k}", figures, **kw)
+                csvs.add(r.pop("csv"))
+                if label not in rows or r["wall"] < rows[label]["wall"]:
+                    rows[label] = r
+                extra = (f"  (start-up {r['startup']:.1f} s, tasks {r['tasks']:.1f} s = {n / r['tasks']:.2f} img/s, "
+                         f"close and tables {r['wall'] - r['startup'] - r['tasks']:.1f} s)" if r["tasks"] else "")
+                print(f"  {label:24s} {r['wall']:7.1f} s wall  {n / r['wall']:6.2f} img/s  "
+                      f"analysis {r['work_mean'] * 1000:.0f} ms/img{extra}  [load average now "
+                      f"{os.getloadavg()[0]:.1f}]", flush=True)
+        if repeat > 1:
+            print(f"  (best of {repeat} per route below)")
+        same = len(csvs) == 1
+        print(f"  results.csv identical across all {4 * repeat} runs: {same}")
         lp1, lp2 = rows["local pool, 1 worker"], rows["local pool, 2 workers"]
         lc1, lc2 = rows["LocalCluster, 1 worker"], rows["LocalCluster, 2 workers"]
         print(f"speed-up 2 workers over 1 (target >= 1.7): local pool {lp1['wall'] / lp2['wall']:.2f}x; "
@@ -128,6 +135,7 @@ def throughput(n: int, figures: bool) -> None:
               f"(its tasks alone), {per_l * 1000:.1f} ms in this process (all of it); the difference, "
               f"{(per_c - per_l) * 1000:.1f} ms, is {100 * (per_c - per_l) / lp1['work_mean']:.1f} % of the "
               f"{lp1['work_mean'] * 1000:.0f} ms demo-sized analysis (target < 5 %)")
+        return lc1["tasks"] / lc2["tasks"] / 2  # parallel efficiency of the cluster route at 2 workers
 
 
 _SIZE_CHILD = r"""
@@ -135,7 +143,8 @@ import json, resource, sys, time
 from pathlib import Path
 from tracefit.survey import load_job, run_survey
 job = load_job(sys.argv[1])
-res = run_survey(job, sys.argv[2], workers=1, progress=False, figures=sys.argv[3] == "1", report=False)
+bare = run_survey(job, sys.argv[2] + "-bare", workers=1, progress=False, figures=False, report=False)
+res = run_survey(job, sys.argv[2], workers=1, progress=False, figures=True, report=False)
 hwm = 0
 for line in open("/proc/self/status"):
     if line.startswith("VmHWM:"):
@@ -143,47 +152,67 @@ for line in open("/proc/self/status"):
 if not hwm:
     hwm = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
 rec_bytes = [len(json.dumps(r)) for r in res.records]
-print(json.dumps({"elapsed": [r["elapsed_s"] for r in res.records], "status": [r["status"] for r in res.records],
-                  "hwm": hwm, "record_bytes": sum(rec_bytes) / len(rec_bytes)}))
+import tracemalloc  # what one record costs the client in memory, as Python objects
+text = json.dumps(res.records[-1])
+tracemalloc.start()
+held = [json.loads(text) for _ in range(50)]
+py_bytes = tracemalloc.get_traced_memory()[0] / 50
+tracemalloc.stop()
+print(json.dumps({"bare": [r["elapsed_s"] for r in bare.records], "elapsed": [r["elapsed_s"] for r in res.records],
+                  "status": [r["status"] for r in res.records],
+                  "hwm": hwm, "record_bytes": sum(rec_bytes) / len(rec_bytes), "record_py_bytes": py_bytes}))
 """
 
 
-def sizes(figures: bool) -> None:
-    print("\ncost by image size (one fresh process each, 2 images, the first one counted too):")
+def sizes(efficiency: float | None = None, n_images: int = 3) -> None:
+    print(f"\ncost by image size (one fresh process per size; {n_images} images analysed without figures, then again "
+          f"with them; per-image time is the median, so the first image's one-off imports do not count):")
     rows = []
     with tempfile.TemporaryDirectory(prefix="tracefit-bench-") as tmp:
         for shape in ((384, 512), (1024, 1024), (2048, 2048), (4096, 4096)):
             mp = shape[0] * shape[1] / 1e6
             folder = Path(tmp) / f"s{shape[0]}"
             t0 = time.perf_counter()
-            job = make_images(folder, 2, shape, name="s")
+            job = make_images(folder, n_images, shape, name="s")
             draw = time.perf_counter() - t0
             env = dict(os.environ, MPLBACKEND="Agg")
-            out = subprocess.run([sys.executable, "-c", _SIZE_CHILD, str(job), str(folder / "out"), "1" if figures else "0"],
+            out = subprocess.run([sys.executable, "-c", _SIZE_CHILD, str(job), str(folder / "out")],
                                  capture_output=True, text=True, env=env)
             if out.returncode:
                 print(f"  {mp:5.1f} MP: failed: {out.stderr.strip().splitlines()[-1:]}")
                 continue
             d = json.loads(out.stdout.strip().splitlines()[-1])
-            t = min(d["elapsed"])
-            rows.append((mp, t, d["hwm"]))
-            print(f"  {mp:5.2f} MP ({shape[1]} x {shape[0]}): {t:6.2f} s per image (best of 2; {d['elapsed']}), "
-                  f"peak memory {d['hwm'] / 1e6:6.0f} MB, record {d['record_bytes'] / 1e3:.0f} kB "
-                  f"[drawing the test images took {draw:.1f} s]", flush=True)
+            t_bare, t_fig = statistics.median(d["bare"]), statistics.median(d["elapsed"])
+            rows.append((mp, t_bare, t_fig, d["hwm"], d["record_py_bytes"]))
+            print(f"  {mp:5.2f} MP ({shape[1]} x {shape[0]}): {t_bare:6.2f} s per image without figures, "
+                  f"{t_fig:6.2f} s with them; peak memory {d['hwm'] / 1e6:5.0f} MB; record {d['record_bytes'] / 1e3:.0f} kB as JSON, "
+                  f"{d['record_py_bytes'] / 1e3:.0f} kB in memory "
+                  f"[{d['bare']} / {d['elapsed']}]", flush=True)
     if len(rows) >= 2 and rows[-1][0] >= 16:
-        mp, t16, hwm = rows[-1]
-        total = 10_000 * t16
-        print(f"\n10,000 frames of 16 MP at {t16:.2f} s each = {total / 3600:.1f} core-hours of analysis; "
-              f"wall time at 90 % parallel efficiency: ")
-        for w in (2, 16, 64, 256):
-            print(f"  {w:4d} workers: {total / (w * 0.9) / 3600:6.2f} h; cluster memory {w * hwm / 1e9:6.1f} GB "
-                  f"({hwm / 1e9:.2f} GB per worker)")
+        mp, t16, t16f, hwm, rec_py = rows[-1]
+        (mp0, t0_, *_), (mp1, t1_, *_) = rows[-2], rows[-1]
+        slope = (t1_ - t0_) / (mp1 - mp0)
+        print(f"\nper-image time grows by {slope:.2f} s per megapixel between {mp0:.0f} and {mp1:.0f} MP "
+              f"(fixed costs: {t1_ - slope * mp1:.2f} s)")
+        effs = [(0.9, "assumed for cores of its own")]
+        if efficiency:
+            effs.append((efficiency, "the cluster route's, measured above at 2 workers on this machine"))
+        for label, t in (("without figures", t16), ("with figures", t16f)):
+            total = 10_000 * t
+            print(f"10,000 frames of 16 MP {label}, at {t:.2f} s each: {total / 3600:.1f} core-hours")
+            for eff, how in effs:
+                print(f"  wall time at {eff:.0%} parallel efficiency ({how}): " + ", ".join(
+                      f"{w} workers {total / (w * eff) / 3600:.2f} h" for w in (2, 16, 64, 256)))
+        print(f"memory: {hwm / 1e9:.2f} GB peak per worker process at 16 MP, so 16 workers need about "
+              f"{16 * hwm / 1e9:.0f} GB and 64 about {64 * hwm / 1e9:.0f} GB; the client holds one record per image "
+              f"({rec_py / 1e3:.0f} kB at 16 MP): about {10_000 * rec_py / 1e6:.0f} MB for 10,000 frames")
 
 
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--images", type=int, default=200, help="images in the throughput runs (default 200)")
-    ap.add_argument("--figures", action="store_true", help="draw each image's PNG figures as well")
+    ap.add_argument("--figures", action="store_true", help="draw each image's PNG figures in the throughput runs")
+    ap.add_argument("--repeat", type=int, default=1, help="runs per route, in there-and-back order; best counts")
     ap.add_argument("--no-sizes", action="store_true", help="skip the cost-by-size table")
     ap.add_argument("--sizes-only", action="store_true", help="only the cost-by-size table")
     args = ap.parse_args()
@@ -194,10 +223,11 @@ def main() -> None:
     print(f"tracefit cluster benchmark, {time.strftime('%Y-%m-%d %H:%M', time.gmtime())} UTC, {platform.platform(terse=True)}, "
           f"Python {platform.python_version()}, {available_cores()} cores, load average "
           f"{' '.join(f'{x:.1f}' for x in os.getloadavg())}")
+    eff = None
     if not args.sizes_only:
-        throughput(args.images, args.figures)
+        eff = throughput(args.images, args.figures, args.repeat)
     if not args.no_sizes:
-        sizes(args.figures)
+        sizes(eff)
 
 
 if __name__ == "__main__":

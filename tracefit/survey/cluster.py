@@ -179,7 +179,6 @@ def _quiet_dask_logs(local: bool):
 @contextmanager
 def _connect(choice: SchedulerChoice):
     """A Client on a new LocalCluster (``local:N``) or on the scheduler at ``choice.address``."""
-    # Over 30 lines: the two ways to get a client, each with its clear errors and its clean close.
     import logging
 
     import dask
