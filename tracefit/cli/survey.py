@@ -13,6 +13,9 @@ OutOpt = Annotated[Optional[Path], typer.Option("--out", "-o", help="Output fold
 WorkersOpt = Annotated[
     Optional[int], typer.Option("--workers", "-w", min=1, help="Worker processes (default: one per core, fewer when free memory would not hold them at about 1.2 GB each; 1 = no subprocesses).")
 ]
+SchedulerOpt = Annotated[
+    Optional[str], typer.Option("--scheduler", metavar="<address>", help="Run the images as tasks on a Dask scheduler: tcp://HOST:PORT, or local:N for N Dask workers on this machine, or none for local processes (default: the job file's [run] scheduler, else $TRACEFIT_SCHEDULER, else local processes). Needs pip install 'tracefit[cluster]'; see docs/scaling.md.")
+]
 ResumeOpt = Annotated[bool, typer.Option("--resume", help="Keep finished images of an earlier run into the same folder; redo the rest.")]
 QuietOpt = Annotated[bool, typer.Option("--quiet", "-q", help="No progress bar.")]
 JsonOpt = Annotated[bool, typer.Option("--json", help="Print one JSON summary object to stdout.")]
@@ -57,23 +60,29 @@ def survey(
     job: Annotated[Path, typer.Argument(help="Job file (TOML) listing the images and their settings; see docs/job-file.md.")],
     out: OutOpt = None,
     workers: WorkersOpt = None,
+    scheduler: SchedulerOpt = None,
     resume: ResumeOpt = False,
     quiet: QuietOpt = False,
     json_out: JsonOpt = False,
 ) -> None:
-    """Run every image of a job file in parallel; write results CSV/JSON, overlays and an HTML report.
+    """Run every image of a job file in parallel, here or on a Dask cluster; write results CSV/JSON, overlays and an HTML report.
 
-    Exit code 0 when every image succeeded, 1 when some failed (reported and skipped), 2 for a bad job file, 130 when interrupted (rerun with --resume).
+    Exit code 0 when every image succeeded, 1 when some failed (reported and skipped), 2 for a bad job file or an unusable scheduler, 130 when interrupted (rerun with --resume).
     """
+    from tracefit.errors import TracefitInputError
     from tracefit.survey import load_job
     from tracefit.survey import run_survey
+    from tracefit.survey.scheduler import parse_scheduler
 
     import sys
 
+    if scheduler is not None and workers is not None and parse_scheduler(scheduler).uses_dask:
+        raise TracefitInputError("--workers sets local processes, --scheduler a Dask cluster: give one of them "
+                                 "(--scheduler local:N runs N Dask workers here)")
     j = load_job(job)
     out_dir = out if out is not None else Path("out") / job.stem
     try:
-        result = run_survey(j, out_dir, workers=workers, resume=resume, progress=not quiet)
+        result = run_survey(j, out_dir, workers=workers, resume=resume, progress=not quiet, scheduler=scheduler)
     except KeyboardInterrupt:
         print(f"\ntracefit: survey interrupted; finished images are kept in {out_dir}: "
               f"run the same command with --resume to go on", file=sys.stderr)

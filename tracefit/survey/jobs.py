@@ -37,6 +37,7 @@ from typing import Any
 from tracefit.errors import TracefitInputError
 from tracefit.options import DEFAULT_MODES, MODES
 from tracefit.survey.keylines import _Ctx, _file, _load_field, _number, _str_list, _string, _table, _unknown, key_lines
+from tracefit.survey.scheduler import run_table
 
 __all__ = ["Job", "ImageJob", "load_job", "parse_job", "key_lines", "JOB_FORMAT"]
 
@@ -80,6 +81,7 @@ _TOP_KEYS = {
     "defaults": "a table of settings every image inherits",
     "image": "one [[image]] table per image",
     "series": "one [[series]] table per in-situ series of frames (docs/job-file.md)",
+    "run": 'where the survey runs: [run] scheduler = "tcp://HOST:PORT" or "local:N" (docs/scaling.md)',
 }
 
 _NAME_RE = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.\-]*$")
@@ -226,6 +228,7 @@ class Job:
     notes: str = ""
     defaults: dict = field(default_factory=dict)
     text: str = ""  # the job file as written, kept for the report's audit trail
+    scheduler: str | None = None  # [run] scheduler: a Dask scheduler address or "local:N" (survey/scheduler.py)
 
     def to_dict(self) -> dict:
         """The job as plain JSON-ready values (``results.json``'s ``job``)."""
@@ -525,6 +528,7 @@ def parse_job(text: str, path: str | Path = "job.toml") -> Job:
     if not images_raw and "series" not in data:
         raise ctx.fail(("image",), "lists no images")
 
+    scheduler = run_table(ctx, data.get("run"))  # [run]: where the survey runs
     images: list[ImageJob] = []
     seen: dict[str, int] = {}
     for i, raw in enumerate(images_raw):
@@ -535,7 +539,8 @@ def parse_job(text: str, path: str | Path = "job.toml") -> Job:
         images += parse_series(ctx, data["series"], base, lambda k, r: _parse_image(ctx, 0, r, defaults, base, seen, k),
                                len(images))
     jdefaults = {k: (list(v) if isinstance(v, tuple) else str(v) if isinstance(v, Path) else v) for k, v in defaults.items()}
-    return Job(path=path.resolve(), title=title, images=tuple(images), notes=notes, defaults=jdefaults, text=text)
+    return Job(path=path.resolve(), title=title, images=tuple(images), notes=notes, defaults=jdefaults, text=text,
+               scheduler=scheduler)
 
 
 def load_job(path: str | Path) -> Job:

@@ -2,7 +2,9 @@
 
 Workers come from a fresh server process (``forkserver``; ``spawn`` where that does not exist),
 never from a fork of the possibly multi-threaded caller. A stop (Ctrl-C, SIGTERM) ends them at
-once; every output file is written atomically, so nothing is left half-written.
+once; every output file is written atomically, so nothing is left half-written. Each worker
+(here or on a Dask cluster) compiles numba code into a cache folder of its own
+(:func:`claim_numba_cache`): workers sharing one cache have corrupted it.
 """
 
 from __future__ import annotations
@@ -12,7 +14,7 @@ from concurrent.futures import ProcessPoolExecutor, as_completed
 from pathlib import Path
 from typing import Any, Callable
 
-__all__ = ["available_cores", "default_workers", "run_in_pool"]
+__all__ = ["available_cores", "default_workers", "run_in_pool", "claim_numba_cache"]
 
 
 def available_cores() -> int:
@@ -64,6 +66,82 @@ def default_workers(memory_per_worker_gb: float = 1.2) -> int:
     return max(1, min(cores, int(avail // memory_per_worker_gb)))
 
 
+_NUMBA_SLOT = None  # (folder, open lock file) of this process, once claimed
+
+
+def claim_numba_cache(base: str | os.PathLike | None = None) -> Path | None:
+    """Give this worker process a numba cache folder of its own (``NUMBA_CACHE_DIR``), reused across runs.
+
+    orix compiles with numba and caches the machine code; worker processes compiling into one
+    cache at once have corrupted it (a crash on a later import). Each worker takes the first free
+    slot ``BASE/HOST-K`` (K = 0, 1, ...), free meaning no running process holds its lock file, so
+    concurrent workers never share a folder while the next run's workers find their code compiled.
+    Call it before numba is imported (it updates numba's setting if it already was). Once per
+    process; later calls return the same folder.
+
+    Parameters
+    ----------
+    base : str or path, optional
+        Parent of the slots; default ``$NUMBA_CACHE_DIR`` (as the user set it), else
+        ``$XDG_CACHE_HOME/tracefit/numba`` (``~/.cache/tracefit/numba``).
+
+    Returns
+    -------
+    Path or None
+        The folder, or None where it cannot be made (numba then uses its own default).
+
+    Examples
+    --------
+    >>> import os, subprocess, sys, tempfile
+    >>> code = "from tracefit.survey.pool import claim_numba_cache as c; import os; print(c() == c(), os.path.basename(os.environ['NUMBA_CACHE_DIR']))"
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     env = dict(os.environ, NUMBA_CACHE_DIR=d)
+    ...     out = subprocess.run([sys.executable, "-c", code], env=env, capture_output=True, text=True).stdout
+    >>> out.split()[0], out.split()[1].endswith("-0")
+    ('True', True)
+    """
+    global _NUMBA_SLOT
+    if _NUMBA_SLOT is not None:
+        return _NUMBA_SLOT[0]
+    import socket
+    import sys
+
+    if base is None:
+        base = os.environ.get("NUMBA_CACHE_DIR") or Path(
+            os.environ.get("XDG_CACHE_HOME") or Path.home() / ".cache") / "tracefit" / "numba"
+    host = "".join(c if c.isalnum() or c in "-_." else "_" for c in socket.gethostname()) or "host"
+    try:
+        import fcntl
+    except ImportError:  # pragma: no cover - Windows: a folder per process (compiled again each run)
+        fcntl = None
+    try:
+        Path(base).mkdir(parents=True, exist_ok=True)
+        for k in range(4096):
+            folder = Path(base) / f"{host}-{k if fcntl else os.getpid()}"
+            if fcntl is None:
+                lock = None
+                break
+            lock = open(Path(base) / f"{host}-{k}.lock", "a")
+            try:
+                fcntl.flock(lock.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
+                break
+            except OSError:
+                lock.close()
+        else:  # pragma: no cover - 4096 live workers on one host
+            return None
+        folder.mkdir(exist_ok=True)
+    except OSError:
+        return None
+    _NUMBA_SLOT = (folder, lock)  # the lock stays held (file open) for the life of this process
+    os.environ["NUMBA_CACHE_DIR"] = str(folder)
+    if "numba" in sys.modules:
+        try:
+            sys.modules["numba"].config.CACHE_DIR = str(folder)
+        except AttributeError:  # pragma: no cover
+            pass
+    return folder
+
+
 def _mp_context(with_orix: bool = False):
     # Workers come from a fresh server process ("forkserver"), not from a fork of this
     # possibly multi-threaded process (BLAS, OpenCV and GUI threads do not survive a fork
@@ -90,6 +168,7 @@ def _init_worker() -> None:
     import signal
 
     signal.signal(signal.SIGINT, signal.SIG_IGN)
+    claim_numba_cache()  # before anything imports orix (and numba) in this worker
     # One process per core already: keep OpenCV from starting a thread per core in each worker.
     try:
         import cv2

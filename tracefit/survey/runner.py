@@ -14,17 +14,18 @@ Output folder layout (all files written atomically: temporary file, then rename)
 A bad image (unreadable file, no orientation, a detector error) is recorded with its
 error and skipped; the rest go on. ``resume=True`` reuses every finished image whose
 inputs and settings are unchanged (same fingerprint) and redoes the rest.
+
+The images run on local worker processes (:mod:`tracefit.survey.pool`, the default) or, when a
+scheduler is chosen (:mod:`tracefit.survey.scheduler`), as one Dask task each
+(:mod:`tracefit.survey.cluster`); both build each record with :mod:`tracefit.survey.record`.
 """
 
 from __future__ import annotations
 
 import csv
-import hashlib
 import io
 import json
-import sys
 import time
-import traceback
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Callable
@@ -40,6 +41,10 @@ from tracefit.survey.analysis import (  # noqa: F401 - kept importable from runn
 from tracefit.survey.guard import SurveyLock, TermAsInterrupt, prepare_output, remove_stale_temporaries
 from tracefit.survey.jobs import ImageJob, Job
 from tracefit.survey.pool import available_cores, default_workers, run_in_pool
+from tracefit.survey.progress import Progress
+from tracefit.survey.record import (  # noqa: F401 - kept importable from runner
+    _draw_figures, _file_digest, failed_record, image_fingerprint, previous_record, process_image)
+from tracefit.survey.scheduler import choose_scheduler
 
 __all__ = [
     "SurveyResult",
@@ -62,191 +67,6 @@ EXIT_OK, EXIT_SOME_FAILED, EXIT_BAD_JOB = 0, 1, 2
 
 
 
-# --------------------------------------------------------------------------- figures and record
-def _draw_figures(im: ImageJob, a: ImageAnalysis, img_dir: Path) -> dict:
-    from tracefit.viz import family_label, plots
-
-    figs = {}
-    labels = []
-    for fam, ident in zip(a.families, a.identifications):
-        lab = family_label(ident)
-        if fam.get("grain") is not None:
-            lab = f"G{fam['grain']} {lab}"
-        labels.append(lab)
-    fig = plots.overlay_figure(a.image, a.families, labels=labels, title=im.name, grain_labels=a.labels)
-    figs["overlay"] = plots.save_figure(fig, img_dir / f"{im.name}.overlay.png", dpi=90).name
-    angles = [f["angle_deg"] for f in a.families]
-    weights = [f.get("n_bands") or 1 for f in a.families]
-    fig = plots.rose_diagram(angles, weights=weights, labels=[f"F{i + 1}" for i in range(len(angles))])
-    figs["rose"] = plots.save_figure(fig, img_dir / f"{im.name}.rose.png", dpi=90).name
-    if getattr(a, "grain_map", None) is not None:  # grains from an orientation map: show the registration
-        from tracefit.viz import registration_figure
-
-        fig = registration_figure(a.image, a.grain_map)
-        figs["grain_map"] = plots.save_figure(fig, img_dir / f"{im.name}.grain-map.png", dpi=90).name
-    figs["stereograms"] = []
-    for k, gr in enumerate(a.grains, start=1):
-        matched, observed, mcolors = [], [], []
-        palette = plots.family_colors(len(a.families))
-        for i, (fam, ident) in enumerate(zip(a.families, a.identifications)):
-            if fam.get("grain") != gr.get("grain"):
-                continue
-            observed.append(fam["angle_deg"])
-            c = ident.get("candidates") or []
-            if c and not ident.get("unexplained"):
-                matched.append(tuple(c[0]["plane"]))
-                mcolors.append(palette[i])
-        planes = [{"plane": tuple(p["plane"]), "normal_sample": p["normal_image"]} for p in gr["predicted"]]
-        title = "Wulff net (equal angle), upper hemisphere, sample frame = image frame"
-        if gr.get("grain") is not None:
-            title = f"Grain {gr['grain']}: " + title
-        fig = plots.stereogram(planes, matched=matched, observed_deg=observed, title=title, matched_colors=mcolors)
-        figs["stereograms"].append(plots.save_figure(fig, img_dir / f"{im.name}.stereo-{k}.png", dpi=90).name)
-    return figs
-
-
-def _file_digest(p: Path | None) -> str | None:
-    if p is None:
-        return None
-    try:
-        h = hashlib.sha256()
-        with open(p, "rb") as f:
-            for chunk in iter(lambda: f.read(1 << 20), b""):
-                h.update(chunk)
-        return h.hexdigest()
-    except OSError:
-        return "missing"
-
-
-def image_fingerprint(im: ImageJob) -> str:
-    """Hash of an image's input files, its settings and the tracefit version (resume key).
-
-    Parameters
-    ----------
-    im : ImageJob
-        One image of a job.
-
-    Returns
-    -------
-    str
-        SHA-256 hex digest (64 characters); a missing input file hashes as ``"missing"``.
-
-    Examples
-    --------
-    Any change of a setting changes the fingerprint, so ``resume`` redoes that image:
-
-    >>> import dataclasses
-    >>> from tracefit.demo import demo_job_path
-    >>> from tracefit.survey import load_job
-    >>> im = load_job(demo_job_path()).images[0]
-    >>> fp = image_fingerprint(im)
-    >>> len(fp), fp == image_fingerprint(im), fp == image_fingerprint(dataclasses.replace(im, pixel_size_um=0.25))
-    (64, True, False)
-    """
-    d = {
-        "settings": im.settings(),
-        "files": {k: _file_digest(getattr(im, k)) for k in ("file", "mask", "labels", "orientations", "orientation_map", "control_points")},
-        "version": tracefit.__version__,
-    }
-    return hashlib.sha256(json.dumps(d, sort_keys=True, default=str).encode()).hexdigest()
-
-
-def process_image(im: ImageJob, out_dir: str | Path, analyse: Callable[[ImageJob], ImageAnalysis] | None = None,
-                  figures: bool = True) -> dict:
-    """Analyse one image, draw its figures and write its record; never raises for a bad image.
-
-    ``figures=False`` skips the overlay, stereogram and rose PNGs (faster; the report then
-    shows tables only).
-
-    Parameters
-    ----------
-    im : ImageJob
-        One image of a job.
-    out_dir : str or Path
-        The survey's output folder (``images/`` is created in it).
-    analyse : callable, optional
-        Replacement for :func:`analyse_image` (``ImageJob -> ImageAnalysis``).
-    figures : bool
-        Draw the overlay, stereogram and rose PNGs.
-
-    Returns
-    -------
-    dict
-        The record written to ``OUT/images/NAME.json``: ``status`` is ``"ok"`` or
-        ``"failed"`` (with ``error``); ``families`` as :func:`tracefit.results.family_record`
-        gives them, ``elapsed_s`` in seconds.
-
-    Raises
-    ------
-    OSError
-        The record cannot be written (a bad image itself never raises).
-
-    Examples
-    --------
-    >>> import os, tempfile
-    >>> from tracefit.demo import demo_job_path
-    >>> from tracefit.survey import load_job
-    >>> im = load_job(demo_job_path()).images[0]
-    >>> with tempfile.TemporaryDirectory() as d:
-    ...     rec = process_image(im, d, figures=False)
-    ...     written = sorted(os.listdir(os.path.join(d, "images")))
-    >>> rec["status"], len(rec["families"]), written
-    ('ok', 2, ['coupon-A.json'])
-    """
-    # Over 80 lines because of its numpydoc docstring; the code is one record built in a few steps.
-    analyse = analyse or analyse_image
-    out_dir = Path(out_dir)
-    img_dir = out_dir / "images"
-    img_dir.mkdir(parents=True, exist_ok=True)
-    t0 = time.perf_counter()
-    rec = {
-        "name": im.name,
-        "file": str(im.file),
-        "line": im.line,
-        "status": "ok",
-        "error": None,
-        "fingerprint": image_fingerprint(im),
-        "inputs_sha256": {k: _file_digest(getattr(im, k)) for k in ("file", "mask", "labels", "orientations", "orientation_map", "control_points")
-                          if getattr(im, k) is not None},
-        "tracefit_version": tracefit.__version__,
-        "settings": jsonable(im.settings()),
-        "started_utc": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
-    }
-    try:
-        a = analyse(im)
-        rec.update({
-            "image_shape": list(np.asarray(a.image).shape[:2]),
-            "families": [dict(f, index=i + 1, identification=ident)
-                         for i, (f, ident) in enumerate(zip(a.families, a.identifications))],
-            "grains": jsonable(a.grains),
-            "warnings": list(a.warnings),
-            "notes": list(getattr(a, "notes", []) or []),
-            **(getattr(a, "extra", None) or {}),
-        })
-        rec["figures"] = _draw_figures(im, a, img_dir) if figures else {}
-    except TracefitInputError as exc:
-        rec.update(status="failed", error=str(exc))
-    except MemoryError:
-        rec.update(status="failed", error="out of memory while analysing this image")
-    except Exception as exc:  # a bug or a broken file must not stop the survey
-        tb = traceback.extract_tb(exc.__traceback__)
-        where = f" (in {Path(tb[-1].filename).name}:{tb[-1].lineno})" if tb else ""
-        rec.update(status="failed", error=f"{type(exc).__name__}: {exc}{where}")
-    rec["elapsed_s"] = round(time.perf_counter() - t0, 3)
-    rec = jsonable(rec)
-    write_text(img_dir / f"{im.name}.json", json.dumps(rec, indent=1))
-    return rec
-
-
-def _failed_record(im: ImageJob, out_dir: Path, error: str) -> dict:
-    """The record of an image whose worker process died, written like any other."""
-    rec = {"name": im.name, "file": str(im.file), "line": im.line, "status": "failed", "error": error,
-           "fingerprint": image_fingerprint(im), "settings": jsonable(im.settings()),
-           "tracefit_version": tracefit.__version__}
-    write_text(Path(out_dir) / "images" / f"{im.name}.json", json.dumps(rec, indent=1))
-    return rec
-
-
 # --------------------------------------------------------------------------- the survey
 @dataclass
 class SurveyResult:
@@ -262,6 +82,9 @@ class SurveyResult:
         Names of images taken over from an earlier run (``resume``).
     csv_path, json_path, report_path : Path
         The files written (``report_path`` None without ``report``).
+    run : dict
+        Where it ran: ``where`` is ``"local processes"`` (with ``workers``) or ``"dask"`` (with
+        ``scheduler``, ``workers``, ``threads``, ...); ``started_utc``, ``wall_s``.
 
     Examples
     --------
@@ -285,6 +108,7 @@ class SurveyResult:
     csv_path: Path | None = None
     json_path: Path | None = None
     report_path: Path | None = None
+    run: dict = field(default_factory=dict)
 
     @property
     def n_failed(self) -> int:
@@ -313,33 +137,9 @@ class SurveyResult:
             "n_ok": self.n_ok,
             "n_failed": self.n_failed,
             "reused": list(self.reused),
+            "run": dict(self.run),
             "images": self.records,
         }
-
-
-class _Progress:
-    """A plain progress bar on stderr (redrawn in place on a terminal, one line per image otherwise)."""
-
-    def __init__(self, total: int, enabled: bool, stream=None):
-        self.total, self.done, self.enabled = total, 0, enabled
-        self.stream = stream or sys.stderr
-        self.tty = hasattr(self.stream, "isatty") and self.stream.isatty()
-        self.t0 = time.perf_counter()
-
-    def step(self, name: str, status: str) -> None:
-        self.done += 1
-        if not self.enabled:
-            return
-        width = 24
-        filled = int(round(width * self.done / max(self.total, 1)))
-        bar = "#" * filled + "-" * (width - filled)
-        el = time.perf_counter() - self.t0
-        msg = f"survey [{bar}] {self.done}/{self.total} {el:5.1f}s  {name}: {status}"
-        if self.tty:
-            self.stream.write("\r\033[K" + msg + ("\n" if self.done == self.total else ""))
-        else:
-            self.stream.write(msg + "\n")
-        self.stream.flush()
 
 
 def software_versions() -> dict[str, str | None]:
@@ -367,27 +167,10 @@ def software_versions() -> dict[str, str | None]:
     return out
 
 
-def _previous(out_dir: Path, im: ImageJob, figures: bool) -> dict | None:
-    p = out_dir / "images" / f"{im.name}.json"
-    try:
-        rec = json.loads(p.read_text(encoding="utf-8"))
-    except (OSError, ValueError):
-        return None
-    if rec.get("status") != "ok" or rec.get("fingerprint") != image_fingerprint(im):
-        return None
-    figs = rec.get("figures") or {}
-    if not figs and not figures:
-        return rec
-    names = [figs.get("overlay"), figs.get("rose"), *(figs.get("stereograms") or [])]
-    if not all(n and (out_dir / "images" / n).is_file() for n in names):
-        return None
-    return rec
-
-
 def run_survey(job: Job, out_dir: str | Path, workers: int | None = None, resume: bool = False, progress: bool = True,
                analyse: Callable[[ImageJob], ImageAnalysis] | None = None, report: bool = True,
-               figures: bool = True) -> SurveyResult:
-    """Run every image of a job and write the output folder.
+               figures: bool = True, scheduler: str | None = None) -> SurveyResult:
+    """Run every image of a job and write the output folder, on local processes or a Dask cluster.
 
     Parameters
     ----------
@@ -396,10 +179,10 @@ def run_survey(job: Job, out_dir: str | Path, workers: int | None = None, resume
     out_dir : str or Path
         Output folder (created). See the module docstring for its layout.
     workers : int, optional
-        Worker processes; default all cores. 1 runs in this process. Workers start from a
-        fresh server process (``forkserver``; ``spawn`` where that does not exist), so a
-        script that calls this with ``workers > 1`` needs the usual
-        ``if __name__ == "__main__":`` guard.
+        Local worker processes; default all cores (fewer when memory would not hold them). 1 runs
+        in this process. Workers start from a fresh server process (``forkserver``; ``spawn``
+        where that does not exist), so a script that calls this with ``workers > 1`` (or with a
+        ``local:N`` scheduler) needs the usual ``if __name__ == "__main__":`` guard.
     resume : bool
         Reuse finished images of an earlier run into the same folder whose inputs and
         settings are unchanged; redo failed, missing and changed ones. Without it every
@@ -414,6 +197,13 @@ def run_survey(job: Job, out_dir: str | Path, workers: int | None = None, resume
     figures : bool
         Draw the overlay, stereogram and rose PNGs of each image (default); without them
         the run is faster and the report holds tables only.
+    scheduler : str, optional
+        Run on Dask instead (:mod:`tracefit.survey.cluster`, needs ``tracefit[cluster]``): a
+        scheduler address ``"tcp://HOST:PORT"``, ``"local:N"`` for a LocalCluster of N workers
+        here, or ``"none"`` for the local processes. Default: the job file's ``[run] scheduler``,
+        else the environment variable ``TRACEFIT_SCHEDULER``, else local processes; an explicit
+        ``workers`` alone keeps the run local. Records are written here as tasks finish, so
+        ``resume`` works the same; the workers must see the input files at the same paths.
 
     Returns
     -------
@@ -424,7 +214,9 @@ def run_survey(job: Job, out_dir: str | Path, workers: int | None = None, resume
     ------
     TracefitInputError
         ``workers`` below 1, an output folder that cannot be written or is in use by
-        another survey, or tables that cannot be written (finished images are kept).
+        another survey, or tables that cannot be written (finished images are kept); a
+        scheduler that is not an address, Dask not installed, a scheduler that cannot be
+        reached, or a worker that cannot read an input (see :func:`~tracefit.survey.cluster.run_on_cluster`).
 
     Examples
     --------
@@ -439,45 +231,68 @@ def run_survey(job: Job, out_dir: str | Path, workers: int | None = None, resume
     >>> res.n_ok, res.exit_code, [len(r["families"]) for r in res.records], files
     (4, 0, [2, 2, 4, 1], ['images', 'results.csv', 'results.json'])
     """
+    # Over 80 lines because of its numpydoc docstring; the code picks where to run, then runs under the lock.
     out_dir = Path(out_dir)
-    n_workers = int(workers) if workers else default_workers()
-    if n_workers < 1:
-        raise TracefitInputError(f"workers must be at least 1, got {workers}")
+    choice = choose_scheduler(scheduler, getattr(job, "scheduler", None), workers_given=workers is not None)
+    if choice.uses_dask:
+        if workers is not None:
+            raise TracefitInputError("workers sets local processes, scheduler a Dask cluster: give one of them "
+                                     "(scheduler=\"local:N\" runs N Dask workers here)")
+        from tracefit.survey.cluster import require_dask
+
+        require_dask()
+        n_workers = 0
+    else:
+        n_workers = int(workers) if workers else default_workers()
+        if n_workers < 1:
+            raise TracefitInputError(f"workers must be at least 1, got {workers}")
     prepare_output(out_dir)
     with SurveyLock(out_dir), TermAsInterrupt():
         remove_stale_temporaries(out_dir)
         try:
-            return _survey(job, out_dir, n_workers, resume, progress, analyse, report, figures)
+            return _survey(job, out_dir, n_workers, resume, progress, analyse, report, figures, choice)
         except BaseException:  # a worker ended mid-write leaves its temporary file: the lock is still ours
             remove_stale_temporaries(out_dir)
             raise
 
 
-def _survey(job, out_dir, n_workers, resume, progress, analyse, report, figures) -> SurveyResult:
+def _survey(job, out_dir, n_workers, resume, progress, analyse, report, figures, choice) -> SurveyResult:
+    t0, started = time.perf_counter(), time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime())
     records: dict[str, dict] = {}
     reused = []
     todo = []
     for im in job.images:
-        prev = _previous(out_dir, im, figures) if resume else None
+        prev = previous_record(out_dir, im, figures) if resume else None
         if prev is not None:
             records[im.name] = prev
             reused.append(im.name)
         else:
             todo.append(im)
-    bar = _Progress(len(job.images), progress)
+    bar = Progress(len(job.images), progress)
     for name in reused:
         bar.step(name, "done earlier (resumed)")
 
-    n_workers = min(n_workers, max(len(todo), 1))
-    if n_workers == 1:
-        for im in todo:
-            rec = process_image(im, out_dir, analyse, figures)
-            records[im.name] = rec
-            bar.step(im.name, rec["status"] if rec["status"] == "ok" else "FAILED")
-    elif todo:
-        run_in_pool(process_image, _failed_record, todo, out_dir, analyse, figures, n_workers, records, bar)
+    if choice.uses_dask:
+        if todo:
+            from tracefit.survey.cluster import run_on_cluster
+
+            run = run_on_cluster(choice, todo, out_dir, analyse, figures, records, bar)
+        else:
+            run = {"where": "dask", "scheduler": choice.address or f"local:{choice.local_workers}", "workers": 0}
+    else:
+        n_workers = min(n_workers, max(len(todo), 1))
+        run = {"where": "local processes", "workers": n_workers}
+        bar.start()
+        if n_workers == 1:
+            for im in todo:
+                rec = process_image(im, out_dir, analyse, figures)
+                records[im.name] = rec
+                bar.step(im.name, rec["status"] if rec["status"] == "ok" else "FAILED")
+        elif todo:
+            run_in_pool(process_image, failed_record, todo, out_dir, analyse, figures, n_workers, records, bar)
+    run.update(started_utc=started, wall_s=round(time.perf_counter() - t0, 3), images_run=len(todo))
     ordered = [records[im.name] for im in job.images]
-    result = SurveyResult(job=job, out_dir=out_dir, records=ordered, reused=reused)
+    result = SurveyResult(job=job, out_dir=out_dir, records=ordered, reused=reused, run=run)
     try:
         result.csv_path = write_results_csv(ordered, out_dir / "results.csv")
         result.json_path = write_text(out_dir / "results.json", json.dumps(jsonable(result.to_dict()), indent=1))

@@ -452,6 +452,8 @@ def _settings_and_conventions(d: dict, job: dict) -> list[str]:
             f"<tr><th>{_e(k)}</th><td><code>{_e(json.dumps(v))}</code></td></tr>" for k, v in job["defaults"].items())
             + "</table>")
     parts.append("<h3>Conventions</h3><ul>" + "".join(f"<li>{_e(c)}</li>" for c in CONVENTIONS_SUMMARY) + "</ul>")
+    if d.get("run"):
+        parts.append(_run_section(d["run"]))
     sw = d.get("software") or {}
     if sw:
         parts.append("<h3>Software</h3><table class=\"software\">"
@@ -461,6 +463,22 @@ def _settings_and_conventions(d: dict, job: dict) -> list[str]:
         parts.append("<details><summary>The job file as run</summary><pre class=\"jobtext\">"
                      f"{_e(job['text'])}</pre></details>")
     return parts
+
+
+def _run_section(run: dict) -> str:
+    """Where the survey ran: local processes, or a Dask scheduler with its worker count."""
+    if run.get("where") == "dask":
+        where = (f"Dask scheduler <code>{_e(run.get('scheduler'))}</code>"
+                 + (" (a LocalCluster on this computer)" if run.get("local_cluster") else "")
+                 + f", {_e(run.get('workers'))} worker(s), {_e(run.get('threads', '?'))} thread(s)")
+    else:
+        n = run.get("workers")
+        where = "this process" if n == 1 else f"local processes, {_e(n)} worker(s)"
+    rows = [("ran on", where), ("started", _e(run.get("started_utc", ""))),
+            ("wall time", f"{float(run['wall_s']):.1f} s" if run.get("wall_s") is not None else ""),
+            ("images run", _e(run.get("images_run", "")))]
+    return ("<h3>Run</h3><table class=\"run\">" + "".join(f"<tr><th>{k}</th><td>{v}</td></tr>" for k, v in rows if v != "")
+            + "</table>")
 
 
 def _footer() -> str:
