@@ -116,3 +116,29 @@ def test_cli_flag_prints_three_indices_everywhere(run_cli):
     assert again == four
     code, out, err = run_cli("--hex-indices", "3", *args)
     assert code == 2 and "--hex-indices must be four or three" in err and "Traceback" not in err
+
+
+@pytest.mark.parametrize("workers", ["1", "2"])
+def test_survey_writes_every_label_in_the_chosen_notation(run_cli, tmp_path, workers):
+    # the demo's titanium-like coupon (hcp, {10-12} twins), alone in a job, in worker processes too
+    import shutil
+
+    from tracefit.demo import demo_job_path
+
+    src = demo_job_path().parent
+    shutil.copy(src / "coupon_C.png", tmp_path / "coupon_C.png")
+    image = ('file = "coupon_C.png"\nlattice = "hcp"\nc_over_a = 1.587\n'
+             'modes = ["twin"]\nfamilies = ["{10-12}", "{11-21}"]\nload = { axis = "x", sense = "compression" }\n'
+             'euler_deg = [250.0, 22.0, 84.0]\n')
+    # two images, so that two workers really run in processes of their own
+    (tmp_path / "job.toml").write_text(f'format = 1\n[[image]]\nname = "coupon-C"\n{image}[[image]]\nname = "again"\n{image}')
+    out = tmp_path / "out"
+    code, _, err = run_cli("--hex-indices", "three", "survey", str(tmp_path / "job.toml"), "--out", str(out),
+                           "--workers", workers, "--quiet")
+    assert code in (0, 1), err
+    record = json.loads((out / "images" / "coupon-C.json").read_text())
+    idents = [f.get("identification") or {} for f in record["families"]]
+    fams = {c["family"] for i in idents for c in i.get("candidates", []) + i.get("nearest", [])}
+    assert "{102}" in fams and fams <= {"{102}", "{111}"}, fams  # {10-12} -> {102}, {11-21} -> {111}
+    csv_text = (out / "results.csv").read_text()
+    assert "{10-12}" not in csv_text and "{11-21}" not in csv_text

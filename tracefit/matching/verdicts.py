@@ -9,6 +9,7 @@ from typing import Any
 
 import numpy as np
 
+from tracefit.crystal.indices import restate_label
 from tracefit.matching.candidates import CandidateSet, plane_key
 from tracefit.matching.observed import ObservedFamily
 from tracefit.matching.likelihood import logsumexp
@@ -200,7 +201,7 @@ def _nearest(gp: GrainPosterior, f: int, n: int = 3) -> list[dict]:
         if ids[c] in seen:
             continue
         seen.add(ids[c])
-        out.append({"plane": [int(x) for x in gp.cands.planes[c]], "family": gp.cands.families[c],
+        out.append({"plane": [int(x) for x in gp.cands.planes[c]], "family": restate_label(gp.cands.families[c]),
                     "mode": gp.cands.modes[c], "predicted_deg": round(float(gp.ang[c]), 3),
                     "residual_deg": round(float(gp.resid[f, c]), 3), "n_sigma": round(float(z[c]), 2)})
         if len(out) == n:

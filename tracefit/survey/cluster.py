@@ -21,6 +21,7 @@ from pathlib import Path
 from typing import Any, Callable
 
 import tracefit
+from tracefit.crystal.indices import current_index_notation
 from tracefit.errors import TracefitInputError
 from tracefit.survey.record import INPUT_FIELDS, failed_record, figure_names, image_record, write_record
 from tracefit.survey.scheduler import SchedulerChoice
@@ -140,12 +141,17 @@ def _check_on_worker(paths: list[str]) -> dict:
     return {"version": tracefit.__version__, "unreadable": bad, "worker": where}
 
 
-def _remote_image(im, analyse, figures: bool) -> tuple[dict, dict]:
-    """One image on a worker: its record and its figure files (name -> PNG bytes)."""
+def _remote_image(im, analyse, figures: bool, notation: str = "four") -> tuple[dict, dict]:
+    """One image on a worker: its record and its figure files (name -> PNG bytes).
+
+    ``notation`` is the client's index notation (labels in the record are printed in it).
+    """
     import tempfile
 
+    from tracefit.crystal.indices import index_notation
+
     _worker_setup()
-    with tempfile.TemporaryDirectory(prefix="tracefit-figures-") as tmp:
+    with tempfile.TemporaryDirectory(prefix="tracefit-figures-") as tmp, index_notation(notation):
         rec = image_record(im, analyse, figures, tmp)
         files = {name: (Path(tmp) / name).read_bytes() for name in figure_names(rec)}
     return rec, files
@@ -347,7 +353,7 @@ def run_on_cluster(choice: SchedulerChoice, todo: list, out_dir: Path, analyse: 
         bar.start()
         t_tasks = time.perf_counter()
         token = f"{os.getpid()}-{time.time_ns()}"
-        futs = {client.submit(_remote_image, im, analyse, figures, pure=False, key=f"tracefit-{im.name}-{token}"): im
+        futs = {client.submit(_remote_image, im, analyse, figures, current_index_notation(), pure=False, key=f"tracefit-{im.name}-{token}"): im
                 for im in todo}
         try:
             for fut in as_completed(futs):

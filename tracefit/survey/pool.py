@@ -14,6 +14,8 @@ from concurrent.futures import ProcessPoolExecutor, as_completed
 from pathlib import Path
 from typing import Any, Callable
 
+from tracefit.crystal.indices import current_index_notation
+
 __all__ = ["available_cores", "default_workers", "run_in_pool", "claim_numba_cache"]
 
 
@@ -162,12 +164,16 @@ def _mp_context(with_orix: bool = False):
     return ctx
 
 
-def _init_worker() -> None:
+def _init_worker(notation: str = "four") -> None:
     # Ctrl-C reaches the whole process group: the parent stops the survey and ends the workers, so
     # a worker must not die on its own mid-image with a traceback of its own.
     import signal
 
     signal.signal(signal.SIGINT, signal.SIG_IGN)
+    # labels in the records follow the survey's index notation (a display setting of the caller)
+    from tracefit.crystal.indices import _HEX_NOTATION
+
+    _HEX_NOTATION.set(notation)
     claim_numba_cache()  # before anything imports orix (and numba) in this worker
     # One process per core already: keep OpenCV from starting a thread per core in each worker.
     try:
@@ -227,7 +233,8 @@ def run_in_pool(process: Callable, failed_record: Callable, todo: list, out_dir:
     ['process', 'failed_record', 'todo']
     """
     with_orix = any(getattr(im, "orientation_map", None) for im in todo)
-    pool = ProcessPoolExecutor(max_workers=n_workers, mp_context=_mp_context(with_orix), initializer=_init_worker)
+    pool = ProcessPoolExecutor(max_workers=n_workers, mp_context=_mp_context(with_orix), initializer=_init_worker,
+                               initargs=(current_index_notation(),))
     try:
         futs = {pool.submit(_worker, (process, im, out_dir, analyse, figures)): im for im in todo}
         for fut in as_completed(futs):
