@@ -18,7 +18,7 @@ def stats(
     reference: Annotated[Optional[str], typer.Option("--reference", "-r", help="Reference family of the CRSS ratios: a plane family as in results.csv ('{10-10}'), a system family or trade name ('prismatic'), or a mode; default the family seen most.")] = None,
     lattice: Annotated[Optional[str], typer.Option("--lattice", "-l", help="Which lattice to treat when the survey has several (default the one with most grains).")] = None,
     interval: Annotated[str, typer.Option("--interval", help="95 % intervals from the profile likelihood ('profile') or a bootstrap over grains ('bootstrap').")] = "profile",
-    n_boot: Annotated[int, typer.Option("--boot", min=20, help="Bootstrap refits (--interval bootstrap).")] = 200,
+    n_boot: Annotated[int, typer.Option("--boot", min=20, metavar="<n>", help="Bootstrap refits (--interval bootstrap).")] = 200,
     seed: Annotated[int, typer.Option("--seed", help="Seed of the bootstrap.")] = 0,
     no_figures: Annotated[bool, typer.Option("--no-figures", help="Tables only: no figures.")] = False,
     no_report: Annotated[bool, typer.Option("--no-report", help="Leave report.html as it is (no statistics section).")] = False,

@@ -11,7 +11,7 @@ from tracefit.cli import app
 
 OutOpt = Annotated[Optional[Path], typer.Option("--out", "-o", help="Output folder (default: out/<job file name>).")]
 WorkersOpt = Annotated[
-    Optional[int], typer.Option("--workers", "-w", min=1, help="Worker processes (default: one per core, fewer when free memory would not hold them at about 1.2 GB each; 1 = no subprocesses).")
+    Optional[int], typer.Option("--workers", "-w", min=1, metavar="<n>", help="Worker processes (default: one per core, fewer when free memory would not hold them at about 1.2 GB each; 1 = no subprocesses).")
 ]
 SchedulerOpt = Annotated[
     Optional[str], typer.Option("--scheduler", metavar="<address>", help="Run the images as tasks on a Dask scheduler: tcp://HOST:PORT, or local:N for N Dask workers on this machine, or none for local processes (default: the job file's [run] scheduler, else $TRACEFIT_SCHEDULER, else local processes). Needs pip install 'tracefit[cluster]'; see docs/scaling.md.")
