@@ -386,8 +386,9 @@ def compare(base: str, repeats: int, workloads: tuple[str, ...] = ("detect", "id
                 _run_demo(trees[label], scratch, demo_job)
             if "identify" in workloads or "detect" in workloads:
                 _run_worker(trees[label], "identify")
-        print(f"demo job (both trees): {demo_job.relative_to(base_tree)} of the base revision; "
-              "one untimed warm-up run per tree before the timed repeats")
+        if "demo" in workloads:
+            print(f"demo job (both trees): {demo_job.relative_to(base_tree)} of the base revision")
+        print("one untimed warm-up run per tree before the timed repeats")
 
         times: dict = {}
         first: dict = {}

@@ -19,7 +19,7 @@ from tracefit.image.geometry import _hough_line, _segment_in_image, _to_full, _t
 from tracefit.image.ridges import RidgePixels, _pixel_noise
 
 
-def _depth_map(wk, mw, f, spacing_hint):
+def _depth_map(wk, mw, f, spacing_hint, pixel_noise=None):
     """Relative depth map ``(I - B) / B`` and a sampler at full-resolution points.
 
     B is the local background level: a median over about ``spacing_hint`` px refined
@@ -35,6 +35,8 @@ def _depth_map(wk, mw, f, spacing_hint):
         Reduction factor of the working copy.
     spacing_hint : float
         Median window, working pixels (several band spacings).
+    pixel_noise : float, optional
+        ``_pixel_noise(wk, mw)`` when the caller has it already (speed); computed otherwise.
 
     Returns
     -------
@@ -59,7 +61,7 @@ def _depth_map(wk, mw, f, spacing_hint):
     # From the median towards the mode (the background between bands): average only
     # the pixels near the current level, twice. Where bands cover much of the area the
     # median leans towards them; the mode does not.
-    sig = _pixel_noise(wk, mw) * 1.0
+    sig = (_pixel_noise(wk, mw) if pixel_noise is None else pixel_noise) * 1.0
     valid = np.ones(small.shape, bool) if mw is None else ms
     for _ in range(2):
         near = (np.abs(small - med) <= 2.5 * sig) & valid

@@ -46,6 +46,7 @@ erosion) and ``hough._chord_lengths`` (vote normalisation); float maps with hole
 
 from __future__ import annotations
 
+import copy
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
@@ -58,7 +59,16 @@ from tracefit.errors import TracefitInputError
 from tracefit.image.depth import _depth_map, _hough_depth, _keep, _on_band_side
 from tracefit.image.geometry import _to_working
 from tracefit.image.families import _build_family, _FamilyContext
-from tracefit.image.hough import SECTOR_DEG, _chord_lengths, _cluster_angles, _hough_theta, _line_candidates, _pixels_near_angle, _vote_mean_angle
+from tracefit.image.hough import (
+    SECTOR_DEG,
+    _candidate_key,
+    _chord_lengths,
+    _cluster_angles,
+    _hough_theta,
+    _line_candidates,
+    _pixels_near_angle,
+    _vote_mean_angle,
+)
 from tracefit.image.options import check_detect_options
 from tracefit.image.prepare import (
     _clear_boxes,
@@ -108,26 +118,32 @@ def _effective_min_depth(img, m, pixel_noise: float, min_depth: float) -> float:
 # --------------------------------------------------------------------------- stages
 
 
-def _band_pixels(wc: _WorkingCopy, scales, min_depth):
-    """Stage 3: ridge pixels (dark, bright) on the band side of the local median grey, and the depth sampler."""
+def _band_pixels(wc: _WorkingCopy, scales, min_depth, working_noise=None):
+    """Stage 3: ridge pixels (dark, bright) on the band side of the local median grey, and the depth sampler.
+
+    ``working_noise`` is the pixel noise of the working copy when the caller knows it already.
+    """
     flat = flatten_background(wc.image, wc.mask, wc.background_px)
     dark, bright = ridge_pixels(flat, wc.region, sector_deg=SECTOR_DEG, scales=scales)
     del flat
-    depth_of, dmap = _depth_map(wc.image, wc.mask, wc.factor, spacing_hint=wc.background_px)
+    depth_of, dmap = _depth_map(wc.image, wc.mask, wc.factor, spacing_hint=wc.background_px, pixel_noise=working_noise)
     # band pixels must lie below (dark) / above (bright) the local median grey: this drops
     # the gaps between bands, which are ridges of the opposite sign at the median level
     ridges = [_on_band_side(rp, dmap, 0.5 * min_depth) for rp in (dark, bright)]
     return ridges, depth_of
 
 
-def _candidate_families(ridges: Sequence[RidgePixels], region, min_bands, min_coverage):
-    """Stage 4: Hough lines per polarity clustered by angle; (ridge pixels, lines) per candidate, most votes first."""
+def _candidate_families(ridges: Sequence[RidgePixels], region, min_bands, min_coverage, memo: dict | None = None):
+    """Stage 4: Hough lines per polarity clustered by angle; (ridge pixels, lines) per candidate, most votes first.
+
+    ``memo`` (one per image and settings) keeps the Hough lines of each sector for the next round.
+    """
     theta, alpha = _hough_theta()
     chord, _ = _chord_lengths(region, theta)
     v_min = max(20.0, 0.06 * min(region.shape))
     cands = []
     for rp in ridges:
-        lines = _line_candidates(rp, theta, alpha, chord, v_min, min_coverage)
+        lines = _line_candidates(rp, theta, alpha, chord, v_min, min_coverage, memo)
         if len(lines) == 0:
             continue
         for grp in _cluster_angles(lines[:, 0], lines[:, 3]):
@@ -140,13 +156,22 @@ def _candidate_families(ridges: Sequence[RidgePixels], region, min_bands, min_co
     return cands
 
 
-def _screen_candidates(cands, depth_of, wc: _WorkingCopy, min_depth):
+def _screen_candidates(cands, depth_of, wc: _WorkingCopy, min_depth, memo: dict | None = None):
     """Stage 5: keep candidates whose strongest Hough lines are deeper than the local median grey, deepest first.
 
     A cheap test before the full-resolution fits (it rejects the gaps between bands), and
-    the order puts a band family before the gaps beside it.
+    the order puts a band family before the gaps beside it. ``memo`` (one per image) keeps
+    the depth of each (polarity, lines) for the next round.
     """
-    scored = [(_hough_depth(rp, ln, depth_of, wc.factor, wc.region), rp, ln) for rp, ln in cands]
+    memo = {} if memo is None else memo
+
+    def depth(rp, ln):
+        key = (rp.polarity, ln.tobytes())
+        if key not in memo:
+            memo[key] = _hough_depth(rp, ln, depth_of, wc.factor, wc.region)
+        return memo[key]
+
+    scored = [(depth(rp, ln), rp, ln) for rp, ln in cands]
     scored = [c for c in scored if c[0] >= 0.6 * min_depth]
     scored.sort(key=lambda c: -c[0])
     return [(rp, ln) for _, rp, ln in scored]
@@ -159,12 +184,12 @@ def _significance(fam: BandFamily, rp_all: RidgePixels, wc: _WorkingCopy, min_ba
     return fam.log10_nfa
 
 
-def _fit_candidates(ctx: _FamilyContext, cands, max_families, accept, known=()) -> tuple[list[BandFamily], int]:
+def _fit_candidates(try_candidate, cands, max_families, known=()) -> tuple[list[BandFamily], int]:
     """Stage 6: build a family from each candidate, at most ``3 * max_families`` attempts.
 
-    ``accept(fam, strict)`` is the significance test; candidates within ``SAME_FAMILY_DEG`` of a
-    family already kept (here or in ``known``) are skipped. Returns the families and the
-    number of candidates tried.
+    ``try_candidate(rp, lines)`` builds a family and tests its significance (None when it fails);
+    candidates within ``SAME_FAMILY_DEG`` of a family already kept (here or in ``known``) are
+    skipped. Returns the families and the number of candidates tried.
     """
     fams: list[BandFamily] = []
     attempts = 0
@@ -175,9 +200,9 @@ def _fit_candidates(ctx: _FamilyContext, cands, max_families, accept, known=()) 
         if any(abs(axial_difference(a_c, fm.angle_deg)) < SAME_FAMILY_DEG for fm in [*fams, *known]):
             continue  # a split cluster of a family already fitted, or its gaps
         attempts += 1
-        built = _build_family(ctx, rp, ln)
-        if built is not None and accept(*built):
-            fams.append(built[0])
+        fam = try_candidate(rp, ln)
+        if fam is not None:
+            fams.append(fam)
     return fams, attempts
 
 
@@ -262,7 +287,10 @@ def _detect_at_scale(img, m, bars, st: _Settings, up: int = 1) -> _Outcome:
                         f"working pixels after the filter margin, fewer than {MIN_REGION_PX})", notes)
     pixel_noise = _pixel_noise(img, m, bars)
     min_depth = _effective_min_depth(img, m, pixel_noise, st.min_depth)
-    ridges, depth_of = _band_pixels(wc, st.scales, min_depth)  # stage 3
+    # the working copy is the image itself (same pixels, same mask) unless reduced or given a
+    # data-bar mask of its own: then its noise is the one just measured
+    same = wc.factor == 1 and (m is not None or not bars)
+    ridges, depth_of = _band_pixels(wc, st.scales, min_depth, pixel_noise if same else None)  # stage 3
     v_min = max(20.0, 0.06 * min(wc.region.shape))
     if sum(len(rp) for rp in ridges) < v_min:
         return _Outcome([], "low_contrast", "too little contrast: no band-like ridges stand above the noise "
@@ -291,6 +319,23 @@ def _detect_at_scale(img, m, bars, st: _Settings, up: int = 1) -> _Outcome:
         n_rejected[0] += not ok
         return ok
 
+    # A later round repeats much of the first: sectors that lost no ridge pixel give the same
+    # Hough lines, and a candidate with the same lines and pixels the same family. Their
+    # results are kept per image (speed; nothing else is shared between rounds).
+    memo: dict = {"lines": {}, "depth": {}, "built": {}}
+
+    def try_candidate(rp, ln):
+        key = _candidate_key(rp, ln)
+        if key not in memo["built"]:
+            before = n_rejected[0]
+            built = _build_family(ctx, rp, ln)
+            fam = built[0] if built is not None and accept(*built) else None
+            memo["built"][key] = (fam, n_rejected[0] - before)
+            return fam
+        fam, rejected = memo["built"][key]
+        n_rejected[0] += rejected
+        return None if fam is None else copy.deepcopy(fam)
+
     found: list[BandFamily] = []
     tried = 0
     search = list(ridges)
@@ -298,9 +343,9 @@ def _detect_at_scale(img, m, bars, st: _Settings, up: int = 1) -> _Outcome:
     for _ in range(SEARCH_ROUNDS):
         # stages 4-6; after the first round the bands already found are taken out, so a
         # weaker family crossing or beside them gets its own candidates
-        cands = _candidate_families(search, wc.region, min(st.min_bands, 2), st.min_coverage)
-        fams, n = _fit_candidates(ctx, _screen_candidates(cands, depth_of, wc, min_depth), st.max_families,
-                                  accept, known=found)
+        cands = _candidate_families(search, wc.region, min(st.min_bands, 2), st.min_coverage, memo["lines"])
+        fams, n = _fit_candidates(try_candidate, _screen_candidates(cands, depth_of, wc, min_depth, memo["depth"]),
+                                  st.max_families, known=found)
         tried += n
         new = _distinct_families(fams)  # stage 7
         found = _distinct_families(found + new)

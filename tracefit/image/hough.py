@@ -17,6 +17,9 @@ Work is at the working-copy resolution; angles follow :mod:`tracefit.conventions
 
 from __future__ import annotations
 
+import hashlib
+import threading
+from collections import OrderedDict
 from dataclasses import dataclass
 
 import cv2
@@ -51,8 +54,16 @@ def _hough_theta():
     return theta, np.asarray(alpha)
 
 
+_CHORD_CACHE: OrderedDict = OrderedDict()  # (shape, region digest, theta digest) -> (chord, rho), newest last
+_CHORD_CACHE_SIZE = 4  # a chord table of a 1536 px working copy is about 6 MB
+_CHORD_LOCK = threading.Lock()
+
+
 def _chord_lengths(region, theta):
     """Length (px) of every Hough chord (rho, theta) through the analysed region.
+
+    The tables of the last few regions are kept (read-only): both search rounds of an image,
+    and every image of a series of one size without a mask, share one.
 
     Parameters
     ----------
@@ -64,10 +75,18 @@ def _chord_lengths(region, theta):
     Returns
     -------
     chord : ndarray of float32, (2 * ceil(hypot(h, w)) + 1, len(theta))
-        Chord length per (rho, theta) cell, pixels.
+        Chord length per (rho, theta) cell, pixels (read-only).
     rho : ndarray of float
-        The rho of each row, pixels.
+        The rho of each row, pixels (read-only).
     """
+    region = np.asarray(region, bool)
+    key = (region.shape, hashlib.blake2b(np.packbits(region).tobytes(), digest_size=16).digest(),
+           hashlib.blake2b(np.ascontiguousarray(theta, float).tobytes(), digest_size=16).digest())
+    with _CHORD_LOCK:
+        hit = _CHORD_CACHE.get(key)
+        if hit is not None:
+            _CHORD_CACHE.move_to_end(key)
+            return hit
     h, w = region.shape
     diag = int(np.ceil(np.hypot(h, w)))
     q = max(1, int(np.ceil(max(h, w) / 256)))
@@ -75,10 +94,17 @@ def _chord_lengths(region, theta):
     acc_s, _, dists_s = hough_line(small, theta=theta)
     rho = np.arange(-diag, diag + 1, dtype=np.float64)
     idx = np.clip(np.rint(rho / q - dists_s[0]).astype(int), 0, len(dists_s) - 1)
-    return acc_s[idx].astype(np.float32) * q, rho
+    chord = acc_s[idx].astype(np.float32) * q
+    chord.flags.writeable = False
+    rho.flags.writeable = False
+    with _CHORD_LOCK:
+        _CHORD_CACHE[key] = (chord, rho)
+        while len(_CHORD_CACHE) > _CHORD_CACHE_SIZE:
+            _CHORD_CACHE.popitem(last=False)
+    return chord, rho
 
 
-def _line_candidates(rp: RidgePixels, theta, alpha, chord, v_min, c_min):
+def _line_candidates(rp: RidgePixels, theta, alpha, chord, v_min, c_min, memo: dict | None = None):
     """Hough peaks per orientation sector on one polarity's ridge pixels.
 
     Parameters
@@ -93,6 +119,10 @@ def _line_candidates(rp: RidgePixels, theta, alpha, chord, v_min, c_min):
         Fewest votes (ridge pixels, summed over three rho bins) of a line.
     c_min : float
         Least coverage: votes over the chord length through the region.
+    memo : dict, optional
+        Lines of the sectors already transformed with the same ``theta``, ``chord``, ``v_min``
+        and ``c_min`` (one image), keyed by the sector's pixels; filled as it goes. The second
+        search round of an image repeats the sectors that lost no pixel.
 
     Returns
     -------
@@ -112,6 +142,12 @@ def _line_candidates(rp: RidgePixels, theta, alpha, chord, v_min, c_min):
         near = rp.sector == k
         if near.sum() < v_min or len(sel_t) == 0:
             continue
+        key = None
+        if memo is not None:
+            key = (k, (h, w), hashlib.blake2b(rp.col[near].tobytes() + rp.row[near].tobytes(), digest_size=16).digest())
+            if key in memo:
+                out.append(memo[key])
+                continue
         canvas[ri[near], ci[near]] = 1
         acc, _, dists = hough_line(canvas, theta=theta[sel_t])
         canvas[ri[near], ci[near]] = 0
@@ -121,12 +157,20 @@ def _line_candidates(rp: RidgePixels, theta, alpha, chord, v_min, c_min):
         acc3[:-1] += acc[1:]
         ln = chord[:, sel_t]
         cov = acc3 / np.maximum(ln, 0.25 * min(h, w))
-        peak = acc3 == ndimage.maximum_filter(acc3, size=(7, 5), mode="constant")
+        # local maxima over 7 x 5 cells; the votes are >= 0, so a border of zeros (scipy's
+        # maximum_filter, mode="constant") and OpenCV's dilation agree exactly
+        peak = acc3 == cv2.dilate(acc3, _PEAK_KERNEL, borderType=cv2.BORDER_CONSTANT, borderValue=0)
         ok = peak & (acc3 >= v_min) & (cov >= c_min)
         ii, jj = np.nonzero(ok)
-        for i, j in zip(ii, jj):
-            out.append((alpha[sel_t[j]], theta[sel_t[j]], dists[i], acc3[i, j], cov[i, j]))
-    return np.array(out, float).reshape(-1, 5)
+        rows = np.column_stack([alpha[sel_t[jj]], theta[sel_t[jj]], dists[ii], acc3[ii, jj], cov[ii, jj]]).astype(float)
+        if memo is not None:
+            rows.flags.writeable = False
+            memo[key] = rows
+        out.append(rows)
+    return np.concatenate(out, axis=0) if out else np.zeros((0, 5))
+
+
+_PEAK_KERNEL = np.ones((7, 5), np.uint8)  # Hough peak neighbourhood: 7 rho bins by 5 angle bins
 
 
 def _cluster_angles(alpha, votes, tol_deg=1.5):
@@ -206,6 +250,18 @@ def _pixels_near_angle(rp: RidgePixels, angle_deg, window_deg=FAMILY_WINDOW_DEG)
     idx = [np.arange(bounds[k], bounds[k + 1]) for k in range(n_sec)
            if abs(axial_difference(k * SECTOR_DEG, angle_deg)) <= window_deg + SECTOR_DEG / 2]
     return np.concatenate(idx) if idx else np.zeros(0, np.intp)
+
+
+def _candidate_key(rp: RidgePixels, lines) -> tuple:
+    """What :func:`_family_profile` (and so a family built from a candidate) depends on, as a key.
+
+    The polarity, the lines, and the ridge pixels near their angle (those the profile reads).
+    """
+    near = _pixels_near_angle(rp, _vote_mean_angle(lines))
+    pix = hashlib.blake2b(digest_size=16)
+    for arr in (rp.col[near], rp.row[near], rp.strength[near]):
+        pix.update(np.ascontiguousarray(arr).tobytes())
+    return rp.polarity, np.ascontiguousarray(lines, float).tobytes(), len(near), pix.digest()
 
 
 @dataclass
