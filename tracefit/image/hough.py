@@ -104,6 +104,31 @@ def _chord_lengths(region, theta):
     return chord, rho
 
 
+class _SectorDigests:
+    """Content digest of each sector's ridge pixels (columns, rows, strengths), once per pixel set.
+
+    Keys of the per-image memos of the search rounds: two pixel sets with the same digests in a
+    sector hold the same pixels there, in the same order.
+    """
+
+    def __init__(self):
+        self._by_id: dict = {}
+
+    def __call__(self, rp: RidgePixels) -> list:
+        hit = self._by_id.get(id(rp))
+        if hit is None or hit[0] is not rp:
+            n_sec = int(round(180.0 / SECTOR_DEG))
+            bounds = np.searchsorted(rp.sector, np.arange(n_sec + 1))  # pixels are stored sector by sector
+            digests = []
+            for a, b in zip(bounds[:-1], bounds[1:]):
+                h = hashlib.blake2b(digest_size=16)
+                for arr in (rp.col, rp.row, rp.strength):
+                    h.update(np.ascontiguousarray(arr[a:b]))
+                digests.append(h.digest())
+            hit = self._by_id[id(rp)] = (rp, digests)  # holding rp keeps its id unique
+        return hit[1]
+
+
 def _line_candidates(rp: RidgePixels, theta, alpha, chord, v_min, c_min, memo: dict | None = None):
     """Hough peaks per orientation sector on one polarity's ridge pixels.
 
@@ -121,8 +146,9 @@ def _line_candidates(rp: RidgePixels, theta, alpha, chord, v_min, c_min, memo: d
         Least coverage: votes over the chord length through the region.
     memo : dict, optional
         Lines of the sectors already transformed with the same ``theta``, ``chord``, ``v_min``
-        and ``c_min`` (one image), keyed by the sector's pixels; filled as it goes. The second
-        search round of an image repeats the sectors that lost no pixel.
+        and ``c_min`` (one image), keyed by the sector's pixels; filled as it goes (its entry
+        ``"digests"``, a :class:`_SectorDigests`, is made when missing). The second search
+        round of an image repeats the sectors that lost no pixel.
 
     Returns
     -------
@@ -137,6 +163,7 @@ def _line_candidates(rp: RidgePixels, theta, alpha, chord, v_min, c_min, memo: d
     sector_of_theta = np.floor(fold_axial(alpha + SECTOR_DEG / 2) / SECTOR_DEG).astype(int) % n_sec
     canvas = np.zeros((h, w), np.uint8)
     ci, ri = rp.col.astype(np.intp), rp.row.astype(np.intp)
+    digests = None if memo is None else memo.setdefault("digests", _SectorDigests())(rp)
     for k in range(n_sec):
         sel_t = np.nonzero(sector_of_theta == k)[0]
         near = rp.sector == k
@@ -144,7 +171,7 @@ def _line_candidates(rp: RidgePixels, theta, alpha, chord, v_min, c_min, memo: d
             continue
         key = None
         if memo is not None:
-            key = (k, (h, w), hashlib.blake2b(rp.col[near].tobytes() + rp.row[near].tobytes(), digest_size=16).digest())
+            key = (k, (h, w), digests[k])
             if key in memo:
                 out.append(memo[key])
                 continue
@@ -243,25 +270,29 @@ def _radon_refine(x, y, wgt, alpha0, half=1.0, step=0.1, bin_px=PROFILE_BIN_PX):
     return float(fold_axial(best))
 
 
+def _sectors_near_angle(angle_deg, window_deg=FAMILY_WINDOW_DEG) -> list:
+    """The orientation sectors whose band direction lies within ``window_deg`` (plus half a sector) of ``angle_deg``."""
+    n_sec = int(round(180.0 / SECTOR_DEG))
+    return [k for k in range(n_sec) if abs(axial_difference(k * SECTOR_DEG, angle_deg)) <= window_deg + SECTOR_DEG / 2]
+
+
 def _pixels_near_angle(rp: RidgePixels, angle_deg, window_deg=FAMILY_WINDOW_DEG):
     """Indices of the ridge pixels whose sector lies within ``window_deg`` of ``angle_deg``."""
     n_sec = int(round(180.0 / SECTOR_DEG))
     bounds = np.searchsorted(rp.sector, np.arange(n_sec + 1))  # pixels are stored sector by sector
-    idx = [np.arange(bounds[k], bounds[k + 1]) for k in range(n_sec)
-           if abs(axial_difference(k * SECTOR_DEG, angle_deg)) <= window_deg + SECTOR_DEG / 2]
+    idx = [np.arange(bounds[k], bounds[k + 1]) for k in _sectors_near_angle(angle_deg, window_deg)]
     return np.concatenate(idx) if idx else np.zeros(0, np.intp)
 
 
-def _candidate_key(rp: RidgePixels, lines) -> tuple:
+def _candidate_key(rp: RidgePixels, lines, digests: _SectorDigests) -> tuple:
     """What :func:`_family_profile` (and so a family built from a candidate) depends on, as a key.
 
-    The polarity, the lines, and the ridge pixels near their angle (those the profile reads).
+    The polarity, the lines, and the ridge pixels of the sectors near their angle (those the
+    profile reads), by their ``digests``.
     """
-    near = _pixels_near_angle(rp, _vote_mean_angle(lines))
-    pix = hashlib.blake2b(digest_size=16)
-    for arr in (rp.col[near], rp.row[near], rp.strength[near]):
-        pix.update(np.ascontiguousarray(arr).tobytes())
-    return rp.polarity, np.ascontiguousarray(lines, float).tobytes(), len(near), pix.digest()
+    sectors = _sectors_near_angle(_vote_mean_angle(lines))
+    by_sector = digests(rp)
+    return rp.polarity, np.ascontiguousarray(lines, float).tobytes(), tuple(by_sector[k] for k in sectors)
 
 
 @dataclass

@@ -169,7 +169,11 @@ def _effective_noise(derivs_one_scale, mask, sn):
 def _diagonal_second_difference(a: np.ndarray, lag: int = 1) -> np.ndarray:
     """``a[i+L, j+L] - 2 a[i, j] + a[i-L, j-L]`` on the interior (L = ``lag``), shape (H - 2L, W - 2L)."""
     L = lag
-    return a[2 * L :, 2 * L :] - 2 * a[L:-L, L:-L] + a[: -2 * L, : -2 * L]
+    # the same three operations as a[2L:, 2L:] - 2 a[L:-L, L:-L] + a[:-2L, :-2L], in one buffer
+    out = np.multiply(a[L:-L, L:-L], 2)
+    np.subtract(a[2 * L :, 2 * L :], out, out=out)
+    np.add(out, a[: -2 * L, : -2 * L], out=out)
+    return out
 
 
 def _lag_robust_sigma(a: np.ndarray, keep: np.ndarray | None) -> float:
@@ -194,8 +198,11 @@ def _lag_robust_sigma(a: np.ndarray, keep: np.ndarray | None) -> float:
         d = _diagonal_second_difference(a, lag)
         if keep is not None:
             d = d[keep[lag:-lag, lag:-lag] & keep[2 * lag :, 2 * lag :] & keep[: -2 * lag, : -2 * lag]]
-        d = d.ravel()[:: max(1, d.size // 400000)]
-        return _white_sigma(d) if d.size else 0.0
+        step = max(1, d.size // 400000)
+        if not d.size:
+            return 0.0
+        # d is a fresh array here: partitioned in place unless only every step-th value is kept
+        return _white_sigma(d.ravel() if step == 1 else np.ascontiguousarray(d.ravel()[::step]), copy=False)
 
     first = at(lags[0])
     if len(lags) < 3:
@@ -208,10 +215,14 @@ def _lag_robust_sigma(a: np.ndarray, keep: np.ndarray | None) -> float:
     return first
 
 
-def _white_sigma(d: np.ndarray) -> float:
-    """Standard deviation of white noise from its second differences (robust, via the MAD)."""
+def _white_sigma(d: np.ndarray, copy: bool = True) -> float:
+    """Standard deviation of white noise from its second differences (robust, via the MAD).
+
+    ``copy=False`` lets it reorder ``d`` (contiguous, 1-D) in place.
+    """
     # var(x[i+1] - 2 x[i] + x[i-1]) = 6 var(x) for white noise
-    return 1.4826 * float(_mad_inplace(np.array(d, copy=True, order="C").ravel())) / math.sqrt(6.0)
+    buf = np.array(d, copy=True, order="C").ravel() if copy else d
+    return 1.4826 * float(_mad_inplace(buf)) / math.sqrt(6.0)
 
 
 def noise_sigma(flat: np.ndarray, mask: np.ndarray | None) -> float:
@@ -286,10 +297,15 @@ def _thin_across(resp, mask, oc, orow):
     h, w = resp.shape
     if mask is not None:
         resp[~mask] = 0
-    pad = np.pad(resp, 1)
-    fwd = pad[1 + orow : 1 + orow + h, 1 + oc : 1 + oc + w]
-    bwd = pad[1 - orow : 1 - orow + h, 1 - oc : 1 - oc + w]
-    keep = (resp > 1.0) & (resp >= fwd) & (resp > bwd)
+    keep = resp > 1.0
+    # against the neighbours (col + oc, row + orow) (>=) and (col - oc, row - orow) (>); outside
+    # the image they count as 0, which a pixel above 1 beats anyway
+    for sign, ge in ((1, True), (-1, False)):
+        dr, dc = sign * orow, sign * oc
+        rs = slice(max(0, -dr), h - max(0, dr))
+        cs = slice(max(0, -dc), w - max(0, dc))
+        nb = resp[rs.start + dr : rs.stop + dr, cs.start + dc : cs.stop + dc]
+        keep[rs, cs] &= (resp[rs, cs] >= nb) if ge else (resp[rs, cs] > nb)
     nz = cv2.findNonZero(keep.view(np.uint8))
     if nz is None:
         return np.zeros(0, np.intp), np.zeros(0, np.intp)
