@@ -129,7 +129,8 @@ class _SectorDigests:
         return hit[1]
 
 
-def _line_candidates(rp: RidgePixels, theta, alpha, chord, v_min, c_min, memo: dict | None = None):
+def _line_candidates(rp: RidgePixels, theta, alpha, chord, v_min, c_min, memo: dict | None = None,
+                     digests: _SectorDigests | None = None):
     """Hough peaks per orientation sector on one polarity's ridge pixels.
 
     Parameters
@@ -146,9 +147,10 @@ def _line_candidates(rp: RidgePixels, theta, alpha, chord, v_min, c_min, memo: d
         Least coverage: votes over the chord length through the region.
     memo : dict, optional
         Lines of the sectors already transformed with the same ``theta``, ``chord``, ``v_min``
-        and ``c_min`` (one image), keyed by the sector's pixels; filled as it goes (its entry
-        ``"digests"``, a :class:`_SectorDigests`, is made when missing). The second search
-        round of an image repeats the sectors that lost no pixel.
+        and ``c_min`` (one image), keyed by the sector's pixels; filled as it goes. The second
+        search round of an image repeats the sectors that lost no pixel.
+    digests : _SectorDigests, optional
+        Digests of the sectors' pixels (the keys of ``memo``); a new one when not given.
 
     Returns
     -------
@@ -163,7 +165,7 @@ def _line_candidates(rp: RidgePixels, theta, alpha, chord, v_min, c_min, memo: d
     sector_of_theta = np.floor(fold_axial(alpha + SECTOR_DEG / 2) / SECTOR_DEG).astype(int) % n_sec
     canvas = np.zeros((h, w), np.uint8)
     ci, ri = rp.col.astype(np.intp), rp.row.astype(np.intp)
-    digests = None if memo is None else memo.setdefault("digests", _SectorDigests())(rp)
+    by_sector = None if memo is None else (digests or _SectorDigests())(rp)
     for k in range(n_sec):
         sel_t = np.nonzero(sector_of_theta == k)[0]
         near = rp.sector == k
@@ -171,7 +173,7 @@ def _line_candidates(rp: RidgePixels, theta, alpha, chord, v_min, c_min, memo: d
             continue
         key = None
         if memo is not None:
-            key = (k, (h, w), digests[k])
+            key = (k, (h, w), by_sector[k])
             if key in memo:
                 out.append(memo[key])
                 continue
