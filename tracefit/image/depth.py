@@ -17,6 +17,7 @@ import numpy as np
 
 from tracefit.image.geometry import _hough_line, _segment_in_image, _to_full, _to_working
 from tracefit.image.ridges import RidgePixels, _pixel_noise
+from tracefit.image.selection import _median_inplace
 
 
 def _depth_map(wk, mw, f, spacing_hint, pixel_noise=None):
@@ -137,7 +138,7 @@ def _hough_depth(rp: RidgePixels, lines, depth_of, f, region, n_lines=5):
             ok = region[np.clip(np.rint(pw[:, 1]).astype(int), 0, h - 1), np.clip(np.rint(pw[:, 0]).astype(int), 0, w - 1)]
             if ok.sum() < 8:
                 continue
-            v = float(np.median(rp.polarity * depth_of(_to_full(pw, f)[ok])))
+            v = float(_median_inplace(rp.polarity * depth_of(_to_full(pw, f)[ok])))
             best = v if best is None else max(best, v)
         if best is not None:
             vals.append(best)

@@ -250,11 +250,18 @@ def _radon_refine(x, y, wgt, alpha0, half=1.0, step=0.1, bin_px=PROFILE_BIN_PX):
         the window (no family at ``alpha0``).
     """
 
+    s, tmp = np.empty_like(x), np.empty_like(x)
+
     def score(a):
+        # (x n0 + y n1 - min) / bin, floored, as separate operations in two buffers; the values
+        # are >= 0, so truncation to integers is the floor
         _, n = _direction_and_normal(a)
-        s = x * n[0] + y * n[1]
-        idx = np.floor((s - s.min()) / bin_px).astype(np.intp)
-        hist = np.bincount(idx, weights=wgt)
+        np.multiply(x, n[0], out=s)
+        np.multiply(y, n[1], out=tmp)
+        np.add(s, tmp, out=s)
+        np.subtract(s, s.min(), out=s)
+        np.divide(s, bin_px, out=s)
+        hist = np.bincount(s.astype(np.intp), weights=wgt)
         return float(np.dot(hist, hist))
 
     best = alpha0

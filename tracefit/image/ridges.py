@@ -141,9 +141,14 @@ def _white_noise_stats(sigma):
     return _WHITE[sigma]
 
 
-def _robust_spread(v: np.ndarray) -> float:
-    """Standard deviation from the median absolute deviation (exact for Gaussian samples)."""
-    return 1.4826 * float(_mad_inplace(np.array(v, copy=True, order="C").ravel())) if v.size else 0.0
+def _robust_spread(v: np.ndarray, copy: bool = True) -> float:
+    """Standard deviation from the median absolute deviation (exact for Gaussian samples).
+
+    ``copy=False`` lets it reorder ``v`` (contiguous, 1-D) in place.
+    """
+    if not v.size:
+        return 0.0
+    return 1.4826 * float(_mad_inplace(np.array(v, copy=True, order="C").ravel() if copy else v))
 
 
 def _effective_noise(derivs_one_scale, mask, sn):
@@ -160,9 +165,11 @@ def _effective_noise(derivs_one_scale, mask, sn):
     keep = None if mask is None else mask[sel]
     half = 0.5 * tr[sel]
     spreads = []
-    for comp in (dxx[sel], dyy[sel], half - dxy[sel], half + dxy[sel]):
-        v = comp[keep] if keep is not None else comp.ravel()
-        spreads.append(_robust_spread(v))
+    for k, comp in enumerate((dxx[sel], dyy[sel], half - dxy[sel], half + dxy[sel])):
+        if keep is not None:
+            spreads.append(_robust_spread(comp[keep], copy=False))  # a fresh array
+        else:  # a view of dxx or dyy (step 1) must be copied; the others are fresh
+            spreads.append(_robust_spread(comp.ravel(), copy=k < 2 and step == 1))
     return max(sn, min(spreads) / max(_white_noise_stats(sg)[1], 1e-12))
 
 
@@ -174,6 +181,30 @@ def _diagonal_second_difference(a: np.ndarray, lag: int = 1) -> np.ndarray:
     np.subtract(a[2 * L :, 2 * L :], out, out=out)
     np.add(out, a[: -2 * L, : -2 * L], out=out)
     return out
+
+
+def _every_nth_difference(a: np.ndarray, lag: int) -> np.ndarray:
+    """The values of ``_diagonal_second_difference(a, lag).ravel()[::n]`` with ``n = max(1, size // 400000)``,
+    in another order (fresh, contiguous, 1-D); only those differences are computed.
+
+    Element ``k n`` of the flattened (H2, W2) differences lies in row r at a column c with
+    c = -r W2 (mod n), so the rows r = j (mod n) take every n-th column from (-j W2) mod n on: n
+    strided blocks hold the same values (their order does not matter to a median).
+    """
+    L = lag
+    h2, w2 = a.shape[0] - 2 * L, a.shape[1] - 2 * L
+    n = max(1, h2 * w2 // 400000)
+    if n == 1:
+        return _diagonal_second_difference(a, lag).ravel()
+    hi, mid, lo = a[2 * L :, 2 * L :], a[L:-L, L:-L], a[: -2 * L, : -2 * L]
+    parts = []
+    for j in range(n):
+        blk = (slice(j, h2, n), slice((-j * w2) % n, w2, n))
+        out = np.multiply(mid[blk], 2)  # the same three operations as _diagonal_second_difference
+        np.subtract(hi[blk], out, out=out)
+        np.add(out, lo[blk], out=out)
+        parts.append(out.ravel())
+    return np.concatenate(parts)
 
 
 def _lag_robust_sigma(a: np.ndarray, keep: np.ndarray | None) -> float:
@@ -195,14 +226,15 @@ def _lag_robust_sigma(a: np.ndarray, keep: np.ndarray | None) -> float:
         return 0.0
 
     def at(lag):
+        if keep is None:
+            return _white_sigma(_every_nth_difference(a, lag), copy=False)
         d = _diagonal_second_difference(a, lag)
-        if keep is not None:
-            d = d[keep[lag:-lag, lag:-lag] & keep[2 * lag :, 2 * lag :] & keep[: -2 * lag, : -2 * lag]]
+        d = d[keep[lag:-lag, lag:-lag] & keep[2 * lag :, 2 * lag :] & keep[: -2 * lag, : -2 * lag]]
         step = max(1, d.size // 400000)
         if not d.size:
             return 0.0
         # d is a fresh array here: partitioned in place unless only every step-th value is kept
-        return _white_sigma(d.ravel() if step == 1 else np.ascontiguousarray(d.ravel()[::step]), copy=False)
+        return _white_sigma(d if step == 1 else np.ascontiguousarray(d[::step]), copy=False)
 
     first = at(lags[0])
     if len(lags) < 3:
