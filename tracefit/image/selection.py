@@ -82,8 +82,10 @@ def _median_inplace(buf: np.ndarray):
         mid = buf[k - 1 : k + 1]
     if buf.dtype.kind == "f" and np.isnan(buf[n - 1]):
         return buf[n - 1]
-    # numpy's own mean of the middle one or two values: the same sum and division
-    return np.mean(mid)
+    if buf.dtype == np.float64 or buf.dtype == np.float32:
+        # what np.mean does with one or two values of these types: their sum, halved, in the type
+        return mid[0] if n % 2 else (mid[0] + mid[1]) / 2
+    return np.mean(mid)  # (float16 sums in float32, integers in float64)
 
 
 def _mad_inplace(buf: np.ndarray):
