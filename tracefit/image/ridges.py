@@ -224,6 +224,8 @@ def _lag_robust_sigma(a: np.ndarray, keep: np.ndarray | None) -> float:
     lags = [lag for lag in (1, 2, 3, 4, 6) if min(a.shape) > 2 * lag + 2]
     if not lags:
         return 0.0
+    if keep is not None and keep.all():
+        keep = None  # every pixel counts: the same differences, in the same order
 
     def at(lag):
         if keep is None:
