@@ -166,10 +166,15 @@ def _line_candidates(rp: RidgePixels, theta, alpha, chord, v_min, c_min, memo: d
     canvas = np.zeros((h, w), np.uint8)
     ci, ri = rp.col.astype(np.intp), rp.row.astype(np.intp)
     by_sector = None if memo is None else (digests or _SectorDigests())(rp)
+    if np.all(rp.sector[1:] >= rp.sector[:-1]):  # stored sector by sector: each sector is a slice
+        bounds = np.searchsorted(rp.sector, np.arange(n_sec + 1))
+        in_sector = [slice(bounds[k], bounds[k + 1]) for k in range(n_sec)]
+    else:
+        in_sector = [np.flatnonzero(rp.sector == k) for k in range(n_sec)]
     for k in range(n_sec):
         sel_t = np.nonzero(sector_of_theta == k)[0]
-        near = rp.sector == k
-        if near.sum() < v_min or len(sel_t) == 0:
+        near = in_sector[k]
+        if len(ri[near]) < v_min or len(sel_t) == 0:
             continue
         key = None
         if memo is not None:
