@@ -22,18 +22,32 @@ tried first, then the one of the old layout):
    call per grain. Each of the two is timed 5 times in its process and the median kept (one
    pass takes a fraction of a second). The inputs and the most probable plane of every
    family are compared between the trees.
-3. ``demo``: wall time of ``python -m tracefit survey <tree>/tracefit/data/demo/job.toml
-   --out TMP --workers 1 --quiet`` (interpreter start, imports and writing the report included).
+3. ``demo``: ``python -m tracefit survey JOB --out TMP --workers 1 --quiet`` as a subprocess
+   (interpreter start, imports and writing the report included), with JOB the base revision's
+   own demo job file in both trees (the same three coupons: the current demo job has a fourth
+   image, with an orientation map, that the base revision cannot read).
 
-Printed: per workload the median time of each tree over the repeats, the ratio new/old
-(target <= 1.0 within noise) and the spread of the per-repeat ratios. The machine is shared
-with other jobs, so absolute times drift between runs; only ratios measured within one run
-count.
+Two clocks: the CPU time of the measured process (``time.process_time`` in the worker, all
+its threads; the rusage of the waited-for child for the demo) and the wall time
+(``time.perf_counter``). The machine is shared (2 cores, other jobs running): wall times
+there swing by a factor of two or more with the load, CPU times far less, so the CPU-time
+ratio is the figure that counts. Before the timed repeats each tree runs once untimed (the
+fresh worktree byte-compiles, and orix fills its numba cache, kept per tree in the scratch
+folder so that no other job's import can corrupt it).
+
+Printed: per workload and clock the median time of each tree over the repeats, the ratio of
+the medians new/old (target <= 1.0 within noise), the spread and the median of the
+per-repeat ratios. Only ratios measured within one run count.
+
+With ``--same-as REV`` the detect and identify results of the working tree are also compared
+(untimed, exactly) with those of revision REV, e.g. ``--same-as HEAD`` to show that
+uncommitted speed work changes no result.
 
 Usage::
 
-    python benchmarks/compare_revision.py                    # base d3fba99, 5 repeats
-    python benchmarks/compare_revision.py --repeats 3 --base HEAD~1
+    python benchmarks/compare_revision.py                    # base d3fba99, 5 repeats, all workloads
+    python benchmarks/compare_revision.py --repeats 9 --same-as HEAD --raw-out times.json
+    python benchmarks/compare_revision.py --repeats 3 --base HEAD~1 --workloads detect
 """
 
 from __future__ import annotations
@@ -47,6 +61,7 @@ import signal
 import statistics
 import subprocess
 import sys
+import resource
 import tempfile
 import time
 from pathlib import Path
@@ -63,6 +78,7 @@ MODES = ("slip", "twin")
 INNER_LOOPS = 5  # timed calls of each identification workload per process (median kept)
 SUBPROCESS_TIMEOUT_S = 1800
 RESULT_TAG = "COMPARE_REVISION_RESULT "  # prefix of the worker's one JSON line on stdout
+_SCRATCH = Path(tempfile.gettempdir())  # the driver's scratch folder (set by compare)
 
 
 # ----------------------------------------------------------------------------- worker side
@@ -110,11 +126,15 @@ def _work_detect(api: dict) -> dict:
     images = [np.ascontiguousarray(c.image) for c in cases]
     input_digest = hashlib.sha1(b"".join(im.tobytes() for im in images)).hexdigest()[:12]
     api["detect_bands"](images[0])  # warm-up: first-call costs (lazy imports, OpenCV set-up) off the clock
-    t0 = time.perf_counter()
+    t0, c0 = time.perf_counter(), time.process_time()
     results = [api["detect_bands"](im) for im in images]
-    seconds = time.perf_counter() - t0
+    seconds = {"wall": time.perf_counter() - t0, "cpu": time.process_time() - c0}
     families = [[[float(f.angle_deg), int(f.n_bands)] for f in r.families] for r in results]
-    return {"timings": {"detect": seconds}, "input_digest": input_digest, "families": families}
+    # every field of every family and band line, to the last bit (for --same-as)
+    full = [[repr(sorted((k, repr(v) if not isinstance(v, list) else [repr(vars(x)) for x in v])
+                         for k, v in vars(f).items())) for f in r.families] for r in results]
+    return {"timings": {"detect": seconds}, "input_digest": input_digest, "families": families,
+            "families_digest": _digest(full)}
 
 
 def _grain_cases(api: dict, lattice_names, rng) -> tuple[list, list]:
@@ -144,17 +164,19 @@ def _grain_cases(api: dict, lattice_names, rng) -> tuple[list, list]:
     return gs, angles
 
 
-def _timed_median(call) -> tuple[float, object]:
-    """Median seconds of ``INNER_LOOPS`` calls (a sub-second workload: one call is too noisy), and the last result.
+def _timed_median(call) -> tuple[dict, object]:
+    """Median wall and CPU seconds of ``INNER_LOOPS`` calls (a sub-second workload: one call is too noisy),
+    and the last result.
 
     The median also leaves out first-call costs such as lazy imports.
     """
-    seconds = []
+    wall, cpu = [], []
     for _ in range(INNER_LOOPS):
-        t0 = time.perf_counter()
+        t0, c0 = time.perf_counter(), time.process_time()
         result = call()
-        seconds.append(time.perf_counter() - t0)
-    return statistics.median(seconds), result
+        wall.append(time.perf_counter() - t0)
+        cpu.append(time.process_time() - c0)
+    return {"wall": statistics.median(wall), "cpu": statistics.median(cpu)}, result
 
 
 def _verdicts(results) -> list:
@@ -192,9 +214,11 @@ def _work_identify(api: dict) -> dict:
 
     t_grains, map_results = _timed_median(run_maps)
     t_families, single_results = _timed_median(run_singles)
+    full = [repr(vars(r)) for res in map_results + single_results for r in res]
     return {
         "timings": {"identify_grains": t_grains, "identify_families": t_families},
         "input_digest": input_digest,
+        "results_digest": _digest(full),
         "verdicts": [v for res in map_results for v in _verdicts(res)]
         + [v for res in single_results for v in _verdicts(res)],
     }
@@ -223,6 +247,9 @@ def _git(repo: Path, *args: str) -> str:
 def _tree_env(tree: Path) -> dict:
     env = dict(os.environ)
     env["PYTHONPATH"] = str(tree)
+    # orix compiles with numba on import; a cache of our own per tree (next to the temporary
+    # worktree) keeps other jobs' imports from corrupting it, and theirs from ours
+    env["NUMBA_CACHE_DIR"] = str(_SCRATCH / f"numba-{hashlib.sha1(str(tree).encode()).hexdigest()[:8]}")
     return env
 
 
@@ -237,14 +264,21 @@ def _run_worker(tree: Path, workload: str) -> dict:
     return json.loads(lines[-1][len(RESULT_TAG):])
 
 
-def _run_demo(tree: Path, scratch: Path) -> float:
+def _children_cpu() -> float:
+    """User + system CPU seconds of all finished (waited-for) child processes so far."""
+    ru = resource.getrusage(resource.RUSAGE_CHILDREN)
+    return ru.ru_utime + ru.ru_stime
+
+
+def _run_demo(tree: Path, scratch: Path, job: Path) -> dict:
+    """Wall and CPU seconds of one demo survey subprocess (CPU from the rusage of waited-for children)."""
     out = Path(tempfile.mkdtemp(prefix="demo-", dir=scratch)) / "out"
-    cmd = [sys.executable, "-m", "tracefit", "survey", str(tree / "tracefit" / "data" / "demo" / "job.toml"),
-           "--out", str(out), "--workers", "1", "--quiet"]
+    cmd = [sys.executable, "-m", "tracefit", "survey", str(job), "--out", str(out), "--workers", "1", "--quiet"]
+    c0 = _children_cpu()
     t0 = time.perf_counter()
     proc = subprocess.run(cmd, cwd=tree, env=_tree_env(tree), capture_output=True, text=True,
                           timeout=SUBPROCESS_TIMEOUT_S)
-    seconds = time.perf_counter() - t0
+    seconds = {"wall": time.perf_counter() - t0, "cpu": _children_cpu() - c0}
     if proc.returncode != 0:
         raise RuntimeError(f"demo survey on {tree} failed (exit {proc.returncode}):\n{proc.stderr[-3000:]}")
     shutil.rmtree(out.parent, ignore_errors=True)
@@ -283,23 +317,56 @@ def _fmt_ratio_spread(ratios: list[float]) -> str:
     return f"{min(ratios):.3f}-{max(ratios):.3f}" if ratios else "-"
 
 
-def _report(times: dict, order: list[str]) -> list[str]:
-    lines = [f"{'workload':<20}{'old median s':>14}{'new median s':>14}{'new/old':>10}{'per-repeat new/old':>22}"]
+def _report(times: dict, order: list[str], measure: str) -> list[str]:
+    """Table of one measure ("cpu" or "wall"): medians per tree, ratio of the medians, per-repeat ratio spread."""
+    lines = [f"{'workload':<20}{'old median s':>14}{'new median s':>14}{'new/old':>10}{'per-repeat new/old':>22}"
+             f"{'median of ratios':>18}"]
     for name in order:
-        old, new = times[name]["old"], times[name]["new"]
+        if name not in times:
+            continue
+        old = [t[measure] for t in times[name]["old"]]
+        new = [t[measure] for t in times[name]["new"]]
         ratio = statistics.median(new) / statistics.median(old)
         per_repeat = [b / a for a, b in zip(old, new)]
         lines.append(f"{name:<20}{statistics.median(old):>14.3f}{statistics.median(new):>14.3f}{ratio:>10.3f}"
-                     f"{_fmt_ratio_spread(per_repeat):>22}")
+                     f"{_fmt_ratio_spread(per_repeat):>22}{statistics.median(per_repeat):>18.3f}")
     return lines
 
 
-def compare(base: str, repeats: int) -> int:
+def _same_results(repo: Path, scratch: Path, rev: str, first: dict, workloads) -> list[str]:
+    """Lines saying whether the working tree's results equal those of revision ``rev`` (untimed runs)."""
+    sha = _git(repo, "rev-parse", "--short", rev + "^{commit}")
+    tree = scratch / f"same-{sha}"
+    _git(repo, "worktree", "add", "--detach", str(tree), sha)
+    lines = []
+    try:
+        for workload, key in (("detect", "families_digest"), ("identify", "results_digest")):
+            if workload not in workloads:
+                continue
+            ref, new = _run_worker(tree, workload), first[(workload, "new")]
+            same = ref.get(key) == new.get(key) and ref["input_digest"] == new["input_digest"]
+            what = ("every field of every family and band line" if workload == "detect"
+                    else "every field of every identification (probabilities, candidates, notes)")
+            lines.append(f"{workload} results of the working tree against {rev} = {sha}: "
+                         f"{'IDENTICAL' if same else 'DIFFERENT'} ({what}, compared by digest: "
+                         f"{ref.get(key)} vs {new.get(key)})")
+    finally:
+        try:
+            _git(repo, "worktree", "remove", "--force", str(tree))
+        except subprocess.CalledProcessError:
+            shutil.rmtree(tree, ignore_errors=True)
+            _git(repo, "worktree", "prune")
+    return lines
+
+
+def compare(base: str, repeats: int, workloads: tuple[str, ...] = ("detect", "identify", "demo"),
+            raw_out: Path | None = None, same_as: str | None = None) -> int:
     repo = Path(_git(HERE, "rev-parse", "--show-toplevel"))
     base_sha = _git(repo, "rev-parse", "--short", base + "^{commit}")
     head_sha = _git(repo, "rev-parse", "--short", "HEAD")
     dirty = bool(_git(repo, "status", "--porcelain", "--untracked-files=no", "--", "tracefit"))
-    scratch = Path(tempfile.mkdtemp(prefix="tracefit-compare-"))
+    global _SCRATCH
+    scratch = _SCRATCH = Path(tempfile.mkdtemp(prefix="tracefit-compare-"))
     base_tree = scratch / f"base-{base_sha}"
     added = False
     try:
@@ -310,12 +377,25 @@ def compare(base: str, repeats: int) -> int:
         print(f"new: working tree {repo} (HEAD {head_sha}{', with uncommitted changes under tracefit/' if dirty else ''})")
         print(f"python {sys.version.split()[0]}, {os.cpu_count()} cores (shared machine), {repeats} repeats, "
               f"interleaved old/new, one fresh subprocess per measurement")
+        # the same demo job in both trees: the base revision's own (the current demo has more images)
+        demo_job = base_tree / "tracefit" / "data" / "demo" / "job.toml"
+        # untimed warm-up in each tree: byte-compiles the fresh worktree and fills each tree's numba cache,
+        # so that no first-run cost lands on one side of a timed pair
+        for label in ("old", "new"):
+            if "demo" in workloads:
+                _run_demo(trees[label], scratch, demo_job)
+            if "identify" in workloads or "detect" in workloads:
+                _run_worker(trees[label], "identify")
+        if "demo" in workloads:
+            print(f"demo job (both trees): {demo_job.relative_to(base_tree)} of the base revision")
+        print("one untimed warm-up run per tree before the timed repeats")
 
         times: dict = {}
         first: dict = {}
-        order = ["detect", "identify_grains", "identify_families", "demo"]
+        order = [n for n in ("detect", "identify_grains", "identify_families", "demo")
+                 if n.split("_")[0] in workloads]
         for rep in range(repeats):
-            for workload in ("detect", "identify"):
+            for workload in [w for w in ("detect", "identify") if w in workloads]:
                 for label in ("old", "new"):
                     res = _run_worker(trees[label], workload)
                     if rep == 0:
@@ -324,28 +404,42 @@ def compare(base: str, repeats: int) -> int:
                             print(f"{label} tree imports tracefit from {res['tracefit_file']}")
                     for name, sec in res["timings"].items():
                         times.setdefault(name, {"old": [], "new": []})[label].append(sec)
-            for label in ("old", "new"):
-                times.setdefault("demo", {"old": [], "new": []})[label].append(_run_demo(trees[label], scratch))
-            done = ", ".join(f"{n} {times[n]['old'][-1]:.2f}/{times[n]['new'][-1]:.2f} s" for n in order)
-            print(f"repeat {rep + 1}/{repeats} (old/new): {done}", flush=True)
+            if "demo" in workloads:
+                for label in ("old", "new"):
+                    times.setdefault("demo", {"old": [], "new": []})[label].append(_run_demo(trees[label], scratch, demo_job))
+            done = ", ".join(f"{n} {times[n]['old'][-1]['cpu']:.2f}/{times[n]['new'][-1]['cpu']:.2f}" for n in order)
+            print(f"repeat {rep + 1}/{repeats} CPU s (old/new): {done}", flush=True)
 
-        det_old, det_new = first[("detect", "old")], first[("detect", "new")]
-        idf_old, idf_new = first[("identify", "old")], first[("identify", "new")]
         print()
-        print(f"detect inputs: {'same images' if det_old['input_digest'] == det_new['input_digest'] else 'DIFFERENT images'}"
-              f" in both trees (digest {det_new['input_digest']}); " + _compare_families(det_old["families"], det_new["families"]))
-        print(f"identify inputs: {'same' if idf_old['input_digest'] == idf_new['input_digest'] else 'DIFFERENT'}"
-              f" observed angles in both trees (digest {idf_new['input_digest']}); "
-              + _compare_verdicts(idf_old["verdicts"], idf_new["verdicts"]))
-        print()
-        print(f"median over {repeats} repeats; ratio = median(new) / median(old), target <= 1.0 within noise")
-        for line in _report(times, order):
-            print(line)
+        if "detect" in workloads:
+            det_old, det_new = first[("detect", "old")], first[("detect", "new")]
+            same_images = det_old["input_digest"] == det_new["input_digest"]
+            print(f"detect inputs: {'same images' if same_images else 'DIFFERENT images'} in both trees "
+                  f"(digest {det_new['input_digest']}); " + _compare_families(det_old["families"], det_new["families"]))
+        if "identify" in workloads:
+            idf_old, idf_new = first[("identify", "old")], first[("identify", "new")]
+            print(f"identify inputs: {'same' if idf_old['input_digest'] == idf_new['input_digest'] else 'DIFFERENT'}"
+                  f" observed angles in both trees (digest {idf_new['input_digest']}); "
+                  + _compare_verdicts(idf_old["verdicts"], idf_new["verdicts"]))
+        if same_as:
+            for line in _same_results(repo, scratch, same_as, first, workloads):
+                print(line)
+        for measure, title in (("cpu", "CPU time (process_time of the measured process; the figure that counts)"),
+                               ("wall", "wall time (perf_counter; noisier on a shared machine)")):
+            print()
+            print(f"{title}: median over {repeats} repeats; new/old = median(new) / median(old), "
+                  f"target <= 1.0 within noise")
+            for line in _report(times, order, measure):
+                print(line)
         print()
         print("detect: 20 suite images, one process, after a warm-up call; identify_grains: 2 maps x 100 grains "
-              "(fcc, bcc); identify_families: 500 single grains; demo: whole survey subprocess (wall time).")
-        print("The machine is shared with other jobs: absolute times drift from run to run; only the ratios "
-              "measured within one run count. The per-repeat ratios show the noise.")
+              "(fcc, bcc); identify_families: 500 single grains (both: median of 5 calls in the process); demo: "
+              "whole survey subprocess (CPU from the child's rusage, interpreter start and imports included).")
+        print("CPU time counts the work of the measured process (all its threads) and is much less disturbed by "
+              "other jobs on the machine than wall time; only ratios measured within one run count.")
+        if raw_out is not None:
+            raw_out.write_text(json.dumps({"base": base_sha, "head": head_sha, "dirty": dirty, "times": times}, indent=1))
+            print(f"raw times written to {raw_out}")
         return 0
     finally:
         if added:
@@ -365,6 +459,11 @@ def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     parser.add_argument("--base", default="d3fba99", help="revision to compare against (default d3fba99)")
     parser.add_argument("--repeats", type=int, default=5, help="measurements per tree and workload (default 5)")
+    parser.add_argument("--workloads", default="detect,identify,demo",
+                        help="comma-separated subset of detect, identify, demo (default all three)")
+    parser.add_argument("--raw-out", type=Path, help="also write every measurement to this JSON file")
+    parser.add_argument("--same-as", metavar="REV",
+                        help="also check that the working tree's detect and identify results equal those of REV")
     parser.add_argument("--worker", choices=sorted(WORKERS), help=argparse.SUPPRESS)
     args = parser.parse_args(argv)
     if args.worker:
@@ -372,9 +471,12 @@ def main(argv: list[str] | None = None) -> int:
         return 0
     if args.repeats < 1:
         parser.error("--repeats must be >= 1")
+    workloads = tuple(w.strip() for w in args.workloads.split(",") if w.strip())
+    if not workloads or any(w not in ("detect", "identify", "demo") for w in workloads):
+        parser.error("--workloads takes a comma-separated subset of detect, identify, demo")
     signal.signal(signal.SIGTERM, _stop_on_sigterm)  # so that the worktree is removed on SIGTERM too
     try:
-        return compare(args.base, args.repeats)
+        return compare(args.base, args.repeats, workloads, args.raw_out, args.same_as)
     except KeyboardInterrupt:
         print("stopped; the temporary worktree was removed", file=sys.stderr)
         return 130

@@ -18,6 +18,7 @@ import numpy as np
 
 from tracefit.conventions import pixel_direction_angle
 from tracefit.image.geometry import _segment_in_image, _to_working
+from tracefit.image.selection import _median_inplace
 
 STRIP_SMOOTH_ACROSS_PX = 0.8  # Gaussian smoothing of the strip across the band
 STRIP_SMOOTH_ALONG_PX = 2.0  # ... and along it (in pixels of the image)
@@ -67,7 +68,11 @@ def _sample_strip(img, valid, p, d, half_width, max_samples, f):
     mapx = (p[0] + t[:, None] * d[0] + u[None, :] * n[0]).astype(np.float32)
     mapy = (p[1] + t[:, None] * d[1] + u[None, :] * n[1]).astype(np.float32)
     strip = cv2.remap(img, mapx, mapy, cv2.INTER_LINEAR, borderMode=cv2.BORDER_REPLICATE)
-    inside = (mapx.min(1) >= 0) & (mapx.max(1) <= w - 1) & (mapy.min(1) >= 0) & (mapy.max(1) <= h - 1)
+    # each row is monotonic across the strip (a constant plus u * n, rounded), so its extremes
+    # are its two end samples: the same test as min/max over the whole row
+    x0, x1, y0, y1 = mapx[:, 0], mapx[:, -1], mapy[:, 0], mapy[:, -1]
+    inside = ((np.minimum(x0, x1) >= 0) & (np.maximum(x0, x1) <= w - 1)
+              & (np.minimum(y0, y1) >= 0) & (np.maximum(y0, y1) <= h - 1))
     if valid is not None:
         # the analysed region, checked on the (working-resolution) mask at the strip's
         # centre and edges
@@ -116,7 +121,7 @@ def _row_centres(s: _Strip, polarity, pixel_noise):
     frac = np.where(den < 0, 0.5 * (qm - qp) / np.where(den < 0, den, -1.0), 0.0)
     upk = u[k] + np.clip(frac, -0.5, 0.5)
     snr = q0 / noise
-    typical = float(np.median(q0[inside])) if inside.any() else 0.0
+    typical = float(_median_inplace(q0[inside])) if inside.any() else 0.0
     good = inside & (snr >= MIN_SNR) & (q0 >= 0.3 * typical) & (k >= 2) & (k <= 2 * hw - 2)
     return upk, snr, good, step
 
@@ -145,7 +150,7 @@ def _robust_line(tg, ug, wg, min_kept):
             return None
         a_, b_ = _wfit(tg[keep], ug[keep], wg[keep])
         res = ug - (a_ + b_ * tg)
-        mad = 1.4826 * float(np.median(np.abs(res[keep])))
+        mad = 1.4826 * float(_median_inplace(np.abs(res[keep])))
         new = np.abs(res) <= max(3.0 * mad, 0.35)
         if np.array_equal(new, keep):
             break
@@ -203,7 +208,8 @@ def _fit_band(img, valid, p, d, half_width, polarity, pixel_noise, max_samples=1
     tk = tg[keep]
     # samples are correlated over about the along-band smoothing length
     corr = max(1.0, 2.5 * STRIP_SMOOTH_ALONG_PX / step)
-    s_res = float(np.sqrt(np.average(res**2, weights=wg[keep])))
+    wk = wg[keep]
+    s_res = float(np.sqrt(np.multiply(res**2, wk).sum() / wk.sum()))  # np.average's own sum and division
     sxx = float(np.sum((tk - tk.mean()) ** 2))
     sig_b = s_res * math.sqrt(corr) / math.sqrt(max(sxx, 1e-9))
     n = np.array([-d[1], d[0]])
@@ -211,15 +217,15 @@ def _fit_band(img, valid, p, d, half_width, polarity, pixel_noise, max_samples=1
     d_new = d_new / np.hypot(*d_new)
     p_new = p + a_ * n
     # endpoints of the seen part (projected on the new line)
-    pa = p_new + (tk.min() * (d + b_ * n)) @ np.eye(2)
-    pb = p_new + (tk.max() * (d + b_ * n)) @ np.eye(2)
+    pa = p_new + tk.min() * (d + b_ * n)
+    pb = p_new + tk.max() * (d + b_ * n)
     return _BandFit(
         point=p_new,
         direction=d_new,
         angle=float(pixel_direction_angle(d_new[0], d_new[1])),
         sigma=math.degrees(math.atan(sig_b)) / (1.0 + b_ * b_) + 1e-4,
         ends=(pa, pb),
-        snr=float(np.median(snr[good][keep])),
+        snr=float(_median_inplace(snr[good][keep])),
         seen=float(tk.max() - tk.min()),
         rms=s_res,
         shift=float(max(abs(a_ + b_ * tk.min()), abs(a_ + b_ * tk.max()))),

@@ -17,9 +17,10 @@ import numpy as np
 
 from tracefit.image.geometry import _hough_line, _segment_in_image, _to_full, _to_working
 from tracefit.image.ridges import RidgePixels, _pixel_noise
+from tracefit.image.selection import _median_inplace
 
 
-def _depth_map(wk, mw, f, spacing_hint):
+def _depth_map(wk, mw, f, spacing_hint, pixel_noise=None):
     """Relative depth map ``(I - B) / B`` and a sampler at full-resolution points.
 
     B is the local background level: a median over about ``spacing_hint`` px refined
@@ -35,6 +36,8 @@ def _depth_map(wk, mw, f, spacing_hint):
         Reduction factor of the working copy.
     spacing_hint : float
         Median window, working pixels (several band spacings).
+    pixel_noise : float, optional
+        ``_pixel_noise(wk, mw)`` when the caller has it already (speed); computed otherwise.
 
     Returns
     -------
@@ -59,7 +62,7 @@ def _depth_map(wk, mw, f, spacing_hint):
     # From the median towards the mode (the background between bands): average only
     # the pixels near the current level, twice. Where bands cover much of the area the
     # median leans towards them; the mode does not.
-    sig = _pixel_noise(wk, mw) * 1.0
+    sig = (_pixel_noise(wk, mw) if pixel_noise is None else pixel_noise) * 1.0
     valid = np.ones(small.shape, bool) if mw is None else ms
     for _ in range(2):
         near = (np.abs(small - med) <= 2.5 * sig) & valid
@@ -135,7 +138,7 @@ def _hough_depth(rp: RidgePixels, lines, depth_of, f, region, n_lines=5):
             ok = region[np.clip(np.rint(pw[:, 1]).astype(int), 0, h - 1), np.clip(np.rint(pw[:, 0]).astype(int), 0, w - 1)]
             if ok.sum() < 8:
                 continue
-            v = float(np.median(rp.polarity * depth_of(_to_full(pw, f)[ok])))
+            v = float(_median_inplace(rp.polarity * depth_of(_to_full(pw, f)[ok])))
             best = v if best is None else max(best, v)
         if best is not None:
             vals.append(best)

@@ -39,9 +39,9 @@ coordinates are (column, row), rows down. The options and their ranges are decla
 
 Where a change goes: how masks and small regions are handled -- ``_working_copy`` (the
 erosion) and ``hough._chord_lengths`` (vote normalisation); float maps with holes --
-``prepare._as_grey``; more families per region -- ``_fit_candidates`` and
-``_distinct_families``; a significance per family -- a stage between
-``families._build_family`` and ``_distinct_families``.
+``prepare._as_grey``; more families per region -- ``search._fit_candidates`` and
+``search._distinct_families`` (the search rounds, stages 4-7, with what they share between
+rounds); a significance per family -- ``accept`` in ``_detect_at_scale``.
 """
 
 from __future__ import annotations
@@ -55,10 +55,9 @@ import numpy as np
 
 from tracefit.conventions import axial_difference
 from tracefit.errors import TracefitInputError
-from tracefit.image.depth import _depth_map, _hough_depth, _keep, _on_band_side
-from tracefit.image.geometry import _to_working
+from tracefit.image.depth import _depth_map, _on_band_side
 from tracefit.image.families import _build_family, _FamilyContext
-from tracefit.image.hough import SECTOR_DEG, _chord_lengths, _cluster_angles, _hough_theta, _line_candidates, _pixels_near_angle, _vote_mean_angle
+from tracefit.image.hough import SECTOR_DEG
 from tracefit.image.options import check_detect_options
 from tracefit.image.prepare import (
     _clear_boxes,
@@ -70,7 +69,8 @@ from tracefit.image.prepare import (
     _WorkingCopy,
 )
 from tracefit.image.results import BandFamily, BandLine, DetectionResult
-from tracefit.image.ridges import RidgePixels, _pixel_noise, flatten_background, ridge_pixels
+from tracefit.image.ridges import _pixel_noise, flatten_background, ridge_pixels
+from tracefit.image.search import SAME_FAMILY_DEG, _search_rounds, _SearchContext
 from tracefit.image.significance import family_log10_nfa
 
 __all__ = ["BandLine", "BandFamily", "DetectionResult", "detect_bands"]
@@ -80,9 +80,6 @@ MIN_ANALYSED_PX = 64  # fewest analysed pixels of the image itself (before any e
 SMALL_SIDE_PX = 96  # regions narrower than this are analysed enlarged ...
 MAX_UP = 4  # ... by an integer factor up to this
 NFA_STEP_PX = 2.0  # sample spacing of the significance test, working (or original) px
-SEARCH_ROUNDS = 2  # searches for further families after taking out the bands found
-MAX_RESEARCH_PX = 600_000  # ... in regions of at most this many working pixels
-SAME_FAMILY_DEG = 2.0  # families closer than this are one
 RELAXED_SIGNIFICANCE = 40.0  # least significance of a family of 2 bands or irregular spacing
 DEPTH_NOISE_K = 4.0  # an adaptive depth threshold stands this many pixel-noise sigmas deep ...
 AXIS_GUARD_DEG = 0.5  # ... and not along an image axis
@@ -108,116 +105,19 @@ def _effective_min_depth(img, m, pixel_noise: float, min_depth: float) -> float:
 # --------------------------------------------------------------------------- stages
 
 
-def _band_pixels(wc: _WorkingCopy, scales, min_depth):
-    """Stage 3: ridge pixels (dark, bright) on the band side of the local median grey, and the depth sampler."""
+def _band_pixels(wc: _WorkingCopy, scales, min_depth, working_noise=None):
+    """Stage 3: ridge pixels (dark, bright) on the band side of the local median grey, and the depth sampler.
+
+    ``working_noise`` is the pixel noise of the working copy when the caller knows it already.
+    """
     flat = flatten_background(wc.image, wc.mask, wc.background_px)
     dark, bright = ridge_pixels(flat, wc.region, sector_deg=SECTOR_DEG, scales=scales)
     del flat
-    depth_of, dmap = _depth_map(wc.image, wc.mask, wc.factor, spacing_hint=wc.background_px)
+    depth_of, dmap = _depth_map(wc.image, wc.mask, wc.factor, spacing_hint=wc.background_px, pixel_noise=working_noise)
     # band pixels must lie below (dark) / above (bright) the local median grey: this drops
     # the gaps between bands, which are ridges of the opposite sign at the median level
     ridges = [_on_band_side(rp, dmap, 0.5 * min_depth) for rp in (dark, bright)]
     return ridges, depth_of
-
-
-def _candidate_families(ridges: Sequence[RidgePixels], region, min_bands, min_coverage):
-    """Stage 4: Hough lines per polarity clustered by angle; (ridge pixels, lines) per candidate, most votes first."""
-    theta, alpha = _hough_theta()
-    chord, _ = _chord_lengths(region, theta)
-    v_min = max(20.0, 0.06 * min(region.shape))
-    cands = []
-    for rp in ridges:
-        lines = _line_candidates(rp, theta, alpha, chord, v_min, min_coverage)
-        if len(lines) == 0:
-            continue
-        for grp in _cluster_angles(lines[:, 0], lines[:, 3]):
-            if len(grp) < min_bands:
-                continue
-            cands.append((rp, lines[grp]))
-    # opposite-polarity echoes (the gaps between bands) are resolved after fitting,
-    # where they fail the sharpness test
-    cands.sort(key=lambda c: -c[1][:, 3].sum())
-    return cands
-
-
-def _screen_candidates(cands, depth_of, wc: _WorkingCopy, min_depth):
-    """Stage 5: keep candidates whose strongest Hough lines are deeper than the local median grey, deepest first.
-
-    A cheap test before the full-resolution fits (it rejects the gaps between bands), and
-    the order puts a band family before the gaps beside it.
-    """
-    scored = [(_hough_depth(rp, ln, depth_of, wc.factor, wc.region), rp, ln) for rp, ln in cands]
-    scored = [c for c in scored if c[0] >= 0.6 * min_depth]
-    scored.sort(key=lambda c: -c[0])
-    return [(rp, ln) for _, rp, ln in scored]
-
-
-def _significance(fam: BandFamily, rp_all: RidgePixels, wc: _WorkingCopy, min_bands, step) -> float:
-    """Set ``fam.log10_nfa`` from its bands against the ridge pixels of its polarity; return it."""
-    ends = [((ln.col0, ln.row0), (ln.col1, ln.row1)) for ln in fam.lines]
-    fam.log10_nfa, _ = family_log10_nfa(rp_all, wc.region, ends, fam.angle_deg, wc.factor, step, min_bands)
-    return fam.log10_nfa
-
-
-def _fit_candidates(ctx: _FamilyContext, cands, max_families, accept, known=()) -> tuple[list[BandFamily], int]:
-    """Stage 6: build a family from each candidate, at most ``3 * max_families`` attempts.
-
-    ``accept(fam, strict)`` is the significance test; candidates within ``SAME_FAMILY_DEG`` of a
-    family already kept (here or in ``known``) are skipped. Returns the families and the
-    number of candidates tried.
-    """
-    fams: list[BandFamily] = []
-    attempts = 0
-    for rp, ln in cands:
-        if attempts >= 3 * max_families:
-            break
-        a_c = _vote_mean_angle(ln)
-        if any(abs(axial_difference(a_c, fm.angle_deg)) < SAME_FAMILY_DEG for fm in [*fams, *known]):
-            continue  # a split cluster of a family already fitted, or its gaps
-        attempts += 1
-        built = _build_family(ctx, rp, ln)
-        if built is not None and accept(*built):
-            fams.append(built[0])
-    return fams, attempts
-
-
-def _distinct_families(fams: list[BandFamily]) -> list[BandFamily]:
-    """Stage 7: one family per angle, strongest first.
-
-    Dark and bright "families" at one angle are the bands and the gaps between them; the
-    bands stand further from the median grey than the gaps do.
-    """
-    final: list[BandFamily] = []
-    for fm in sorted(fams, key=lambda fm: -abs(fm.contrast)):
-        if any(abs(axial_difference(fm.angle_deg, g.angle_deg)) < SAME_FAMILY_DEG for g in final):
-            continue
-        final.append(fm)
-    final.sort(key=lambda fm: -fm.strength)
-    return final
-
-
-def _without_bands(rp: RidgePixels, fams: list[BandFamily], factor: int, reach_px: float = 3.0) -> RidgePixels:
-    """Ridge pixels of ``rp`` minus those on the bands of ``fams`` (near their line and direction).
-
-    A crossing family keeps its pixels: only pixels whose sector lies near the found
-    family's angle are taken away.
-    """
-    drop = np.zeros(len(rp), bool)
-    for fam in fams:
-        if fam.polarity != ("dark" if rp.polarity < 0 else "bright"):
-            continue
-        idx = _pixels_near_angle(rp, fam.angle_deg, window_deg=SECTOR_DEG / 2)
-        if len(idx) == 0:
-            continue
-        pts = np.stack([rp.col[idx], rp.row[idx]], axis=1).astype(np.float64)
-        for ln in fam.lines:
-            a = _to_working(np.array([ln.col0, ln.row0]), factor)
-            b = _to_working(np.array([ln.col1, ln.row1]), factor)
-            d = b - a
-            t = np.clip((pts - a) @ d / max(float(d @ d), 1e-9), 0.0, 1.0)
-            dist = np.hypot(*(pts - a - t[:, None] * d).T)
-            drop[idx[dist <= reach_px]] = True
-    return _keep(rp, ~drop)
 
 
 def _summary_note(families: list[BandFamily]) -> str:
@@ -262,7 +162,10 @@ def _detect_at_scale(img, m, bars, st: _Settings, up: int = 1) -> _Outcome:
                         f"working pixels after the filter margin, fewer than {MIN_REGION_PX})", notes)
     pixel_noise = _pixel_noise(img, m, bars)
     min_depth = _effective_min_depth(img, m, pixel_noise, st.min_depth)
-    ridges, depth_of = _band_pixels(wc, st.scales, min_depth)  # stage 3
+    # the working copy is the image itself (same pixels, same mask) unless reduced or given a
+    # data-bar mask of its own: then its noise is the one just measured
+    same = wc.factor == 1 and (m is not None or not bars)
+    ridges, depth_of = _band_pixels(wc, st.scales, min_depth, pixel_noise if same else None)  # stage 3
     v_min = max(20.0, 0.06 * min(wc.region.shape))
     if sum(len(rp) for rp in ridges) < v_min:
         return _Outcome([], "low_contrast", "too little contrast: no band-like ridges stand above the noise "
@@ -274,46 +177,34 @@ def _detect_at_scale(img, m, bars, st: _Settings, up: int = 1) -> _Outcome:
     )
     by_pol = {rp.polarity: rp for rp in ridges}
     step = max(NFA_STEP_PX, NFA_STEP_PX * up / wc.factor)
-    n_rejected = [0]
 
     rr, cc = np.nonzero(wc.region.any(axis=1))[0], np.nonzero(wc.region.any(axis=0))[0]
     region_diag = math.hypot(rr[-1] - rr[0] + 1, cc[-1] - cc[0] + 1) * wc.factor
 
     def accept(fam, strict):
+        """True: kept; False: below the significance threshold; None: refused before that test."""
         if not strict and not fam.spacing_px <= RELAXED_MAX_SPACING * region_diag:
             # two far-apart straight lines are edges of a tile or a square, not a band family
-            return False
+            return None
         if not strict and min(abs(axial_difference(fam.angle_deg, a)) for a in (0.0, 90.0)) < AXIS_GUARD_DEG:
             # tile seams of stitched mosaics and scan lines follow the image axes
-            return False
+            return None
         need = st.min_significance if strict else max(st.min_significance, RELAXED_SIGNIFICANCE)
-        ok = -_significance(fam, by_pol[-1 if fam.polarity == "dark" else 1], wc, min(st.min_bands, fam.n_bands), step) >= need
-        n_rejected[0] += not ok
-        return ok
+        rp_all = by_pol[-1 if fam.polarity == "dark" else 1]
+        ends = [((ln.col0, ln.row0), (ln.col1, ln.row1)) for ln in fam.lines]
+        fam.log10_nfa, _ = family_log10_nfa(rp_all, wc.region, ends, fam.angle_deg, wc.factor, step,
+                                            min(st.min_bands, fam.n_bands))
+        return bool(-fam.log10_nfa >= need)
 
-    found: list[BandFamily] = []
-    tried = 0
-    search = list(ridges)
-    region_px = int(wc.region.sum())
-    for _ in range(SEARCH_ROUNDS):
-        # stages 4-6; after the first round the bands already found are taken out, so a
-        # weaker family crossing or beside them gets its own candidates
-        cands = _candidate_families(search, wc.region, min(st.min_bands, 2), st.min_coverage)
-        fams, n = _fit_candidates(ctx, _screen_candidates(cands, depth_of, wc, min_depth), st.max_families,
-                                  accept, known=found)
-        tried += n
-        new = _distinct_families(fams)  # stage 7
-        found = _distinct_families(found + new)
-        if not new or len(found) >= st.max_families or region_px > MAX_RESEARCH_PX:
-            break  # large regions hold enough votes for every family in the first round
-        search = [_without_bands(rp, found, wc.factor) for rp in search]
+    sc = _SearchContext(wc, ridges, depth_of, min_depth, st.min_bands, st.min_coverage, st.max_families)
+    found, tried, n_rejected = _search_rounds(sc, lambda rp, ln: _build_family(ctx, rp, ln), accept)  # stages 4-7
     found = found[: st.max_families]
     if found:
         return _Outcome(found, "found", _summary_note(found), notes)
     if tried == 0:
         return _Outcome([], "not_significant", "no band families: no set of parallel lines reached "
                         f"{min(st.min_bands, 2)} lines with {100 * st.min_coverage:.0f} % coverage", notes)
-    why = f"{n_rejected[0]} below the significance threshold" if n_rejected[0] else "none held up as a family"
+    why = f"{n_rejected} below the significance threshold" if n_rejected else "none held up as a family"
     return _Outcome([], "not_significant", f"no band families: {tried} candidate direction"
                     f"{'s' if tried != 1 else ''} tested, {why}", notes)
 

@@ -30,6 +30,7 @@ from tracefit.image.geometry import _direction_and_normal, _hough_line, _to_full
 from tracefit.image.hough import PROFILE_BIN_PX, _family_profile, _FamilyProfile
 from tracefit.image.results import BandFamily, BandLine
 from tracefit.image.ridges import RidgePixels
+from tracefit.image.selection import _median_inplace
 
 MERGE_PX = 2.5  # Hough lines closer than this (working px) are one band
 MAX_RMS_PX = 1.0  # a band's centres scatter less than this about its line
@@ -157,7 +158,7 @@ def _depth_test(ctx: _FamilyContext, polarity, fits):
         pa, pb = ft.ends
         tt = np.linspace(0.0, 1.0, max(8, int(ft.seen / (2.0 * ctx.factor))))[:, None]
         pts = pa[None, :] * (1 - tt) + pb[None, :] * tt
-        ft.depth = float(np.median(polarity * ctx.depth_of(pts)))
+        ft.depth = float(_median_inplace(polarity * ctx.depth_of(pts)))
     return [ft for ft in fits if ft.depth >= ctx.min_depth]
 
 

@@ -17,6 +17,9 @@ Work is at the working-copy resolution; angles follow :mod:`tracefit.conventions
 
 from __future__ import annotations
 
+import hashlib
+import threading
+from collections import OrderedDict
 from dataclasses import dataclass
 
 import cv2
@@ -51,8 +54,16 @@ def _hough_theta():
     return theta, np.asarray(alpha)
 
 
+_CHORD_CACHE: OrderedDict = OrderedDict()  # (shape, region digest, theta digest) -> (chord, rho), newest last
+_CHORD_CACHE_SIZE = 4  # a chord table of a 1536 px working copy is about 6 MB
+_CHORD_LOCK = threading.Lock()
+
+
 def _chord_lengths(region, theta):
     """Length (px) of every Hough chord (rho, theta) through the analysed region.
+
+    The tables of the last few regions are kept (read-only): both search rounds of an image,
+    and every image of a series of one size without a mask, share one.
 
     Parameters
     ----------
@@ -64,10 +75,18 @@ def _chord_lengths(region, theta):
     Returns
     -------
     chord : ndarray of float32, (2 * ceil(hypot(h, w)) + 1, len(theta))
-        Chord length per (rho, theta) cell, pixels.
+        Chord length per (rho, theta) cell, pixels (read-only).
     rho : ndarray of float
-        The rho of each row, pixels.
+        The rho of each row, pixels (read-only).
     """
+    region = np.asarray(region, bool)
+    key = (region.shape, hashlib.blake2b(np.packbits(region).tobytes(), digest_size=16).digest(),
+           hashlib.blake2b(np.ascontiguousarray(theta, float).tobytes(), digest_size=16).digest())
+    with _CHORD_LOCK:
+        hit = _CHORD_CACHE.get(key)
+        if hit is not None:
+            _CHORD_CACHE.move_to_end(key)
+            return hit
     h, w = region.shape
     diag = int(np.ceil(np.hypot(h, w)))
     q = max(1, int(np.ceil(max(h, w) / 256)))
@@ -75,10 +94,43 @@ def _chord_lengths(region, theta):
     acc_s, _, dists_s = hough_line(small, theta=theta)
     rho = np.arange(-diag, diag + 1, dtype=np.float64)
     idx = np.clip(np.rint(rho / q - dists_s[0]).astype(int), 0, len(dists_s) - 1)
-    return acc_s[idx].astype(np.float32) * q, rho
+    chord = acc_s[idx].astype(np.float32) * q
+    chord.flags.writeable = False
+    rho.flags.writeable = False
+    with _CHORD_LOCK:
+        _CHORD_CACHE[key] = (chord, rho)
+        while len(_CHORD_CACHE) > _CHORD_CACHE_SIZE:
+            _CHORD_CACHE.popitem(last=False)
+    return chord, rho
 
 
-def _line_candidates(rp: RidgePixels, theta, alpha, chord, v_min, c_min):
+class _SectorDigests:
+    """Content digest of each sector's ridge pixels (columns, rows, strengths), once per pixel set.
+
+    Keys of the per-image memos of the search rounds: two pixel sets with the same digests in a
+    sector hold the same pixels there, in the same order.
+    """
+
+    def __init__(self):
+        self._by_id: dict = {}
+
+    def __call__(self, rp: RidgePixels) -> list:
+        hit = self._by_id.get(id(rp))
+        if hit is None or hit[0] is not rp:
+            n_sec = int(round(180.0 / SECTOR_DEG))
+            bounds = np.searchsorted(rp.sector, np.arange(n_sec + 1))  # pixels are stored sector by sector
+            digests = []
+            for a, b in zip(bounds[:-1], bounds[1:]):
+                h = hashlib.blake2b(digest_size=16)
+                for arr in (rp.col, rp.row, rp.strength):
+                    h.update(np.ascontiguousarray(arr[a:b]))
+                digests.append(h.digest())
+            hit = self._by_id[id(rp)] = (rp, digests)  # holding rp keeps its id unique
+        return hit[1]
+
+
+def _line_candidates(rp: RidgePixels, theta, alpha, chord, v_min, c_min, memo: dict | None = None,
+                     digests: _SectorDigests | None = None):
     """Hough peaks per orientation sector on one polarity's ridge pixels.
 
     Parameters
@@ -93,6 +145,12 @@ def _line_candidates(rp: RidgePixels, theta, alpha, chord, v_min, c_min):
         Fewest votes (ridge pixels, summed over three rho bins) of a line.
     c_min : float
         Least coverage: votes over the chord length through the region.
+    memo : dict, optional
+        Lines of the sectors already transformed with the same ``theta``, ``chord``, ``v_min``
+        and ``c_min`` (one image), keyed by the sector's pixels; filled as it goes. The second
+        search round of an image repeats the sectors that lost no pixel.
+    digests : _SectorDigests, optional
+        Digests of the sectors' pixels (the keys of ``memo``); a new one when not given.
 
     Returns
     -------
@@ -107,11 +165,23 @@ def _line_candidates(rp: RidgePixels, theta, alpha, chord, v_min, c_min):
     sector_of_theta = np.floor(fold_axial(alpha + SECTOR_DEG / 2) / SECTOR_DEG).astype(int) % n_sec
     canvas = np.zeros((h, w), np.uint8)
     ci, ri = rp.col.astype(np.intp), rp.row.astype(np.intp)
+    by_sector = None if memo is None else (digests or _SectorDigests())(rp)
+    if np.all(rp.sector[1:] >= rp.sector[:-1]):  # stored sector by sector: each sector is a slice
+        bounds = np.searchsorted(rp.sector, np.arange(n_sec + 1))
+        in_sector = [slice(bounds[k], bounds[k + 1]) for k in range(n_sec)]
+    else:
+        in_sector = [np.flatnonzero(rp.sector == k) for k in range(n_sec)]
     for k in range(n_sec):
         sel_t = np.nonzero(sector_of_theta == k)[0]
-        near = rp.sector == k
-        if near.sum() < v_min or len(sel_t) == 0:
+        near = in_sector[k]
+        if len(ri[near]) < v_min or len(sel_t) == 0:
             continue
+        key = None
+        if memo is not None:
+            key = (k, (h, w), by_sector[k])
+            if key in memo:
+                out.append(memo[key])
+                continue
         canvas[ri[near], ci[near]] = 1
         acc, _, dists = hough_line(canvas, theta=theta[sel_t])
         canvas[ri[near], ci[near]] = 0
@@ -121,12 +191,20 @@ def _line_candidates(rp: RidgePixels, theta, alpha, chord, v_min, c_min):
         acc3[:-1] += acc[1:]
         ln = chord[:, sel_t]
         cov = acc3 / np.maximum(ln, 0.25 * min(h, w))
-        peak = acc3 == ndimage.maximum_filter(acc3, size=(7, 5), mode="constant")
+        # local maxima over 7 x 5 cells; the votes are >= 0, so a border of zeros (scipy's
+        # maximum_filter, mode="constant") and OpenCV's dilation agree exactly
+        peak = acc3 == cv2.dilate(acc3, _PEAK_KERNEL, borderType=cv2.BORDER_CONSTANT, borderValue=0)
         ok = peak & (acc3 >= v_min) & (cov >= c_min)
         ii, jj = np.nonzero(ok)
-        for i, j in zip(ii, jj):
-            out.append((alpha[sel_t[j]], theta[sel_t[j]], dists[i], acc3[i, j], cov[i, j]))
-    return np.array(out, float).reshape(-1, 5)
+        rows = np.column_stack([alpha[sel_t[jj]], theta[sel_t[jj]], dists[ii], acc3[ii, jj], cov[ii, jj]]).astype(float)
+        if memo is not None:
+            rows.flags.writeable = False
+            memo[key] = rows
+        out.append(rows)
+    return np.concatenate(out, axis=0) if out else np.zeros((0, 5))
+
+
+_PEAK_KERNEL = np.ones((7, 5), np.uint8)  # Hough peak neighbourhood: 7 rho bins by 5 angle bins
 
 
 def _cluster_angles(alpha, votes, tol_deg=1.5):
@@ -177,11 +255,18 @@ def _radon_refine(x, y, wgt, alpha0, half=1.0, step=0.1, bin_px=PROFILE_BIN_PX):
         the window (no family at ``alpha0``).
     """
 
+    s, tmp = np.empty_like(x), np.empty_like(x)
+
     def score(a):
+        # (x n0 + y n1 - min) / bin, floored, as separate operations in two buffers; the values
+        # are >= 0, so truncation to integers is the floor
         _, n = _direction_and_normal(a)
-        s = x * n[0] + y * n[1]
-        idx = np.floor((s - s.min()) / bin_px).astype(np.intp)
-        hist = np.bincount(idx, weights=wgt)
+        np.multiply(x, n[0], out=s)
+        np.multiply(y, n[1], out=tmp)
+        np.add(s, tmp, out=s)
+        np.subtract(s, s.min(), out=s)
+        np.divide(s, bin_px, out=s)
+        hist = np.bincount(s.astype(np.intp), weights=wgt)
         return float(np.dot(hist, hist))
 
     best = alpha0
@@ -199,13 +284,29 @@ def _radon_refine(x, y, wgt, alpha0, half=1.0, step=0.1, bin_px=PROFILE_BIN_PX):
     return float(fold_axial(best))
 
 
+def _sectors_near_angle(angle_deg, window_deg=FAMILY_WINDOW_DEG) -> list:
+    """The orientation sectors whose band direction lies within ``window_deg`` (plus half a sector) of ``angle_deg``."""
+    n_sec = int(round(180.0 / SECTOR_DEG))
+    return [k for k in range(n_sec) if abs(axial_difference(k * SECTOR_DEG, angle_deg)) <= window_deg + SECTOR_DEG / 2]
+
+
 def _pixels_near_angle(rp: RidgePixels, angle_deg, window_deg=FAMILY_WINDOW_DEG):
     """Indices of the ridge pixels whose sector lies within ``window_deg`` of ``angle_deg``."""
     n_sec = int(round(180.0 / SECTOR_DEG))
     bounds = np.searchsorted(rp.sector, np.arange(n_sec + 1))  # pixels are stored sector by sector
-    idx = [np.arange(bounds[k], bounds[k + 1]) for k in range(n_sec)
-           if abs(axial_difference(k * SECTOR_DEG, angle_deg)) <= window_deg + SECTOR_DEG / 2]
+    idx = [np.arange(bounds[k], bounds[k + 1]) for k in _sectors_near_angle(angle_deg, window_deg)]
     return np.concatenate(idx) if idx else np.zeros(0, np.intp)
+
+
+def _candidate_key(rp: RidgePixels, lines, digests: _SectorDigests) -> tuple:
+    """What :func:`_family_profile` (and so a family built from a candidate) depends on, as a key.
+
+    The polarity, the lines, and the ridge pixels of the sectors near their angle (those the
+    profile reads), by their ``digests``.
+    """
+    sectors = _sectors_near_angle(_vote_mean_angle(lines))
+    by_sector = digests(rp)
+    return rp.polarity, np.ascontiguousarray(lines, float).tobytes(), tuple(by_sector[k] for k in sectors)
 
 
 @dataclass

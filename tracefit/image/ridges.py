@@ -17,6 +17,7 @@ import cv2
 import numpy as np
 
 from tracefit.conventions import angle_to_pixel_direction
+from tracefit.image.selection import _mad_inplace
 
 
 __all__ = ["flatten_background", "RidgePixels", "ridge_pixels", "noise_sigma"]
@@ -140,9 +141,14 @@ def _white_noise_stats(sigma):
     return _WHITE[sigma]
 
 
-def _robust_spread(v: np.ndarray) -> float:
-    """Standard deviation from the median absolute deviation (exact for Gaussian samples)."""
-    return 1.4826 * float(np.median(np.abs(v - np.median(v)))) if v.size else 0.0
+def _robust_spread(v: np.ndarray, copy: bool = True) -> float:
+    """Standard deviation from the median absolute deviation (exact for Gaussian samples).
+
+    ``copy=False`` lets it reorder ``v`` (contiguous, 1-D) in place.
+    """
+    if not v.size:
+        return 0.0
+    return 1.4826 * float(_mad_inplace(np.array(v, copy=True, order="C").ravel() if copy else v))
 
 
 def _effective_noise(derivs_one_scale, mask, sn):
@@ -159,16 +165,46 @@ def _effective_noise(derivs_one_scale, mask, sn):
     keep = None if mask is None else mask[sel]
     half = 0.5 * tr[sel]
     spreads = []
-    for comp in (dxx[sel], dyy[sel], half - dxy[sel], half + dxy[sel]):
-        v = comp[keep] if keep is not None else comp.ravel()
-        spreads.append(_robust_spread(v))
+    for k, comp in enumerate((dxx[sel], dyy[sel], half - dxy[sel], half + dxy[sel])):
+        if keep is not None:
+            spreads.append(_robust_spread(comp[keep], copy=False))  # a fresh array
+        else:  # a view of dxx or dyy (step 1) must be copied; the others are fresh
+            spreads.append(_robust_spread(comp.ravel(), copy=k < 2 and step == 1))
     return max(sn, min(spreads) / max(_white_noise_stats(sg)[1], 1e-12))
 
 
 def _diagonal_second_difference(a: np.ndarray, lag: int = 1) -> np.ndarray:
     """``a[i+L, j+L] - 2 a[i, j] + a[i-L, j-L]`` on the interior (L = ``lag``), shape (H - 2L, W - 2L)."""
     L = lag
-    return a[2 * L :, 2 * L :] - 2 * a[L:-L, L:-L] + a[: -2 * L, : -2 * L]
+    # the same three operations as a[2L:, 2L:] - 2 a[L:-L, L:-L] + a[:-2L, :-2L], in one buffer
+    out = np.multiply(a[L:-L, L:-L], 2)
+    np.subtract(a[2 * L :, 2 * L :], out, out=out)
+    np.add(out, a[: -2 * L, : -2 * L], out=out)
+    return out
+
+
+def _every_nth_difference(a: np.ndarray, lag: int) -> np.ndarray:
+    """The values of ``_diagonal_second_difference(a, lag).ravel()[::n]`` with ``n = max(1, size // 400000)``,
+    in another order (fresh, contiguous, 1-D); only those differences are computed.
+
+    Element ``k n`` of the flattened (H2, W2) differences lies in row r at a column c with
+    c = -r W2 (mod n), so the rows r = j (mod n) take every n-th column from (-j W2) mod n on: n
+    strided blocks hold the same values (their order does not matter to a median).
+    """
+    L = lag
+    h2, w2 = a.shape[0] - 2 * L, a.shape[1] - 2 * L
+    n = max(1, h2 * w2 // 400000)
+    if n == 1:
+        return _diagonal_second_difference(a, lag).ravel()
+    hi, mid, lo = a[2 * L :, 2 * L :], a[L:-L, L:-L], a[: -2 * L, : -2 * L]
+    parts = []
+    for j in range(n):
+        blk = (slice(j, h2, n), slice((-j * w2) % n, w2, n))
+        out = np.multiply(mid[blk], 2)  # the same three operations as _diagonal_second_difference
+        np.subtract(hi[blk], out, out=out)
+        np.add(out, lo[blk], out=out)
+        parts.append(out.ravel())
+    return np.concatenate(parts)
 
 
 def _lag_robust_sigma(a: np.ndarray, keep: np.ndarray | None) -> float:
@@ -185,26 +221,42 @@ def _lag_robust_sigma(a: np.ndarray, keep: np.ndarray | None) -> float:
     keep : ndarray of bool, (H, W), or None
         Pixels that count.
     """
-    est = []
-    for lag in (1, 2, 3, 4, 6):
-        if min(a.shape) <= 2 * lag + 2:
-            break
-        d = _diagonal_second_difference(a, lag)
-        if keep is not None:
-            d = d[keep[lag:-lag, lag:-lag] & keep[2 * lag :, 2 * lag :] & keep[: -2 * lag, : -2 * lag]]
-        d = d.ravel()[:: max(1, d.size // 400000)]
-        est.append(_white_sigma(d) if d.size else 0.0)
-    if not est:
+    lags = [lag for lag in (1, 2, 3, 4, 6) if min(a.shape) > 2 * lag + 2]
+    if not lags:
         return 0.0
-    if len(est) >= 3 and est[0] < 0.6 * max(est[2:]):
-        return max(est)
-    return est[0]
+    if keep is not None and keep.all():
+        keep = None  # every pixel counts: the same differences, in the same order
+
+    def at(lag):
+        if keep is None:
+            return _white_sigma(_every_nth_difference(a, lag), copy=False)
+        d = _diagonal_second_difference(a, lag)
+        d = d[keep[lag:-lag, lag:-lag] & keep[2 * lag :, 2 * lag :] & keep[: -2 * lag, : -2 * lag]]
+        step = max(1, d.size // 400000)
+        if not d.size:
+            return 0.0
+        # d is a fresh array here: partitioned in place unless only every step-th value is kept
+        return _white_sigma(d if step == 1 else np.ascontiguousarray(d[::step]), copy=False)
+
+    first = at(lags[0])
+    if len(lags) < 3:
+        return first
+    # The lag-2 estimate only counts when the lag-1 one is given up: it is taken then (speed,
+    # each estimate is the median of up to 400 000 values).
+    far = [at(lag) for lag in lags[2:]]
+    if first < 0.6 * max(far):
+        return max(first, at(lags[1]), *far)
+    return first
 
 
-def _white_sigma(d: np.ndarray) -> float:
-    """Standard deviation of white noise from its second differences (robust, via the MAD)."""
+def _white_sigma(d: np.ndarray, copy: bool = True) -> float:
+    """Standard deviation of white noise from its second differences (robust, via the MAD).
+
+    ``copy=False`` lets it reorder ``d`` (contiguous, 1-D) in place.
+    """
     # var(x[i+1] - 2 x[i] + x[i-1]) = 6 var(x) for white noise
-    return 1.4826 * float(np.median(np.abs(d - np.median(d)))) / math.sqrt(6.0)
+    buf = np.array(d, copy=True, order="C").ravel() if copy else d
+    return 1.4826 * float(_mad_inplace(buf)) / math.sqrt(6.0)
 
 
 def noise_sigma(flat: np.ndarray, mask: np.ndarray | None) -> float:
@@ -279,10 +331,15 @@ def _thin_across(resp, mask, oc, orow):
     h, w = resp.shape
     if mask is not None:
         resp[~mask] = 0
-    pad = np.pad(resp, 1)
-    fwd = pad[1 + orow : 1 + orow + h, 1 + oc : 1 + oc + w]
-    bwd = pad[1 - orow : 1 - orow + h, 1 - oc : 1 - oc + w]
-    keep = (resp > 1.0) & (resp >= fwd) & (resp > bwd)
+    keep = resp > 1.0
+    # against the neighbours (col + oc, row + orow) (>=) and (col - oc, row - orow) (>); outside
+    # the image they count as 0, which a pixel above 1 beats anyway
+    for sign, ge in ((1, True), (-1, False)):
+        dr, dc = sign * orow, sign * oc
+        rs = slice(max(0, -dr), h - max(0, dr))
+        cs = slice(max(0, -dc), w - max(0, dc))
+        nb = resp[rs.start + dr : rs.stop + dr, cs.start + dc : cs.stop + dc]
+        keep[rs, cs] &= (resp[rs, cs] >= nb) if ge else (resp[rs, cs] > nb)
     nz = cv2.findNonZero(keep.view(np.uint8))
     if nz is None:
         return np.zeros(0, np.intp), np.zeros(0, np.intp)

@@ -28,7 +28,6 @@ from collections.abc import Sequence
 
 import cv2
 import numpy as np
-from scipy.stats import binom
 
 from tracefit.conventions import axial_difference
 from tracefit.errors import TracefitInputError
@@ -74,11 +73,36 @@ def binomial_log10_tail(n: int, k: int, p: float) -> float:
     """
     if n < 0 or not 0.0 <= p <= 1.0:
         raise TracefitInputError(f"binomial_log10_tail needs n >= 0 and p in [0, 1], got n={n}, p={p}")
-    if k <= 0:
-        return 0.0
-    if k > n:
-        return -math.inf
-    return float(binom.logsf(k - 1, n, p) / math.log(10.0))
+    return float(_log10_tails(np.array([n]), np.array([k]), p)[0])
+
+
+def _binomial_sf():
+    """The binomial survival function ufunc ``sf(k, n, p) = P(X > k)`` that ``scipy.stats.binom``
+    uses, without importing ``scipy.stats`` (about a second); ``binom.sf`` where it is not found."""
+    try:
+        from scipy.special._ufuncs import _binom_sf  # what scipy.stats.binom._sf calls (scipy >= 1.9)
+    except ImportError:  # pragma: no cover - another scipy layout
+        from scipy.stats import binom
+
+        return binom.sf
+    return _binom_sf
+
+
+def _log10_tails(n: np.ndarray, k: np.ndarray, p: float) -> np.ndarray:
+    """``log10 P(X >= k)`` for X ~ Binomial(n, p), element by element (n >= 0, 0 <= p <= 1).
+
+    The same values as ``binom.logsf(k - 1, n, p) / log(10)``: inside the support (1 <= k <= n)
+    the log of the binomial survival function at ``floor(k - 1)``, 0 for k <= 0, -inf for k > n.
+    """
+    n = np.asarray(n, np.int64)
+    k = np.asarray(k, np.int64)
+    out = np.where(k <= 0, 0.0, -np.inf)
+    inside = (k >= 1) & (k <= n)
+    if inside.any():
+        with np.errstate(divide="ignore"):
+            out[inside] = np.log(_binomial_sf()(np.floor((k[inside] - 1).astype(np.float64)),
+                                                n[inside].astype(np.float64), p)) / math.log(10.0)
+    return out
 
 
 def _aligned_hits(rp: RidgePixels, angle_deg: float) -> np.ndarray:
@@ -167,10 +191,8 @@ def family_log10_nfa(rp: RidgePixels, region: np.ndarray, band_ends: Sequence, a
     # segments per direction: every offset across and every start and end along, in samples
     n_side = max(2.0, math.hypot(*region.shape) / step)
     log_lines = 3.0 * math.log10(n_side)
-    per_band = []
-    for ends in band_ends:
-        n, k = _band_counts(hits, region, ends, factor, step)
-        per_band.append(log_lines + binomial_log10_tail(n, k, p))
+    counts = np.array([_band_counts(hits, region, ends, factor, step) for ends in band_ends], np.int64).reshape(-1, 2)
+    per_band = [log_lines + float(t) for t in _log10_tails(counts[:, 0], counts[:, 1], p)]
     if not per_band:
         return math.inf, per_band
     log_angles = math.log10(2 * 180.0 / ANGLE_STEP_DEG)  # directions and the two polarities

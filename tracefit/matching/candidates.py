@@ -8,6 +8,8 @@ or many orientations at once; it is the only place of this package that predicts
 
 from __future__ import annotations
 
+import threading
+from collections import OrderedDict
 from dataclasses import dataclass, field
 from typing import Any, Iterable
 
@@ -15,6 +17,7 @@ import numpy as np
 
 from tracefit.conventions import FrameSettings
 from tracefit.errors import TracefitInputError
+from tracefit.predict import predicted_trace_table
 
 __all__ = ["plane_key", "CandidateSet", "candidate_set", "as_candidate_set", "predict_candidates",
            "system_family_prior"]
@@ -81,6 +84,8 @@ class CandidateSet:
     plane_ids: np.ndarray
     systems: list
     _flat: object = field(default=None, repr=False, compare=False)
+    # per-set results that do not depend on the grain (prior shares, systems without a load)
+    _memo: dict = field(default_factory=dict, repr=False, compare=False)
 
     def __len__(self) -> int:
         return len(self.planes)
@@ -173,8 +178,40 @@ def as_candidate_set(systems: Any, modes: Iterable[str] | None = None, families:
     >>> cs = as_candidate_set(catalogue(lattice_preset("fcc")), ["slip"])
     >>> as_candidate_set(cs) is cs
     True
+
+    The same list of systems (the same objects) with the same filters gives the same set, built once:
+
+    >>> systems = catalogue(lattice_preset("fcc"))
+    >>> as_candidate_set(systems, ["slip"]) is as_candidate_set(list(systems), ["slip"])
+    True
     """
-    return systems if isinstance(systems, CandidateSet) else candidate_set(systems, modes, families)
+    if isinstance(systems, CandidateSet):
+        return systems
+    systems = list(systems)
+    # filters read once (they may be iterators), kept as given otherwise
+    modes = modes if modes is None or isinstance(modes, str) else tuple(modes)
+    families = families if families is None or isinstance(families, str) else tuple(families)
+    key = (tuple(map(id, systems)), modes, families)
+    with _SETS_LOCK:
+        hit = _SETS.get(key)
+        if hit is not None:
+            _SETS.move_to_end(key)
+            return hit[1]
+    cands = candidate_set(systems, modes, families)
+    with _SETS_LOCK:
+        # the entry holds the systems themselves, so that their ids stay theirs while it lives
+        _SETS[key] = (systems, cands)
+        while len(_SETS) > _SETS_SIZE:
+            _SETS.popitem(last=False)
+    return cands
+
+
+# Candidate sets of the last few system lists given to as_candidate_set, keyed by the identity of
+# the systems (DeformationSystem is frozen) and the filters: a survey or a loop over grains passes
+# one catalogue again and again, and grouping it took as long as identifying a family.
+_SETS: OrderedDict = OrderedDict()
+_SETS_SIZE = 16
+_SETS_LOCK = threading.Lock()
 
 
 def predict_candidates(cands: CandidateSet, g: np.ndarray,
@@ -214,8 +251,6 @@ def predict_candidates(cands: CandidateSet, g: np.ndarray,
     >>> cs.planes[0], round(float(ang[0, 0]), 2), round(float(incl[0, 0]), 1), float(slope[0, 0])
     ((1, 1, 1), 110.1, 37.9, 1.0)
     """
-    from tracefit.predict import predicted_trace_table
-
     g = np.asarray(g, float)
     tab = predicted_trace_table(None, g[None] if g.ndim == 2 else g, cands.normals, frame or FrameSettings())
     return tab.angle_deg, tab.inclination_deg, tab.slope
@@ -297,6 +332,9 @@ def system_family_prior(cands: CandidateSet, prior: Any = None) -> np.ndarray:
     0.5
     """
     weights = _check_weights(prior)
+    memo_key = ("prior", tuple(sorted(weights.items())))
+    if memo_key in cands._memo:
+        return cands._memo[memo_key].copy()
     fams: dict = {}  # system family name -> (weight, set of plane ids)
     member: list = []  # per candidate, the family names on it
     for c, ss in enumerate(cands.systems):
@@ -321,4 +359,5 @@ def system_family_prior(cands: CandidateSet, prior: Any = None) -> np.ndarray:
     if total <= 0:
         raise TracefitInputError("prior: every system family has weight 0; give at least one a positive weight")
     share = np.array([sum(fams[n][0] / len(fams[n][1]) for n in names) for names in member]) / total
+    cands._memo[memo_key] = share.copy()
     return share

@@ -15,6 +15,7 @@ import numpy as np
 from tracefit.errors import TracefitInputError
 from tracefit.matching.candidates import CandidateSet
 from tracefit.matching.results import SystemChoice
+from tracefit.predict import as_load, crss_of, resolved_drive
 
 __all__ = ["resolve_load", "is_stress", "rank_systems", "prior_drive"]
 
@@ -72,8 +73,6 @@ def resolve_load(load: Any, lattice: Any = None) -> Any:
     >>> resolve_load([1, 0, 0, 0, 0, 0]).is_stress
     True
     """
-    from tracefit.predict import as_load
-
     try:
         return as_load(load, lattice)
     except TracefitInputError as e:
@@ -116,19 +115,31 @@ def _flat_systems(cands: CandidateSet) -> _FlatSystems:
 
 def _drive_values(load: Any, g: np.ndarray, normals: np.ndarray, dirs: np.ndarray, twin: np.ndarray, frame=None):
     """Signed drive of every system: Schmid factor or resolved shear, |.| for slip."""
-    from tracefit.predict import resolved_drive
-
     v = np.atleast_1d(resolved_drive(load, g, normals, dirs, frame))
     return np.where(twin, v, np.abs(v))
 
 
 def _choice(fs: _FlatSystems, i: int, x: float | None, stress: bool, active: bool, crss: dict | None) -> SystemChoice:
-    from tracefit.predict import crss_of
-
     c = crss_of(crss, fs.systems[i]) if crss else None
     tau = x if stress else None
     return SystemChoice(fs.dir_idx[i], None if stress else x, tau, fs.names[i], active, c,
                         None if (c is None or tau is None) else bool(tau >= c))
+
+
+def _unloaded_systems(fs: _FlatSystems, cands: CandidateSet, crss: dict | None):
+    """:func:`rank_systems` without a load: catalogue order, no drive; the same for every grain, so
+    built once per candidate set and CRSS table (the choices are immutable; the lists are new)."""
+    try:
+        key = ("unloaded", None if crss is None else tuple(sorted(crss.items())))
+        hash(key)
+    except (TypeError, AttributeError):
+        key = None
+    ranked = cands._memo.get(key) if key is not None else None
+    if ranked is None:
+        ranked = [[_choice(fs, i, None, False, True, crss) for i in idx] for idx in fs.members]
+        if key is not None:
+            cands._memo[key] = ranked
+    return [list(r) for r in ranked], [None] * len(ranked)
 
 
 def rank_systems(load: Any, cands: CandidateSet, g: np.ndarray, frame: Any = None,
@@ -170,14 +181,12 @@ def rank_systems(load: Any, cands: CandidateSet, g: np.ndarray, frame: Any = Non
     (0.408, (1, 0, -1))
     """
     fs = _flat_systems(cands)
-    vals = None if load is None else _drive_values(load, g, fs.normals, fs.dirs, fs.twin, frame)
+    if load is None:
+        return _unloaded_systems(fs, cands, crss)
+    vals = _drive_values(load, g, fs.normals, fs.dirs, fs.twin, frame)
     stress = is_stress(load)
     out_sys, best_drive = [], []
     for k, idx in enumerate(fs.members):
-        if vals is None:
-            out_sys.append([_choice(fs, i, None, False, True, crss) for i in idx])
-            best_drive.append(None)
-            continue
         order = idx[np.argsort(-vals[idx], kind="stable")]
         twin = cands.modes[k] == "twin"
         choices = []

@@ -49,9 +49,11 @@ def format_plane(plane: Sequence) -> str:
     return format_index(tuple(int(x) for x in plane), "plane")
 
 
-@dataclass
+@dataclass(frozen=True)
 class SystemChoice:
     """One system on a candidate plane, with its Schmid factor (or resolved shear) under the load.
+
+    Immutable: without a load the same choices serve every grain of a candidate set.
 
     Attributes
     ----------

@@ -1,0 +1,237 @@
+"""Search rounds of the band detector: line candidates, screen, family fits, distinct families.
+
+Stages 4-7 of :func:`tracefit.image.detect_bands` on one working copy (private to the
+package). :func:`_search_rounds` runs up to ``SEARCH_ROUNDS`` rounds: Hough lines per
+polarity clustered into candidates (:func:`_candidate_families`), screened by their depth
+(:func:`_screen_candidates`), fitted and tested (:func:`_fit_candidates`), one family per
+angle kept (:func:`_distinct_families`); after a round that found families their bands are
+taken out of the ridge pixels (:func:`_without_bands`), so a weaker family crossing or beside
+them gets its own candidates in the next.
+
+A later round repeats much of the first: sectors that lost no ridge pixel give the same
+Hough lines, the same lines the same depth, and a candidate with the same lines and pixels
+the same family. These results are kept per working copy (:class:`_RoundMemo`), keyed by the
+content of the pixels they read, so the rounds give what they gave without it.
+"""
+
+from __future__ import annotations
+
+import copy
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from tracefit.conventions import axial_difference
+from tracefit.image.depth import _hough_depth, _keep
+from tracefit.image.geometry import _direction_and_normal, _to_working
+from tracefit.image.hough import (
+    SECTOR_DEG,
+    _candidate_key,
+    _chord_lengths,
+    _cluster_angles,
+    _hough_theta,
+    _line_candidates,
+    _pixels_near_angle,
+    _SectorDigests,
+    _vote_mean_angle,
+)
+from tracefit.image.prepare import _WorkingCopy
+from tracefit.image.results import BandFamily
+from tracefit.image.ridges import RidgePixels
+
+SEARCH_ROUNDS = 2  # searches for further families after taking out the bands found
+MAX_RESEARCH_PX = 600_000  # ... in regions of at most this many working pixels
+SAME_FAMILY_DEG = 2.0  # families closer than this are one
+
+
+@dataclass
+class _SearchContext:
+    """What the search rounds of one working copy need."""
+
+    wc: _WorkingCopy
+    ridges: Sequence[RidgePixels]  # dark and bright ridge pixels on the band side
+    depth_of: Callable  # full-resolution points -> relative depth (tracefit.image.depth)
+    min_depth: float
+    min_bands: int
+    min_coverage: float
+    max_families: int
+
+
+@dataclass
+class _RoundMemo:
+    """Results of one working copy's search rounds that a later round would compute again."""
+
+    digests: _SectorDigests = field(default_factory=_SectorDigests)
+    lines: dict = field(default_factory=dict)  # sector pixels -> Hough lines
+    depth: dict = field(default_factory=dict)  # (polarity, lines) -> screen depth
+    built: dict = field(default_factory=dict)  # candidate key -> (family or None, significance verdict)
+
+
+def _candidate_families(ridges: Sequence[RidgePixels], region, min_bands, min_coverage, memo: _RoundMemo | None = None):
+    """Stage 4: Hough lines per polarity clustered by angle; (ridge pixels, lines) per candidate, most votes first.
+
+    ``memo`` keeps the Hough lines of each sector for the next round.
+    """
+    theta, alpha = _hough_theta()
+    chord, _ = _chord_lengths(region, theta)
+    v_min = max(20.0, 0.06 * min(region.shape))
+    cands = []
+    for rp in ridges:
+        lines = _line_candidates(rp, theta, alpha, chord, v_min, min_coverage,
+                                 None if memo is None else memo.lines, None if memo is None else memo.digests)
+        if len(lines) == 0:
+            continue
+        for grp in _cluster_angles(lines[:, 0], lines[:, 3]):
+            if len(grp) < min_bands:
+                continue
+            cands.append((rp, lines[grp]))
+    # opposite-polarity echoes (the gaps between bands) are resolved after fitting,
+    # where they fail the sharpness test
+    cands.sort(key=lambda c: -c[1][:, 3].sum())
+    return cands
+
+
+def _screen_candidates(cands, depth_of, wc: _WorkingCopy, min_depth, memo: _RoundMemo | None = None):
+    """Stage 5: keep candidates whose strongest Hough lines are deeper than the local median grey, deepest first.
+
+    A cheap test before the full-resolution fits (it rejects the gaps between bands), and
+    the order puts a band family before the gaps beside it. ``memo`` (one per image) keeps
+    the depth of each (polarity, lines) for the next round.
+    """
+    known = {} if memo is None else memo.depth
+
+    def depth(rp, ln):
+        key = (rp.polarity, ln.tobytes())
+        if key not in known:
+            known[key] = _hough_depth(rp, ln, depth_of, wc.factor, wc.region)
+        return known[key]
+
+    scored = [(depth(rp, ln), rp, ln) for rp, ln in cands]
+    scored = [c for c in scored if c[0] >= 0.6 * min_depth]
+    scored.sort(key=lambda c: -c[0])
+    return [(rp, ln) for _, rp, ln in scored]
+
+
+def _fit_candidates(try_candidate, cands, max_families, known=()) -> tuple[list[BandFamily], int]:
+    """Stage 6: build a family from each candidate, at most ``3 * max_families`` attempts.
+
+    ``try_candidate(rp, lines)`` builds a family and tests its significance (None when it fails);
+    candidates within ``SAME_FAMILY_DEG`` of a family already kept (here or in ``known``) are
+    skipped. Returns the families and the number of candidates tried.
+    """
+    fams: list[BandFamily] = []
+    attempts = 0
+    for rp, ln in cands:
+        if attempts >= 3 * max_families:
+            break
+        a_c = _vote_mean_angle(ln)
+        if any(abs(axial_difference(a_c, fm.angle_deg)) < SAME_FAMILY_DEG for fm in [*fams, *known]):
+            continue  # a split cluster of a family already fitted, or its gaps
+        attempts += 1
+        fam = try_candidate(rp, ln)
+        if fam is not None:
+            fams.append(fam)
+    return fams, attempts
+
+
+def _distinct_families(fams: list[BandFamily]) -> list[BandFamily]:
+    """Stage 7: one family per angle, strongest first.
+
+    Dark and bright "families" at one angle are the bands and the gaps between them; the
+    bands stand further from the median grey than the gaps do.
+    """
+    final: list[BandFamily] = []
+    for fm in sorted(fams, key=lambda fm: -abs(fm.contrast)):
+        if any(abs(axial_difference(fm.angle_deg, g.angle_deg)) < SAME_FAMILY_DEG for g in final):
+            continue
+        final.append(fm)
+    final.sort(key=lambda fm: -fm.strength)
+    return final
+
+
+def _without_bands(rp: RidgePixels, fams: list[BandFamily], factor: int, reach_px: float = 3.0) -> RidgePixels:
+    """Ridge pixels of ``rp`` minus those on the bands of ``fams`` (near their line and direction).
+
+    A crossing family keeps its pixels: only pixels whose sector lies near the found
+    family's angle are taken away.
+    """
+    drop = np.zeros(len(rp), bool)
+    for fam in fams:
+        if fam.polarity != ("dark" if rp.polarity < 0 else "bright"):
+            continue
+        idx = _pixels_near_angle(rp, fam.angle_deg, window_deg=SECTOR_DEG / 2)
+        if len(idx) == 0:
+            continue
+        pts = np.stack([rp.col[idx], rp.row[idx]], axis=1).astype(np.float64)
+        # offsets across the family: a pixel further than reach_px + 1 from a band's offset range
+        # lies further than reach_px from the band itself (speed: only the others are measured)
+        _, nrm = _direction_and_normal(fam.angle_deg)
+        across = pts @ nrm
+        for ln in fam.lines:
+            a = _to_working(np.array([ln.col0, ln.row0]), factor)
+            b = _to_working(np.array([ln.col1, ln.row1]), factor)
+            sa, sb = float(a @ nrm), float(b @ nrm)
+            cand = np.flatnonzero((across >= min(sa, sb) - reach_px - 1.0) & (across <= max(sa, sb) + reach_px + 1.0))
+            if len(cand) == 0:
+                continue
+            d = b - a
+            q = pts[cand] - a
+            t = np.clip(q @ d / max(float(d @ d), 1e-9), 0.0, 1.0)
+            dist = np.hypot(q[:, 0] - t * d[0], q[:, 1] - t * d[1])
+            drop[idx[cand[dist <= reach_px]]] = True
+    return _keep(rp, ~drop)
+
+
+
+def _search_rounds(sc: _SearchContext, build: Callable, accept: Callable) -> tuple[list[BandFamily], int, int]:
+    """Stages 4-7, up to ``SEARCH_ROUNDS`` rounds.
+
+    Parameters
+    ----------
+    sc : _SearchContext
+    build : callable
+        ``build(rp, lines)`` -> ``(BandFamily, strict)`` or None
+        (:func:`tracefit.image.families._build_family`).
+    accept : callable
+        ``accept(fam, strict)`` -> True (kept), False (below the significance threshold) or
+        None (refused before the significance test).
+
+    Returns
+    -------
+    families : list of BandFamily
+        Distinct families, strongest first.
+    tried : int
+        Candidates tried.
+    rejected : int
+        Candidates built but below the significance threshold.
+    """
+    memo = _RoundMemo()
+    counts = {"rejected": 0}
+
+    def try_candidate(rp, ln):
+        key = _candidate_key(rp, ln, memo.digests)
+        if key not in memo.built:
+            built = build(rp, ln)
+            verdict = None if built is None else accept(*built)
+            memo.built[key] = (built[0] if verdict else None, verdict)
+        fam, verdict = memo.built[key]
+        counts["rejected"] += verdict is False
+        return None if fam is None else copy.deepcopy(fam)  # the kept one stays as it was
+
+    wc = sc.wc
+    found: list[BandFamily] = []
+    tried = 0
+    search = list(sc.ridges)
+    region_px = int(wc.region.sum())
+    for _ in range(SEARCH_ROUNDS):
+        cands = _candidate_families(search, wc.region, min(sc.min_bands, 2), sc.min_coverage, memo)
+        fams, n = _fit_candidates(try_candidate, _screen_candidates(cands, sc.depth_of, wc, sc.min_depth, memo),
+                                  sc.max_families, known=found)
+        tried += n
+        new = _distinct_families(fams)  # stage 7
+        found = _distinct_families(found + new)
+        if not new or len(found) >= sc.max_families or region_px > MAX_RESEARCH_PX:
+            break  # large regions hold enough votes for every family in the first round
+        search = [_without_bands(rp, found, wc.factor) for rp in search]
+    return found, tried, counts["rejected"]
