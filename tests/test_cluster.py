@@ -321,3 +321,101 @@ def test_an_unreachable_scheduler_is_one_line(tmp_path, run_cli, monkeypatch):
     job = _fake_job(tmp_path, ["one"])
     code, _, err = run_cli("survey", str(job), "--out", str(tmp_path / "out"), "--scheduler", f"tcp://127.0.0.1:{port}")
     assert code == 2 and err.count("\n") == 1 and "cannot reach the Dask scheduler" in err
+
+
+def _free_port() -> int:
+    import socket
+
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+def _start_scheduler_and_worker(port: int, log_dir: Path) -> list[subprocess.Popen]:
+    """A real `dask scheduler` and one `dask worker` on loopback, as a lab would run them."""
+    env = dict(os.environ, PYTHONPATH=os.pathsep.join([str(ROOT), str(ROOT / "tests"), os.environ.get("PYTHONPATH", "")]))
+    addr = f"tcp://127.0.0.1:{port}"
+    log = open(log_dir / f"dask-{time.time_ns()}.log", "w")
+    sched = subprocess.Popen([sys.executable, "-m", "distributed.cli.dask_scheduler", "--host", "127.0.0.1",
+                              "--port", str(port), "--dashboard-address", ":0", "--no-show"],
+                             stdout=log, stderr=log, env=env, start_new_session=True)
+    deadline = time.monotonic() + 60
+    import socket
+
+    while time.monotonic() < deadline:
+        try:
+            socket.create_connection(("127.0.0.1", port), timeout=0.5).close()
+            break
+        except OSError:
+            time.sleep(0.2)
+    worker = subprocess.Popen([sys.executable, "-m", "distributed.cli.dask_worker", addr, "--nthreads", "1",
+                               "--nworkers", "1", "--dashboard-address", ":0", "--no-dashboard"],
+                              stdout=log, stderr=log, env=env, start_new_session=True)
+    return [sched, worker]
+
+
+def _stop(procs: list[subprocess.Popen], sig=signal.SIGKILL) -> None:
+    for p in procs:
+        try:
+            os.killpg(p.pid, sig)
+        except (ProcessLookupError, PermissionError):
+            pass
+    for p in procs:
+        try:
+            p.wait(timeout=30)
+        except subprocess.TimeoutExpired:  # pragma: no cover
+            pass
+
+
+@needs_dask
+def test_a_restarted_scheduler_loses_and_repeats_nothing(tmp_path):
+    # the scheduler dies mid-run (SIGKILL, it and its worker); the survey stops with one line; a new
+    # scheduler on the same address and --resume finish the job with the local run's results.csv
+    names = [f"img{i}" for i in range(8)]
+    job = parse_job(_fake_job(tmp_path, names).read_text(), tmp_path / "job.toml")
+    reference = run_survey(job, tmp_path / "local", workers=1, progress=False, analyse=slow_analyse, figures=False)
+    assert reference.exit_code == 0
+    port = _free_port()
+    addr = f"tcp://127.0.0.1:{port}"
+    out = tmp_path / "out"
+    code = ("import sys; sys.path[:0] = [{root!r}, {tests!r}]\n"
+            "from tracefit.survey import parse_job, run_survey\n"
+            "from test_cluster import slow_analyse\n"
+            "from pathlib import Path\n"
+            "job = parse_job(Path({job!r}).read_text(), Path({job!r}))\n"
+            "res = run_survey(job, {out!r}, scheduler={addr!r}, progress=False, analyse=slow_analyse, figures=False,"
+            " resume=len(sys.argv) > 1)\n"
+            "sys.exit(res.exit_code)\n").format(root=str(ROOT), tests=str(ROOT / "tests"), job=str(tmp_path / "job.toml"),
+                                                 out=str(out), addr=addr)
+    procs = _start_scheduler_and_worker(port, tmp_path)
+    try:
+        client = subprocess.Popen([sys.executable, "-c", code], stdout=subprocess.PIPE, stderr=subprocess.PIPE,
+                                  text=True)
+        deadline = time.monotonic() + 120
+        while time.monotonic() < deadline and client.poll() is None and len(list((out / "images").glob("*.json"))) < 2:
+            time.sleep(0.05)
+        assert client.poll() is None, client.stderr.read()
+        _stop(procs)  # the scheduler and its worker are gone
+        _, err = client.communicate(timeout=120)
+        assert client.returncode != 0
+        # the library raises its input error (the command line prints it as one line, exit 2)
+        assert err.strip().splitlines()[-1].startswith("tracefit.errors.TracefitInputError: lost the Dask scheduler"), err
+        assert "--resume" in err
+        done_before = {p.stem: p.stat().st_mtime_ns for p in (out / "images").glob("*.json")}
+        assert 2 <= len(done_before) < len(names)
+        procs = _start_scheduler_and_worker(port, tmp_path)  # restarted, same address
+        again = subprocess.run([sys.executable, "-c", code, "resume"], capture_output=True, text=True, timeout=240)
+        assert again.returncode == 0, again.stderr
+    finally:
+        _stop(procs)
+    # nothing lost (every image), nothing repeated (records finished before are untouched)
+    assert {p: (out / "images" / f"{p}.json").stat().st_mtime_ns for p in done_before} == done_before
+    assert (out / "results.csv").read_bytes() == (tmp_path / "local" / "results.csv").read_bytes()
+
+
+def slow_analyse(im):
+    """The survey tests' fake analysis, a quarter of a second per image (time to stop the scheduler mid-run)."""
+    from test_survey import fake_analyse
+
+    time.sleep(0.25)
+    return fake_analyse(im)
