@@ -247,22 +247,7 @@ def calibration_error(results, truth, key, every_plane=False):
     ``every_plane``: one point per listed distinct plane of every family (a reliability check of
     all reported probabilities, not only the top one).
     """
-    conf, ok = [], []
-    for r, t in zip(results, truth):
-        if t["scratch"]:
-            continue
-        pp = _plane_probabilities(r)
-        tp = _pk(key[t["plane"]])
-        if every_plane:
-            conf += list(pp.values())
-            ok += [k == tp for k in pp]
-        elif not pp:
-            conf.append(0.0)
-            ok.append(False)
-        else:
-            best = max(pp, key=pp.get)
-            conf.append(pp[best])
-            ok.append(best == tp)
+    conf, ok, _ = _calibration_points(results, truth, key, every_plane)
     return _ece(conf, ok)
 
 
