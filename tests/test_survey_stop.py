@@ -24,7 +24,8 @@ pytestmark = pytest.mark.skipif(sys.platform != "linux", reason="reads /proc to 
 ROOT = Path(__file__).resolve().parents[1]
 
 
-def _job(tmp_path: Path, n: int = 8) -> Path:
+def _job(tmp_path: Path, n: int = 40) -> Path:
+    # enough images that the run is still going when the signal comes (one takes ~0.3 s)
     d = demo_dir()
     parts = ['title = "stop test"\n[defaults]\nlattice = "fcc"\nmodes = ["slip"]\n']
     for i in range(n):
