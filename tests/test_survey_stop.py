@@ -24,7 +24,7 @@ pytestmark = pytest.mark.skipif(sys.platform != "linux", reason="reads /proc to 
 ROOT = Path(__file__).resolve().parents[1]
 
 
-def _job(tmp_path: Path, n: int = 40) -> Path:
+def _job(tmp_path: Path, n: int = 16) -> Path:
     # enough images that the run is still going when the signal comes (one takes ~0.3 s)
     d = demo_dir()
     parts = ['title = "stop test"\n[defaults]\nlattice = "fcc"\nmodes = ["slip"]\n']
@@ -41,10 +41,17 @@ def _env(mark: str) -> dict:
     return env
 
 
+def _default_sigint() -> None:
+    # A shell's background job (and so a test run started with '&') inherits SIGINT ignored, and a
+    # program that starts with SIGINT ignored rightly keeps ignoring it (as under nohup): give the
+    # survey the terminal's default, as when a person presses Ctrl-C.
+    signal.signal(signal.SIGINT, signal.SIG_DFL)
+
+
 def _survey(job: Path, out: Path, mark: str, *extra: str) -> subprocess.Popen:
     return subprocess.Popen([sys.executable, "-m", "tracefit", "survey", str(job), "--out", str(out), "--workers", "2",
                              "--quiet", *extra], env=_env(mark), stdout=subprocess.PIPE, stderr=subprocess.PIPE,
-                            text=True)
+                            text=True, preexec_fn=_default_sigint)
 
 
 def _marked_processes(mark: str) -> list[int]:
