@@ -185,15 +185,10 @@ def test_without_dask_a_scheduler_says_what_to_install(tmp_path, run_cli, monkey
 
 # --------------------------------------------------------------------------- on a cluster
 def _marked(mark: str) -> list[int]:
-    found = []
-    for p in Path("/proc").iterdir():
-        if p.name.isdigit():
-            try:
-                if f"TRACEFIT_TEST_MARK={mark}".encode() in (p / "environ").read_bytes().split(b"\0"):
-                    found.append(int(p.name))
-            except OSError:
-                continue
-    return found
+    """Processes started with TRACEFIT_TEST_MARK=mark (the stop tests' finder)."""
+    from test_survey_stop import _marked_processes
+
+    return _marked_processes(mark)
 
 
 @needs_dask
