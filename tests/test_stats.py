@@ -313,3 +313,13 @@ def test_end_to_end_survey_of_drawn_micrographs_recovers_the_ratios(tmp_path):
     st = survey_statistics(tmp_path / "out", "prismatic")
     assert list(st.to_frame()["label"]) == ["{0001}", "{10-10}", "{11-22}"]
     assert st.crss.ratios()["{0001}"]["estimate"] == pytest.approx(d["crss_ratios"]["{0001}"]["estimate"])
+    # a resume that analyses nothing anew keeps the statistics section; a run that does says they are out of date
+    report = tmp_path / "out" / "report.html"
+    code, out, err = _cli(["survey", str(tmp_path / "job.toml"), "--out", str(tmp_path / "out"), "-q", "--resume"])
+    assert code == 0, err
+    page = report.read_text(encoding="utf-8")
+    assert "Statistics over the grains" in page and "out of date" not in page and "CRSS" in page
+    code, out, err = _cli(["survey", str(tmp_path / "job.toml"), "--out", str(tmp_path / "out"), "-w", "1"])
+    assert code == 0, err
+    page = report.read_text(encoding="utf-8")
+    assert "analysed 1 image(s) anew, so they are out of date" in page and "run 'tracefit stats" in err

@@ -299,12 +299,33 @@ def _survey(job, out_dir, n_workers, resume, progress, analyse, report, figures,
         if report:
             from tracefit.viz.report import write_report
 
-            result.report_path = write_report(result, out_dir / "report.html")
+            result.report_path = write_report(_report_payload(result, len(todo)), out_dir / "report.html")
     except OSError as exc:  # a full disk or a folder made read-only under us: the images are safe
         raise TracefitInputError(f"could not write the survey's tables or report in {str(out_dir)!r}: "
                                  f"{exc.strerror or exc}; every finished image is kept, so free the space and "
                                  f"run again with --resume") from None
     return result
+
+
+def _report_payload(result: SurveyResult, n_run: int) -> dict:
+    """The report's content: the results, and what 'tracefit stats' wrote earlier in the folder.
+
+    Statistics of an earlier 'tracefit stats' still describe the results when this run
+    analysed no image anew (a resume of a finished survey): the report keeps their
+    section. Otherwise they are out of date and the report says so instead of dropping
+    them without a word.
+    """
+    payload = result.to_dict()
+    stats_file = result.out_dir / "stats" / "statistics.json"
+    if stats_file.is_file():
+        if n_run == 0:
+            try:
+                payload["statistics"] = json.loads(stats_file.read_text(encoding="utf-8"))
+            except (OSError, ValueError):
+                payload["statistics_stale"] = "unreadable"
+        else:
+            payload["statistics_stale"] = n_run
+    return payload
 
 
 def csv_rows(records: list[dict]) -> list[dict]:
