@@ -114,6 +114,19 @@ MIN_SEP_DEG = 15.0
 MIN_VISIBLE_LEN = 8.0  # points inside the grain mask for a band to count as visible
 MEAN_SHEAR = 0.015
 
+#: realism features that ``--without`` can leave out (ablation), to see which one costs recall
+FEATURES = {
+    "nan": "NaN holes, rows, patches and points",
+    "spikes": "outlier spikes of the noise",
+    "correlated": "spatial correlation of the noise (white noise instead)",
+    "boundary": "higher strain near grain boundaries",
+    "registration": "EBSD-DIC registration error of the label map",
+    "tensor": "max-shear magnitude of a tensor field (a scalar sum instead)",
+    "short": "bands shorter than the grain and stopping at other bands",
+    "wobble": "band waviness",
+    "along": "intensity variation along a band",
+}
+
 LEVELS = {
     "easy": dict(first=5.0, r2=(0.6, 1.0), r3=(0.5, 0.9), noise=0.15, p_twin=0.0, n_fam=(0.4, 0.4, 0.2), nan_scale=0.5),
     "typical": dict(first=3.5, r2=(0.3, 0.7), r3=(0.25, 0.55), noise=0.25, p_twin=0.25, n_fam=(0.3, 0.45, 0.25), nan_scale=1.0),
@@ -214,7 +227,7 @@ def _frame(a_deg):
     return (math.cos(a), -math.sin(a)), (math.sin(a), math.cos(a))  # along, normal in (col, row)
 
 
-def _families_for_grain(rng, m, rr, cc, cfg, mean_level):
+def _families_for_grain(rng, m, rr, cc, cfg, mean_level, off=frozenset()):
     """Families (angles, band positions, extents, levels) of one grain; coordinates on the grain's pixels."""
     p = np.asarray(cfg["n_fam"])
     k = int(rng.choice([1, 2, 3], p=p / p.sum()))
@@ -238,7 +251,7 @@ def _families_for_grain(rng, m, rr, cc, cfg, mean_level):
                 sel = np.abs(v - pos) < 0.7
                 if sel.sum() >= 3:
                     lo, hi = float(u[sel].min()), float(u[sel].max())
-                    if rng.random() < 0.45:
+                    if rng.random() < 0.45 or "short" in off:
                         u0, u1 = lo - 2, hi + 2
                     else:
                         frac = rng.uniform(0.25, 0.9)
@@ -262,7 +275,7 @@ def _families_for_grain(rng, m, rr, cc, cfg, mean_level):
             if abs(tn) < 1e-6:
                 continue
             for b in fam.bands:
-                if rng.random() >= 0.35:
+                if rng.random() >= 0.35 or "short" in off:
                     continue
                 cross = sorted((x - b.offset * nn) / tn for x in v1)
                 cross = [x for x in cross if b.u0 < x < b.u1]
@@ -272,7 +285,7 @@ def _families_for_grain(rng, m, rr, cc, cfg, mean_level):
     return fams
 
 
-def _draw_band_shear(rng, m, rr, cc, fam, box):
+def _draw_band_shear(rng, m, rr, cc, fam, box, off=frozenset()):
     """Shear g >= 0 of one family's bands on the grain's bounding box."""
     rs, cs = box
     sub_r, sub_c = rr[rs, cs], cc[rs, cs]
@@ -283,7 +296,7 @@ def _draw_band_shear(rng, m, rr, cc, fam, box):
     g = np.zeros(sub_r.shape)
     for b in fam.bands:
         ph, lam = rng.uniform(0, 2 * math.pi), rng.uniform(15, 30)
-        wob = 0.4 * np.sin(2 * math.pi * u / lam + ph)
+        wob = (0.0 if "wobble" in off else 0.4) * np.sin(2 * math.pi * u / lam + ph)
         d = v - b.offset - wob
         near = np.abs(d) < 4 * b.sigma + 1
         if not near.any():
@@ -291,7 +304,7 @@ def _draw_band_shear(rng, m, rr, cc, fam, box):
         # along-band factor: smooth log-normal on a 1-D grid of u
         ug = np.arange(math.floor(u.min()) - 2, math.ceil(u.max()) + 3)
         f1 = ndimage.gaussian_filter1d(rng.standard_normal(ug.size), 6.0)
-        f1 = np.exp(0.4 * f1 / (f1.std() + 1e-12))
+        f1 = np.exp((0.0 if "along" in off else 0.4) * f1 / (f1.std() + 1e-12))
         along = np.interp(u[near], ug, f1)
         taper = np.clip((u[near] - b.u0) / 2.0, 0, 1) * np.clip((b.u1 - u[near]) / 2.0, 0, 1)
         prof = np.exp(-0.5 * (d[near] / b.sigma) ** 2)
@@ -312,7 +325,7 @@ class StrainMap:
     drawn_bands: dict  # label id -> number of drawn bands per family (for the miss list)
 
 
-def render(seed: int, level: str, with_bands: bool = True) -> StrainMap:
+def render(seed: int, level: str, with_bands: bool = True, off=frozenset()) -> StrainMap:
     cfg = LEVELS[level]
     rng = np.random.default_rng(seed)
     h, w = SHAPE
@@ -326,7 +339,7 @@ def render(seed: int, level: str, with_bands: bool = True) -> StrainMap:
     dr, dc = rng.uniform(-1.5, 1.5, 2)
     sr = rr + dr + _smooth_noise(rng, SHAPE, 10, 0.8)
     sc = cc + dc + _smooth_noise(rng, SHAPE, 10, 0.8)
-    lab_ebsd = ndimage.map_coordinates(lab_true, [sr, sc], order=0, mode="nearest")
+    lab_ebsd = lab_true.copy() if "registration" in off else ndimage.map_coordinates(lab_true, [sr, sc], order=0, mode="nearest")
 
     # grain mean shear, map-wide factor, boundary elevation
     ids = np.unique(lab_true)
@@ -340,7 +353,7 @@ def render(seed: int, level: str, with_bands: bool = True) -> StrainMap:
     bnd[:, 1:] |= lab_true[:, 1:] != lab_true[:, :-1]
     dist = ndimage.distance_transform_edt(~bnd)
     beta = rng.uniform(0.3, 1.2, ids.size)[lab_true] * np.exp(0.4 * _smooth_noise(rng, SHAPE, 8))
-    level_map = MEAN_SHEAR * gfac[lab_true] * mapwide * (1 + beta * np.exp(-dist / 3.0))
+    level_map = MEAN_SHEAR * gfac[lab_true] * mapwide * (1 + (0.0 if "boundary" in off else beta) * np.exp(-dist / 3.0))
     A = level_map * np.cos(phase[lab_true])
     B = level_map * np.sin(phase[lab_true])
 
@@ -348,11 +361,12 @@ def render(seed: int, level: str, with_bands: bool = True) -> StrainMap:
     sig = cfg["noise"] * MEAN_SHEAR * gfac[lab_true]
     qual = np.exp(0.35 * _smooth_noise(rng, SHAPE, 15))
     for comp in (0, 1):
-        n = _smooth_noise(rng, SHAPE, 1.2) * sig * qual
-        spikes = rng.random(SHAPE) < 0.003
+        n = _smooth_noise(rng, SHAPE, 1e-3 if "correlated" in off else 1.2) * sig * qual
+        spikes = rng.random(SHAPE) < (0.0 if "spikes" in off else 0.003)
         n[spikes] += rng.lognormal(math.log(4 * MEAN_SHEAR), 0.6, int(spikes.sum())) * rng.choice([-1, 1], int(spikes.sum()))
         if comp == 0:
             A = A + n
+            scalar = level_map + n  # for the "tensor" ablation: a scalar field, bands added
         else:
             B = B + n
 
@@ -369,16 +383,17 @@ def render(seed: int, level: str, with_bands: bool = True) -> StrainMap:
             if m.sum() < 150:
                 continue
             box = (slice(max(0, sl[0].start - 3), min(h, sl[0].stop + 3)), slice(max(0, sl[1].start - 3), min(w, sl[1].stop + 3)))
-            fams = _families_for_grain(rng, m, rr, cc, cfg, MEAN_SHEAR * gfac[g])
+            fams = _families_for_grain(rng, m, rr, cc, cfg, MEAN_SHEAR * gfac[g], off)
             ga, gb = np.zeros(SHAPE), np.zeros(SHAPE)
             for fam in fams:
                 shear = np.zeros(SHAPE)
-                shear[box] = _draw_band_shear(rng, m, rr, cc, fam, box)
+                shear[box] = _draw_band_shear(rng, m, rr, cc, fam, box, off)
                 shear *= m  # bands stop at the (drawn) grain boundary
                 t = math.radians(fam.angle)
                 va, vb = -math.sin(2 * t), math.cos(2 * t)
                 if va * math.cos(phase[g]) + vb * math.sin(phase[g]) < 0:
                     va, vb = -va, -vb
+                scalar = scalar + shear
                 ga += shear * va
                 gb += shear * vb
             A += ga
@@ -389,6 +404,8 @@ def render(seed: int, level: str, with_bands: bool = True) -> StrainMap:
     A = ndimage.gaussian_filter(A, 0.5)
     B = ndimage.gaussian_filter(B, 0.5)
     img = np.sqrt(A * A + B * B)
+    if "tensor" in off:
+        img = np.abs(ndimage.gaussian_filter(scalar, 0.5))
 
     # NaN: holes, row segments, patches, isolated points
     s = cfg["nan_scale"]
@@ -404,7 +421,8 @@ def render(seed: int, level: str, with_bands: bool = True) -> StrainMap:
         blob = ndimage.gaussian_filter(rng.standard_normal(SHAPE), 3) > 0
         nan |= blob & (np.hypot(rr - r0, cc - c0) < sz / 2)
     nan |= rng.random(SHAPE) < 0.002 * s
-    img[nan] = np.nan
+    if "nan" not in off:
+        img[nan] = np.nan
 
     # truth on the EBSD labels
     for e in np.unique(lab_ebsd):
@@ -425,7 +443,7 @@ def render(seed: int, level: str, with_bands: bool = True) -> StrainMap:
             fam.mean_spacing = float(np.mean(np.diff(offs))) if len(offs) > 1 else float("nan")
             if fam.n_visible >= 2:
                 vis.append(fam)
-        for k, fam in enumerate(sorted(fams, key=lambda f: -f.strength)):
+        for k, fam in enumerate(sorted(vis, key=lambda f: -f.strength)):
             fam.rank = k + 1
         truth[int(e)] = vis
         drawn[int(e)] = [len(f.bands) for f in fams]
@@ -453,7 +471,7 @@ def _match(true_angles, found_angles):
     return out
 
 
-def run_level(level, seeds, opts, negatives=True, save=None):
+def run_level(level, seeds, opts, negatives=True, save=None, off=frozenset()):
     n_true = n_found = n_spur = 0
     by_rank = {1: [0, 0], 2: [0, 0], 3: [0, 0]}
     errs, misses, spurious = [], [], []
@@ -462,7 +480,7 @@ def run_level(level, seeds, opts, negatives=True, save=None):
     t_det = 0.0
     min_px = option("min_grain_px").default
     for seed in seeds:
-        sm = render(seed, level, True)
+        sm = render(seed, level, True, off)
         if save:
             os.makedirs(save, exist_ok=True)
             np.save(os.path.join(save, f"{level}_{seed}_map.npy"), sm.image)
@@ -502,7 +520,7 @@ def run_level(level, seeds, opts, negatives=True, save=None):
                                          sig=-f.log10_nfa if f.log10_nfa is not None else float("nan"),
                                          pol=f.polarity, nearest_true=near))
         if negatives:
-            nm = render(seed, level, False)
+            nm = render(seed, level, False, off)
             t0 = time.process_time()
             rn = detect_grains(nm.image, nm.labels, min_pixels=min_px, **opts)
             t_det += time.process_time() - t0
@@ -572,11 +590,16 @@ def main(argv=None):
     ap.add_argument("--no-negatives", action="store_true")
     ap.add_argument("--opt", action="append", help="detector option NAME=VALUE (scales as 1,1.7,2.8); repeatable")
     ap.add_argument("--brief", action="store_true", help="no lists of misses")
+    ap.add_argument("--without", default="", help="realism features to leave out (ablation), comma-separated: "
+                    + ", ".join(FEATURES))
     ap.add_argument("--save-maps", default=None, help="folder for the maps, labels and truth (.npy/.json)")
     a = ap.parse_args(argv)
     try:
         opts = _parse_opts(a.opt)
         levels = [x.strip() for x in a.levels.split(",") if x.strip()]
+        off = frozenset(x.strip() for x in a.without.split(",") if x.strip())
+        if off - set(FEATURES):
+            raise ValueError(f"unknown feature {sorted(off - set(FEATURES))[0]!r}; expected {', '.join(FEATURES)}")
         bad = [x for x in levels if x not in LEVELS]
         if bad:
             raise ValueError(f"unknown level {bad[0]!r}; expected {', '.join(LEVELS)}")
@@ -586,11 +609,12 @@ def main(argv=None):
     n = 2 if a.quick else a.seeds
     seeds = list(range(1, n + 1))
     print(f"strain-map benchmark: levels {levels}, seeds {seeds}, detector options {opts or 'defaults'}, "
+          f"left out: {', '.join(sorted(off)) or 'nothing'}, "
           f"map {SHAPE[0]} x {SHAPE[1]}, scored grains {SCORED_PX[0]}-{SCORED_PX[1]} px, match {MATCH_TOL_DEG:g} deg")
     t0 = time.perf_counter()
     tot = dict(true=0, found=0, spurious=0, neg=0, negg=0)
     for lv in levels:
-        r = run_level(lv, seeds, opts, negatives=not a.no_negatives, save=a.save_maps)
+        r = run_level(lv, seeds, opts, negatives=not a.no_negatives, save=a.save_maps, off=off)
         _print_level(r, verbose=not a.brief)
         tot["true"] += r["true"]
         tot["found"] += r["found"]
