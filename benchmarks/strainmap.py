@@ -363,7 +363,8 @@ def render(seed: int, level: str, with_bands: bool = True, off=frozenset()) -> S
     for comp in (0, 1):
         n = _smooth_noise(rng, SHAPE, 1e-3 if "correlated" in off else 1.2) * sig * qual
         spikes = rng.random(SHAPE) < (0.0 if "spikes" in off else 0.003)
-        n[spikes] += rng.lognormal(math.log(4 * MEAN_SHEAR), 0.6, int(spikes.sum())) * rng.choice([-1, 1], int(spikes.sum()))
+        kick = rng.lognormal(math.log(4 * MEAN_SHEAR), 0.6, SHAPE) * rng.choice([-1, 1], SHAPE)
+        n[spikes] += kick[spikes]
         if comp == 0:
             A = A + n
             scalar = level_map + n  # for the "tensor" ablation: a scalar field, bands added
