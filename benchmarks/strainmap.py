@@ -459,6 +459,117 @@ def _visible_length(b: Band, angle, me, rr, cc):
     return float(sel.sum())
 
 
+# --------------------------------------------------------------------------- stage tracer (--trace)
+class StageTracer:
+    """Where a missed family's candidate died inside the detector (diagnostic only, ``--trace``).
+
+    Wraps, for the length of a ``with`` block, private stage functions of
+    ``tracefit.image.families`` and ``tracefit.image.detect`` (read only: they are called
+    unchanged) and records for every candidate family the detector built: its angle and the
+    first stage it failed, or its significance. The detector is being developed; when
+    these private names change, the tracer says so and the benchmark runs without it.
+    """
+
+    STAGES = ("profile", "positions", "band fits", "depth", "angle", "refused (spacing/axis)", "below significance",
+              "accepted")
+
+    def __init__(self):
+        self.events = []
+        self.ok = True
+
+    def __enter__(self):
+        try:
+            import tracefit.image.detect as D
+            import tracefit.image.families as F
+        except ImportError:
+            self.ok = False
+            return self
+        names_f = ("_family_profile", "_band_positions", "_fit_family_bands", "_depth_test", "_family_angle")
+        if not all(hasattr(F, n) for n in names_f) or not hasattr(D, "_build_family") or not hasattr(D, "_search_rounds"):
+            self.ok = False
+            return self
+        self._saved = [(F, n, getattr(F, n)) for n in names_f] + [(D, "_build_family", D._build_family),
+                                                                   (D, "_search_rounds", D._search_rounds)]
+        cur = {}
+        tr = self
+
+        def wrap(mod, name, stage, test):
+            orig = getattr(mod, name)
+
+            def f(*a, **k):
+                out = orig(*a, **k)
+                if name == "_family_profile" and out is not None:
+                    cur["angle"] = float(out.angle_deg)
+                if test(out, a):
+                    cur.setdefault("stage", stage)
+                if name in ("_fit_family_bands", "_depth_test") and out is not None:
+                    cur["n_" + stage.replace(" ", "_")] = len(out)
+                return out
+            setattr(mod, name, f)
+
+        least = lambda: cur.get("least", 2)  # noqa: E731
+        wrap(F, "_family_profile", "profile", lambda o, a: o is None)
+        wrap(F, "_band_positions", "positions", lambda o, a: len(o) < least())
+        wrap(F, "_fit_family_bands", "band fits", lambda o, a: o is None or len(o) < least())
+        wrap(F, "_depth_test", "depth", lambda o, a: len(o) < least())
+        wrap(F, "_family_angle", "angle", lambda o, a: o is None)
+        orig_build = D._build_family
+
+        def build(ctx, rp, lines):
+            cur.clear()
+            cur["least"] = min(ctx.min_bands, 2) if ctx.relaxed else ctx.min_bands
+            out = orig_build(ctx, rp, lines)
+            ev = dict(angle=cur.get("angle"), stage=cur.get("stage"), polarity="dark" if rp.polarity < 0 else "bright",
+                      n_fits=cur.get("n_band_fits"), n_deep=cur.get("n_depth"))
+            if out is not None:
+                ev["angle"] = out[0].angle_deg
+                ev["n_bands"] = out[0].n_bands
+                ev["family"] = out[0]
+            tr.events.append(ev)
+            return out
+        D._build_family = build
+        orig_search = D._search_rounds
+
+        def search(sc, b, accept):
+            def acc(fam, strict):
+                v = accept(fam, strict)
+                for ev in reversed(tr.events):
+                    if ev.get("family") is fam:
+                        ev["stage"] = ("refused (spacing/axis)" if v is None else
+                                       "below significance" if v is False else "accepted")
+                        ev["significance"] = None if fam.log10_nfa is None else -fam.log10_nfa
+                        ev["strict"] = strict
+                        break
+                return v
+            return orig_search(sc, b, acc)
+        D._search_rounds = search
+        return self
+
+    def __exit__(self, *exc):
+        for mod, name, f in getattr(self, "_saved", []):
+            setattr(mod, name, f)
+        return False
+
+    def verdict_for(self, angle, tol=3.0):
+        """The furthest stage reached by any candidate within ``tol`` deg of ``angle`` (text)."""
+        near = [e for e in self.events if e.get("angle") is not None and abs(axial_difference(e["angle"], angle)) <= tol]
+        if not near:
+            return "no candidate direction within 3 deg (ridge pixels / Hough stage)"
+        best = max(near, key=lambda e: self.STAGES.index(e["stage"]) if e["stage"] in self.STAGES else -1)
+        st = best["stage"] or "built"
+        extra = []
+        if best.get("n_fits") is not None:
+            extra.append(f"{best['n_fits']} band fits")
+        if best.get("n_deep") is not None:
+            extra.append(f"{best['n_deep']} deep enough")
+        if best.get("significance") is not None:
+            extra.append(f"significance {best['significance']:.1f}, {'strict' if best.get('strict') else 'relaxed'}, "
+                         f"{best.get('n_bands')} bands")
+        if st == "accepted":
+            st = "accepted, then dropped in selection or by max_families"
+        return f"{len(near)} candidate(s) near; furthest: {st}" + (f" ({', '.join(extra)})" if extra else "")
+
+
 # --------------------------------------------------------------------------- scoring
 def _match(true_angles, found_angles):
     """One-to-one matches within MATCH_TOL_DEG, closest first: list of (i_true, j_found, err)."""
@@ -472,7 +583,7 @@ def _match(true_angles, found_angles):
     return out
 
 
-def run_level(level, seeds, opts, negatives=True, save=None, off=frozenset()):
+def run_level(level, seeds, opts, negatives=True, save=None, off=frozenset(), trace=False):
     n_true = n_found = n_spur = 0
     by_rank = {1: [0, 0], 2: [0, 0], 3: [0, 0]}
     errs, misses, spurious = [], [], []
@@ -512,6 +623,13 @@ def run_level(level, seeds, opts, negatives=True, save=None, off=frozenset()):
                                        spacing=fam.mean_spacing,
                                        rel=fam.level / max(f.level for f in fams), found=len(got), nearest=near,
                                        verdict=det.verdict, reason=det.reason))
+            grain_misses = [d for d in misses if d["seed"] == seed and d["grain"] == g]
+            if trace and grain_misses:
+                with StageTracer() as tr:
+                    if tr.ok:
+                        detect_grains(sm.image, sm.labels, min_pixels=min_px, grains=[g], **opts)
+                for d in grain_misses:
+                    d["stage"] = tr.verdict_for(d["angle"]) if tr.ok else "tracer unavailable (detector internals changed)"
             used = {j for _, j, _ in mt}
             for j, f in enumerate(det.families):
                 if j not in used:
@@ -547,6 +665,14 @@ def _print_level(r, verbose=True):
     if "neg_grains" in r and r["neg_grains"]:
         print(f"   negatives: {r['neg_grains']} grains, {r['neg_fams']} families reported "
               f"({sum(1 for _ in {(d['seed'], d['grain']) for d in r['neg_list']})} grains with any)")
+    traced = [d["stage"] for d in r["misses"] if "stage" in d]
+    if traced:
+        keys = {}
+        for t in traced:
+            k = t.split("furthest: ")[-1].split(" (")[0] if "furthest" in t else t.split(" (")[0]
+            keys[k] = keys.get(k, 0) + 1
+        print("   where the misses died (furthest stage of the nearest candidate): "
+              + "; ".join(f"{k}: {v}" for k, v in sorted(keys.items(), key=lambda kv: -kv[1])))
     if not verbose:
         return
     if r["misses"]:
@@ -556,6 +682,8 @@ def _print_level(r, verbose=True):
             print(f"    s{d['seed']} g{d['grain']:<3d} {d['px']:5d}px | {d['rank']}/{d['n_fam']} {d['rel']:.2f} | "
                   f"{d['bands']:2d}/{d['drawn']:2d} {d['spacing']:5.1f}px | {d['angle']:6.1f} | "
                   f"{d['found']} {d['nearest']:5.1f} | {d['verdict']}: {d['reason'][:110]}")
+            if "stage" in d:
+                print(f"        trace: {d['stage']}")
     if r["spurious_list"]:
         print("   spurious (seed grain px | angle | bands | significance | polarity | nearest true)")
         for d in r["spurious_list"]:
@@ -590,6 +718,8 @@ def main(argv=None):
     ap.add_argument("--quick", action="store_true", help="2 maps per level")
     ap.add_argument("--no-negatives", action="store_true")
     ap.add_argument("--opt", action="append", help="detector option NAME=VALUE (scales as 1,1.7,2.8); repeatable")
+    ap.add_argument("--trace", action="store_true",
+                    help="for each miss, the detector stage where the nearest candidate died (re-runs missed grains)")
     ap.add_argument("--brief", action="store_true", help="no lists of misses")
     ap.add_argument("--without", default="", help="realism features to leave out (ablation), comma-separated: "
                     + ", ".join(FEATURES))
@@ -615,7 +745,7 @@ def main(argv=None):
     t0 = time.perf_counter()
     tot = dict(true=0, found=0, spurious=0, neg=0, negg=0)
     for lv in levels:
-        r = run_level(lv, seeds, opts, negatives=not a.no_negatives, save=a.save_maps, off=off)
+        r = run_level(lv, seeds, opts, negatives=not a.no_negatives, save=a.save_maps, off=off, trace=a.trace)
         _print_level(r, verbose=not a.brief)
         tot["true"] += r["true"]
         tot["found"] += r["found"]
