@@ -552,8 +552,27 @@ def figure_png_bytes(fig: Figure, dpi: int = 100) -> bytes:
     >>> figure_png_bytes(rose_diagram([30.0]), dpi=20)[:4]
     b'\\x89PNG'
     """
+    import matplotlib
+    from PIL import Image, PngImagePlugin  # Pillow comes with matplotlib
+
+    # matplotlib's PNG is the RGBA canvas at zlib level 6; an opaque figure (every figure here) encodes
+    # as RGB at level 3 to the same pixels, in a third of the time (a micrograph overlay: 20 instead of
+    # 65 ms) and a few per cent smaller
+    raw = io.BytesIO()
+    fig.savefig(raw, format="rgba", dpi=dpi)
+    rgba = raw.getvalue()
+    w, h = int(fig.get_figwidth() * dpi), int(fig.get_figheight() * dpi)  # the canvas: int(size * dpi) pixels
+    if len(rgba) != 4 * w * h:  # not the canvas size expected: matplotlib's own PNG
+        buf = io.BytesIO()
+        fig.savefig(buf, format="png", dpi=dpi)
+        return buf.getvalue()
+    img = Image.frombuffer("RGBA", (w, h), rgba, "raw", "RGBA", 0, 1)
+    if img.getextrema()[3] == (255, 255):
+        img = img.convert("RGB")
+    info = PngImagePlugin.PngInfo()
+    info.add_text("Software", f"Matplotlib version{matplotlib.__version__}, https://matplotlib.org/")
     buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=dpi)
+    img.save(buf, format="png", dpi=(dpi, dpi), pnginfo=info, compress_level=3)
     return buf.getvalue()
 
 
