@@ -265,7 +265,9 @@ def stereogram(planes: Sequence, matched: Sequence | None = None, observed_deg: 
         # the stereogram's axes are the image frame (y up): an angle's direction is (cos, sin)
         t = np.radians(a)
         ax.plot([-np.cos(t), np.cos(t)], [-np.sin(t), np.sin(t)], ls="--", lw=0.9, color="black", alpha=0.6, zorder=1)
-    ax.set_title(title or "Stereogram: equal-angle (Wulff), upper hemisphere, sample = image frame", fontsize=8)
+    # y given: the title stays where matplotlib's placement leaves it over an axes without axis lines,
+    # without measuring the hidden tick labels at every draw
+    ax.set_title(title or "Stereogram: equal-angle (Wulff), upper hemisphere, sample = image frame", fontsize=8, y=1.0)
     _stereogram_legend(ax, bool(observed_deg))
     return fig
 
@@ -360,8 +362,11 @@ def rose_diagram(angles_deg: ArrayLike, weights: ArrayLike | None = None, bin_de
     ax = ax if ax is not None else fig.add_axes([0.1, 0.05, 0.8, 0.78], projection="polar")
     width = np.radians(bin_deg)
     for off in (0.0, 180.0):  # axial data: each sector drawn at theta and theta + 180
-        ax.bar(np.radians(edges[:-1] + off), counts, width=width, align="edge", color="#0072B2",
-               edgecolor="white", lw=0.5, alpha=0.85 if off == 0 else 0.45)
+        bars = ax.bar(np.radians(edges[:-1] + off), counts, width=width, align="edge", color="#0072B2",
+                      edgecolor="white", lw=0.5, alpha=0.85 if off == 0 else 0.45)
+        for b, c in zip(bars, counts):
+            if c == 0:  # an empty sector adds no pixel (it still sets the axis limits): not drawn, saves time
+                b.set_visible(False)
     ax.set_theta_zero_location("E")
     ax.set_theta_direction(1)  # counterclockwise from image +x, like the image-frame angle
     ax.set_thetagrids(range(0, 360, 30), fontsize=6)
