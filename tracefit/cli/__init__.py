@@ -49,11 +49,14 @@ def _root(
     _HEX_NOTATION.set(hex_indices)
 
 
-def _register() -> None:
-    # Importing a command module registers its command(s) on ``app``.
+def _register(argv: list[str] | None = None) -> None:
+    # Importing a command module registers its command(s) on ``app``. A command line that names a
+    # known command needs only that command's module (a shorter start-up: typer builds and checks
+    # every registered command before running one); anything else (help, a typo) registers them all.
     from importlib import import_module
 
-    for name in _COMMAND_MODULES:
+    module = _COMMAND_MODULE_OF.get(_command_word(sys.argv[1:] if argv is None else argv) or "")
+    for name in [module] if module else _COMMAND_MODULES:
         try:
             import_module(f"tracefit.cli.{name}")
         except ModuleNotFoundError as exc:
@@ -65,6 +68,25 @@ def _register() -> None:
 
 # One entry per command module, in the order of ``tracefit --help``.
 _COMMAND_MODULES: list[str] = ["demo", "survey", "stats", "identify", "detect", "predict", "systems", "align", "orient", "twoface", "maps"]
+# The module of each command (a command not listed here registers every module).
+_COMMAND_MODULE_OF: dict[str, str] = {
+    "demo": "demo", "survey": "survey", "stats": "stats", "identify": "identify", "detect": "detect",
+    "predict": "predict", "systems": "systems", "align-frame": "align", "find-orientation": "orient",
+    "two-face": "twoface", "map-grains": "maps",
+}
+
+
+def _command_word(argv: list[str]) -> str | None:
+    """The command named on a command line: the first word that is not a root option or its value."""
+    skip = False
+    for word in argv:
+        if skip:
+            skip = False
+        elif word == "--hex-indices":
+            skip = True
+        elif not word.startswith("-"):
+            return word
+    return None
 
 
 def _in_flag_terms(exc) -> str:
@@ -88,7 +110,7 @@ def main(argv: list[str] | None = None) -> int:
 
     import contextvars
 
-    _register()
+    _register(argv)
     try:
         # a fresh copy of the context: display settings made by one call never leak into the next
         code = contextvars.copy_context().run(app, args=argv, standalone_mode=False)
