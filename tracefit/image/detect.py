@@ -70,7 +70,8 @@ from tracefit.image.prepare import (
 )
 from tracefit.image.results import BandFamily, BandLine, DetectionResult
 from tracefit.image.ridges import _pixel_noise, flatten_background, ridge_pixels
-from tracefit.image.search import SAME_FAMILY_DEG, _search_rounds, _SearchContext
+from tracefit.image.projection import _projection_families
+from tracefit.image.search import SAME_FAMILY_DEG, _distinct_families, _search_rounds, _SearchContext, _without_bands
 from tracefit.image.significance import family_log10_nfa
 
 __all__ = ["BandLine", "BandFamily", "DetectionResult", "detect_bands"]
@@ -86,6 +87,7 @@ AXIS_GUARD_DEG = 0.5  # ... and not along an image axis
 RELAXED_MAX_SPACING = 0.3  # ... and bands closer than this share of the region's diagonal
 COARSER_LOOKS = (2, 4)  # reductions tried when the first look finds fewer than two families ...
 COARSE_MIN_SIDE_PX = 384  # ... while the reduced copy keeps this many pixels on its short side (512-px images: none)
+PROJECTION_SHARE = 0.75  # share of the significance thresholds asked of families found by projection (small regions)
 MIN_DEPTH_SHARE = 0.3  # ... and at least this share of ``min_depth``
 
 
@@ -181,7 +183,7 @@ def _detect_at_scale(img, m, bars, st: _Settings, up: int = 1) -> _Outcome:
     rr, cc = np.nonzero(wc.region.any(axis=1))[0], np.nonzero(wc.region.any(axis=0))[0]
     region_diag = math.hypot(rr[-1] - rr[0] + 1, cc[-1] - cc[0] + 1) * wc.factor
 
-    def accept(fam, strict):
+    def accept(fam, strict, whole_lines=False):
         """True: kept; False: below the significance threshold; None: refused before that test."""
         if not strict and not fam.spacing_px <= RELAXED_MAX_SPACING * region_diag:
             # two far-apart straight lines are edges of a tile or a square, not a band family
@@ -190,14 +192,25 @@ def _detect_at_scale(img, m, bars, st: _Settings, up: int = 1) -> _Outcome:
             # tile seams of stitched mosaics and scan lines follow the image axes
             return None
         need = st.min_significance if strict else max(st.min_significance, RELAXED_SIGNIFICANCE)
+        need *= PROJECTION_SHARE if whole_lines else 1.0
         rp_all = by_pol[-1 if fam.polarity == "dark" else 1]
         ends = [((ln.col0, ln.row0), (ln.col1, ln.row1)) for ln in fam.lines]
         fam.log10_nfa, _ = family_log10_nfa(rp_all, wc.region, ends, fam.angle_deg, wc.factor, step,
-                                            min(st.min_bands, fam.n_bands))
+                                            min(st.min_bands, fam.n_bands), whole_lines=whole_lines)
         return bool(-fam.log10_nfa >= need)
 
     sc = _SearchContext(wc, ridges, depth_of, min_depth, st.min_bands, st.min_coverage, st.max_families)
     found, tried, n_rejected = _search_rounds(sc, lambda rp, ln: _build_family(ctx, rp, ln), accept)  # stages 4-7
+    if up > 1 and len(found) < st.max_families:
+        # stage 6b, in small regions (grains of a strain map): families whose bands are too short to
+        # fit one by one. Larger regions give their bands enough pixels for stages 4-6; there the
+        # projection's extra families were mostly texture, scan lines and curved bands seen twice
+        # (benchmarks/realdata.md)
+        rest = [_without_bands(rp, found, wc.factor) for rp in ridges]
+        more, n_more = _projection_families(ctx, rest, wc.region, found, lambda fm, strict: accept(fm, strict, True),
+                                            st.max_families - len(found), up)
+        tried += n_more
+        found = _distinct_families(found + more)
     found = found[: st.max_families]
     if found:
         return _Outcome(found, "found", _summary_note(found), notes)

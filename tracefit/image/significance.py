@@ -31,13 +31,15 @@ import numpy as np
 
 from tracefit.conventions import axial_difference
 from tracefit.errors import TracefitInputError
-from tracefit.image.geometry import _to_working
+from tracefit.image.geometry import _direction_and_normal, _to_working
 from tracefit.image.ridges import RidgePixels
 
 __all__ = ["binomial_log10_tail", "family_log10_nfa"]
 
 ANGLE_STEP_DEG = 0.5  # resolution of the tested directions (the Hough bin)
 HIT_PX = 1  # a sample hits when an aligned ridge pixel lies within this many pixels
+CORRIDOR_PX = 3  # half width of the corridor about each band left out of the background density
+_MAX_ENDS = 48  # hits tried as segment ends per band (1128 segments)
 
 
 def binomial_log10_tail(n: int, k: int, p: float) -> float:
@@ -116,6 +118,33 @@ def _aligned_hits(rp: RidgePixels, angle_deg: float) -> np.ndarray:
     return cv2.dilate(canvas, np.ones((k, k), np.uint8)) > 0
 
 
+def _background_density(hits, region, band_ends, angle_deg, factor):
+    """Density ``p`` of aligned hits in the region away from the family's own bands.
+
+    Under H0 the aligned ridge pixels are spread evenly; their density is measured
+    outside corridors of ``CORRIDOR_PX`` about the lines the bands lie on (at the family's
+    angle through each band's middle, across the region). Counted with the bands, a dense
+    family (spacing a few times the hit width, as slip bands in strain maps have) would
+    itself set ``p`` to a large share and make its own bands look like chance. Falls back to
+    the whole region when the corridors leave less than a quarter of it.
+    """
+    h, w = region.shape
+    d, _ = _direction_and_normal(angle_deg)
+    corridor = np.zeros((h, w), np.uint8)
+    reach = float(np.hypot(h, w))
+    for ends in band_ends:
+        pa, pb = (_to_working(np.asarray(q, float), factor) for q in ends)
+        mid = 0.5 * (pa + pb)
+        a, b = mid - reach * d, mid + reach * d
+        cv2.line(corridor, (int(round(a[0])), int(round(a[1]))), (int(round(b[0])), int(round(b[1]))), 1,
+                 thickness=2 * CORRIDOR_PX + 1)
+    away = region & (corridor == 0)
+    n_away = int(away.sum())
+    if n_away < 0.25 * int(region.sum()):
+        away, n_away = region, int(region.sum())
+    return float(np.clip((hits & away).sum() / max(n_away, 1), 1e-4, 0.999))
+
+
 def _band_counts(hits, region, ends_full, factor, step):
     """(samples, hits) along one band's seen segment, every ``step`` working px, inside the region."""
     h, w = region.shape
@@ -132,8 +161,67 @@ def _band_counts(hits, region, ends_full, factor, step):
     return int(inside.sum()), int((hits[r, c] & inside).sum())
 
 
+def _best_segment_tail(hits, region, ends_full, factor, step, p, direction):
+    """Least log10 binomial tail of the band's seen segment or of any segment of the family's line through it.
+
+    The NFA pays for every segment of a line (``N_lines`` counts each start and end), so
+    the segment that is least likely under H0 may be chosen: a band whose fitted part is
+    short (its contrast varies along it, as slip bands' does) is judged on all of the
+    line through its middle at the family's angle (``direction``, unit (col, row)).
+    The seen segment is tried too, so the result is never above its tail. Segments
+    start and end at hits (any other end only adds misses); at most ``_MAX_ENDS``
+    evenly chosen hits are tried as ends.
+
+    Returns
+    -------
+    (log10_tail, samples, hits)
+    """
+    n0, k0 = _band_counts(hits, region, ends_full, factor, step)
+    best = (float(_log10_tails(np.array([n0]), np.array([k0]), p)[0]), n0, k0)
+    h, w = region.shape
+    pa, pb = (_to_working(np.asarray(q, float), factor) for q in ends_full)
+    mid, d = 0.5 * (pa + pb), np.asarray(direction, float)
+    reach = float(np.hypot(h, w))
+    t = np.arange(-reach, reach + step, step)
+    c = np.rint(mid[0] + t * d[0]).astype(np.intp)
+    r = np.rint(mid[1] + t * d[1]).astype(np.intp)
+    ok = (c >= 0) & (c < w) & (r >= 0) & (r < h)
+    c, r = c[ok], r[ok]
+    inside = region[r, c]
+    c, r = c[inside], r[inside]
+    if len(c) < 2:
+        return best
+    hit = hits[r, c].astype(np.int64)
+    where = np.flatnonzero(hit)
+    if len(where) < 2:
+        return best
+    if len(where) > _MAX_ENDS:
+        where = where[np.linspace(0, len(where) - 1, _MAX_ENDS).round().astype(np.intp)]
+    cum = np.concatenate([[0], np.cumsum(hit)])
+    i, j = np.triu_indices(len(where))
+    a, b = where[i], where[j]
+    n = (b - a + 1).astype(np.int64)
+    k = (cum[b + 1] - cum[a]).astype(np.int64)
+    tails = _log10_tails(n, k, p)
+    m = int(np.argmin(tails))
+    if tails[m] < best[0]:
+        best = (float(tails[m]), int(n[m]), int(k[m]))
+    return best
+
+
+def _band_tails(hits, region, band_ends, angle_deg, factor, step, whole_lines) -> list[float]:
+    """log10 binomial tail of each band (see :func:`family_log10_nfa` for ``whole_lines``)."""
+    if whole_lines:
+        p = _background_density(hits, region, band_ends, angle_deg, factor)
+        d_fam, _ = _direction_and_normal(angle_deg)
+        return [_best_segment_tail(hits, region, ends, factor, step, p, d_fam)[0] for ends in band_ends]
+    p = float(np.clip((hits & region).sum() / int(region.sum()), 1e-4, 0.999))
+    counts = np.array([_band_counts(hits, region, ends, factor, step) for ends in band_ends], np.int64).reshape(-1, 2)
+    return [float(t) for t in _log10_tails(counts[:, 0], counts[:, 1], p)]
+
+
 def family_log10_nfa(rp: RidgePixels, region: np.ndarray, band_ends: Sequence, angle_deg: float, factor: int = 1,
-                     step: float = 2.0, min_bands: int = 1) -> tuple[float, list[float]]:
+                     step: float = 2.0, min_bands: int = 1, *, whole_lines: bool = False) -> tuple[float, list[float]]:
     """Number of false alarms (log10) of a family of bands, and of each band.
 
     Parameters
@@ -153,6 +241,12 @@ def family_log10_nfa(rp: RidgePixels, region: np.ndarray, band_ends: Sequence, a
         Sample spacing along the bands, working pixels (> 0).
     min_bands : int
         Fewest bands the family is made of (the best ``m >= min_bands`` bands count).
+    whole_lines : bool
+        Judge each band on the least likely segment of the family's line through it
+        (not only its seen part), against the density of aligned pixels away from the
+        bands (:func:`_background_density`). For families found by projection
+        (:mod:`tracefit.image.projection`), whose bands are located from their pixels
+        alone; the default keeps the test of the band-fit families.
 
     Returns
     -------
@@ -187,12 +281,10 @@ def family_log10_nfa(rp: RidgePixels, region: np.ndarray, band_ends: Sequence, a
     n_region = int(region.sum())
     if n_region == 0 or len(band_ends) < min_bands:
         return math.inf, [math.inf] * len(band_ends)
-    p = float(np.clip((hits & region).sum() / n_region, 1e-4, 0.999))
     # segments per direction: every offset across and every start and end along, in samples
     n_side = max(2.0, math.hypot(*region.shape) / step)
     log_lines = 3.0 * math.log10(n_side)
-    counts = np.array([_band_counts(hits, region, ends, factor, step) for ends in band_ends], np.int64).reshape(-1, 2)
-    per_band = [log_lines + float(t) for t in _log10_tails(counts[:, 0], counts[:, 1], p)]
+    per_band = [log_lines + t for t in _band_tails(hits, region, band_ends, angle_deg, factor, step, whole_lines)]
     if not per_band:
         return math.inf, per_band
     log_angles = math.log10(2 * 180.0 / ANGLE_STEP_DEG)  # directions and the two polarities

@@ -1,0 +1,297 @@
+"""Band families found by projecting the ridge pixels across every direction (private to the package).
+
+Stage 6b of :func:`tracefit.image.detect_bands`. The Hough candidates and full-resolution
+band fits of stages 4-6 need each band to hold enough pixels for a line fit of its own.
+Slip bands in the small grains of a strain map are short, wavy and unevenly bright, and
+a grain holds two or three crossing families: most of their bands fail the per-band fit
+and the family falls apart. Here all bands of a direction are judged together. The
+aligned ridge pixels are projected across each tested direction (a Radon transform of
+the ridge map, Radon 1917; the usual tool for slip-band directions in strain maps, common
+practice, no source); along the family's direction they pile up on a few lines.
+
+1. **Direction**: for every direction (``COARSE_STEP_DEG``) the ridge pixels of the
+   sectors near it are binned across it (1 px); lines covered over at least
+   ``MIN_COVER`` of their chord through the region count as bands, and the direction
+   whose bands hold most pixels wins.
+2. **Angle**: the bands' pixels (within ``BAND_HALF_PX`` of each line) give the family
+   angle by a common-slope fit, the principal direction of the pooled within-band scatter
+   (parallel lines share their slope), refined twice; its standard uncertainty follows
+   from the residuals and the pixels' spread along the bands.
+3. **Bands**: each band's seen part (2nd to 98th percentile of its pixels along the line)
+   and its depth from the local median grey at its pixels (the depth test of stage 6).
+
+The family is returned with ``strict`` as in stage 6 (at least ``min_bands`` bands at a
+regular spacing) and judged by the caller's significance test like any other.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable, Sequence
+from typing import NamedTuple
+
+import numpy as np
+
+from tracefit.conventions import axial_difference, fold_axial, pixel_direction_angle
+from tracefit.image.families import _family_spacing
+from tracefit.image.geometry import _direction_and_normal, _to_full
+from tracefit.image.hough import _pixels_near_angle
+from tracefit.image.results import BandFamily, BandLine
+from tracefit.image.ridges import RidgePixels
+from tracefit.image.selection import _median_inplace
+
+COARSE_STEP_DEG = 1.0  # directions tried
+MIN_COVER = 0.35  # share of a line's chord through the region its ridge pixels cover (3 px wide bin)
+MIN_BAND_PX = 8  # fewest ridge pixels of a band (working px)
+BAND_HALF_PX = 1.5  # ridge pixels this close to a band's line belong to it (times the internal enlargement)
+WINDOW_DEG = 15.0  # ridge sectors within this of a direction feed its projection (wavy bands change sector)
+MIN_CHORD_PX = 12  # lines with a shorter chord through the region are not tried
+MAX_MOVE_DEG = 1.0  # the common-slope fit may move the direction its bands were found at this far
+MIN_SEPARATION_DEG = 6.0  # a family found here lies at least this far from any other
+AXIS_GUARD_DEG = 1.0  # ... and this far from the image axes
+PEAKS_TRIED = 3  # directions tried per polarity and search
+MAX_REGION_PX = 60_000  # larger regions (working px: a whole micrograph) hold enough pixels for stages 4-6
+
+
+class _BandAt(NamedTuple):
+    """A band's position, as :func:`tracefit.image.families._family_spacing` reads it."""
+
+    point: np.ndarray  # a point on the band, full-resolution (col, row)
+
+
+def _chords(xr, yr, n_vec, s0, nbins):
+    """Chord length through the region of every 1-px line across ``n_vec`` (pixels per bin)."""
+    s = np.floor(xr * n_vec[0] + yr * n_vec[1] - s0).astype(np.intp)
+    return np.bincount(np.clip(s, 0, nbins - 1), minlength=nbins).astype(np.float64)
+
+
+def _band_lines(x, y, xr, yr, angle_deg, half=BAND_HALF_PX):
+    """Offsets (across ``angle_deg``) of the lines that hold bands, and the pixels they hold.
+
+    Returns
+    -------
+    offsets : ndarray, (k,)
+        Line offsets (working px along the normal), strongest first after non-maximum
+        suppression within ``2 * half`` bins (a wide band's ridge pixels wander across it).
+    held : float
+        Ridge pixels on those lines.
+    """
+    _, n_vec = _direction_and_normal(angle_deg)
+    s = x * n_vec[0] + y * n_vec[1]
+    sr = xr * n_vec[0] + yr * n_vec[1]
+    s0 = float(sr.min()) - 2.0
+    nbins = int(sr.max() - s0) + 3
+    counts = np.bincount(np.clip(np.floor(s - s0).astype(np.intp), 0, nbins - 1), minlength=nbins).astype(np.float64)
+    chord = _chords(xr, yr, n_vec, s0, nbins)
+    w3 = counts + np.roll(counts, 1) + np.roll(counts, -1)  # a band a little off the bin edge
+    ok = (w3 >= MIN_BAND_PX) & (chord >= MIN_CHORD_PX) & (w3 >= MIN_COVER * chord)
+    order = np.argsort(-w3 * ok)
+    taken = np.zeros(nbins, bool)
+    offsets, held = [], 0.0
+    for i in order:
+        if not ok[i]:
+            break
+        r = int(math.ceil(2 * half))
+        if taken[max(0, i - r): i + r + 1].any():
+            continue
+        taken[i] = True
+        offsets.append(s0 + i + 0.5)
+        held += w3[i]
+    return np.array(offsets), held
+
+
+def _best_directions(x, y, sectors_of, xr, yr, exclude: Sequence[float], k: int, half: float) -> list[float]:
+    """The ``k`` directions whose band lines hold most ridge pixels (local maxima over the tried directions)."""
+    angles = np.arange(0.0, 180.0, COARSE_STEP_DEG)
+    held = np.zeros(len(angles))
+    for i, a in enumerate(angles):
+        idx = sectors_of(a)
+        if len(idx) >= MIN_BAND_PX:
+            held[i] = _band_lines(x[idx], y[idx], xr, yr, a, half)[1]
+    peaks = [i for i in range(len(angles))
+             if held[i] > 0 and held[i] >= held[i - 1] and held[i] >= held[(i + 1) % len(angles)]]
+    peaks.sort(key=lambda i: -held[i])
+    out: list[float] = []
+    for i in peaks:
+        a = float(angles[i])
+        if any(abs(axial_difference(a, b)) < MIN_SEPARATION_DEG for b in [*exclude, *out]):
+            continue
+        out.append(a)
+        if len(out) == k:
+            break
+    return out
+
+
+def _common_slope(x, y, angle_deg, offsets, half):
+    """Common-slope fit of the bands' pixels: (angle_deg, sigma_deg, labels) or None.
+
+    ``labels[i]`` is the band of pixel ``i`` (-1: none). The angle is the principal
+    direction of the pooled within-band scatter; its uncertainty the residual rms over
+    the root of the pixels' summed squared spread along their bands, doubled in variance
+    because neighbouring ridge pixels are correlated.
+    """
+    for _ in range(3):
+        _, n_vec = _direction_and_normal(angle_deg)
+        dist = np.abs((x * n_vec[0] + y * n_vec[1])[:, None] - offsets[None, :])
+        near = np.argmin(dist, axis=1)
+        labels = np.where(dist[np.arange(len(x)), near] <= half, near, -1)
+        keep = labels >= 0
+        if keep.sum() < 2 * MIN_BAND_PX:
+            return None
+        xs, ys, lb = x[keep], y[keep], labels[keep]
+        cnt = np.maximum(np.bincount(lb, minlength=len(offsets)), 1).astype(np.float64)
+        mx = np.bincount(lb, xs, len(offsets)) / cnt
+        my = np.bincount(lb, ys, len(offsets)) / cnt
+        dx, dy = xs - mx[lb], ys - my[lb]
+        cov = np.array([[np.sum(dx * dx), np.sum(dx * dy)], [np.sum(dx * dy), np.sum(dy * dy)]])
+        v = np.linalg.eigh(cov)[1][:, 1]
+        angle_deg = float(pixel_direction_angle(v[0], v[1]))
+        d, n_vec = _direction_and_normal(angle_deg)
+        offsets = np.where(np.bincount(lb, minlength=len(offsets)) > 0, mx * n_vec[0] + my * n_vec[1], offsets)
+    along = dx * d[0] + dy * d[1]
+    across = dx * n_vec[0] + dy * n_vec[1]
+    s_res = math.sqrt(float(np.mean(across**2)))
+    stt = float(np.sum(along**2))
+    sigma = math.degrees(s_res * math.sqrt(2.0) / math.sqrt(max(stt, 1e-9))) + 0.02
+    # wavy bands' residuals are correlated along them: the scatter of the bands' own slopes
+    # (about the common one) bounds the uncertainty from below
+    slopes = []
+    for b in range(len(offsets)):
+        sel = lb == b
+        if sel.sum() >= MIN_BAND_PX:
+            ta, ua = along[sel], across[sel]
+            stt_b = float(np.sum((ta - ta.mean()) ** 2))
+            if stt_b > 0:
+                slopes.append(float(np.sum((ta - ta.mean()) * ua)) / stt_b)
+    if len(slopes) >= 2:
+        sigma = max(sigma, math.degrees(math.atan(float(np.std(slopes, ddof=1)) / math.sqrt(len(slopes)))))
+    return angle_deg, sigma, labels, offsets
+
+
+def _family_of(ctx, rp: RidgePixels, idx, xr, yr, angle0: float, half: float):
+    """The family of ridge pixels ``idx`` near direction ``angle0``, or None; (family, strict, used pixel indices)."""
+    x, y = rp.col[idx].astype(np.float64), rp.row[idx].astype(np.float64)
+    angle = angle0
+    for _ in range(3):
+        # the bands are found again at the fitted angle until it holds still: lines found across
+        # a direction the fit then leaves (several lines in one wide streak) are not bands
+        offsets, _ = _band_lines(x, y, xr, yr, angle, half)
+        if len(offsets) < 2:
+            return None
+        fit = _common_slope(x, y, angle, offsets, half)
+        if fit is None:
+            return None
+        moved = abs(axial_difference(fit[0], angle))
+        angle = fit[0]
+        if moved <= MAX_MOVE_DEG:
+            break
+    else:
+        return None
+    angle, sigma, labels, offsets = fit
+    d, n_vec = _direction_and_normal(angle)
+    f = ctx.factor
+    bands = []
+    for b in range(len(offsets)):
+        sel = labels == b
+        if sel.sum() < MIN_BAND_PX:
+            continue
+        t = x[sel] * d[0] + y[sel] * d[1]
+        t0, t1 = np.percentile(t, [2.0, 98.0])
+        pa_w, pb_w = offsets[b] * n_vec + t0 * d, offsets[b] * n_vec + t1 * d
+        pa, pb = _to_full(pa_w, f), _to_full(pb_w, f)
+        # depth at the band's own ridge pixels: a wavy band leaves its straight line here and there
+        depth = float(_median_inplace(rp.polarity * ctx.depth_of(_to_full(np.stack([x[sel], y[sel]], axis=1), f))))
+        if depth < ctx.min_depth or t1 - t0 < MIN_BAND_PX:
+            continue
+        bands.append((offsets[b], pa, pb, depth, float(_median_inplace(rp.strength[idx][sel].astype(np.float64))),
+                      np.flatnonzero(sel)))
+    if len(bands) < max(3, ctx.min_bands):
+        return None  # two lines alone are as often the two sides of a twin lamella or a sliver of a boundary
+    bands.sort(key=lambda z: z[0])
+
+    pts = [_BandAt(_to_full(z[0] * n_vec, f)) for z in bands]
+    spacing_fit = _family_spacing(pts, n_vec)
+    strict = len(bands) >= ctx.min_bands and spacing_fit is not None
+    spacing, spacing_sd = spacing_fit or _family_spacing(pts, n_vec, max_spacing_cv=math.inf, check_gaps=False)
+    diag_full = ctx.diag_w * f
+    lines = [BandLine(float(pa[0]), float(pa[1]), float(pb[0]), float(pb[1]), float(fold_axial(angle)),
+                      sigma * math.sqrt(len(bands)), snr) for _, pa, pb, _, snr, _ in bands]
+    fam = BandFamily(
+        angle_deg=float(fold_axial(angle)),
+        angle_sigma_deg=sigma,
+        n_bands=len(bands),
+        spacing_px=spacing,
+        spacing_sigma_px=spacing_sd,
+        spacing_um=None if ctx.pixel_size_um is None or not math.isfinite(spacing) else spacing * ctx.pixel_size_um,
+        strength=float(sum(math.hypot(*(pb - pa)) / diag_full * snr for _, pa, pb, _, snr, _ in bands)),
+        polarity="dark" if rp.polarity < 0 else "bright",
+        contrast=float(rp.polarity * np.median([z[3] for z in bands])),
+        lines=lines,
+    )
+    used = idx[np.concatenate([z[5] for z in bands])]
+    return fam, strict, used
+
+
+def _projection_families(ctx, ridges: Sequence[RidgePixels], region: np.ndarray, known: Sequence[BandFamily],
+                         accept: Callable, max_new: int, up: int = 1) -> tuple[list[BandFamily], int]:
+    """Stage 6b: families found by projection that stages 4-6 did not find.
+
+    Parameters
+    ----------
+    ctx : tracefit.image.families._FamilyContext
+    ridges : sequence of RidgePixels
+        Ridge pixels per polarity, without those of the families already found.
+    region : ndarray of bool, (h, w)
+        Analysed working-copy pixels.
+    known : sequence of BandFamily
+        Families already found (their directions are not tried again).
+    accept : callable
+        ``accept(family, strict)`` -> True when kept (the caller's significance test).
+    max_new : int
+        Most families to add.
+    up : int
+        Internal enlargement of the image the ridge pixels come from (bands as many times wider).
+
+    Returns
+    -------
+    (families, tried)
+    """
+    rr, cc = np.nonzero(region)
+    if len(rr) > MAX_REGION_PX or max_new <= 0:
+        return [], 0
+    xr, yr = cc.astype(np.float64), rr.astype(np.float64)
+    half = BAND_HALF_PX * max(1, up)
+    found: list[BandFamily] = []
+    tried = 0
+    for rp in ridges:
+        alive = np.ones(len(rp), bool)
+        for _ in range(max_new):
+            x, y = rp.col.astype(np.float64), rp.row.astype(np.float64)
+
+            def sectors_of(a, alive=alive):
+                idx = _pixels_near_angle(rp, a, WINDOW_DEG)
+                return idx[alive[idx]]
+
+            exclude = [fm.angle_deg for fm in [*known, *found]]
+            kept = None
+            for a0 in _best_directions(x, y, sectors_of, xr, yr, exclude, PEAKS_TRIED, half):
+                idx = sectors_of(a0)
+                built = _family_of(ctx, rp, idx, xr, yr, a0, half)
+                if built is None:
+                    continue
+                tried += 1
+                fam, strict, used = built
+                if any(abs(axial_difference(fam.angle_deg, b)) < MIN_SEPARATION_DEG for b in exclude):
+                    continue  # the same bands seen at another angle (wavy or curved bands), not a family of their own
+                if min(abs(axial_difference(fam.angle_deg, b)) for b in (0.0, 90.0)) < AXIS_GUARD_DEG:
+                    continue  # scan lines and tile seams follow the image axes
+                if accept(fam, strict):
+                    kept = (fam, used)
+                    break
+            if kept is None:
+                break
+            found.append(kept[0])
+            alive[kept[1]] = False
+            if len(found) >= max_new:
+                return found, tried
+    return found, tried
