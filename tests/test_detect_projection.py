@@ -141,3 +141,18 @@ def test_whole_line_significance_never_falls_below_the_seen_segment_and_sees_the
     whole, _ = family_log10_nfa(rp, region, seen, 90.0, whole_lines=True)
     assert whole <= part
     assert whole < part - 20  # the other 80 % of each line count too
+
+
+def test_tail_polarity_follows_the_rare_extreme_grey_levels():
+    # Kelly's percentile skewness (10th, 50th, 90th percentiles; named from memory): bright lines on a
+    # dark field skew right, dark grooves on a bright field skew left, plain noise not at all
+    from tracefit.image.detect import _tail_polarity
+
+    rng = np.random.default_rng(0)
+    region = np.ones((80, 80), bool)
+    noise = rng.normal(0.0, 1.0, (80, 80))
+    bright = noise.copy()
+    bright[::5, :] += 8.0  # one row in five is a bright band
+    assert _tail_polarity(bright, region) == 1
+    assert _tail_polarity(-bright, region) == -1
+    assert _tail_polarity(noise, region) == 0

@@ -87,8 +87,9 @@ AXIS_GUARD_DEG = 0.5  # ... and not along an image axis
 RELAXED_MAX_SPACING = 0.3  # ... and bands closer than this share of the region's diagonal
 COARSER_LOOKS = (2, 4)  # reductions tried when the first look finds fewer than two families ...
 COARSE_MIN_SIDE_PX = 384  # ... while the reduced copy keeps this many pixels on its short side (512-px images: none)
-PROJECTION_SHARE = 0.75  # share of the significance thresholds asked of families found by projection (small regions)
 MIN_DEPTH_SHARE = 0.3  # ... and at least this share of ``min_depth``
+PROJECTION_SHARE = 0.75  # share of the significance thresholds asked of families found by projection (small regions) ...
+TAIL_SKEW = 0.1  # ... which are of the polarity of the region's grey-level tail, where its quantile skew passes this
 
 
 def _effective_min_depth(img, m, pixel_noise: float, min_depth: float) -> float:
@@ -205,8 +206,11 @@ def _detect_at_scale(img, m, bars, st: _Settings, up: int = 1) -> _Outcome:
         # stage 6b, in small regions (grains of a strain map): families whose bands are too short to
         # fit one by one. Larger regions give their bands enough pixels for stages 4-6; there the
         # projection's extra families were mostly texture, scan lines and curved bands seen twice
-        # (benchmarks/realdata.md)
-        rest = [_without_bands(rp, found, wc.factor) for rp in ridges]
+        # (benchmarks/realdata.md). Only bands of the polarity of the region's tail are sought, and
+        # none in a region without one: in strain maps the dark "families" were the low-strain gaps
+        # between bands, and band-free grains have the least skewed grey levels
+        tail = _tail_polarity(wc.image, wc.region)
+        rest = [_without_bands(rp, found, wc.factor) for rp in ridges if rp.polarity == tail]
         more, n_more = _projection_families(ctx, rest, wc.region, found, lambda fm, strict: accept(fm, strict, True),
                                             st.max_families - len(found), up)
         tried += n_more
@@ -220,6 +224,20 @@ def _detect_at_scale(img, m, bars, st: _Settings, up: int = 1) -> _Outcome:
     why = f"{n_rejected} below the significance threshold" if n_rejected else "none held up as a family"
     return _Outcome([], "not_significant", f"no band families: {tried} candidate direction"
                     f"{'s' if tried != 1 else ''} tested, {why}", notes)
+
+
+def _tail_polarity(img, region) -> int:
+    """+1 when the region's grey levels have a long bright tail, -1 a long dark one, 0 neither.
+
+    Bands are the rare extreme values of a region: bright slip bands of a strain map give its
+    values a bright tail, dark grooves of an optical micrograph a dark one. The quantile skew
+    ``(q90 + q10 - 2 q50) / (q90 - q10)`` (Kelly's percentile skewness, named from memory) tells which.
+    """
+    q10, q50, q90 = np.nanpercentile(img[region], (10, 50, 90))
+    if not q90 > q10:
+        return 0
+    skew = (q90 + q10 - 2 * q50) / (q90 - q10)
+    return 0 if abs(skew) < TAIL_SKEW else (1 if skew > 0 else -1)
 
 
 def _small_region_factor(shape, m) -> tuple[int, tuple[slice, slice]]:
