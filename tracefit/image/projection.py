@@ -205,8 +205,8 @@ def _family_of(ctx, rp: RidgePixels, idx, xr, yr, angle0: float, half: float):
             continue
         bands.append((offsets[b], pa, pb, depth, float(_median_inplace(rp.strength[idx][sel].astype(np.float64))),
                       np.flatnonzero(sel)))
-    if len(bands) < max(3, ctx.min_bands):
-        return None  # two lines alone are as often the two sides of a twin lamella or a sliver of a boundary
+    if len(bands) < 2:
+        return None  # a family of two (fewer than ``min_bands``) is not strict: the caller asks more of it
     bands.sort(key=lambda z: z[0])
 
     pts = [_BandAt(_to_full(z[0] * n_vec, f)) for z in bands]
