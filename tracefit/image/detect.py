@@ -22,6 +22,11 @@ label image. The pipeline, one concern per stage and module:
    angle is refined with a Radon profile, every band fitted at full resolution on a strip
    sampled along it, and the family kept when enough bands pass the sharpness, depth,
    angle and spacing tests.
+6b. **Projection** (:mod:`~tracefit.image.projection`), in small regions only (those
+   analysed enlarged, such as the grains of a strain map): families whose bands are too
+   short or wavy to be fitted one by one, found by projecting the remaining ridge pixels
+   across every direction and tested on whole lines (``PROJECTION_SHARE`` of the usual
+   significance, bands of the polarity of the region's grey-level tail only).
 7. **Selection**: dark and bright "families" at one angle (bands and the gaps between
    them) resolved in favour of the one further from the median grey; strongest first.
 8. **Coarser looks**: when fewer than two families are found on a large image, copies
