@@ -91,9 +91,13 @@ def test_report_carries_the_caution_version_and_conventions(page):
 
 def test_report_is_self_contained(page):
     srcs = [a.get("src") for t, a in page.tags if t == "img"]
-    assert srcs and all(s.startswith("data:image/png;base64,") for s in srcs)
-    for s in srcs:  # every embedded figure is a real PNG
-        assert base64.b64decode(s.split(",", 1)[1])[:8] == b"\x89PNG\r\n\x1a\n"
+    # figures are embedded (data: URIs), as PNG, or as JPEG for a micrograph overlay when that is smaller
+    assert srcs and all(s.startswith(("data:image/png;base64,", "data:image/jpeg;base64,")) for s in srcs)
+    magic = {"image/png": b"\x89PNG\r\n\x1a\n", "image/jpeg": b"\xff\xd8\xff"}
+    for s in srcs:  # every embedded figure is a real image of the type its URI names
+        mime = s[len("data:"): s.index(";")]
+        assert base64.b64decode(s.split(",", 1)[1]).startswith(magic[mime])
+    assert any(s.startswith("data:image/png;") for s in srcs)  # the stereograms and rose diagrams
     assert not [t for t, a in page.tags if t == "script"]
     for t, a in page.tags:
         for k in ("src", "href"):
