@@ -322,4 +322,12 @@ def test_end_to_end_survey_of_drawn_micrographs_recovers_the_ratios(tmp_path):
     code, out, err = _cli(["survey", str(tmp_path / "job.toml"), "--out", str(tmp_path / "out"), "-w", "1"])
     assert code == 0, err
     page = report.read_text(encoding="utf-8")
-    assert "analysed 1 image(s) anew, so they are out of date" in page and "run 'tracefit stats" in err
+    assert "before 1 image(s) were analysed anew, so they are out of date" in page and "run 'tracefit stats" in err
+    # ... and stay out of date through a later resume that analyses nothing, until 'tracefit stats' runs again
+    code, out, err = _cli(["survey", str(tmp_path / "job.toml"), "--out", str(tmp_path / "out"), "-q", "--resume"])
+    assert code == 0, err
+    assert "out of date" in report.read_text(encoding="utf-8")
+    code, out, err = _cli(["stats", str(tmp_path / "out"), "-q"])
+    assert code == 0, err
+    page = report.read_text(encoding="utf-8")
+    assert "Statistics over the grains" in page and "out of date" not in page

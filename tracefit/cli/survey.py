@@ -53,9 +53,12 @@ def print_summary(result, json_out: bool) -> None:
           + (f" ({len(result.reused)} resumed)" if result.reused else ""))
     print(f"results: {result.csv_path}")
     print(f"report:  {result.report_path}")
-    if result.run.get("images_run") and (result.out_dir / "stats" / "statistics.json").is_file():
-        print(f"note: {result.out_dir / 'stats'} was written before this run analysed "
-              f"{result.run['images_run']} image(s) anew; run 'tracefit stats {result.out_dir}' again", file=sys.stderr)
+    from tracefit.survey.runner import statistics_age
+
+    newer = statistics_age(result.out_dir)
+    if newer:
+        print(f"note: {result.out_dir / 'stats'} was written before {newer} image(s) were analysed anew; "
+              f"run 'tracefit stats {result.out_dir}' again", file=sys.stderr)
 
 
 @app.command("survey")

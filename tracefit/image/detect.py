@@ -74,8 +74,8 @@ from tracefit.image.prepare import (
     _WorkingCopy,
 )
 from tracefit.image.results import BandFamily, BandLine, DetectionResult
-from tracefit.image.ridges import _pixel_noise, flatten_background, ridge_pixels
 from tracefit.image.projection import _projection_families
+from tracefit.image.ridges import _pixel_noise, flatten_background, ridge_pixels
 from tracefit.image.search import SAME_FAMILY_DEG, _distinct_families, _search_rounds, _SearchContext, _without_bands
 from tracefit.image.significance import family_log10_nfa
 

@@ -42,10 +42,10 @@ from tracefit.image.selection import _median_inplace
 
 COARSE_STEP_DEG = 1.0  # directions tried
 MIN_COVER = 0.35  # share of a line's chord through the region its ridge pixels cover (3 px wide bin)
-MIN_BAND_PX = 8  # fewest ridge pixels of a band (working px)
+MIN_BAND_PX = 4  # fewest ridge pixels of a band, per unit of internal enlargement (8 at 2x)
 BAND_HALF_PX = 1.5  # ridge pixels this close to a band's line belong to it (times the internal enlargement)
 WINDOW_DEG = 15.0  # ridge sectors within this of a direction feed its projection (wavy bands change sector)
-MIN_CHORD_PX = 12  # lines with a shorter chord through the region are not tried
+MIN_CHORD_PX = 6  # lines with a shorter chord through the region are not tried (same unit)
 MAX_MOVE_DEG = 1.0  # the common-slope fit may move the direction its bands were found at this far
 MIN_SEPARATION_DEG = 6.0  # a family found here lies at least this far from any other
 AXIS_GUARD_DEG = 1.0  # ... and this far from the image axes
@@ -57,6 +57,12 @@ class _BandAt(NamedTuple):
     """A band's position, as :func:`tracefit.image.families._family_spacing` reads it."""
 
     point: np.ndarray  # a point on the band, full-resolution (col, row)
+
+
+def _least(count: float, half: float) -> float:
+    """A least count given per unit of internal enlargement, in working pixels (``half`` is
+    ``BAND_HALF_PX`` times the enlargement)."""
+    return count * half / BAND_HALF_PX
 
 
 def _chords(xr, yr, n_vec, s0, nbins):
@@ -84,8 +90,8 @@ def _band_lines(x, y, xr, yr, angle_deg, half=BAND_HALF_PX):
     counts = np.bincount(np.clip(np.floor(s - s0).astype(np.intp), 0, nbins - 1), minlength=nbins).astype(np.float64)
     chord = _chords(xr, yr, n_vec, s0, nbins)
     w3 = counts + np.roll(counts, 1) + np.roll(counts, -1)  # a band a little off the bin edge
-    ok = (w3 >= MIN_BAND_PX) & (chord >= MIN_CHORD_PX) & (w3 >= MIN_COVER * chord)
-    order = np.argsort(-w3 * ok)
+    ok = (w3 >= _least(MIN_BAND_PX, half)) & (chord >= _least(MIN_CHORD_PX, half)) & (w3 >= MIN_COVER * chord)
+    order = np.argsort(-w3 * ok, kind="stable")  # ties in a fixed order on every machine
     taken = np.zeros(nbins, bool)
     offsets, held = [], 0.0
     for i in order:
@@ -106,7 +112,7 @@ def _best_directions(x, y, sectors_of, xr, yr, exclude: Sequence[float], k: int,
     held = np.zeros(len(angles))
     for i, a in enumerate(angles):
         idx = sectors_of(a)
-        if len(idx) >= MIN_BAND_PX:
+        if len(idx) >= _least(MIN_BAND_PX, half):
             held[i] = _band_lines(x[idx], y[idx], xr, yr, a, half)[1]
     peaks = [i for i in range(len(angles))
              if held[i] > 0 and held[i] >= held[i - 1] and held[i] >= held[(i + 1) % len(angles)]]
@@ -123,7 +129,7 @@ def _best_directions(x, y, sectors_of, xr, yr, exclude: Sequence[float], k: int,
 
 
 def _common_slope(x, y, angle_deg, offsets, half):
-    """Common-slope fit of the bands' pixels: (angle_deg, sigma_deg, labels) or None.
+    """Common-slope fit of the bands' pixels: (angle_deg, sigma_deg, labels, offsets) or None.
 
     ``labels[i]`` is the band of pixel ``i`` (-1: none). The angle is the principal
     direction of the pooled within-band scatter; its uncertainty the residual rms over
@@ -136,7 +142,7 @@ def _common_slope(x, y, angle_deg, offsets, half):
         near = np.argmin(dist, axis=1)
         labels = np.where(dist[np.arange(len(x)), near] <= half, near, -1)
         keep = labels >= 0
-        if keep.sum() < 2 * MIN_BAND_PX:
+        if keep.sum() < 2 * _least(MIN_BAND_PX, half):
             return None
         xs, ys, lb = x[keep], y[keep], labels[keep]
         cnt = np.maximum(np.bincount(lb, minlength=len(offsets)), 1).astype(np.float64)
@@ -158,18 +164,25 @@ def _common_slope(x, y, angle_deg, offsets, half):
     slopes = []
     for b in range(len(offsets)):
         sel = lb == b
-        if sel.sum() >= MIN_BAND_PX:
+        if sel.sum() >= _least(MIN_BAND_PX, half):
             ta, ua = along[sel], across[sel]
             stt_b = float(np.sum((ta - ta.mean()) ** 2))
             if stt_b > 0:
                 slopes.append(float(np.sum((ta - ta.mean()) * ua)) / stt_b)
     if len(slopes) >= 2:
-        sigma = max(sigma, math.degrees(math.atan(float(np.std(slopes, ddof=1)) / math.sqrt(len(slopes)))))
+        # measured, so not to be inflated again for the enlargement as the residual-based figure is
+        # (tracefit.image.detect._rescaled_outcome multiplies by its root)
+        bound = math.degrees(math.atan(float(np.std(slopes, ddof=1)) / math.sqrt(len(slopes))))
+        sigma = max(sigma, bound / math.sqrt(half / BAND_HALF_PX))
     return angle_deg, sigma, labels, offsets
 
 
-def _family_of(ctx, rp: RidgePixels, idx, xr, yr, angle0: float, half: float):
-    """The family of ridge pixels ``idx`` near direction ``angle0``, or None; (family, strict, used pixel indices)."""
+def _family_of(ctx, rp: RidgePixels, idx, xr, yr, angle0: float, half: float, level: float):
+    """The family of ridge pixels ``idx`` near direction ``angle0``, or None; (family, strict, used pixel indices).
+
+    ``level`` is the region's median grey: a band's contrast-to-noise ratio is its relative
+    depth times ``level`` over the pixel noise, as the band fits of stage 6 give it.
+    """
     x, y = rp.col[idx].astype(np.float64), rp.row[idx].astype(np.float64)
     angle = angle0
     for _ in range(3):
@@ -193,7 +206,7 @@ def _family_of(ctx, rp: RidgePixels, idx, xr, yr, angle0: float, half: float):
     bands = []
     for b in range(len(offsets)):
         sel = labels == b
-        if sel.sum() < MIN_BAND_PX:
+        if sel.sum() < _least(MIN_BAND_PX, half):
             continue
         t = x[sel] * d[0] + y[sel] * d[1]
         t0, t1 = np.percentile(t, [2.0, 98.0])
@@ -201,10 +214,10 @@ def _family_of(ctx, rp: RidgePixels, idx, xr, yr, angle0: float, half: float):
         pa, pb = _to_full(pa_w, f), _to_full(pb_w, f)
         # depth at the band's own ridge pixels: a wavy band leaves its straight line here and there
         depth = float(_median_inplace(rp.polarity * ctx.depth_of(_to_full(np.stack([x[sel], y[sel]], axis=1), f))))
-        if depth < ctx.min_depth or t1 - t0 < MIN_BAND_PX:
+        if depth < ctx.min_depth or t1 - t0 < _least(MIN_BAND_PX, half):
             continue
-        bands.append((offsets[b], pa, pb, depth, float(_median_inplace(rp.strength[idx][sel].astype(np.float64))),
-                      np.flatnonzero(sel)))
+        snr = depth * level / max(ctx.pixel_noise, 1e-12)
+        bands.append((offsets[b], pa, pb, depth, snr, np.flatnonzero(sel)))
     if len(bands) < 2:
         return None  # a family of two (fewer than ``min_bands``) is not strict: the caller asks more of it
     bands.sort(key=lambda z: z[0])
@@ -261,6 +274,8 @@ def _projection_families(ctx, ridges: Sequence[RidgePixels], region: np.ndarray,
         return [], 0
     xr, yr = cc.astype(np.float64), rr.astype(np.float64)
     half = BAND_HALF_PX * max(1, up)
+    grey = ctx.image[region] if ctx.image.shape == region.shape else ctx.image
+    level = float(np.nanmedian(grey))
     found: list[BandFamily] = []
     tried = 0
     for rp in ridges:
@@ -276,7 +291,7 @@ def _projection_families(ctx, ridges: Sequence[RidgePixels], region: np.ndarray,
             kept = None
             for a0 in _best_directions(x, y, sectors_of, xr, yr, exclude, PEAKS_TRIED, half):
                 idx = sectors_of(a0)
-                built = _family_of(ctx, rp, idx, xr, yr, a0, half)
+                built = _family_of(ctx, rp, idx, xr, yr, a0, half, level)
                 if built is None:
                     continue
                 tried += 1

@@ -17,6 +17,11 @@ texture alone of the same size and density; its ``significance`` is ``-log10_nfa
 Texture that is itself striped at the family's angle raises ``p`` and so lowers the
 significance of lines that merely follow it.
 
+Families found by projection (:mod:`tracefit.image.projection`) are judged with
+``whole_lines=True``: each band on the least likely segment of the family's line through it
+(the segment count above pays for that choice), against the density of aligned pixels away
+from the family's bands, estimated by Laplace's rule of succession.
+
 Samples are taken every ``step`` working pixels (2 px, and one original pixel or more
 on an internally enlarged image) so that neighbouring samples are roughly independent.
 """
@@ -39,7 +44,7 @@ __all__ = ["binomial_log10_tail", "family_log10_nfa"]
 ANGLE_STEP_DEG = 0.5  # resolution of the tested directions (the Hough bin)
 HIT_PX = 1  # a sample hits when an aligned ridge pixel lies within this many pixels
 CORRIDOR_PX = 3  # half width of the corridor about each band left out of the background density
-_MAX_ENDS = 48  # hits tried as segment ends per band (1128 segments)
+_MAX_ENDS = 48  # hits tried as segment ends per band (1176 segments, single hits included)
 
 
 def binomial_log10_tail(n: int, k: int, p: float) -> float:
@@ -126,7 +131,13 @@ def _background_density(hits, region, band_ends, angle_deg, factor):
     angle through each band's middle, across the region). Counted with the bands, a dense
     family (spacing a few times the hit width, as slip bands in strain maps have) would
     itself set ``p`` to a large share and make its own bands look like chance. Falls back to
-    the whole region when the corridors leave less than a quarter of it.
+    the whole region when the corridors leave less than a quarter of it. The estimate is
+    Laplace's rule of succession, ``(k + 1) / (n + 2)`` (from memory): where no aligned pixel
+    lies away from the bands it stays a density of about one in the pixels counted, not zero.
+    The corridor keeps its width on an internally enlarged image, whose bands are wider: a
+    wavy band's outer pixels then count as background, which only lowers its significance
+    (a corridor widened with the enlargement gave a family on a band-free grain of
+    ``benchmarks/strainmap.py``).
     """
     h, w = region.shape
     d, _ = _direction_and_normal(angle_deg)
@@ -142,7 +153,7 @@ def _background_density(hits, region, band_ends, angle_deg, factor):
     n_away = int(away.sum())
     if n_away < 0.25 * int(region.sum()):
         away, n_away = region, int(region.sum())
-    return float(np.clip((hits & away).sum() / max(n_away, 1), 1e-4, 0.999))
+    return float(np.clip(((hits & away).sum() + 1.0) / (n_away + 2.0), 1e-4, 0.999))
 
 
 def _band_counts(hits, region, ends_full, factor, step):

@@ -299,7 +299,7 @@ def _survey(job, out_dir, n_workers, resume, progress, analyse, report, figures,
         if report:
             from tracefit.viz.report import write_report
 
-            result.report_path = write_report(_report_payload(result, len(todo)), out_dir / "report.html")
+            result.report_path = write_report(_report_payload(result), out_dir / "report.html")
     except OSError as exc:  # a full disk or a folder made read-only under us: the images are safe
         raise TracefitInputError(f"could not write the survey's tables or report in {str(out_dir)!r}: "
                                  f"{exc.strerror or exc}; every finished image is kept, so free the space and "
@@ -307,24 +307,52 @@ def _survey(job, out_dir, n_workers, resume, progress, analyse, report, figures,
     return result
 
 
-def _report_payload(result: SurveyResult, n_run: int) -> dict:
+def statistics_age(out_dir: str | Path) -> int | None:
+    """How many image records of a survey folder were written after its statistics; None without statistics.
+
+    'tracefit stats' writes ``stats/statistics.json``; an image analysed after that (by a later
+    survey run, resumed or not) makes them out of date until 'tracefit stats' runs again.
+
+    Parameters
+    ----------
+    out_dir : str or Path
+        The survey's output folder.
+
+    Returns
+    -------
+    int or None
+        Records newer than the statistics (0: they are current), or None when there are none.
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     statistics_age(d) is None
+    True
+    """
+    stats_file = Path(out_dir) / "stats" / "statistics.json"
+    if not stats_file.is_file():
+        return None
+    written = stats_file.stat().st_mtime
+    return sum(1 for rec in (Path(out_dir) / "images").glob("*.json") if rec.stat().st_mtime > written)
+
+
+def _report_payload(result: SurveyResult) -> dict:
     """The report's content: the results, and what 'tracefit stats' wrote earlier in the folder.
 
-    Statistics of an earlier 'tracefit stats' still describe the results when this run
-    analysed no image anew (a resume of a finished survey): the report keeps their
-    section. Otherwise they are out of date and the report says so instead of dropping
-    them without a word.
+    Statistics still describe the results when no image record was written after them (a
+    resume that analysed nothing anew): the report keeps their section. Otherwise they are
+    out of date and the report says so instead of dropping them without a word.
     """
     payload = result.to_dict()
-    stats_file = result.out_dir / "stats" / "statistics.json"
-    if stats_file.is_file():
-        if n_run == 0:
-            try:
-                payload["statistics"] = json.loads(stats_file.read_text(encoding="utf-8"))
-            except (OSError, ValueError):
-                payload["statistics_stale"] = "unreadable"
-        else:
-            payload["statistics_stale"] = n_run
+    newer = statistics_age(result.out_dir)
+    if newer == 0:
+        try:
+            payload["statistics"] = json.loads((result.out_dir / "stats" / "statistics.json").read_text(encoding="utf-8"))
+        except (OSError, ValueError):
+            payload["statistics_stale"] = "unreadable"
+    elif newer:
+        payload["statistics_stale"] = newer
     return payload
 
 

@@ -546,7 +546,7 @@ def render_report(result: _Results, img_dir: _PathLike, generated_utc: str | Non
     elif d.get("statistics_stale"):  # the survey ran again after 'tracefit stats'
         n = d["statistics_stale"]
         why = ("could not be read" if n == "unreadable" else
-               f"were computed before this run analysed {n} image(s) anew, so they are out of date")
+               f"were computed before {n} image(s) were analysed anew, so they are out of date")
         parts.append(f'<h2 id="statistics">Statistics over the grains</h2><p class="caution">The statistics in the '
                      f"folder <code>stats/</code> {why}; run <code>tracefit stats</code> on this folder again "
                      "to bring them and this section up to date.</p>")
