@@ -47,7 +47,9 @@ BAND_HALF_PX = 1.5  # ridge pixels this close to a band's line belong to it (tim
 WINDOW_DEG = 15.0  # ridge sectors within this of a direction feed its projection (wavy bands change sector)
 MIN_CHORD_PX = 6  # lines with a shorter chord through the region are not tried (same unit)
 MAX_MOVE_DEG = 1.0  # the common-slope fit may move the direction its bands were found at this far
-MIN_SEPARATION_DEG = 6.0  # a family found here lies at least this far from any other
+MIN_SEPARATION_DEG = 12.0  # a family found here lies at least this far from any other: residual pixels of a
+# found family's bands line up across it at 6-11 deg (benchmarks/synthetic_grains.py); closer families are
+# left to stages 4-6
 AXIS_GUARD_DEG = 1.0  # ... and this far from the image axes
 PEAKS_TRIED = 3  # directions tried per polarity and search
 MAX_REGION_PX = 60_000  # larger regions (working px: a whole micrograph) hold enough pixels for stages 4-6
