@@ -67,13 +67,35 @@ def _least(count: float, half: float) -> float:
     return count * half / BAND_HALF_PX
 
 
-def _chords(xr, yr, n_vec, s0, nbins):
-    """Chord length through the region of every 1-px line across ``n_vec`` (pixels per bin)."""
-    s = np.floor(xr * n_vec[0] + yr * n_vec[1] - s0).astype(np.intp)
-    return np.bincount(np.clip(s, 0, nbins - 1), minlength=nbins).astype(np.float64)
+class _Region:
+    """The analysed pixels and, per direction, the chord through them of every 1-px line across it.
+
+    The chords depend on the region and the direction only: every search of the region
+    (each polarity, each further family) reads them for the same directions, so they are
+    kept once computed.
+    """
+
+    def __init__(self, region: np.ndarray):
+        rr, cc = np.nonzero(region)
+        self.x, self.y = cc.astype(np.float64), rr.astype(np.float64)
+        self._lines: dict = {}
+
+    def __len__(self) -> int:
+        return len(self.x)
+
+    def lines_across(self, angle_deg: float):
+        """(normal, first offset s0, number of 1-px bins, chord length per bin) across ``angle_deg``."""
+        if angle_deg not in self._lines:
+            _, n_vec = _direction_and_normal(angle_deg)
+            sr = self.x * n_vec[0] + self.y * n_vec[1]
+            s0 = float(sr.min()) - 2.0
+            nbins = int(sr.max() - s0) + 3
+            bins = np.clip(np.floor(sr - s0).astype(np.intp), 0, nbins - 1)
+            self._lines[angle_deg] = (n_vec, s0, nbins, np.bincount(bins, minlength=nbins).astype(np.float64))
+        return self._lines[angle_deg]
 
 
-def _band_lines(x, y, xr, yr, angle_deg, half=BAND_HALF_PX):
+def _band_lines(x, y, reg: _Region, angle_deg, half=BAND_HALF_PX):
     """Offsets (across ``angle_deg``) of the lines that hold bands, and the pixels they hold.
 
     Returns
@@ -84,13 +106,9 @@ def _band_lines(x, y, xr, yr, angle_deg, half=BAND_HALF_PX):
     held : float
         Ridge pixels on those lines.
     """
-    _, n_vec = _direction_and_normal(angle_deg)
+    n_vec, s0, nbins, chord = reg.lines_across(angle_deg)
     s = x * n_vec[0] + y * n_vec[1]
-    sr = xr * n_vec[0] + yr * n_vec[1]
-    s0 = float(sr.min()) - 2.0
-    nbins = int(sr.max() - s0) + 3
     counts = np.bincount(np.clip(np.floor(s - s0).astype(np.intp), 0, nbins - 1), minlength=nbins).astype(np.float64)
-    chord = _chords(xr, yr, n_vec, s0, nbins)
     w3 = counts + np.roll(counts, 1) + np.roll(counts, -1)  # a band a little off the bin edge
     ok = (w3 >= _least(MIN_BAND_PX, half)) & (chord >= _least(MIN_CHORD_PX, half)) & (w3 >= MIN_COVER * chord)
     order = np.argsort(-w3 * ok, kind="stable")  # ties in a fixed order on every machine
@@ -108,14 +126,14 @@ def _band_lines(x, y, xr, yr, angle_deg, half=BAND_HALF_PX):
     return np.array(offsets), held
 
 
-def _best_directions(x, y, sectors_of, xr, yr, exclude: Sequence[float], k: int, half: float) -> list[float]:
+def _best_directions(x, y, sectors_of, reg: _Region, exclude: Sequence[float], k: int, half: float) -> list[float]:
     """The ``k`` directions whose band lines hold most ridge pixels (local maxima over the tried directions)."""
     angles = np.arange(0.0, 180.0, COARSE_STEP_DEG)
     held = np.zeros(len(angles))
     for i, a in enumerate(angles):
         idx = sectors_of(a)
         if len(idx) >= _least(MIN_BAND_PX, half):
-            held[i] = _band_lines(x[idx], y[idx], xr, yr, a, half)[1]
+            held[i] = _band_lines(x[idx], y[idx], reg, a, half)[1]
     peaks = [i for i in range(len(angles))
              if held[i] > 0 and held[i] >= held[i - 1] and held[i] >= held[(i + 1) % len(angles)]]
     peaks.sort(key=lambda i: -held[i])
@@ -179,7 +197,7 @@ def _common_slope(x, y, angle_deg, offsets, half):
     return angle_deg, sigma, labels, offsets
 
 
-def _family_of(ctx, rp: RidgePixels, idx, xr, yr, angle0: float, half: float, level: float):
+def _family_of(ctx, rp: RidgePixels, idx, reg: _Region, angle0: float, half: float, level: float):
     """The family of ridge pixels ``idx`` near direction ``angle0``, or None; (family, strict, used pixel indices).
 
     ``level`` is the region's median grey: a band's contrast-to-noise ratio is its relative
@@ -190,7 +208,7 @@ def _family_of(ctx, rp: RidgePixels, idx, xr, yr, angle0: float, half: float, le
     for _ in range(3):
         # the bands are found again at the fitted angle until it holds still: lines found across
         # a direction the fit then leaves (several lines in one wide streak) are not bands
-        offsets, _ = _band_lines(x, y, xr, yr, angle, half)
+        offsets, _ = _band_lines(x, y, reg, angle, half)
         if len(offsets) < 2:
             return None
         fit = _common_slope(x, y, angle, offsets, half)
@@ -271,10 +289,9 @@ def _projection_families(ctx, ridges: Sequence[RidgePixels], region: np.ndarray,
     -------
     (families, tried)
     """
-    rr, cc = np.nonzero(region)
-    if len(rr) > MAX_REGION_PX or max_new <= 0:
+    reg = _Region(region)
+    if len(reg) > MAX_REGION_PX or max_new <= 0:
         return [], 0
-    xr, yr = cc.astype(np.float64), rr.astype(np.float64)
     half = BAND_HALF_PX * max(1, up)
     grey = ctx.image[region] if ctx.image.shape == region.shape else ctx.image
     level = float(np.nanmedian(grey))
@@ -282,18 +299,21 @@ def _projection_families(ctx, ridges: Sequence[RidgePixels], region: np.ndarray,
     tried = 0
     for rp in ridges:
         alive = np.ones(len(rp), bool)
-        for _ in range(max_new):
-            x, y = rp.col.astype(np.float64), rp.row.astype(np.float64)
+        x, y = rp.col.astype(np.float64), rp.row.astype(np.float64)
+        near: dict = {}  # direction -> indices of the ridge pixels of the sectors near it
 
-            def sectors_of(a, alive=alive):
-                idx = _pixels_near_angle(rp, a, WINDOW_DEG)
-                return idx[alive[idx]]
+        def sectors_of(a, alive=alive, near=near, rp=rp):
+            if a not in near:
+                near[a] = _pixels_near_angle(rp, a, WINDOW_DEG)
+            return near[a][alive[near[a]]]
+
+        for _ in range(max_new):
 
             exclude = [fm.angle_deg for fm in [*known, *found]]
             kept = None
-            for a0 in _best_directions(x, y, sectors_of, xr, yr, exclude, PEAKS_TRIED, half):
+            for a0 in _best_directions(x, y, sectors_of, reg, exclude, PEAKS_TRIED, half):
                 idx = sectors_of(a0)
-                built = _family_of(ctx, rp, idx, xr, yr, a0, half, level)
+                built = _family_of(ctx, rp, idx, reg, a0, half, level)
                 if built is None:
                     continue
                 tried += 1
