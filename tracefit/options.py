@@ -201,6 +201,9 @@ OPTIONS: tuple[Option, ...] = (
            low=0.0, high=1.0, low_open=True),
     Option("min_depth", "detect", "float", 0.035, "least relative depth of a band below/above the local median grey",
            low=0.0),
+    Option("oversampling", "detect", "int", 0,
+           "how many times finer the pixels are than the content (an enlarged map): 0 = estimate it, 1 = as given",
+           low=0, high=4),
     Option("min_significance", "detect", "float", 16.0,
            "least significance -log10(NFA) of a family (a contrario number of false alarms)"),
     # -- the image itself

@@ -39,6 +39,7 @@ def detect_command(
     min_coverage: float = _setting("min_coverage", "--min-coverage"),
     working_size: int = _setting("working_size", "--working-size"),
     min_significance: float = _setting("min_significance", "--min-significance"),
+    oversampling: int = _setting("oversampling", "--oversampling"),
     scales: str = typer.Option(",".join(f"{s:g}" for s in option("scales").default), "--scales",
                                help="Ridge-filter scales at working resolution, px, comma separated."),
     find_bar: bool = typer.Option(True, "--find-bar/--no-find-bar",
@@ -60,7 +61,8 @@ def detect_command(
     try:
         settings = check_options(dict(min_depth=min_depth, min_bands=min_bands, max_families=max_families,
                                       min_coverage=min_coverage, working_size=working_size, scales=scale_list,
-                                      find_bar=find_bar, min_significance=min_significance), "detect")
+                                      find_bar=find_bar, min_significance=min_significance,
+                                      oversampling=oversampling), "detect")
     except OptionError as exc:  # the same names as the API, spelt as flags here
         raise TracefitInputError(str(exc).replace(exc.name, "--" + exc.name.replace("_", "-"), 1)) from None
 

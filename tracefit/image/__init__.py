@@ -14,6 +14,8 @@
   - :mod:`~tracefit.image.bandfit` -- one band's line fitted at full resolution
   - :mod:`~tracefit.image.results` -- :class:`BandLine`, :class:`BandFamily`, :class:`DetectionResult`
   - :mod:`~tracefit.image.geometry` -- pixel geometry shared by detector and renderer
+  - :mod:`~tracefit.image.projection` -- families of short bands in small regions, by projection
+  - :mod:`~tracefit.image.sampling` -- :func:`estimate_oversampling`: how much an image was enlarged
 - :mod:`tracefit.image.continuation` -- whether a band line runs on into the neighbouring grain
 - :mod:`tracefit.image.draw` -- detection overlay (colour per family, legend of angles)
 - :mod:`tracefit.image.synthetic` -- synthetic micrographs with known truth (tests, benchmarks, demo)
@@ -27,6 +29,7 @@ from tracefit.image.draw import FAMILY_COLOURS, draw_detection, write_detection_
 from tracefit.image.io import IMAGE_SUFFIXES, read_image, read_mask, to_gray
 from tracefit.image.options import DETECT_OPTIONS, check_detect_options
 from tracefit.image.results import BandFamily, BandLine, DetectionResult
+from tracefit.image.sampling import Oversampling, estimate_oversampling
 from tracefit.image.suite import SuiteCase, standard_suite
 from tracefit.image.synthetic import (
     BandFamilySpec,
@@ -39,7 +42,7 @@ from tracefit.image.synthetic import (
 __all__ = [
     "read_image", "read_mask", "to_gray", "IMAGE_SUFFIXES",
     "detect_bands", "detect_grains", "BandLine", "BandFamily", "DetectionResult",
-    "DETECT_OPTIONS", "check_detect_options",
+    "DETECT_OPTIONS", "check_detect_options", "estimate_oversampling", "Oversampling",
     "line_continuation",
     "FAMILY_COLOURS", "draw_detection", "write_detection_overlay",
     "BandFamilySpec", "TrueFamily", "SyntheticTruth", "render_micrograph", "voronoi_labels", "standard_suite", "SuiteCase",

@@ -76,6 +76,7 @@ from tracefit.image.prepare import (
 from tracefit.image.results import BandFamily, BandLine, DetectionResult
 from tracefit.image.projection import _projection_families
 from tracefit.image.ridges import _pixel_noise, flatten_background, ridge_pixels
+from tracefit.image.sampling import MAX_FACTOR, NATIVE, Oversampling, _block_test, estimate_oversampling
 from tracefit.image.search import SAME_FAMILY_DEG, _distinct_families, _search_rounds, _SearchContext, _without_bands
 from tracefit.image.significance import family_log10_nfa
 
@@ -147,6 +148,7 @@ class _Settings:
     min_depth: float
     min_significance: float
     pixel_size_um: float | None
+    oversampling: int = 0
 
 
 @dataclass
@@ -245,13 +247,15 @@ def _tail_polarity(img, region) -> int:
     return 0 if abs(skew) < TAIL_SKEW else (1 if skew > 0 else -1)
 
 
-def _small_region_factor(shape, m) -> tuple[int, tuple[slice, slice]]:
+def _small_region_factor(shape, m, k: int = 1) -> tuple[int, tuple[slice, slice]]:
     """Internal enlargement for a small image or region, and the box (with a margin) to enlarge.
 
     The detector's filters and tests are sized for regions of about ``SMALL_SIDE_PX`` px
     or more; a smaller one is enlarged by an integer factor (at most ``MAX_UP``) with
     cubic interpolation. No noise is invented: the noise estimates and the significance
-    test follow the enlargement.
+    test follow the enlargement. An image already enlarged ``k`` times (see
+    :mod:`tracefit.image.sampling`) is sized by its content: the factor returned is the
+    enlargement of the content, of which ``k`` is done already.
     """
     h, w = shape
     if m is None:
@@ -259,17 +263,33 @@ def _small_region_factor(shape, m) -> tuple[int, tuple[slice, slice]]:
     else:
         rr = np.flatnonzero(m.any(axis=1))
         cc = np.flatnonzero(m.any(axis=0))
-        box = (slice(max(0, rr[0] - 4), min(h, rr[-1] + 5)), slice(max(0, cc[0] - 4), min(w, cc[-1] + 5)))
-    side = min(box[0].stop - box[0].start, box[1].stop - box[1].start)
+        margin = 4 * k
+        box = (slice(max(0, rr[0] - margin), min(h, rr[-1] + margin + 1)),
+               slice(max(0, cc[0] - margin), min(w, cc[-1] + margin + 1)))
+    side = min(box[0].stop - box[0].start, box[1].stop - box[1].start) / k
     up = int(min(MAX_UP, math.ceil(SMALL_SIDE_PX / max(side, 1)))) if side < SMALL_SIDE_PX else 1
     return up, box
 
 
-def _rescaled_outcome(img, m, bars, st: _Settings, up: int, box, down: int = 1) -> _Outcome:
+def _on_block_grid(box, n: int, phase: int, k: int) -> slice:
+    """``box`` narrowed to whole ``k``-pixel blocks starting at ``phase`` (mod ``k``) within ``n`` pixels."""
+    start = box.start + (phase - box.start) % k
+    stop = start + (min(box.stop, n) - start) // k * k
+    return slice(start, stop)
+
+
+def _rescaled_outcome(img, m, bars, st: _Settings, up: int, box, down: int = 1, ov: Oversampling = NATIVE) -> _Outcome:
     """Run :func:`_detect_at_scale` on ``img[box]`` enlarged ``up`` times (cubic) or reduced ``down`` times (area).
 
-    Lines, spacings and angle uncertainties are mapped back to ``img`` pixels.
+    An image already enlarged ``ov.factor`` times is resized by ``up / ov.factor`` (``up``
+    may be 1: a larger region is reduced to its content's sampling), from its content's
+    own points where it holds blocks of equal pixels: the content is analysed ``up`` times
+    enlarged either way. Lines, spacings and angle uncertainties are mapped
+    back to ``img`` pixels.
     """
+    k = ov.factor
+    if k > 1:
+        box = tuple(_on_block_grid(b, n, p if ov.kind == "blocks" else 0, k) for b, n, p in zip(box, img.shape, ov.phase))
     r0, c0 = box[0].start, box[1].start
     crop = img[box]
     if m is None:
@@ -285,13 +305,18 @@ def _rescaled_outcome(img, m, bars, st: _Settings, up: int, box, down: int = 1) 
         out = _detect_at_scale(small, small_m, [], st_s)
         scale = float(down)
     else:
-        size = (crop.shape[1] * up, crop.shape[0] * up)
+        crop_m = m[box]
+        if ov.kind == "blocks":  # one point per block: the content itself
+            crop, crop_m, k_left = np.ascontiguousarray(crop[::k, ::k]), np.ascontiguousarray(crop_m[::k, ::k]), 1
+        else:
+            k_left = k
+        size = (crop.shape[1] * up // k_left, crop.shape[0] * up // k_left)
         big = cv2.resize(crop, size, interpolation=cv2.INTER_CUBIC)
-        big_m = cv2.resize(m[box].view(np.uint8), size, interpolation=cv2.INTER_NEAREST) > 0
+        big_m = cv2.resize(crop_m.view(np.uint8), size, interpolation=cv2.INTER_NEAREST) > 0
+        scale = k / up
         st_up = _Settings(**{**st.__dict__, "working_size": max(st.working_size, max(size)),
-                             "pixel_size_um": None if st.pixel_size_um is None else st.pixel_size_um / up})
+                             "pixel_size_um": None if st.pixel_size_um is None else st.pixel_size_um * scale})
         out = _detect_at_scale(big, big_m, [], st_up, up)
-        scale = 1.0 / up
     for fam in out.families:
         fam.spacing_px *= scale
         fam.spacing_sigma_px *= scale
@@ -303,9 +328,29 @@ def _rescaled_outcome(img, m, bars, st: _Settings, up: int, box, down: int = 1) 
             ln.angle_sigma_deg *= math.sqrt(up)
     if down > 1:
         out.notes.insert(0, f"also analysed reduced {down}x (area average), for bands wider than the ridge filters")
+    elif k > 1:
+        out.notes.insert(0, f"{'small ' if up > 1 else ''}region ({crop.shape[1] * k // k_left} x "
+                            f"{crop.shape[0] * k // k_left} px, its content {k}x coarser) analysed at {up}x its content")
     else:
         out.notes.insert(0, f"small region ({crop.shape[1]} x {crop.shape[0]} px) analysed enlarged {up}x (cubic)")
     return out
+
+
+def _sampling(img, valid, given: int, side: float | None = None) -> Oversampling:
+    """The image's enlargement: estimated (``given`` 0), none (1) or ``given`` (in blocks where it holds them).
+
+    ``side`` is the short side of the region to analyse: a region too large to be small at
+    any enlargement looked for needs no estimate.
+    """
+    if given == 1:
+        return NATIVE
+    if given == 0:
+        if side is not None and side >= SMALL_SIDE_PX * MAX_FACTOR:
+            return NATIVE
+        return estimate_oversampling(img, valid)
+    pc = _block_test(img, given)
+    pr = _block_test(img.T, given) if pc is not None else None
+    return Oversampling(given, "blocks", (pr, pc)) if pr is not None else Oversampling(given, "smooth", (0, 0))
 
 
 def _with_coarser_looks(out: _Outcome, img, m, bars, st: _Settings) -> _Outcome:
@@ -353,6 +398,7 @@ def detect_bands(
     min_coverage: float = 0.3,
     min_depth: float = 0.035,
     min_significance: float = 16.0,
+    oversampling: int = 0,
     notes: list[str] | None = None,
 ) -> DetectionResult:
     """Detect families of parallel straight bands.
@@ -400,6 +446,13 @@ def detect_bands(
         picture); texture pixels come in runs, so the default 16 is calibrated on
         negatives (scikit-image's gravel gives a family of 15.6); true families in
         grains of a few hundred pixels score from about 13, large ones in the hundreds.
+    oversampling : int
+        How many times finer the pixels are than the content, for an image enlarged after
+        it was measured (0-4): 0 estimates it (:func:`tracefit.image.estimate_oversampling`),
+        1 takes the pixels as they are. A region of an enlarged image is analysed as the
+        same region of the original would be, so an enlarged map gives the same families
+        (estimated only where the region's short side is under 384 px: larger ones are
+        taken as they are unless a factor is given).
     notes : list of str, optional
         Notes to start the result with (e.g. from :func:`tracefit.image.read_image`).
 
@@ -440,9 +493,10 @@ def detect_bands(
     # Over 80 lines only through its docstring (numpydoc with runnable examples); the code is short.
     opts = check_detect_options(pixel_size_um=pixel_size_um, find_bar=find_bar, min_bands=min_bands,
                                 max_families=max_families, working_size=working_size, scales=scales,
-                                min_coverage=min_coverage, min_depth=min_depth, min_significance=min_significance)
+                                min_coverage=min_coverage, min_depth=min_depth, min_significance=min_significance,
+                                oversampling=oversampling)
     st = _Settings(**{k: opts[k] for k in ("min_bands", "max_families", "working_size", "scales", "min_coverage",
-                                            "min_depth", "min_significance", "pixel_size_um")})
+                                            "min_depth", "min_significance", "pixel_size_um", "oversampling")})
     if grain is not None and labels is None:
         raise TracefitInputError(f"grain={grain!r} needs labels (the grain label image)")
     pre_notes: list[str] = []
@@ -470,9 +524,16 @@ def detect_bands(
         res.reason = f"too small: {n_px} pixels to analyse, fewer than {MIN_ANALYSED_PX}; no bands reported"
         res.notes.append(res.reason)
         return res
-    up, box = _small_region_factor(img.shape, m)
-    if up > 1 and _reduction_factor(img.shape, st.working_size) == 1:
-        out = _rescaled_outcome(img, m, bars, st, up, box)
+    _, box = _small_region_factor(img.shape, m)
+    # the enlargement is judged on the whole image (a grain or masked region alone holds too few points)
+    ov = _sampling(img, None, st.oversampling, min(box[0].stop - box[0].start, box[1].stop - box[1].start))
+    if ov.factor > 1:
+        res.notes.append(ov.note())
+    up, box = _small_region_factor(img.shape, m, ov.factor)
+    if up == 1:  # a larger region of an enlarged image: the whole image, as the original's would be
+        box = (slice(0, h), slice(0, w))
+    if (up > 1 or ov.factor > 1) and _reduction_factor(img.shape, st.working_size) == 1:
+        out = _rescaled_outcome(img, m, bars, st, up, box, ov=ov)
     else:
         out = _with_coarser_looks(_detect_at_scale(img, m, bars, st), img, m, bars, st)
     res.families, res.verdict, res.reason = out.families, out.verdict, out.reason

@@ -13,13 +13,14 @@ from tracefit.image.detect import detect_bands
 from tracefit.image.options import DETECT_OPTIONS, check_detect_options
 from tracefit.image.prepare import MIN_SIDE_PX, _clear_boxes, _exclude_databars, _prepare_input, _working_size_problem
 from tracefit.image.results import DetectionResult
+from tracefit.image.sampling import estimate_oversampling
 
 __all__ = ["detect_grains"]
 
 GRAIN_MARGIN_PX = 8  # context kept around a grain's bounding box
 # keywords detect_grains passes on to detect_bands
 _PASSED_TO_DETECT_BANDS = ("find_bar", "min_bands", "max_families", "working_size", "scales", "min_coverage", "min_depth",
-                          "min_significance", "notes")
+                          "min_significance", "oversampling", "notes")
 
 
 def _grain_ids(lab, grains) -> list[int]:
@@ -57,8 +58,9 @@ def _grain_boxes(lab, ids):
 def _detect_one_grain(img, lab, base, gid, box, res_g: DetectionResult, min_pixels, working_size, det_kw) -> DetectionResult:
     """Run :func:`detect_bands` on one grain's crop; lines shifted back to whole-image pixels."""
     h, w = img.shape
-    r0, r1 = max(0, box[0].start - GRAIN_MARGIN_PX), min(h, box[0].stop + GRAIN_MARGIN_PX)
-    c0, c1 = max(0, box[1].start - GRAIN_MARGIN_PX), min(w, box[1].stop + GRAIN_MARGIN_PX)
+    margin = GRAIN_MARGIN_PX * det_kw.get("oversampling", 1)  # the same context in an enlarged image
+    r0, r1 = max(0, box[0].start - margin), min(h, box[0].stop + margin)
+    c0, c1 = max(0, box[1].start - margin), min(w, box[1].stop + margin)
     gm = (lab[r0:r1, c0:c1] == gid) & base[r0:r1, c0:c1]
     if gm.sum() < min_pixels or min(gm.shape) < MIN_SIDE_PX:
         res_g.verdict, res_g.reason = "too_small", f"too small: {int(gm.sum())} pixels, fewer than {min_pixels}"
@@ -112,7 +114,9 @@ def detect_grains(image: np.ndarray, labels: np.ndarray, mask: np.ndarray | None
         Grain ids to analyse (default: all ids of ``labels``).
     **kwargs
         Options of :func:`detect_bands`: ``find_bar, min_bands, max_families,
-        working_size, scales, min_coverage, min_depth, notes``.
+        working_size, scales, min_coverage, min_depth, min_significance,
+        oversampling, notes``. An ``oversampling`` of 0 (the default) is estimated once,
+        on the whole image.
 
     Returns
     -------
@@ -153,6 +157,9 @@ def detect_grains(image: np.ndarray, labels: np.ndarray, mask: np.ndarray | None
     bars = _exclude_databars(img, None, find_bar)
     base = np.ones((h, w), bool) if m is None else m.copy()
     _clear_boxes(base, bars)
+    if kwargs.get("oversampling", 0) == 0:
+        # judged once on the whole image: a grain alone holds too few points
+        kwargs = {**kwargs, "oversampling": estimate_oversampling(img, m).factor}
     out: dict[int, DetectionResult] = {}
     for gid, box in _grain_boxes(lab, ids).items():
         res_g = DetectionResult(path=path, width=w, height=h, excluded=list(bars), pixel_size_um=pixel_size_um, grain=gid)
