@@ -14,6 +14,7 @@ import math
 import cv2
 import numpy as np
 import pytest
+from scipy.ndimage import gaussian_filter
 from skimage import data
 
 from tests.test_detect_strainmaps import band_field
@@ -89,7 +90,9 @@ def _enlarged_map(grain_map, k, kind):
                          ids=["cubic2", "nearest2", "cubic3", "bilinear2"])
 def test_an_enlarged_grain_map_gives_the_same_families(grain_map, native_result, k, kind):
     big, labels = _enlarged_map(grain_map, k, kind)
-    out = _families(detect_grains(big, labels, min_pixels=300 * k * k))
+    # blocks are recognised; an interpolated enlargement is stated (it looks like smooth content)
+    stated = {} if kind == cv2.INTER_NEAREST else {"oversampling": k}
+    out = _families(detect_grains(big, labels, min_pixels=300 * k * k, **stated))
     ratios = []
     for g, fams in native_result.items():
         assert len(out[g]) == len(fams), g
@@ -122,14 +125,27 @@ def test_taken_as_given_the_enlarged_map_answers_otherwise(grain_map, native_res
     assert np.median(ratios) < 0.8
 
 
-def test_a_given_factor_is_used_and_checked(grain_map):
+def test_a_smooth_image_is_noted_and_taken_as_given(grain_map):
+    # an interpolated enlargement and smooth content look alike: unless stated, the pixels are
+    # taken as they are (halving a smooth native map lost most of its families)
     img = np.nan_to_num(grain_map[0], nan=0.01)
+    labels = enlarge(grain_map[1].astype(np.int32), 2, cv2.INTER_NEAREST)
     big = enlarge(img, 2, cv2.INTER_CUBIC)
-    auto = detect_bands(big, labels=enlarge(grain_map[1].astype(np.int32), 2, cv2.INTER_NEAREST), grain=0)
-    given = detect_bands(big, labels=enlarge(grain_map[1].astype(np.int32), 2, cv2.INTER_NEAREST), grain=0,
-                         oversampling=2)
-    assert [f.angle_deg for f in auto.families] == [f.angle_deg for f in given.families]
-    assert any("2 times finer" in n for n in auto.notes)
+    auto = detect_bands(big, labels=labels, grain=0)
+    as_given = detect_bands(big, labels=labels, grain=0, oversampling=1)
+    stated = detect_bands(big, labels=labels, grain=0, oversampling=2)
+    assert [f.angle_deg for f in auto.families] == [f.angle_deg for f in as_given.families]
+    assert any("smooth at the pixel level" in n and "oversampling=2" in n for n in auto.notes)
+    assert any("2 times finer" in n for n in stated.notes)
+    smooth_native = gaussian_filter(img, 1.0)
+    assert estimate_oversampling(smooth_native).factor == 2  # why it cannot be trusted
+    grains = detect_grains(smooth_native, grain_map[1], grains=[0, 1])
+    assert all(any("smooth at the pixel level" in n for n in r.notes) for r in grains.values())
+    assert not any("times finer" in n for r in grains.values() for n in r.notes)
+
+
+def test_a_stated_factor_is_checked(grain_map):
+    big = enlarge(np.nan_to_num(grain_map[0], nan=0.01), 2, cv2.INTER_CUBIC)
     for bad in (5, -1, 1.5):
         with pytest.raises(TracefitInputError, match="oversampling"):
             detect_bands(big, oversampling=bad)

@@ -76,7 +76,7 @@ from tracefit.image.prepare import (
 from tracefit.image.results import BandFamily, BandLine, DetectionResult
 from tracefit.image.projection import _projection_families
 from tracefit.image.ridges import _pixel_noise, flatten_background, ridge_pixels
-from tracefit.image.sampling import MAX_FACTOR, NATIVE, Oversampling, _block_test, estimate_oversampling
+from tracefit.image.sampling import MAX_FACTOR, NATIVE, Oversampling, _resolved
 from tracefit.image.search import SAME_FAMILY_DEG, _distinct_families, _search_rounds, _SearchContext, _without_bands
 from tracefit.image.significance import family_log10_nfa
 
@@ -344,21 +344,14 @@ def _rescaled_outcome(img, m, bars, st: _Settings, up: int, box, down: int = 1, 
     return out
 
 
-def _sampling(img, valid, given: int, side: float | None = None) -> Oversampling:
-    """The image's enlargement: estimated (``given`` 0), none (1) or ``given`` (in blocks where it holds them).
+def _sampling(img, given: int, side: int) -> tuple[Oversampling, str | None]:
+    """:func:`tracefit.image.sampling._resolved` for a region of short side ``side``.
 
-    ``side`` is the short side of the region to analyse: a region too large to be small at
-    any enlargement looked for needs no estimate.
+    A region too large to be small at any enlargement looked for needs no estimate.
     """
-    if given == 1:
-        return NATIVE
-    if given == 0:
-        if side is not None and side >= SMALL_SIDE_PX * MAX_FACTOR:
-            return NATIVE
-        return estimate_oversampling(img, valid)
-    pc = _block_test(img, given)
-    pr = _block_test(img.T, given) if pc is not None else None
-    return Oversampling(given, "blocks", (pr, pc)) if pr is not None else Oversampling(given, "smooth", (0, 0))
+    if given == 0 and side >= SMALL_SIDE_PX * MAX_FACTOR:
+        return NATIVE, None
+    return _resolved(img, None, given)
 
 
 def _with_coarser_looks(out: _Outcome, img, m, bars, st: _Settings) -> _Outcome:
@@ -456,11 +449,13 @@ def detect_bands(
         grains of a few hundred pixels score from about 13, large ones in the hundreds.
     oversampling : int
         How many times finer the pixels are than the content, for an image enlarged after
-        it was measured (0-4): 0 estimates it (:func:`tracefit.image.estimate_oversampling`),
-        1 takes the pixels as they are. A region of an enlarged image is analysed as the
-        same region of the original would be, so an enlarged map gives the same families
-        (estimated only where the region's short side is under 384 px: larger ones are
-        taken as they are unless a factor is given).
+        it was measured (0-4); 1 takes the pixels as they are. A region of an enlarged
+        image is analysed as the same region of the original would be, so an enlarged map
+        gives the same families. 0 recognises an enlargement in blocks of equal pixels
+        (nearest-neighbour; see :func:`tracefit.image.estimate_oversampling`) and notes a
+        smooth image that may have been enlarged by interpolation, which cannot be told
+        from smooth content: state the factor for those. Regions with a short side of
+        384 px or more are not estimated.
     notes : list of str, optional
         Notes to start the result with (e.g. from :func:`tracefit.image.read_image`).
 
@@ -534,9 +529,9 @@ def detect_bands(
         return res
     _, box = _small_region_factor(img.shape, m)
     # the enlargement is judged on the whole image (a grain or masked region alone holds too few points)
-    ov = _sampling(img, None, st.oversampling, min(box[0].stop - box[0].start, box[1].stop - box[1].start))
-    if ov.factor > 1:
-        res.notes.append(ov.note())
+    ov, note = _sampling(img, st.oversampling, min(box[0].stop - box[0].start, box[1].stop - box[1].start))
+    if note:
+        res.notes.append(note)
     up, box = _small_region_factor(img.shape, m, ov.factor)
     if up == 1:  # a larger region of an enlarged image: the whole image, as the original's would be
         box = (slice(0, h), slice(0, w))

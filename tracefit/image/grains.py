@@ -13,7 +13,7 @@ from tracefit.image.detect import detect_bands
 from tracefit.image.options import DETECT_OPTIONS, check_detect_options
 from tracefit.image.prepare import MIN_SIDE_PX, _clear_boxes, _exclude_databars, _prepare_input, _working_size_problem
 from tracefit.image.results import DetectionResult
-from tracefit.image.sampling import estimate_oversampling
+from tracefit.image.sampling import _resolved
 
 __all__ = ["detect_grains"]
 
@@ -157,11 +157,12 @@ def detect_grains(image: np.ndarray, labels: np.ndarray, mask: np.ndarray | None
     bars = _exclude_databars(img, None, find_bar)
     base = np.ones((h, w), bool) if m is None else m.copy()
     _clear_boxes(base, bars)
-    if kwargs.get("oversampling", 0) == 0:
-        # judged once on the whole image: a grain alone holds too few points
-        kwargs = {**kwargs, "oversampling": estimate_oversampling(img, m).factor}
+    # judged once on the whole image (a grain alone holds too few points), then stated to each grain
+    ov, sampling_note = _resolved(img, m, kwargs.get("oversampling", 0))
+    kwargs = {**kwargs, "oversampling": ov.factor}
     out: dict[int, DetectionResult] = {}
     for gid, box in _grain_boxes(lab, ids).items():
-        res_g = DetectionResult(path=path, width=w, height=h, excluded=list(bars), pixel_size_um=pixel_size_um, grain=gid)
+        res_g = DetectionResult(path=path, width=w, height=h, excluded=list(bars), pixel_size_um=pixel_size_um, grain=gid,
+                                notes=[sampling_note] if sampling_note and ov.factor == 1 else [])
         out[gid] = _detect_one_grain(img, lab, base, gid, box, res_g, min_pixels, working_size, kwargs)
     return out

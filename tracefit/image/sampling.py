@@ -4,8 +4,10 @@ A strain map or micrograph enlarged before it reaches tracefit (a user's workaro
 small grains, or an export at another size) holds no more than the original did, but its
 grains and bands are several times larger in pixels, and a detector sized in pixels
 answers differently. :func:`estimate_oversampling` finds the enlargement factor from the
-pixels alone, so that the detector can analyse the data at its own sampling and give the
-same families whatever enlargement was applied.
+pixels alone. The detector (option ``oversampling``) analyses an image enlarged in blocks
+at its content's own sampling, which gives the same families as the original; a smooth
+image is only noted, since smooth content and an interpolated enlargement look alike (the
+factor can be stated).
 
 Two signatures are looked for, in both image directions:
 
@@ -71,7 +73,7 @@ class Oversampling(NamedTuple):
 
     def note(self) -> str:
         """One line for a result's notes."""
-        how = "in blocks of equal pixels" if self.kind == "blocks" else "smoothly (interpolated)"
+        how = "in blocks of equal pixels" if self.kind == "blocks" else "as stated"
         return (f"pixels taken as {self.factor} times finer than the content (an image enlarged {self.factor}x, "
                 f"{how}): analysed as the content's own points would be")
 
@@ -134,6 +136,32 @@ def _smooth_factor(img: np.ndarray) -> int:
             break
         best = k
     return best
+
+
+def _resolved(img: np.ndarray, valid: np.ndarray | None, given: int) -> tuple[Oversampling, str | None]:
+    """The enlargement the detector works with (option ``oversampling``), and a note for the result.
+
+    0 (estimate) uses only an enlargement in blocks, which is certain. A smooth image is
+    only noted: a map enlarged by interpolation cannot be told from a map whose content is
+    smooth (a strain map computed over overlapping windows, an optical image sampled
+    finely), and analysing such a map at half its sampling lost most of its families
+    (strain maps of ``benchmarks/strainmap.py`` smoothed by a Gaussian of 0.8 px: recall
+    0.41 as given, 0.11 halved). A stated factor is used, in blocks where the image
+    holds them.
+    """
+    if given == 1:
+        return NATIVE, None
+    if given == 0:
+        est = estimate_oversampling(img, valid)
+        if est.kind == "smooth":
+            return NATIVE, (f"the image is smooth at the pixel level, as one enlarged {est.factor}x by interpolation "
+                            f"would be; analysed as given (if it was enlarged, oversampling={est.factor} gives the "
+                            f"original's answer)")
+        return est, (est.note() if est.factor > 1 else None)
+    pc = _block_test(img, given)
+    pr = _block_test(img.T, given) if pc is not None else None
+    ov = Oversampling(given, "blocks", (pr, pc)) if pr is not None else Oversampling(given, "smooth", (0, 0))
+    return ov, ov.note()
 
 
 def estimate_oversampling(image: np.ndarray, valid: np.ndarray | None = None) -> Oversampling:
