@@ -18,9 +18,10 @@ Two signatures are looked for, in both image directions:
   little power above the original Nyquist frequency ``0.5 / k`` cycles per pixel. The
   Welch power spectrum along rows and columns is compared above (``1.25-1.75 x``) and
   below (``0.3-0.8 x``) that frequency; measured data (noise, texture, sharp bands) keep a
-  good share of their power up there. A native image whose optics blur it (a finely
-  sampled light micrograph) is smooth too; it is then oversampled in truth, and
-  analysing it at its own sampling loses nothing (the sampling theorem).
+  good share of their power up there. A native image whose content is smooth (a strain
+  map computed over overlapping windows, a finely sampled light micrograph) passes this
+  test too, and its fine detail, though weak, still carries bands: that is why the
+  detector does not act on this signature unless told to.
 
 Thresholds (measured here, no source): enlargements by 2 with cubic, bilinear and
 Lanczos kernels give power ratios of 0.0001-0.008 (white noise the most) on strain maps
