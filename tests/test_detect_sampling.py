@@ -133,3 +133,31 @@ def test_a_given_factor_is_used_and_checked(grain_map):
     for bad in (5, -1, 1.5):
         with pytest.raises(TracefitInputError, match="oversampling"):
             detect_bands(big, oversampling=bad)
+
+
+def _two_families(shape, seed):
+    from tracefit.image import BandFamilySpec, render_micrograph
+
+    h, w = shape
+    img, _ = render_micrograph(shape, [BandFamilySpec(30.0, spacing_px=max(6, min(h, w) // 8)),
+                                       BandFamilySpec(110.0, spacing_px=max(6, min(h, w) // 7))], seed=seed)
+    return img
+
+
+def test_band_lines_stay_inside_the_image():
+    # lines fitted on a resized copy (or projected from ridge pixels) used to end 2-3 px past
+    # the border once mapped back: (302.1, 297.6) in a 300 x 300 image analysed at oversampling 3,
+    # row 141.1 of a 140-row 1-bit picture at oversampling 2 (a rule of tracefit's, no source)
+    sat = _two_families((300, 300), 7)
+    sat[:, :150] = sat.max()  # half saturated
+    small = _two_families((70, 90), 5) > 128
+    onebit = cv2.resize(small.astype(np.uint8), (180, 140), interpolation=cv2.INTER_NEAREST).astype(bool)
+    n_lines = 0
+    for img, ov in ((sat, 3), (sat, 4), (onebit, 2)):
+        h, w = img.shape
+        for fam in detect_bands(img, oversampling=ov).families:
+            for ln in fam.lines:
+                n_lines += 1
+                assert 0.0 <= min(ln.col0, ln.col1) and max(ln.col0, ln.col1) <= w - 1, (ov, ln)
+                assert 0.0 <= min(ln.row0, ln.row1) and max(ln.row0, ln.row1) <= h - 1, (ov, ln)
+    assert n_lines >= 10

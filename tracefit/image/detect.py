@@ -62,6 +62,7 @@ from tracefit.conventions import axial_difference
 from tracefit.errors import TracefitInputError
 from tracefit.image.depth import _depth_map, _on_band_side
 from tracefit.image.families import _build_family, _FamilyContext
+from tracefit.image.geometry import _clip_line_to_box
 from tracefit.image.hough import SECTOR_DEG
 from tracefit.image.options import check_detect_options
 from tracefit.image.prepare import (
@@ -344,6 +345,25 @@ def _rescaled_outcome(img, m, bars, st: _Settings, up: int, box, down: int = 1, 
     return out
 
 
+def _clip_to_image(families, w: int, h: int) -> None:
+    """Band lines cut to the image's pixel centres ``[0, w - 1] x [0, h - 1]``, in place.
+
+    Lines fitted on a resized copy, or from a band's ridge pixels projected on its common
+    line, can end a few pixels past the border once mapped back (by the resize factor).
+    """
+    for fam in families:
+        for ln in fam.lines:
+            p, d = (ln.col0, ln.row0), (ln.col1 - ln.col0, ln.row1 - ln.row0)
+            seg = _clip_line_to_box(p, d, (0.0, 0.0, w - 1.0, h - 1.0))
+            if seg is None or seg[1] < 0.0 or seg[0] > 1.0:  # no part inside: its ends pulled in
+                ln.col0, ln.col1 = (float(min(max(c, 0.0), w - 1.0)) for c in (ln.col0, ln.col1))
+                ln.row0, ln.row1 = (float(min(max(r, 0.0), h - 1.0)) for r in (ln.row0, ln.row1))
+                continue
+            t0, t1 = max(seg[0], 0.0), min(seg[1], 1.0)
+            ln.col0, ln.row0, ln.col1, ln.row1 = (float(p[0] + t0 * d[0]), float(p[1] + t0 * d[1]),
+                                                  float(p[0] + t1 * d[0]), float(p[1] + t1 * d[1]))
+
+
 def _sampling(img, valid, given: int, side: float | None = None) -> Oversampling:
     """The image's enlargement: estimated (``given`` 0), none (1) or ``given`` (in blocks where it holds them).
 
@@ -544,6 +564,7 @@ def detect_bands(
         out = _rescaled_outcome(img, m, bars, st, up, box, ov=ov)
     else:
         out = _with_coarser_looks(_detect_at_scale(img, m, bars, st), img, m, bars, st)
+    _clip_to_image(out.families, w, h)
     res.families, res.verdict, res.reason = out.families, out.verdict, out.reason
     res.notes.extend(out.notes)
     res.notes.append(out.reason)
