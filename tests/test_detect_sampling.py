@@ -161,3 +161,21 @@ def test_band_lines_stay_inside_the_image():
                 assert 0.0 <= min(ln.col0, ln.col1) and max(ln.col0, ln.col1) <= w - 1, (ov, ln)
                 assert 0.0 <= min(ln.row0, ln.row1) and max(ln.row0, ln.row1) <= h - 1, (ov, ln)
     assert n_lines >= 10
+
+
+def test_nan_points_are_left_out_of_the_estimate_in_detect_bands_too():
+    # a map enlarged 3x (Lanczos) with NaN holes (13 % of its points): detect_grains leaves them
+    # out of the estimate and finds 3; detect_bands judged the median-filled image, whose hole
+    # edges put power above the content's Nyquist frequency, and took it as 2x
+    rng = np.random.default_rng(0)
+    field = band_field(SHAPE, [(30, 9.0), (100, 8.0)], seed=3).astype(np.float32)
+    for _ in range(60):
+        r, c = rng.integers(0, 195), rng.integers(0, 295)
+        field[r:r + 5, c:c + 5] = np.nan
+    big = enlarge(field, 3, cv2.INTER_LANCZOS4)
+    assert 0.1 < np.isnan(big).mean() < 0.2
+    assert estimate_oversampling(big).factor == 3
+    labels = np.zeros(big.shape, np.int32)
+    labels[200:500, 300:600] = 1  # a grain small enough for the estimate to matter
+    res = detect_bands(big, labels=labels, grain=1)
+    assert any("3 times finer" in n for n in res.notes), res.notes

@@ -364,6 +364,15 @@ def _clip_to_image(families, w: int, h: int) -> None:
                                                   float(p[0] + t1 * d[0]), float(p[1] + t1 * d[1]))
 
 
+def _finite_points(image) -> np.ndarray | None:
+    """False at the NaN points of a float image (any colour channel), or None when it has none."""
+    raw = np.asarray(image)
+    if raw.dtype.kind != "f":
+        return None
+    nan = np.isnan(raw[..., :3]).any(axis=-1) if raw.ndim == 3 else np.isnan(raw)
+    return ~nan if nan.any() else None
+
+
 def _sampling(img, valid, given: int, side: float | None = None) -> Oversampling:
     """The image's enlargement: estimated (``given`` 0), none (1) or ``given`` (in blocks where it holds them).
 
@@ -553,8 +562,9 @@ def detect_bands(
         res.notes.append(res.reason)
         return res
     _, box = _small_region_factor(img.shape, m)
-    # the enlargement is judged on the whole image (a grain or masked region alone holds too few points)
-    ov = _sampling(img, None, st.oversampling, min(box[0].stop - box[0].start, box[1].stop - box[1].start))
+    # the enlargement is judged on the whole image (a grain or masked region alone holds too few points),
+    # its NaN points left out as detect_grains leaves them out (filled, their edges look like detail)
+    ov = _sampling(img, _finite_points(image), st.oversampling, min(box[0].stop - box[0].start, box[1].stop - box[1].start))
     if ov.factor > 1:
         res.notes.append(ov.note())
     up, box = _small_region_factor(img.shape, m, ov.factor)
