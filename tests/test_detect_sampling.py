@@ -179,3 +179,23 @@ def test_nan_points_are_left_out_of_the_estimate_in_detect_bands_too():
     labels[200:500, 300:600] = 1  # a grain small enough for the estimate to matter
     res = detect_bands(big, labels=labels, grain=1)
     assert any("3 times finer" in n for n in res.notes), res.notes
+
+
+def test_label_images_with_huge_or_nan_ids_are_handled():
+    # ids of 2**40 made find_objects list 2**40 boxes (MemoryError); NaN ids in a float label
+    # image raised ValueError (a rule of tracefit's: bad input is a TracefitInputError, no source)
+    img = np.nan_to_num(grain_map_image(), nan=0.01)
+    labels = np.zeros(img.shape, np.int64)
+    labels[:, 150:] = 1
+    out = detect_grains(img, labels * 2**40 + 5, min_pixels=300)
+    assert sorted(out) == [5, 2**40 + 5]
+    ref = detect_grains(img, labels, min_pixels=300)
+    assert [f.angle_deg for f in out[2**40 + 5].families] == [f.angle_deg for f in ref[1].families]
+    with pytest.raises(TracefitInputError, match="labels"):
+        detect_grains(img, np.where(labels == 0, np.nan, 1.0))
+    with pytest.raises(TracefitInputError, match="labels"):
+        detect_grains(img, labels + 0.5)
+
+
+def grain_map_image():
+    return band_field(SHAPE, [(30, 9.0), (100, 8.0)], seed=3).astype(np.float32)
