@@ -199,3 +199,17 @@ def test_label_images_with_huge_or_nan_ids_are_handled():
 
 def grain_map_image():
     return band_field(SHAPE, [(30, 9.0), (100, 8.0)], seed=3).astype(np.float32)
+
+
+def test_a_grain_id_beyond_the_label_type_is_not_in_the_labels():
+    # labels of bool or int8 and a grain id of 2**70 raised OverflowError (tracefit's rule: bad input
+    # is a TracefitInputError, no source)
+    img = grain_map_image()
+    labels = np.zeros(img.shape, np.int8)
+    labels[:, 150:] = 1
+    for lab in (labels, labels.astype(bool), labels.astype(np.uint16)):
+        with pytest.raises(TracefitInputError, match="does not occur"):
+            detect_bands(img, labels=lab, grain=2**70)
+    with pytest.raises(TracefitInputError, match="does not occur"):
+        detect_bands(img, labels=labels, grain=300)
+    assert detect_bands(img, labels=labels, grain=1).grain == 1

@@ -52,6 +52,7 @@ rounds); a significance per family -- ``accept`` in ``_detect_at_scale``.
 from __future__ import annotations
 
 import math
+import numbers
 from collections.abc import Sequence
 from dataclasses import dataclass
 
@@ -536,6 +537,12 @@ def detect_bands(
                                             "min_depth", "min_significance", "pixel_size_um", "oversampling")})
     if grain is not None and labels is None:
         raise TracefitInputError(f"grain={grain!r} needs labels (the grain label image)")
+    if grain is not None and labels is not None:
+        lab_type = np.asarray(labels).dtype
+        if lab_type.kind in "biu" and isinstance(grain, numbers.Integral) and not isinstance(grain, (bool, np.bool_)):
+            lo, hi = (0, 1) if lab_type.kind == "b" else (np.iinfo(lab_type).min, np.iinfo(lab_type).max)
+            if not lo <= int(grain) <= hi:  # ``labels == grain`` would overflow
+                raise TracefitInputError(f"grain id {grain} does not occur in the label image")
     pre_notes: list[str] = []
     img, m = _prepare_input(image, mask, labels, grain, notes=pre_notes)
     problem = _working_size_problem(img.shape, st.working_size)
