@@ -52,6 +52,7 @@ rounds); a significance per family -- ``accept`` in ``_detect_at_scale``.
 from __future__ import annotations
 
 import math
+import numbers
 from collections.abc import Sequence
 from dataclasses import dataclass
 
@@ -62,6 +63,7 @@ from tracefit.conventions import axial_difference
 from tracefit.errors import TracefitInputError
 from tracefit.image.depth import _depth_map, _on_band_side
 from tracefit.image.families import _build_family, _FamilyContext
+from tracefit.image.geometry import _clip_line_to_box
 from tracefit.image.hough import SECTOR_DEG
 from tracefit.image.options import check_detect_options
 from tracefit.image.prepare import (
@@ -344,14 +346,42 @@ def _rescaled_outcome(img, m, bars, st: _Settings, up: int, box, down: int = 1, 
     return out
 
 
-def _sampling(img, given: int, side: int) -> tuple[Oversampling, str | None]:
-    """:func:`tracefit.image.sampling._resolved` for a region of short side ``side``.
+def _clip_to_image(families, w: int, h: int) -> None:
+    """Band lines cut to the image's pixel centres ``[0, w - 1] x [0, h - 1]``, in place.
+
+    Lines fitted on a resized copy, or from a band's ridge pixels projected on its common
+    line, can end a few pixels past the border once mapped back (by the resize factor).
+    """
+    for fam in families:
+        for ln in fam.lines:
+            p, d = (ln.col0, ln.row0), (ln.col1 - ln.col0, ln.row1 - ln.row0)
+            seg = _clip_line_to_box(p, d, (0.0, 0.0, w - 1.0, h - 1.0))
+            if seg is None or seg[1] < 0.0 or seg[0] > 1.0:  # no part inside: its ends pulled in
+                ln.col0, ln.col1 = (float(min(max(c, 0.0), w - 1.0)) for c in (ln.col0, ln.col1))
+                ln.row0, ln.row1 = (float(min(max(r, 0.0), h - 1.0)) for r in (ln.row0, ln.row1))
+                continue
+            t0, t1 = max(seg[0], 0.0), min(seg[1], 1.0)
+            ln.col0, ln.row0, ln.col1, ln.row1 = (float(p[0] + t0 * d[0]), float(p[1] + t0 * d[1]),
+                                                  float(p[0] + t1 * d[0]), float(p[1] + t1 * d[1]))
+
+
+def _finite_points(image) -> np.ndarray | None:
+    """False at the NaN points of a float image (any colour channel), or None when it has none."""
+    raw = np.asarray(image)
+    if raw.dtype.kind != "f":
+        return None
+    nan = np.isnan(raw[..., :3]).any(axis=-1) if raw.ndim == 3 else np.isnan(raw)
+    return ~nan if nan.any() else None
+
+
+def _sampling(img, valid, given: int, side: int) -> tuple[Oversampling, str | None]:
+    """:func:`tracefit.image.sampling._resolved` for a region of short side ``side``; ``valid``: points to judge by.
 
     A region too large to be small at any enlargement looked for needs no estimate.
     """
     if given == 0 and side >= SMALL_SIDE_PX * MAX_FACTOR:
         return NATIVE, None
-    return _resolved(img, None, given)
+    return _resolved(img, valid, given)
 
 
 def _with_coarser_looks(out: _Outcome, img, m, bars, st: _Settings) -> _Outcome:
@@ -502,6 +532,12 @@ def detect_bands(
                                             "min_depth", "min_significance", "pixel_size_um", "oversampling")})
     if grain is not None and labels is None:
         raise TracefitInputError(f"grain={grain!r} needs labels (the grain label image)")
+    if grain is not None and labels is not None:
+        lab_type = np.asarray(labels).dtype
+        if lab_type.kind in "biu" and isinstance(grain, numbers.Integral) and not isinstance(grain, (bool, np.bool_)):
+            lo, hi = (0, 1) if lab_type.kind == "b" else (np.iinfo(lab_type).min, np.iinfo(lab_type).max)
+            if not lo <= int(grain) <= hi:  # ``labels == grain`` would overflow
+                raise TracefitInputError(f"grain id {grain} does not occur in the label image")
     pre_notes: list[str] = []
     img, m = _prepare_input(image, mask, labels, grain, notes=pre_notes)
     problem = _working_size_problem(img.shape, st.working_size)
@@ -528,8 +564,10 @@ def detect_bands(
         res.notes.append(res.reason)
         return res
     _, box = _small_region_factor(img.shape, m)
-    # the enlargement is judged on the whole image (a grain or masked region alone holds too few points)
-    ov, note = _sampling(img, st.oversampling, min(box[0].stop - box[0].start, box[1].stop - box[1].start))
+    # the enlargement is judged on the whole image (a grain or masked region alone holds too few points),
+    # its NaN points left out as detect_grains leaves them out (filled, their edges look like detail)
+    ov, note = _sampling(img, _finite_points(image), st.oversampling,
+                         min(box[0].stop - box[0].start, box[1].stop - box[1].start))
     if note:
         res.notes.append(note)
     up, box = _small_region_factor(img.shape, m, ov.factor)
@@ -539,6 +577,7 @@ def detect_bands(
         out = _rescaled_outcome(img, m, bars, st, up, box, ov=ov)
     else:
         out = _with_coarser_looks(_detect_at_scale(img, m, bars, st), img, m, bars, st)
+    _clip_to_image(out.families, w, h)
     res.families, res.verdict, res.reason = out.families, out.verdict, out.reason
     res.notes.extend(out.notes)
     res.notes.append(out.reason)

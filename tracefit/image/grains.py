@@ -43,7 +43,9 @@ def _grain_ids(lab, grains) -> list[int]:
 
 def _grain_boxes(lab, ids):
     """Bounding slices (rows, cols) of each grain id."""
-    objs = ndimage.find_objects(lab.astype(np.int64) + 1) if lab.min() >= -1 else None
+    # find_objects lists every label up to the largest: only for ids of about the image's size
+    small_ids = lab.min() >= -1 and int(lab.max()) <= 4 * lab.size
+    objs = ndimage.find_objects(lab.astype(np.int64) + 1) if small_ids else None
     boxes = {}
     for gid in ids:
         # find_objects(lab + 1)[i] is the box of label i (ids from 0 up)
@@ -152,6 +154,10 @@ def detect_grains(image: np.ndarray, labels: np.ndarray, mask: np.ndarray | None
     working_size = checked.get("working_size", DETECT_OPTIONS["working_size"].default)
     img, m = _prepare_input(image, mask, labels, None)
     lab = np.asarray(labels)
+    if lab.dtype.kind == "f" and not (np.isfinite(lab).all() and (lab == np.round(lab)).all()):
+        raise TracefitInputError("labels must hold whole-number grain ids; got NaN, infinite or fractional values")
+    if lab.dtype.kind not in "biuf":
+        raise TracefitInputError(f"labels must hold integer grain ids; got an array of {lab.dtype}")
     ids = _grain_ids(lab, grains)
     h, w = img.shape
     bars = _exclude_databars(img, None, find_bar)
