@@ -56,6 +56,13 @@ def _as_grey(image):
         raise TracefitInputError(f"image has shape {img.shape}; expected a 2-D grey image (or RGB(A))")
     if min(img.shape) < MIN_SIDE_PX:
         raise TracefitInputError(f"image is {_size_text(img.shape)} pixels; expected at least 16 x 16")
+    if img.dtype.kind == "f" and img.dtype.itemsize > 4:
+        # float64 levels beyond float32's range (or below its resolution) are rescaled first:
+        # only their ratios matter to the detector
+        fin = img[np.isfinite(img)]
+        top = float(np.abs(fin).max()) if fin.size else 0.0
+        if top > 0 and not 1e-30 < top < 1e30:
+            img = img / top
     img = img.astype(np.float32, copy=False)
     holes = None
     step = max(1, (1 << 22) // max(1, img.shape[1]))  # row blocks: no full-size temporaries
