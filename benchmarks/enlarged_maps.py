@@ -3,8 +3,9 @@
 Not part of the test suite; prints figures. The maps are those of ``benchmarks/strainmap.py``
 (its own renderer; levels easy, typical, hard, seeds 1-2 by default). Each map is analysed
 grain by grain (``tracefit.image.detect_grains``, ``min_pixels`` 300) at its own size, then
-enlarged with OpenCV's ``cv2.resize`` (labels nearest-neighbour, NaN points kept NaN,
-``min_pixels`` times k^2) and analysed again, once with the enlargement stated
+enlarged with OpenCV's ``cv2.resize`` (labels nearest-neighbour, NaN points kept NaN;
+``min_pixels`` 300 counts the original's points once the factor is known, 300 k^2 is asked
+for by hand when the image is taken as given) and analysed again, once with the enlargement stated
 (``oversampling=k``) and once with the default (0: an enlargement in blocks is recognised,
 a smooth one only noted) and, for comparison, taken as given (``oversampling=1``). A
 family of the native answer is kept when the enlarged answer has one within 2 deg in the
@@ -80,7 +81,10 @@ def main(argv=None) -> None:
             for k, name, kind in ENLARGEMENTS:
                 big, labels = _enlarge(sm.image, sm.labels, k, kind)
                 for how, over in (("stated", k), ("default", 0), ("as given", 1)):
-                    out = angles(detect_grains(big, labels, min_pixels=300 * k * k, oversampling=over))
+                    # grain sizes are counted in the original's points once the factor is known (stated or
+                    # blocks); taken as given, the same grains are asked for by hand
+                    known = over == k or (over == 0 and kind == cv2.INTER_NEAREST)
+                    out = angles(detect_grains(big, labels, min_pixels=300 if known else 300 * k * k, oversampling=over))
                     acc = totals.setdefault((k, name, how), [0, 0, 0, []])
                     kept, lost, new, ch = _compare(native, out)
                     acc[0] += kept

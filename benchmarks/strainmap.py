@@ -583,7 +583,17 @@ def _match(true_angles, found_angles):
     return out
 
 
-def run_level(level, seeds, opts, negatives=True, save=None, off=frozenset(), trace=False):
+def _smoothed(img, sigma):
+    """The map blurred by a Gaussian of ``sigma`` points (NaN points stay NaN): smooth content at its own sampling."""
+    from scipy.ndimage import gaussian_filter
+
+    nan = np.isnan(img)
+    out = gaussian_filter(np.where(nan, np.nanmedian(img), img), sigma).astype(np.float32)
+    out[nan] = np.nan
+    return out
+
+
+def run_level(level, seeds, opts, negatives=True, save=None, off=frozenset(), trace=False, smooth=0.0):
     n_true = n_found = n_spur = 0
     by_rank = {1: [0, 0], 2: [0, 0], 3: [0, 0]}
     errs, misses, spurious = [], [], []
@@ -593,6 +603,8 @@ def run_level(level, seeds, opts, negatives=True, save=None, off=frozenset(), tr
     min_px = option("min_grain_px").default
     for seed in seeds:
         sm = render(seed, level, True, off)
+        if smooth:
+            sm.image = _smoothed(sm.image, smooth)
         if save:
             os.makedirs(save, exist_ok=True)
             np.save(os.path.join(save, f"{level}_{seed}_map.npy"), sm.image)
@@ -640,6 +652,8 @@ def run_level(level, seeds, opts, negatives=True, save=None, off=frozenset(), tr
                                          pol=f.polarity, nearest_true=near))
         if negatives:
             nm = render(seed, level, False, off)
+            if smooth:
+                nm.image = _smoothed(nm.image, smooth)
             t0 = time.process_time()
             rn = detect_grains(nm.image, nm.labels, min_pixels=min_px, **opts)
             t_det += time.process_time() - t0
@@ -704,7 +718,7 @@ def _parse_opts(items):
             raise ValueError(f"--opt expects NAME=VALUE, got {it!r}")
         if k == "scales":
             out[k] = tuple(float(x) for x in v.split(","))
-        elif k in ("min_bands", "max_families", "working_size"):
+        elif k in ("min_bands", "max_families", "working_size", "oversampling"):
             out[k] = int(v)
         else:
             out[k] = float(v)
@@ -724,6 +738,8 @@ def main(argv=None):
     ap.add_argument("--without", default="", help="realism features to leave out (ablation), comma-separated: "
                     + ", ".join(FEATURES))
     ap.add_argument("--save-maps", default=None, help="folder for the maps, labels and truth (.npy/.json)")
+    ap.add_argument("--smooth", type=float, default=0.0,
+                    help="blur every map by a Gaussian of this many points (smooth content at its own sampling)")
     a = ap.parse_args(argv)
     try:
         opts = _parse_opts(a.opt)
@@ -740,12 +756,13 @@ def main(argv=None):
     n = 2 if a.quick else a.seeds
     seeds = list(range(1, n + 1))
     print(f"strain-map benchmark: levels {levels}, seeds {seeds}, detector options {opts or 'defaults'}, "
-          f"left out: {', '.join(sorted(off)) or 'nothing'}, "
+          f"left out: {', '.join(sorted(off)) or 'nothing'}, " + (f"smoothed by {a.smooth:g} points, " if a.smooth else "") +
           f"map {SHAPE[0]} x {SHAPE[1]}, scored grains {SCORED_PX[0]}-{SCORED_PX[1]} px, match {MATCH_TOL_DEG:g} deg")
     t0 = time.perf_counter()
     tot = dict(true=0, found=0, spurious=0, neg=0, negg=0)
     for lv in levels:
-        r = run_level(lv, seeds, opts, negatives=not a.no_negatives, save=a.save_maps, off=off, trace=a.trace)
+        r = run_level(lv, seeds, opts, negatives=not a.no_negatives, save=a.save_maps, off=off, trace=a.trace,
+                      smooth=a.smooth)
         _print_level(r, verbose=not a.brief)
         tot["true"] += r["true"]
         tot["found"] += r["found"]

@@ -92,7 +92,8 @@ def test_an_enlarged_grain_map_gives_the_same_families(grain_map, native_result,
     big, labels = _enlarged_map(grain_map, k, kind)
     # blocks are recognised; an interpolated enlargement is stated (it looks like smooth content)
     stated = {} if kind == cv2.INTER_NEAREST else {"oversampling": k}
-    out = _families(detect_grains(big, labels, min_pixels=300 * k * k, **stated))
+    # min_pixels as for the original: the grain sizes are counted in its points
+    out = _families(detect_grains(big, labels, min_pixels=300, **stated))
     ratios = []
     for g, fams in native_result.items():
         assert len(out[g]) == len(fams), g
@@ -242,3 +243,72 @@ def test_float64_levels_beyond_float32_are_rescaled_not_refused():
     assert base
     for scale in (1e300, 1e-300):
         assert [round(f.angle_deg, 3) for f in detect_bands(img * scale).families] == base
+
+
+@pytest.mark.parametrize("k", [2, 3])
+def test_a_block_enlargement_maps_back_exactly(grain_map, k):
+    # OpenCV's resize puts the centre of original pixel j at k j + (k - 1) / 2 of the enlarged
+    # image (half-pixel centres, as its documentation states); nearest-neighbour blocks give the
+    # original's points back, so lines, spacings and their micrometres must agree exactly
+    img, labels = grain_map
+    native = detect_grains(img, labels, min_pixels=300, pixel_size_um=0.5)
+    big, big_labels = _enlarged_map(grain_map, k, cv2.INTER_NEAREST)
+    out = detect_grains(big, big_labels, min_pixels=300, pixel_size_um=0.5 / k)
+    n_lines = 0
+    for g, r0 in native.items():
+        r1 = out[g]
+        assert len(r1.families) == len(r0.families), g
+        for f0, f1 in zip(r0.families, r1.families):
+            assert f1.angle_deg == pytest.approx(f0.angle_deg, abs=1e-4)
+            assert f1.spacing_px == pytest.approx(k * f0.spacing_px, rel=1e-5)
+            assert f1.spacing_um == pytest.approx(f0.spacing_um, rel=1e-5)
+            for l0, l1 in zip(f0.lines, f1.lines):
+                ends0 = np.array([[l0.col0, l0.row0], [l0.col1, l0.row1]]) * k + (k - 1) / 2
+                ends1 = np.array([[l1.col0, l1.row0], [l1.col1, l1.row1]])
+                # (a line cut at the image border keeps its cut end: the border is k - 1 px further out)
+                inside = (ends0 > k).all(axis=1) & (ends0[:, 0] < big.shape[1] - k) & (ends0[:, 1] < big.shape[0] - k)
+                assert np.abs(ends1 - ends0)[inside].max(initial=0.0) < 1e-3
+                n_lines += 1
+    assert n_lines > 20
+
+
+def test_every_entry_point_gives_the_enlarged_map_the_same_answer(grain_map, tmp_path):
+    # the one chain: the whole image through detect_bands and the command line, a grain through
+    # detect_bands(labels=, grain=) and detect_grains, all as for the original (a 400 x 600 map)
+    from tracefit.cli import main as cli_main
+
+    img, labels = grain_map
+    filled = np.nan_to_num(img, nan=0.01)
+    big = enlarge(filled, 2, cv2.INTER_NEAREST)
+    big_labels = enlarge(labels.astype(np.int32), 2, cv2.INTER_NEAREST)
+    assert min(big.shape) >= 400
+    whole = detect_bands(big)
+    assert [round(f.angle_deg, 4) for f in whole.families] == [round(f.angle_deg, 4) for f in detect_bands(filled).families]
+    assert any("recognised" in n for n in whole.notes)
+    path = tmp_path / "big.npy"
+    np.save(path, big)
+    import contextlib
+    import io
+    import json
+
+    buf = io.StringIO()
+    with contextlib.redirect_stdout(buf), contextlib.redirect_stderr(io.StringIO()):
+        code = cli_main(["detect", str(path), "--json"])
+    assert code in (0, None)
+    cli_angles = [round(f["angle_deg"], 4) for f in json.loads(buf.getvalue())["families"]]
+    assert cli_angles == [round(f.angle_deg, 4) for f in whole.families]
+    by_grain = detect_grains(big, big_labels, grains=[1, 4])
+    for g in (1, 4):
+        single = detect_bands(big, labels=big_labels, grain=g)
+        assert [f.angle_deg for f in single.families] == [f.angle_deg for f in by_grain[g].families]
+
+
+def test_grain_sizes_are_counted_in_the_original_points(grain_map):
+    img, labels = grain_map
+    big, big_labels = _enlarged_map(grain_map, 2, cv2.INTER_NEAREST)
+    sizes = {g: int((labels == g).sum()) for g in np.unique(labels)}
+    limit = sorted(sizes.values())[3] + 1  # the four smallest grains fall below it
+    native = detect_grains(img, labels, min_pixels=limit)
+    out = detect_grains(big, big_labels, min_pixels=limit)
+    assert sum(r.verdict == "too_small" for r in native.values()) >= 4
+    assert {g: r.verdict for g, r in out.items()} == {g: r.verdict for g, r in native.items()}

@@ -202,7 +202,8 @@ OPTIONS: tuple[Option, ...] = (
     Option("min_depth", "detect", "float", 0.035, "least relative depth of a band below/above the local median grey",
            low=0.0),
     Option("oversampling", "detect", "int", 0,
-           "how many times finer the pixels are than the content (an enlarged map): 0 = estimate it, 1 = as given",
+           "how many times the image was enlarged after it was measured: 0 = recognise a nearest-neighbour "
+           "(block) enlargement and note a smooth one, 1 = as given, 2-4 = the enlargement, stated",
            low=0, high=4),
     Option("min_significance", "detect", "float", 16.0,
            "least significance -log10(NFA) of a family (a contrario number of false alarms)"),

@@ -16,6 +16,7 @@
   - :mod:`~tracefit.image.geometry` -- pixel geometry shared by detector and renderer
   - :mod:`~tracefit.image.projection` -- families of short bands in small regions, by projection
   - :mod:`~tracefit.image.sampling` -- :func:`estimate_oversampling`: how much an image was enlarged
+  - :mod:`~tracefit.image.pergrain` -- grain by grain, for :func:`detect_grains` and :func:`detect_bands`
 - :mod:`tracefit.image.continuation` -- whether a band line runs on into the neighbouring grain
 - :mod:`tracefit.image.draw` -- detection overlay (colour per family, legend of angles)
 - :mod:`tracefit.image.synthetic` -- synthetic micrographs with known truth (tests, benchmarks, demo)

@@ -52,7 +52,6 @@ rounds); a significance per family -- ``accept`` in ``_detect_at_scale``.
 from __future__ import annotations
 
 import math
-import numbers
 from collections.abc import Sequence
 from dataclasses import dataclass
 
@@ -66,6 +65,7 @@ from tracefit.image.families import _build_family, _FamilyContext
 from tracefit.image.geometry import _clip_line_to_box
 from tracefit.image.hough import SECTOR_DEG
 from tracefit.image.options import check_detect_options
+from tracefit.image.pergrain import _run_grains
 from tracefit.image.prepare import (
     _clear_boxes,
     _exclude_databars,
@@ -78,7 +78,7 @@ from tracefit.image.prepare import (
 from tracefit.image.results import BandFamily, BandLine, DetectionResult
 from tracefit.image.projection import _projection_families
 from tracefit.image.ridges import _pixel_noise, flatten_background, ridge_pixels
-from tracefit.image.sampling import MAX_FACTOR, NATIVE, Oversampling, _resolved
+from tracefit.image.sampling import NATIVE, Oversampling, _resolved
 from tracefit.image.search import SAME_FAMILY_DEG, _distinct_families, _search_rounds, _SearchContext, _without_bands
 from tracefit.image.significance import family_log10_nfa
 
@@ -324,9 +324,13 @@ def _rescaled_outcome(img, m, bars, st: _Settings, up: int, box, down: int = 1, 
         big = cv2.resize(crop, size, interpolation=cv2.INTER_CUBIC)
         big_m = cv2.resize(crop_m.view(np.uint8), size, interpolation=cv2.INTER_NEAREST) > 0
         scale = k / up
-        st_up = _Settings(**{**st.__dict__, "working_size": max(st.working_size, max(size)),
-                             "pixel_size_um": None if st.pixel_size_um is None else st.pixel_size_um * scale})
-        out = _detect_at_scale(big, big_m, [], st_up, up)
+        pixel_size = None if st.pixel_size_um is None else st.pixel_size_um * scale
+        if up == 1:  # a larger region at its content's sampling: analysed as the original image would be
+            st_c = _Settings(**{**st.__dict__, "pixel_size_um": pixel_size})
+            out = _with_coarser_looks(_detect_at_scale(big, big_m, [], st_c), big, big_m, [], st_c)
+        else:
+            st_up = _Settings(**{**st.__dict__, "working_size": max(st.working_size, max(size)), "pixel_size_um": pixel_size})
+            out = _detect_at_scale(big, big_m, [], st_up, up)
     for fam in out.families:
         fam.spacing_px *= scale
         fam.spacing_sigma_px *= scale
@@ -363,25 +367,6 @@ def _clip_to_image(families, w: int, h: int) -> None:
             t0, t1 = max(seg[0], 0.0), min(seg[1], 1.0)
             ln.col0, ln.row0, ln.col1, ln.row1 = (float(p[0] + t0 * d[0]), float(p[1] + t0 * d[1]),
                                                   float(p[0] + t1 * d[0]), float(p[1] + t1 * d[1]))
-
-
-def _finite_points(image) -> np.ndarray | None:
-    """False at the NaN points of a float image (any colour channel), or None when it has none."""
-    raw = np.asarray(image)
-    if raw.dtype.kind != "f":
-        return None
-    nan = np.isnan(raw[..., :3]).any(axis=-1) if raw.ndim == 3 else np.isnan(raw)
-    return ~nan if nan.any() else None
-
-
-def _sampling(img, valid, given: int, side: int) -> tuple[Oversampling, str | None]:
-    """:func:`tracefit.image.sampling._resolved` for a region of short side ``side``; ``valid``: points to judge by.
-
-    A region too large to be small at any enlargement looked for needs no estimate.
-    """
-    if given == 0 and side >= SMALL_SIDE_PX * MAX_FACTOR:
-        return NATIVE, None
-    return _resolved(img, valid, given)
 
 
 def _with_coarser_looks(out: _Outcome, img, m, bars, st: _Settings) -> _Outcome:
@@ -444,8 +429,8 @@ def detect_bands(
     pixel_size_um : float, optional
         Pixel size, micrometres per pixel (> 0); gives spacings in micrometres.
     labels : ndarray of int, (H, W), optional
-        Grain label image; with ``grain`` only that grain's pixels are analysed (see
-        :func:`detect_grains` to run every grain).
+        Grain label image; with ``grain`` only that grain's pixels are analysed, exactly as
+        :func:`detect_grains` analyses it (which runs every grain).
     grain : int, optional
         Grain id in ``labels`` (needs ``labels``).
     path : str, optional
@@ -479,13 +464,14 @@ def detect_bands(
         grains of a few hundred pixels score from about 13, large ones in the hundreds.
     oversampling : int
         How many times finer the pixels are than the content, for an image enlarged after
-        it was measured (0-4); 1 takes the pixels as they are. A region of an enlarged
-        image is analysed as the same region of the original would be, so an enlarged map
-        gives the same families. 0 recognises an enlargement in blocks of equal pixels
-        (nearest-neighbour; see :func:`tracefit.image.estimate_oversampling`) and notes a
-        smooth image that may have been enlarged by interpolation, which cannot be told
-        from smooth content: state the factor for those. Regions with a short side of
-        384 px or more are not estimated.
+        it was measured (0-4); 1 takes the pixels as they are, 2-4 states the enlargement.
+        The image is then analysed as the original would be, so an enlarged map gives the
+        same families, with lines, spacings and uncertainties in this image's pixels (and
+        ``MIN_ANALYSED_PX`` counted in the original's points). 0 (the default) recognises
+        an enlargement in blocks of equal pixels (nearest-neighbour; see
+        :func:`tracefit.image.estimate_oversampling`) and only notes a smooth image that
+        may have been enlarged by interpolation, which cannot be told from smooth
+        content: state the factor for those.
     notes : list of str, optional
         Notes to start the result with (e.g. from :func:`tracefit.image.read_image`).
 
@@ -532,14 +518,14 @@ def detect_bands(
                                             "min_depth", "min_significance", "pixel_size_um", "oversampling")})
     if grain is not None and labels is None:
         raise TracefitInputError(f"grain={grain!r} needs labels (the grain label image)")
-    if grain is not None and labels is not None:
-        lab_type = np.asarray(labels).dtype
-        if lab_type.kind in "biu" and isinstance(grain, numbers.Integral) and not isinstance(grain, (bool, np.bool_)):
-            lo, hi = (0, 1) if lab_type.kind == "b" else (np.iinfo(lab_type).min, np.iinfo(lab_type).max)
-            if not lo <= int(grain) <= hi:  # ``labels == grain`` would overflow
-                raise TracefitInputError(f"grain id {grain} does not occur in the label image")
+    if grain is not None:
+        # one chain: a grain is analysed as detect_grains analyses it (its crop, context and checks)
+        kw = {k: opts[k] for k in ("min_bands", "max_families", "working_size", "scales", "min_coverage", "min_depth",
+                                   "min_significance", "oversampling")}
+        return _run_grains(detect_bands, image, labels, mask, pixel_size_um, path, 1, [grain],
+                           {**kw, "find_bar": find_bar, "notes": notes})[grain]
     pre_notes: list[str] = []
-    img, m = _prepare_input(image, mask, labels, grain, notes=pre_notes)
+    img, m, finite = _prepare_input(image, mask, labels, grain, notes=pre_notes)
     problem = _working_size_problem(img.shape, st.working_size)
     if problem:
         raise TracefitInputError(problem)
@@ -557,24 +543,25 @@ def detect_bands(
             return res
         if mask is not None:
             res.excluded.append({"kind": "mask", "bbox": [0, 0, w, h], "note": f"user mask keeps {100 * m.mean():.1f} % of the pixels"})
-    n_px = int(m.sum()) if m is not None else h * w
-    if n_px < MIN_ANALYSED_PX:
-        res.verdict = "too_small"
-        res.reason = f"too small: {n_px} pixels to analyse, fewer than {MIN_ANALYSED_PX}; no bands reported"
-        res.notes.append(res.reason)
-        return res
-    _, box = _small_region_factor(img.shape, m)
     # the enlargement is judged on the whole image (a grain or masked region alone holds too few points),
-    # its NaN points left out as detect_grains leaves them out (filled, their edges look like detail)
-    ov, note = _sampling(img, _finite_points(image), st.oversampling,
-                         min(box[0].stop - box[0].start, box[1].stop - box[1].start))
+    # its NaN points left out (filled, their edges look like detail), as detect_grains judges it
+    ov, note = _resolved(img, finite, st.oversampling)
     if note:
         res.notes.append(note)
+    n_px = int(m.sum()) if m is not None else h * w
+    least = MIN_ANALYSED_PX * ov.factor**2  # counted in the content's points
+    if n_px < least:
+        res.verdict = "too_small"
+        res.reason = f"too small: {n_px} pixels to analyse, fewer than {least}; no bands reported"
+        res.notes.append(res.reason)
+        return res
     up, box = _small_region_factor(img.shape, m, ov.factor)
-    if up == 1:  # a larger region of an enlarged image: the whole image, as the original's would be
-        box = (slice(0, h), slice(0, w))
-    if (up > 1 or ov.factor > 1) and _reduction_factor(img.shape, st.working_size) == 1:
+    if ov.factor > 1:
+        if up == 1:  # a larger region of an enlarged image: the whole image, as the original's would be
+            box = (slice(0, h), slice(0, w))
         out = _rescaled_outcome(img, m, bars, st, up, box, ov=ov)
+    elif up > 1 and _reduction_factor(img.shape, st.working_size) == 1:
+        out = _rescaled_outcome(img, m, bars, st, up, box)
     else:
         out = _with_coarser_looks(_detect_at_scale(img, m, bars, st), img, m, bars, st)
     _clip_to_image(out.families, w, h)

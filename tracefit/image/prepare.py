@@ -13,6 +13,7 @@ Private to the package; the public entry points are in :mod:`tracefit.image.dete
 from __future__ import annotations
 
 import math
+import numbers
 from dataclasses import dataclass
 
 import cv2
@@ -102,6 +103,14 @@ def _positive_levels(img, m, notes):
     return img + np.float32(shift)
 
 
+def _check_label_ids(lab: np.ndarray) -> None:
+    """Labels must be whole-number grain ids (bool, integer, or float holding whole numbers)."""
+    if lab.dtype.kind not in "biuf":
+        raise TracefitInputError(f"labels must hold integer grain ids; got an array of {lab.dtype}")
+    if lab.dtype.kind == "f" and not (np.isfinite(lab).all() and (lab == np.round(lab)).all()):
+        raise TracefitInputError("labels must hold whole-number grain ids; got NaN, infinite or fractional values")
+
+
 def _prepare_input(image, mask, labels, grain, notes=None):
     """Checked grey image and the combined analysis mask.
 
@@ -120,11 +129,14 @@ def _prepare_input(image, mask, labels, grain, notes=None):
     img : ndarray of float32, (H, W)
     m : ndarray of bool, (H, W), or None
         Pixels to analyse (None: all); NaN pixels are excluded.
+    finite : ndarray of bool, (H, W), or None
+        False at the image's NaN points (None when it has none).
 
     Raises
     ------
     TracefitInputError
-        Bad image, mask or labels of another size, or a grain id that does not occur.
+        Bad image, mask or labels of another size, labels that are not whole-number grain
+        ids, or a grain id that does not occur.
     """
     notes = [] if notes is None else notes
     img, holes = _as_grey(image)
@@ -136,7 +148,12 @@ def _prepare_input(image, mask, labels, grain, notes=None):
     if labels is not None:
         lab = np.asarray(labels)
         _same_size("label image", lab, img)
+        _check_label_ids(lab)
         if grain is not None:
+            if lab.dtype.kind in "biu" and isinstance(grain, numbers.Integral) and not isinstance(grain, (bool, np.bool_)):
+                lo, hi = (0, 1) if lab.dtype.kind == "b" else (np.iinfo(lab.dtype).min, np.iinfo(lab.dtype).max)
+                if not lo <= int(grain) <= hi:  # ``lab == grain`` would overflow
+                    raise TracefitInputError(f"grain id {grain} does not occur in the label image")
             g = lab == grain
             if not g.any():
                 raise TracefitInputError(f"grain id {grain} does not occur in the label image")
@@ -145,7 +162,7 @@ def _prepare_input(image, mask, labels, grain, notes=None):
         notes.append(f"{int(holes.sum())} NaN pixels ({100 * holes.mean():.1f} %) masked")
         m = ~holes if m is None else (m & ~holes)
     img = _positive_levels(img, m, notes)
-    return img, m
+    return img, m, (None if holes is None else ~holes)
 
 
 def _clear_boxes(mask, boxes) -> None:

@@ -72,10 +72,11 @@ class Oversampling(NamedTuple):
     kind: str
     phase: tuple[int, int]
 
-    def note(self) -> str:
-        """One line for a result's notes."""
-        how = "in blocks of equal pixels" if self.kind == "blocks" else "as stated"
-        return (f"pixels taken as {self.factor} times finer than the content (an image enlarged {self.factor}x, "
+    def note(self, stated: bool = False) -> str:
+        """One line for a result's notes (``stated``: the factor was given as ``oversampling``)."""
+        how = f"oversampling={self.factor} given" if stated else "recognised"
+        kind = ", in blocks of equal pixels" if self.kind == "blocks" else ""
+        return (f"pixels taken as {self.factor} times finer than the content (an image enlarged {self.factor}x{kind}; "
                 f"{how}): analysed as the content's own points would be")
 
 
@@ -139,16 +140,23 @@ def _smooth_factor(img: np.ndarray) -> int:
     return best
 
 
+def _blocks(img: np.ndarray, k: int) -> tuple[int, int] | None:
+    """(row, column) phase of ``k``-pixel blocks in both directions, or None."""
+    pc = _block_test(img, k)
+    pr = _block_test(img.T, k) if pc is not None else None
+    return None if pr is None else (pr, pc)
+
+
 def _resolved(img: np.ndarray, valid: np.ndarray | None, given: int) -> tuple[Oversampling, str | None]:
     """The enlargement the detector works with (option ``oversampling``), and a note for the result.
 
-    0 (estimate) uses only an enlargement in blocks, which is certain. A smooth image is
-    only noted: a map enlarged by interpolation cannot be told from a map whose content is
-    smooth (a strain map computed over overlapping windows, an optical image sampled
+    0 (the default) acts only on an enlargement in blocks, which is certain. A smooth image
+    is only noted: a map enlarged by interpolation cannot be told from a map whose content
+    is smooth (a strain map computed over overlapping windows, an optical image sampled
     finely), and analysing such a map at half its sampling lost most of its families
-    (strain maps of ``benchmarks/strainmap.py`` smoothed by a Gaussian of 0.8 px: recall
-    0.41 as given, 0.11 halved). A stated factor is used, in blocks where the image
-    holds them.
+    (``python benchmarks/strainmap.py --quick --brief --smooth 0.8``, with and without
+    ``--opt oversampling=2``; ``benchmarks/strainmap.md``). A stated factor is used, in
+    blocks where the image holds them.
     """
     if given == 1:
         return NATIVE, None
@@ -159,10 +167,9 @@ def _resolved(img: np.ndarray, valid: np.ndarray | None, given: int) -> tuple[Ov
                             f"would be; analysed as given (if it was enlarged, oversampling={est.factor} gives the "
                             f"original's answer)")
         return est, (est.note() if est.factor > 1 else None)
-    pc = _block_test(img, given)
-    pr = _block_test(img.T, given) if pc is not None else None
-    ov = Oversampling(given, "blocks", (pr, pc)) if pr is not None else Oversampling(given, "smooth", (0, 0))
-    return ov, ov.note()
+    phase = _blocks(np.asarray(img, np.float32) if valid is None else np.where(valid, img, np.float32(np.nan)), given)
+    ov = Oversampling(given, "blocks", phase) if phase is not None else Oversampling(given, "smooth", (0, 0))
+    return ov, ov.note(stated=True)
 
 
 def estimate_oversampling(image: np.ndarray, valid: np.ndarray | None = None) -> Oversampling:
@@ -170,15 +177,18 @@ def estimate_oversampling(image: np.ndarray, valid: np.ndarray | None = None) ->
 
     Parameters
     ----------
-    image : ndarray, (H, W)
-        Grey image or float map; NaN points are left out.
+    image : ndarray, (H, W) or (H, W, 3|4)
+        Grey image or float map (RGB(A) is taken as its luminance); NaN points are left out.
     valid : ndarray of bool, (H, W), optional
         Points to use (others are left out as NaN are).
 
     Returns
     -------
     Oversampling
-        ``factor`` 1 when the pixels are as fine as the content.
+        ``factor`` 1 when the pixels are as fine as the content, or when nothing can be
+        said: blocks need both sides of 16 px or more and lossless pixels (a
+        nearest-neighbour enlargement saved as JPEG holds no exact blocks); the smooth
+        test needs both sides of 128 px or more.
 
     Examples
     --------
@@ -194,15 +204,21 @@ def estimate_oversampling(image: np.ndarray, valid: np.ndarray | None = None) ->
     >>> estimate_oversampling(blocks)
     Oversampling(factor=2, kind='blocks', phase=(1, 1))
     """
-    img = np.asarray(image, dtype=np.float32)
-    if img.ndim != 2 or min(img.shape) < 2 * SEGMENT_PX:
+    img = np.asarray(image)
+    if img.ndim == 3 and img.shape[2] in (3, 4):
+        from tracefit.image.io import to_gray
+
+        img = to_gray(img)
+    img = np.asarray(img, dtype=np.float32)
+    if img.ndim != 2 or min(img.shape) < 16:
         return NATIVE
     if valid is not None:
         img = np.where(valid, img, np.float32(np.nan))
     for k in range(MAX_FACTOR, 1, -1):
-        pc = _block_test(img, k)
-        pr = _block_test(img.T, k) if pc is not None else None
-        if pc is not None and pr is not None:
-            return Oversampling(k, "blocks", (pr, pc))
+        phase = _blocks(img, k)
+        if phase is not None:
+            return Oversampling(k, "blocks", phase)
+    if min(img.shape) < 2 * SEGMENT_PX:
+        return NATIVE
     k = _smooth_factor(img)
     return Oversampling(k, "smooth", (0, 0)) if k > 1 else NATIVE

@@ -142,7 +142,7 @@ def detect_families(image: np.ndarray, *, labels: np.ndarray | None = None,
     observed, bands, grains, notes = [], [], [], []
     for gid in ids:
         det = dets[gid]
-        notes.extend(det.notes)
+        notes.extend(n for n in det.notes if n not in notes)  # the image's own notes come with every grain
         fams = observed_from_detection(det, grain=gid)
         for o, f in zip(fams, det.families):
             o.boundary_continuation = line_continuation(image, labels, gid, getattr(f, "lines", []))
