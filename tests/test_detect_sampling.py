@@ -312,3 +312,28 @@ def test_grain_sizes_are_counted_in_the_original_points(grain_map):
     out = detect_grains(big, big_labels, min_pixels=limit)
     assert sum(r.verdict == "too_small" for r in native.values()) >= 4
     assert {g: r.verdict for g, r in out.items()} == {g: r.verdict for g, r in native.items()}
+
+
+REAL_IMAGES = [  # (file under ../shared/realdata, origin and licence)
+    ("defdap_ti_optical/testOptical.png", "MechMicroMan/DefDAP test data, Apache-2.0"),
+    ("openecci_austenitic_steel_bse/steel_SEM_001.tif", "IMBalENce/openECCI data, GPL-3.0"),
+    ("defdap_zircaloy_bse/irr_8bin.jpg", "MechMicroMan/DefDAP data, Apache-2.0"),
+    ("ebsdcorrection_in718_bse/BSE.tif", "lambjames18/EBSD-Correction, MIT"),
+]
+
+
+@pytest.mark.parametrize("name, origin", REAL_IMAGES, ids=[n.split("/")[0] for n, _ in REAL_IMAGES])
+def test_real_micrographs_are_not_taken_as_enlarged(name, origin):
+    # real optical and backscatter images at their instruments' own sampling (origins beside
+    # each); skipped where the folder of real images is absent
+    import os
+    from pathlib import Path
+
+    from tracefit.image import read_image
+
+    root = Path(os.environ.get("TRACEFIT_REALDATA", Path(__file__).resolve().parents[2] / "shared" / "realdata"))
+    if not (root / name).is_file():
+        pytest.skip(f"real image {name} ({origin}) not available")
+    img, _ = read_image(str(root / name))
+    assert estimate_oversampling(img).factor == 1
+    assert estimate_oversampling(enlarge(img[:600, :600], 2, cv2.INTER_NEAREST)).factor == 2

@@ -41,7 +41,7 @@ __all__ = ["Oversampling", "estimate_oversampling"]
 
 MAX_FACTOR = 4  # largest enlargement looked for
 SEGMENT_PX = 64  # Welch segment length along rows and columns
-MAX_LINES = 400  # rows (and columns) sampled for the spectrum
+MAX_LINES = 128  # rows (and columns) sampled for the blocks and the spectrum (large images: plenty of segments)
 SMOOTH_RATIO = 0.012  # power above / below the original Nyquist frequency for a 2x enlargement ...
 SMOOTH_RATIO_MORE = 0.004  # ... and for 3x, 4x once 2x holds: a 2x map of smooth content passes 3x at 0.005-0.05
 BLOCK_SHARE = 0.95  # share of equal neighbours inside blocks of a nearest-neighbour enlargement ...
