@@ -23,6 +23,10 @@ from tracefit.image.selection import _median_inplace
 STRIP_SMOOTH_ACROSS_PX = 0.8  # Gaussian smoothing of the strip across the band
 STRIP_SMOOTH_ALONG_PX = 2.0  # ... and along it (in pixels of the image)
 MIN_SNR = 4.0  # least centre contrast-to-noise ratio of a row that counts
+# most rows sampled along a band: a longer band's rows lie a few px apart, still independent
+# samples for the line fit (1500 before: a third of the time of a 16-MP detection, angles within 0.0002 deg,
+# benchmarks/detect.py)
+MAX_STRIP_ROWS = 800
 
 
 @dataclass
@@ -161,7 +165,7 @@ def _robust_line(tg, ug, wg, min_kept):
     return a_, b_, keep
 
 
-def _fit_band(img, valid, p, d, half_width, polarity, pixel_noise, max_samples=1500, f=1):
+def _fit_band(img, valid, p, d, half_width, polarity, pixel_noise, max_samples=None, f=1):
     """Fit one band's centre line at full resolution on a strip sampled along it.
 
     Parameters
@@ -178,8 +182,8 @@ def _fit_band(img, valid, p, d, half_width, polarity, pixel_noise, max_samples=1
         Dark (-1) or bright (+1) bands.
     pixel_noise : float
         Per-pixel noise of ``img``, image units.
-    max_samples : int
-        Most rows sampled along the line.
+    max_samples : int, optional
+        Most rows sampled along the line (default ``MAX_STRIP_ROWS``).
     f : int
         Working-copy reduction factor (for ``valid``).
 
@@ -188,7 +192,7 @@ def _fit_band(img, valid, p, d, half_width, polarity, pixel_noise, max_samples=1
     _BandFit or None
         None when the line is short or too few rows show a significant band.
     """
-    s = _sample_strip(img, valid, p, d, half_width, max_samples, f)
+    s = _sample_strip(img, valid, p, d, half_width, max_samples or MAX_STRIP_ROWS, f)
     if s is None:
         return None
     nt = len(s.t)

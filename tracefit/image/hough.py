@@ -30,6 +30,7 @@ from skimage.transform import hough_line
 from tracefit.conventions import axial_difference, axial_mean, fold_axial, pixel_direction_angle
 from tracefit.image.geometry import _direction_and_normal
 from tracefit.image.ridges import RidgePixels
+from tracefit.image.threads import ordered_map
 
 THETA_STEP_DEG = 0.5  # Hough angle bin
 SECTOR_DEG = 15.0  # orientation sectors of the ridge filter
@@ -163,7 +164,6 @@ def _line_candidates(rp: RidgePixels, theta, alpha, chord, v_min, c_min, memo: d
         return np.zeros((0, 5))
     n_sec = int(round(180.0 / SECTOR_DEG))
     sector_of_theta = np.floor(fold_axial(alpha + SECTOR_DEG / 2) / SECTOR_DEG).astype(int) % n_sec
-    canvas = np.zeros((h, w), np.uint8)
     ci, ri = rp.col.astype(np.intp), rp.row.astype(np.intp)
     by_sector = None if memo is None else (digests or _SectorDigests())(rp)
     if np.all(rp.sector[1:] >= rp.sector[:-1]):  # stored sector by sector: each sector is a slice
@@ -171,20 +171,23 @@ def _line_candidates(rp: RidgePixels, theta, alpha, chord, v_min, c_min, memo: d
         in_sector = [slice(bounds[k], bounds[k + 1]) for k in range(n_sec)]
     else:
         in_sector = [np.flatnonzero(rp.sector == k) for k in range(n_sec)]
+    slots: list = []  # per sector tried, in sector order: memo key and (known lines or None)
     for k in range(n_sec):
         sel_t = np.nonzero(sector_of_theta == k)[0]
-        near = in_sector[k]
-        if len(ri[near]) < v_min or len(sel_t) == 0:
+        if len(ri[in_sector[k]]) < v_min or len(sel_t) == 0:
             continue
-        key = None
-        if memo is not None:
-            key = (k, (h, w), by_sector[k])
-            if key in memo:
-                out.append(memo[key])
-                continue
+        key = None if memo is None else (k, (h, w), by_sector[k])
+        slots.append((k, sel_t, key, None if key is None else memo.get(key)))
+
+    def transform(slot):
+        k, sel_t, _, known = slot
+        if known is not None:
+            return known
+        near = in_sector[k]
+        canvas = np.zeros((h, w), np.uint8)  # one per sector: sectors may run in threads
         canvas[ri[near], ci[near]] = 1
         acc, _, dists = hough_line(canvas, theta=theta[sel_t])
-        canvas[ri[near], ci[near]] = 0
+        del canvas
         acc = acc.astype(np.float32)
         acc3 = acc.copy()
         acc3[1:] += acc[:-1]
@@ -197,8 +200,11 @@ def _line_candidates(rp: RidgePixels, theta, alpha, chord, v_min, c_min, memo: d
         ok = peak & (acc3 >= v_min) & (cov >= c_min)
         ii, jj = np.nonzero(ok)
         rows = np.column_stack([alpha[sel_t[jj]], theta[sel_t[jj]], dists[ii], acc3[ii, jj], cov[ii, jj]]).astype(float)
-        if memo is not None:
-            rows.flags.writeable = False
+        rows.flags.writeable = False
+        return rows
+
+    for (_, _, key, known), rows in zip(slots, ordered_map(transform, slots)):
+        if memo is not None and known is None:
             memo[key] = rows
         out.append(rows)
     return np.concatenate(out, axis=0) if out else np.zeros((0, 5))

@@ -18,6 +18,7 @@ import numpy as np
 
 from tracefit.conventions import angle_to_pixel_direction
 from tracefit.image.selection import _mad_inplace
+from tracefit.image.threads import ordered_map
 
 
 __all__ = ["flatten_background", "RidgePixels", "ridge_pixels", "noise_sigma"]
@@ -413,18 +414,25 @@ def ridge_pixels(flat: np.ndarray, mask: np.ndarray | None, sector_deg: float = 
     # per-scale noise: the pixel sigma, or more where the image's own response says so
     sn = {d[0]: _effective_noise(d, mask, sn) for d in derivs}
     n_sec = int(round(180.0 / sector_deg))
-    acc = {-1: [], 1: []}
-    for k in range(n_sec):
+
+    def sector(k):
         dc, dr = angle_to_pixel_direction(k * sector_deg)  # band direction (col, row)
         c, s_ = -dr, dc  # its normal
         best = _sector_response(derivs, c, s_, sn, k_noise)
         # non-maximum suppression across the band (fixed normal per sector)
         oc, orow = int(np.rint(c)), int(np.rint(s_))
+        parts = {}
         for pol in (-1, 1):
-            resp = best[pol]
+            resp = best.pop(pol)
             cc, rr = _thin_across(resp, mask, oc, orow)
-            acc[pol].append((cc.astype(np.int16), rr.astype(np.int16), resp[rr, cc], np.full(len(rr), k, np.int16)))
-        best.clear()
+            parts[pol] = (cc.astype(np.int16), rr.astype(np.int16), resp[rr, cc], np.full(len(rr), k, np.int16))
+            del resp
+        return parts
+
+    # the sectors are independent: in threads where OpenCV may use several (results in sector order)
+    per_sector = ordered_map(sector, range(n_sec))
+    acc = {pol: [p[pol] for p in per_sector] for pol in (-1, 1)}
+    del per_sector
     del derivs
     out = []
     for pol in (-1, 1):
