@@ -18,7 +18,7 @@ from concurrent.futures import ThreadPoolExecutor
 
 import cv2
 
-MAX_THREADS = 4  # the pieces are few (12 sectors, a handful of candidates): more threads only wait
+MAX_THREADS = 4  # the pieces are few (12 orientation sectors): more threads would only wait
 
 _pool: ThreadPoolExecutor | None = None
 _pool_size = 0
