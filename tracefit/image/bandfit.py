@@ -165,7 +165,7 @@ def _robust_line(tg, ug, wg, min_kept):
     return a_, b_, keep
 
 
-def _fit_band(img, valid, p, d, half_width, polarity, pixel_noise, max_samples=None, f=1):
+def _fit_band(img, valid, p, d, half_width, polarity, pixel_noise, max_samples=MAX_STRIP_ROWS, f=1):
     """Fit one band's centre line at full resolution on a strip sampled along it.
 
     Parameters
@@ -182,8 +182,8 @@ def _fit_band(img, valid, p, d, half_width, polarity, pixel_noise, max_samples=N
         Dark (-1) or bright (+1) bands.
     pixel_noise : float
         Per-pixel noise of ``img``, image units.
-    max_samples : int, optional
-        Most rows sampled along the line (default ``MAX_STRIP_ROWS``).
+    max_samples : int
+        Most rows sampled along the line.
     f : int
         Working-copy reduction factor (for ``valid``).
 
@@ -192,7 +192,7 @@ def _fit_band(img, valid, p, d, half_width, polarity, pixel_noise, max_samples=N
     _BandFit or None
         None when the line is short or too few rows show a significant band.
     """
-    s = _sample_strip(img, valid, p, d, half_width, max_samples or MAX_STRIP_ROWS, f)
+    s = _sample_strip(img, valid, p, d, half_width, max_samples, f)
     if s is None:
         return None
     nt = len(s.t)

@@ -187,7 +187,6 @@ def _line_candidates(rp: RidgePixels, theta, alpha, chord, v_min, c_min, memo: d
         canvas = np.zeros((h, w), np.uint8)  # one per sector: sectors may run in threads
         canvas[ri[near], ci[near]] = 1
         acc, _, dists = hough_line(canvas, theta=theta[sel_t])
-        del canvas
         acc = acc.astype(np.float32)
         acc3 = acc.copy()
         acc3[1:] += acc[:-1]

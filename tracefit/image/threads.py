@@ -1,8 +1,8 @@
 """Independent pieces of one detection run spread over the machine's cores (private).
 
-OpenCV spreads its own filters over the cores, but the detector's Python-level loops (one
-orientation sector, one candidate family at a time) would use one. Pieces that do not depend
-on each other run in a small pool of threads instead; numpy and OpenCV release the GIL while
+OpenCV spreads its own filters over the cores, but the detector's Python-level loop over the
+orientation sectors (ridge filter, then Hough) would use one. Sectors do not depend on each
+other, so they run in a small pool of threads instead; numpy and OpenCV release the GIL while
 they work. The number of threads follows OpenCV's own (``cv2.getNumThreads()``): the survey's
 workers set it to 1 (one process per core already), and then every piece runs in turn in the
 calling thread. Results come back in the order of the items, so the answer never depends on
