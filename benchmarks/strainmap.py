@@ -78,12 +78,21 @@ Truth and scoring
     within 2 deg (axial) of a true family counts as found (one-to-one, closest first);
     the others are spurious. Families are ranked by strength (level x drawn length).
 
+Predicted traces (``--guided SIGMA``)
+    ``tracefit identify`` knows each grain's orientation and asks the detector to look along
+    the candidate planes' predicted traces as well (``predicted_traces``; stage 6c). The
+    maps' bands are not drawn from orientations, so the traces are simulated: per grain four
+    (fcc's {111}), each true family's angle off by a normal error of SIGMA deg (orientation
+    and registration error) and random angles for the planes that did not slip; band-free
+    grains get four random angles.
+
 Usage::
 
     python benchmarks/strainmap.py               # 3 levels x 4 seeds + negatives (~2-3 min)
     python benchmarks/strainmap.py --quick       # 3 levels x 2 seeds + negatives
     python benchmarks/strainmap.py --levels hard --seeds 8 --opt min_significance=10
     python benchmarks/strainmap.py --save-maps /tmp/maps   # .npy maps, labels and truth to look at
+    python benchmarks/strainmap.py --guided 1    # with simulated predicted traces, 1 deg off (as identify runs)
 
 Target of the held-out check: recall >= 0.9 within 2 deg, no spurious families, none on
 negatives. Results support, never replace, qualified investigation.
@@ -593,8 +602,21 @@ def _smoothed(img, sigma):
     return out
 
 
-def run_level(level, seeds, opts, negatives=True, save=None, off=frozenset(), trace=False, smooth=0.0):
+def _predicted(truth, ids, seed, sigma, n_traces=4):
+    """Simulated predicted traces per grain: each true family's angle off by N(0, sigma) deg (orientation and
+    registration error) and random decoys (the planes that did not slip) up to ``n_traces`` (fcc: 4 {111})."""
+    out = {}
+    for g in ids:
+        rng = np.random.default_rng([seed, int(g), 7])
+        tr = [float(f.angle + rng.normal(0, sigma)) % 180 for f in truth.get(g, [])][:n_traces]
+        tr += list(rng.uniform(0, 180, n_traces - len(tr)))
+        out[int(g)] = [float(a) for a in rng.permutation(tr)]
+    return out
+
+
+def run_level(level, seeds, opts, negatives=True, save=None, off=frozenset(), trace=False, smooth=0.0, guided=None):
     n_true = n_found = n_spur = 0
+    n_guided = 0
     by_rank = {1: [0, 0], 2: [0, 0], 3: [0, 0]}
     errs, misses, spurious = [], [], []
     neg_fams, neg_grains, neg_list = 0, 0, []
@@ -612,7 +634,8 @@ def run_level(level, seeds, opts, negatives=True, save=None, off=frozenset(), tr
             with open(os.path.join(save, f"{level}_{seed}_truth.json"), "w") as fh:
                 json.dump({g: [round(f.angle, 2) for f in fs] for g, fs in sm.truth.items()}, fh)
         t0 = time.process_time()
-        res = detect_grains(sm.image, sm.labels, min_pixels=min_px, **opts)
+        g_opts = {} if guided is None else {"predicted_traces": _predicted(sm.truth, np.unique(sm.labels), seed, guided)}
+        res = detect_grains(sm.image, sm.labels, min_pixels=min_px, **opts, **g_opts)
         t_det += time.process_time() - t0
         for g in sm.scored:
             n_grains += 1
@@ -626,6 +649,7 @@ def run_level(level, seeds, opts, negatives=True, save=None, off=frozenset(), tr
                 by_rank[min(fam.rank, 3)][0] += 1
                 if i in hit:
                     n_found += 1
+                    n_guided += getattr(det.families[hit[i][0]], "sought_at", None) is not None
                     by_rank[min(fam.rank, 3)][1] += 1
                     errs.append(hit[i][1])
                 else:
@@ -649,13 +673,15 @@ def run_level(level, seeds, opts, negatives=True, save=None, off=frozenset(), tr
                     near = min((abs(axial_difference(f.angle_deg, t.angle)) for t in fams), default=float("nan"))
                     spurious.append(dict(seed=seed, grain=g, px=sm.sizes[g], angle=f.angle_deg, n_bands=f.n_bands,
                                          sig=-f.log10_nfa if f.log10_nfa is not None else float("nan"),
-                                         pol=f.polarity, nearest_true=near))
+                                         pol=f.polarity, nearest_true=near,
+                                         guided=getattr(f, "sought_at", None) is not None))
         if negatives:
             nm = render(seed, level, False, off)
             if smooth:
                 nm.image = _smoothed(nm.image, smooth)
             t0 = time.process_time()
-            rn = detect_grains(nm.image, nm.labels, min_pixels=min_px, **opts)
+            g_opts = {} if guided is None else {"predicted_traces": _predicted({}, np.unique(nm.labels), seed, guided)}
+            rn = detect_grains(nm.image, nm.labels, min_pixels=min_px, **opts, **g_opts)
             t_det += time.process_time() - t0
             for g in nm.scored:
                 neg_grains += 1
@@ -663,10 +689,11 @@ def run_level(level, seeds, opts, negatives=True, save=None, off=frozenset(), tr
                 neg_fams += nf
                 for f in rn[g].families:
                     neg_list.append(dict(seed=seed, grain=g, px=nm.sizes[g], angle=f.angle_deg, n_bands=f.n_bands,
-                                         sig=-f.log10_nfa if f.log10_nfa is not None else float("nan"), pol=f.polarity))
+                                         sig=-f.log10_nfa if f.log10_nfa is not None else float("nan"), pol=f.polarity,
+                                         guided=getattr(f, "sought_at", None) is not None))
     return dict(level=level, grains=n_grains, true=n_true, found=n_found, spurious=n_spur, by_rank=by_rank,
                 med_err=float(np.median(errs)) if errs else float("nan"), misses=misses, spurious_list=spurious,
-                neg_grains=neg_grains, neg_fams=neg_fams, neg_list=neg_list, cpu_s=t_det)
+                neg_grains=neg_grains, neg_fams=neg_fams, neg_list=neg_list, cpu_s=t_det, guided_found=n_guided)
 
 
 def _print_level(r, verbose=True):
@@ -674,6 +701,8 @@ def _print_level(r, verbose=True):
     print(f"\n== {r['level']}: {r['grains']} scored grains, {r['true']} true families, found within "
           f"{MATCH_TOL_DEG:g} deg {r['found']} (recall {rec:.3f}); spurious {r['spurious']}; "
           f"median angle error {r['med_err']:.2f} deg; detector CPU {r['cpu_s']:.1f} s")
+    if r.get("guided_found"):
+        print(f"   of the families found, {r['guided_found']} were found along their predicted traces (guided)")
     print("   recall by strength rank: " + ", ".join(
         f"{k}: {v[1]}/{v[0]} ({v[1] / v[0]:.2f})" if v[0] else f"{k}: -" for k, v in r["by_rank"].items()))
     if "neg_grains" in r and r["neg_grains"]:
@@ -738,6 +767,9 @@ def main(argv=None):
     ap.add_argument("--without", default="", help="realism features to leave out (ablation), comma-separated: "
                     + ", ".join(FEATURES))
     ap.add_argument("--save-maps", default=None, help="folder for the maps, labels and truth (.npy/.json)")
+    ap.add_argument("--guided", type=float, default=None, metavar="SIGMA",
+                    help="give the detector simulated predicted traces (fcc: 4 per grain): the true families' angles "
+                         "off by N(0, SIGMA) deg and random decoys")
     ap.add_argument("--smooth", type=float, default=0.0,
                     help="blur every map by a Gaussian of this many points (smooth content at its own sampling)")
     a = ap.parse_args(argv)
@@ -762,7 +794,7 @@ def main(argv=None):
     tot = dict(true=0, found=0, spurious=0, neg=0, negg=0)
     for lv in levels:
         r = run_level(lv, seeds, opts, negatives=not a.no_negatives, save=a.save_maps, off=off, trace=a.trace,
-                      smooth=a.smooth)
+                      smooth=a.smooth, guided=a.guided)
         _print_level(r, verbose=not a.brief)
         tot["true"] += r["true"]
         tot["found"] += r["found"]

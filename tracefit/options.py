@@ -235,6 +235,9 @@ OPTIONS: tuple[Option, ...] = (
     Option("artefacts", "analysis", "bool", True,
            "on grain maps, test the surface-artefact hypothesis (one image angle continuing across grains)"),
     Option("frame_check", "analysis", "bool", True, "on grain maps, test the frame rotation against the traces"),
+    Option("guided_search", "analysis", "bool", True,
+           "also look for band families along each grain's predicted traces, where a weaker family passes "
+           "(few directions are tested); those families are marked guided"),
 )
 
 GROUPS = ("image", "detect", "identify", "analysis")
@@ -289,7 +292,7 @@ def defaults(group: str) -> dict[str, Any]:
     Examples
     --------
     >>> sorted(defaults("analysis").items())
-    [('artefacts', True), ('frame_check', True), ('min_grain_px', 300)]
+    [('artefacts', True), ('frame_check', True), ('guided_search', True), ('min_grain_px', 300)]
     """
     if group not in GROUPS:
         raise ValueError(f"group must be one of {', '.join(GROUPS)}, got {group!r}")

@@ -120,6 +120,10 @@ def identify(
     no_artefacts: bool = typer.Option(
         False, "--no-artefacts", help="On grain maps, skip the surface-artefact test (one image angle continuing across grains)."
     ),
+    no_guided_search: bool = typer.Option(
+        False, "--no-guided-search",
+        help="Find families by the open search over every direction only, not also along each grain's predicted traces.",
+    ),
     json_out: JsonOpt = False,
 ) -> None:
     """Identify the slip or twin system behind each band family, with probabilities.
@@ -195,7 +199,7 @@ def identify(
                             schmid_weight=schmid_weight, allow_shared_planes=allow_shared_planes,
                             crack_k_sigma=crack_k_sigma, min_grain_px=min_grain_px, artefacts=not no_artefacts,
                             prior=parse_prior(prior), crss=parse_crss(crss, systems),
-                            frame_check=not no_frame_check)
+                            frame_check=not no_frame_check, guided_search=not no_guided_search)
         for w in res.warnings:
             hint = " (see tracefit align-frame)" if w.startswith("frame check:") else ""
             print(f"tracefit: warning: {w}{hint}", file=sys.stderr)
@@ -242,7 +246,8 @@ def _print_text(results, lat, ld) -> None:
     for r in results:
         where = f"grain {r.grain}, " if r.grain is not None else ""
         what = "crack" if getattr(r, "consistent_planes", None) is not None else "family"
-        src = f" [measured{', ' + r.label if r.label and r.label != 'crack' else ''}]" if r.source == "measured" else ""
+        src = f" [measured{', ' + r.label if r.label and r.label != 'crack' else ''}]" if r.source == "measured" else (
+            " [guided: found along a predicted trace]" if r.source == "guided" else "")
         head = f"{where}{what} at {r.angle_deg:.2f} +- {r.angle_sigma_deg:.2f} deg{src}"
         pa = getattr(r, "p_artefact", 0.0)
         if r.unexplained and pa > r.p_none and getattr(r, "artefact_angle_deg", None) is not None:

@@ -25,7 +25,7 @@ __all__: list[str] = []
 GRAIN_MARGIN_PX = 8  # context kept around a grain's bounding box
 # keywords detect_grains passes on to detect_bands
 _PASSED_TO_DETECT_BANDS = ("find_bar", "min_bands", "max_families", "working_size", "scales", "min_coverage", "min_depth",
-                          "min_significance", "oversampling", "notes")
+                          "min_significance", "oversampling", "notes", "predicted_traces")
 
 
 def _grain_ids(lab, grains) -> list[int]:
@@ -44,6 +44,15 @@ def _grain_ids(lab, grains) -> list[int]:
         if g not in present:
             raise TracefitInputError(f"grain id {g} does not occur in the label image")
     return ids
+
+
+def _traces_by_grain(traces) -> dict:
+    """``predicted_traces`` of detect_grains: grain id -> angles (degrees), or empty."""
+    if traces is None:
+        return {}
+    if not isinstance(traces, dict):
+        raise TracefitInputError("predicted_traces of detect_grains must be a dict: grain id -> trace angles in degrees")
+    return {int(g): v for g, v in traces.items()}
 
 
 def _grain_boxes(lab, ids):
@@ -103,6 +112,7 @@ def _run_grains(detect, image, labels, mask, pixel_size_um, path, min_pixels, gr
     if unknown:
         raise TypeError(f"detect_grains() got an unexpected keyword argument {unknown[0]!r}")
     find_bar = kwargs.pop("find_bar", True)
+    traces = _traces_by_grain(kwargs.pop("predicted_traces", None))
     checked = check_detect_options(pixel_size_um=pixel_size_um, find_bar=find_bar, min_pixels=min_pixels,
                                    **{k: v for k, v in kwargs.items() if k != "notes"})
     working_size = checked.get("working_size", DETECT_OPTIONS["working_size"].default)
@@ -121,5 +131,6 @@ def _run_grains(detect, image, labels, mask, pixel_size_um, path, min_pixels, gr
     for gid, box in _grain_boxes(lab, ids).items():
         res_g = DetectionResult(path=path, width=w, height=h, excluded=list(bars), pixel_size_um=pixel_size_um, grain=gid,
                                 notes=[sampling_note] if sampling_note else [])
-        out[gid] = _detect_one_grain(detect, img, lab, base, gid, box, res_g, min_pixels * ov.factor**2, working_size, kwargs)
+        kw_g = {**kwargs, "predicted_traces": traces.get(gid)} if traces else kwargs
+        out[gid] = _detect_one_grain(detect, img, lab, base, gid, box, res_g, min_pixels * ov.factor**2, working_size, kw_g)
     return out

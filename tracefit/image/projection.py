@@ -52,6 +52,8 @@ MIN_SEPARATION_DEG = 12.0  # a family found here lies at least this far from any
 # left to stages 4-6
 AXIS_GUARD_DEG = 1.0  # ... and this far from the image axes
 PEAKS_TRIED = 3  # directions tried per polarity and search
+GUIDED_TOL_DEG = 3.0  # a guided family's fitted angle lies this close to its predicted trace (orientation and registration error)
+GUIDED_SEPARATION_DEG = 8.0  # ... and this far from every family already found
 MAX_REGION_PX = 60_000  # larger regions (working px: a whole micrograph) hold enough pixels for stages 4-6
 
 
@@ -331,4 +333,54 @@ def _projection_families(ctx, ridges: Sequence[RidgePixels], region: np.ndarray,
             alive[kept[1]] = False
             if len(found) >= max_new:
                 return found, tried
+    return found, tried
+
+
+def _guided_families(ctx, ridges: Sequence[RidgePixels], region: np.ndarray, known: Sequence[BandFamily],
+                     traces: Sequence[float], accept: Callable, max_new: int, up: int = 1) -> tuple[list[BandFamily], int]:
+    """Stage 6c: families looked for at predicted trace angles only (a guided search).
+
+    Each predicted trace not yet near a found family starts the family build of stage 6b at
+    its angle; a family whose fitted angle stays within ``GUIDED_TOL_DEG`` of the trace is
+    judged by ``accept(family, strict)``. Few directions are tested, so a weaker family
+    passes than the open search over every direction may accept; each family found here
+    carries ``sought_at`` (the trace it was looked for at).
+    """
+    reg = _Region(region)
+    if len(reg) > MAX_REGION_PX or max_new <= 0 or not traces:
+        return [], 0
+    half = BAND_HALF_PX * max(1, up)
+    grey = ctx.image[region] if ctx.image.shape == region.shape else ctx.image
+    level = float(np.nanmedian(grey))
+    found: list[BandFamily] = []
+    tried = 0
+    for rp in ridges:
+        alive = np.ones(len(rp), bool)
+        for t in traces:
+            exclude = [fm.angle_deg for fm in [*known, *found]]
+            if any(abs(axial_difference(t, b)) < GUIDED_SEPARATION_DEG for b in exclude):
+                continue
+            if min(abs(axial_difference(t, b)) for b in (0.0, 90.0)) < AXIS_GUARD_DEG:
+                continue
+            near = _pixels_near_angle(rp, t, WINDOW_DEG)
+            idx = near[alive[near]]
+            if len(idx) < 2 * _least(MIN_BAND_PX, half):
+                continue
+            built = _family_of(ctx, rp, idx, reg, float(t), half, level)
+            if built is None:
+                continue
+            tried += 1
+            fam, strict, used = built
+            if abs(axial_difference(fam.angle_deg, t)) > GUIDED_TOL_DEG:
+                continue
+            if any(abs(axial_difference(fam.angle_deg, b)) < GUIDED_SEPARATION_DEG for b in exclude):
+                continue
+            if min(abs(axial_difference(fam.angle_deg, b)) for b in (0.0, 90.0)) < AXIS_GUARD_DEG:
+                continue
+            fam.sought_at = float(fold_axial(t))
+            if accept(fam, strict):
+                found.append(fam)
+                alive[used] = False
+                if len(found) >= max_new:
+                    return found, tried
     return found, tried

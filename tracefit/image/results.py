@@ -100,6 +100,10 @@ class BandFamily:
         log10 of the family's a contrario number of false alarms: how many families at
         least this strong texture alone would give in a picture of this size (see
         :mod:`tracefit.image.significance`); nan when not computed.
+    sought_at : float or None
+        None for a family found by the open search over every direction; else the
+        predicted trace angle (degrees, image frame) it was looked for at and found near
+        (a guided search, see ``predicted_traces`` of :func:`tracefit.image.detect_bands`).
 
     Examples
     --------
@@ -120,6 +124,7 @@ class BandFamily:
     contrast: float = float("nan")
     lines: list[BandLine] = field(default_factory=list)
     log10_nfa: float = float("nan")
+    sought_at: float | None = None
 
     @property
     def significance(self) -> float:
@@ -155,6 +160,7 @@ class BandFamily:
             d["polarity"] = self.polarity
             d["contrast"] = _num(self.contrast, 4)
             d["lines"] = [ln.to_dict() for ln in self.lines]
+            d["sought_at_deg"] = None if self.sought_at is None else round(float(self.sought_at), 4)
         return d
 
 

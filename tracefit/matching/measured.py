@@ -546,7 +546,8 @@ def identify_observed(
             )
     groups: dict = {}
     for i, o in enumerate(obs):
-        key = ("crack", i) if is_crack(o) else ("bands", o.source)
+        # guided families are detected ones (found along a predicted trace): assigned together
+        key = ("crack", i) if is_crack(o) else ("bands", "detected" if o.source == "guided" else o.source)
         groups.setdefault(key, []).append(i)
     out: list = [None] * len(obs)
     for key, idx in groups.items():

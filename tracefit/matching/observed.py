@@ -30,7 +30,9 @@ class ObservedFamily:
     grain : int, str or None
         Grain the family belongs to (None for a single-orientation image).
     source : str
-        ``"detected"`` or ``"measured"``.
+        ``"detected"`` (the open search over every direction), ``"guided"`` (detected by the
+        search along the grain's predicted traces: it agrees with one of them to a few degrees
+        by construction, so it does not test the orientation or frame) or ``"measured"``.
     label : str or None
         Free label for reports (``"crack"`` marks a crack).
     n_bands, strength : optional
@@ -88,7 +90,8 @@ def observed_from_detection(result: Any, grain: Any = None, min_sigma_deg: float
     Returns
     -------
     list of ObservedFamily
-        In detection order, ``source="detected"``, labelled ``F1``, ``F2``, ...
+        In detection order, ``source="detected"`` (``"guided"`` for a family with a
+        ``sought_at`` trace), labelled ``F1``, ``F2``, ...
 
     Raises
     ------
@@ -110,7 +113,7 @@ def observed_from_detection(result: Any, grain: Any = None, min_sigma_deg: float
                 angle_deg=float(f.angle_deg),
                 angle_sigma_deg=max(float(getattr(f, "angle_sigma_deg", DEFAULT_ANGLE_SIGMA_DEG) or 0.0), min_sigma_deg),
                 grain=grain,
-                source="detected",
+                source="detected" if getattr(f, "sought_at", None) is None else "guided",
                 label=f"F{k + 1}" if grain is None else f"G{grain}-F{k + 1}",
                 n_bands=getattr(f, "n_bands", None),
                 strength=getattr(f, "strength", None),

@@ -77,7 +77,7 @@ def _as_load(load, lattice):
 def detect_families(image: np.ndarray, *, labels: np.ndarray | None = None,
                     orientations: dict[int, GrainOrientation] | None = None, mask: np.ndarray | None = None,
                     pixel_size_um: float | None = None, min_grain_px: int | None = None, path: str | None = None,
-                    **detect: Any) -> FamilyDetection:
+                    predicted_traces: dict | Sequence[float] | None = None, **detect: Any) -> FamilyDetection:
     """Detect band families in a micrograph: per grain on a grain map, else in the whole image.
 
     Parameters
@@ -97,6 +97,10 @@ def detect_families(image: np.ndarray, *, labels: np.ndarray | None = None,
         Grains with fewer analysable pixels are skipped (default from :mod:`tracefit.options`).
     path : str, optional
         Source file name, for notes.
+    predicted_traces : dict or sequence of float, optional
+        Trace angles (degrees, image frame) to look along for families the open search
+        misses: grain id -> angles with ``labels``, else one sequence (see
+        :func:`tracefit.image.detect_bands`). Families found there have ``source="guided"``.
     **detect
         Detection settings (the ``detect`` group of :mod:`tracefit.options`).
 
@@ -129,7 +133,7 @@ def detect_families(image: np.ndarray, *, labels: np.ndarray | None = None,
     min_px = defaults("analysis")["min_grain_px"] if min_grain_px is None else check_options(
         {"min_grain_px": min_grain_px}, "analysis")["min_grain_px"]
     if labels is None:
-        res = detect_bands(image, mask, pixel_size_um, path=path, **detect)
+        res = detect_bands(image, mask, pixel_size_um, path=path, predicted_traces=predicted_traces, **detect)
         obs = observed_from_detection(res)
         n_px = int(np.asarray(image).shape[0] * np.asarray(image).shape[1]) if mask is None else int(np.sum(mask))
         st = GrainStatus(None, n_px, len(obs), *_grain_verdict(res, obs, None))
@@ -138,7 +142,8 @@ def detect_families(image: np.ndarray, *, labels: np.ndarray | None = None,
     present = [int(x) for x in np.unique(labels) if x >= 0]  # -1: outside every grain
     ids = [g for g in present if orientations is None or g in orientations]
     centres = _centroids(labels, present)
-    dets = detect_grains(image, labels, mask, pixel_size_um, path=path, min_pixels=min_px, grains=ids, **detect)
+    dets = detect_grains(image, labels, mask, pixel_size_um, path=path, min_pixels=min_px, grains=ids,
+                         predicted_traces=predicted_traces, **detect)
     observed, bands, grains, notes = [], [], [], []
     for gid in ids:
         det = dets[gid]
@@ -161,6 +166,19 @@ def detect_families(image: np.ndarray, *, labels: np.ndarray | None = None,
         if missing:
             notes.append(f"{len(missing)} grain id(s) of the label image have no orientation and were skipped")
     return FamilyDetection(observed, bands, grains, notes)
+
+
+def _traces_to_seek(lattice, systems, frame, table, orientation):
+    """Predicted trace angles (image frame, after tilt) of the candidate planes: per grain of
+    ``table`` (a dict), else of the one ``orientation``; planes nearly in the surface left out."""
+    from tracefit.predict import predict_traces
+
+    def angles(g):
+        return sorted({round(t.angle_deg, 6) for t in predict_traces(lattice, g, systems, frame) if not t.near_surface})
+
+    if table is not None:
+        return {gid: angles(o.g) for gid, o in table.items()}
+    return angles(_as_matrix(orientation))
 
 
 def _grain_verdict(det, fams, min_px) -> tuple[str, str]:
@@ -322,7 +340,8 @@ def _frame_check(observed, lattice, ori_map, systems, frame, s, warn_out) -> dic
     """On a grain map, test the frame against the traces (a wrong frame is a common source of wrong answers)."""
     from tracefit.matching import fit_frame, is_crack
 
-    use = [o for o in observed if o.grain in ori_map and not is_crack(o)]
+    # families found along the predicted traces agree with the frame they were predicted in by construction
+    use = [o for o in observed if o.grain in ori_map and not is_crack(o) and o.source != "guided"]
     if len({o.grain for o in use}) < 3 or len(use) < 4:
         return None
     fit = fit_frame(use, lattice, ori_map, systems, frame=frame, orientation_sigma_deg=s["orientation_sigma_deg"],
@@ -454,8 +473,10 @@ def analyse_image(image: str | Path | np.ndarray | None, lattice: Lattice | str,
             notes += list(grain_map.notes)
         detection = None
         if img is not None:
+            traces = _traces_to_seek(lat, cands, frame, table, orientation) if s["guided_search"] else None
             detection = detect_families(img, labels=lab, orientations=table, mask=_read_mask(mask, img.shape),
-                                        pixel_size_um=pixel_size_um, min_grain_px=s["min_grain_px"], path=path, **det)
+                                        pixel_size_um=pixel_size_um, min_grain_px=s["min_grain_px"], path=path,
+                                        predicted_traces=traces, **det)
             notes += detection.notes
             _fill_grain_orientations(detection.grains, table, orientation)
         observed = (detection.observed if detection is not None else []) + list(measured)

@@ -251,6 +251,10 @@ def _candidate_table(rec: dict, fam: dict) -> str:
     )
     pn = ident.get("p_none")
     extra = f'<p class="notes">Probability that none of the candidates made this family: {_num(pn, 3)}.</p>' if pn is not None else ""
+    if fam.get("source") == "guided":
+        extra += ('<p class="notes">Found by the search along this grain\'s predicted traces: its angle is measured '
+                  "from its bands, but it was looked for within a few degrees of a predicted trace, so its agreement "
+                  "with that trace is partly by construction and it does not test the orientation or frame.</p>")
     if ident.get("unexplained") and ident.get("nearest"):
         near = ", ".join(f"{_plane(n['plane'])} at {_num(n['predicted_deg'])} deg ({_num(n['n_sigma'], 1)} sigma)"
                          for n in ident["nearest"])
@@ -330,7 +334,7 @@ def _families_table(rec: dict) -> str:
         cands = ident.get("candidates") or []
         b = cands[0] if cands else {}
         rows.append(
-            f"<tr><td>F{_e(fam.get('index'))}</td><td>{_e('' if fam.get('grain') is None else fam['grain'])}</td>"
+            f"<tr><td>F{_e(fam.get('index'))}{' (guided)' if fam.get('source') == 'guided' else ''}</td><td>{_e('' if fam.get('grain') is None else fam['grain'])}</td>"
             f"<td class=\"num\">{_num(fam.get('angle_deg'))}</td><td class=\"num\">{_e(fam.get('n_bands'))}</td>"
             f"<td>{_verdict(ident)}</td><td class=\"num\">{_num(b.get('probability'), 3)}</td>"
             f"<td class=\"num\">{_num(b.get('residual_deg'))}</td></tr>"
