@@ -113,7 +113,7 @@ def test_textures_left_without_families_mostly_stay_so():
 
 
 def test_more_traces_ask_more_of_each_family():
-    from tracefit.image.detect import _guided_share
+    from tracefit.image.projection import _guided_share
 
     for strict in (True, False):
         shares = [_guided_share(strict, n) for n in (1, 4, 8, 24)]
@@ -146,7 +146,7 @@ def test_fcc_traces_on_a_cube_surface_lie_along_the_face_diagonals():
     # {111} planes meet a (001) surface along <110>: at 45 and 135 deg (common practice, no source)
     from tracefit.crystal import Lattice, catalogue
     from tracefit.conventions import FrameSettings
-    from tracefit.pipeline.chain import _traces_to_seek
+    from tracefit.pipeline.grainmap import _traces_to_seek
 
     lat = Lattice.fcc()
     got = _traces_to_seek(lat, catalogue(lat, modes=["slip"]), FrameSettings(), None, np.eye(3))

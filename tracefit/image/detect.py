@@ -76,7 +76,7 @@ from tracefit.image.prepare import (
     _WorkingCopy,
 )
 from tracefit.image.results import BandFamily, BandLine, DetectionResult
-from tracefit.image.projection import _guided_families, _projection_families
+from tracefit.image.projection import _checked_traces, _guided_families, _guided_share, _projection_families
 from tracefit.image.ridges import _pixel_noise, flatten_background, ridge_pixels
 from tracefit.image.sampling import NATIVE, Oversampling, _resolved
 from tracefit.image.search import SAME_FAMILY_DEG, _distinct_families, _search_rounds, _SearchContext, _without_bands
@@ -102,16 +102,6 @@ MIN_DEPTH_SHARE = 0.3  # ... and at least this share of ``min_depth``
 PROJECTION_MAX_AREA_PX = 12_000
 PROJECTION_SHARE = 0.75  # share of the significance thresholds asked of families found by projection (small regions) ...
 TAIL_SKEW = 0.1  # ... which are of the polarity of the region's grey-level tail, where its quantile skew passes this
-# Stage 6c, families sought along predicted traces only: shares of the thresholds asked of a regular family and of
-# a relaxed one (2 bands or irregular spacing), for up to 4 traces (fcc's {111}), raised by GUIDED_PER_DOUBLING for
-# every doubling beyond (more traces test more directions). Chosen on benchmarks/strainmap.py's maps (the true
-# traces 1 deg off, random decoys): band-free grains scored at most 6.6 (regular) and 3.0 (relaxed) with 4 traces
-# a grain, 8.4 and 4.9 with 12, against 8 and 10 asked with 4, 11.8 and 14.7 with 12; and on 108 small crops of
-# scikit-image's sample images, where 12 random traces gave 28 families at 0.1 per doubling and 17 at 0.3
-# (13 with 4 traces; the open search gives 58 there)
-GUIDED_SHARE = 0.5
-GUIDED_RELAXED_SHARE = 0.25
-GUIDED_PER_DOUBLING = 0.3
 
 
 def _effective_min_depth(img, m, pixel_noise: float, min_depth: float) -> float:
@@ -233,30 +223,8 @@ def _detect_at_scale(img, m, bars, st: _Settings, up: int = 1, down: int = 1) ->
     found, tried, n_rejected = _search_rounds(sc, lambda rp, ln: _build_family(ctx, rp, ln), accept)  # stages 4-7
     small = up > 1 or int(wc.region.sum()) * (wc.factor * down) ** 2 < PROJECTION_MAX_AREA_PX
     if small and len(found) < st.max_families:
-        # stage 6b, in small regions (grains of a strain map, grains of ~100 x 100 px of a
-        # micrograph): families whose bands are too short to fit one by one. Larger regions give their bands enough pixels for stages 4-6; there the
-        # projection's extra families were mostly texture, scan lines and curved bands seen twice
-        # (benchmarks/realdata.md). Only bands of the polarity of the region's tail are sought, and
-        # none in a region without one: in strain maps the dark "families" were the low-strain gaps
-        # between bands, and band-free grains have the least skewed grey levels
-        tail = _tail_polarity(wc.image, wc.region)
-
-        def rest():
-            return [_without_bands(rp, found, wc.factor) for rp in ridges if rp.polarity == tail]
-
-        more, n_more = _projection_families(ctx, rest(), wc.region, found, lambda fm, strict: accept(fm, strict, True),
-                                            st.max_families - len(found), up)
+        found, n_more = _small_region_families(ctx, ridges, wc, found, accept, st, up)
         tried += n_more
-        found = _distinct_families(found + more)
-        if st.predicted_traces and len(found) < st.max_families:
-            # stage 6c: families looked for along the grain's predicted traces only; few directions are
-            # tested, so a weaker family passes at the same rate of false families on band-free grains
-            n = len(st.predicted_traces)
-            more, n_more = _guided_families(ctx, rest(), wc.region, found, st.predicted_traces,
-                                            lambda fm, strict: accept(fm, strict, True, _guided_share(strict, n)),
-                                            st.max_families - len(found), up)
-            tried += n_more
-            found = _distinct_families(found + more)
     found = found[: st.max_families]
     if found:
         return _Outcome(found, "found", _summary_note(found), notes)
@@ -268,23 +236,34 @@ def _detect_at_scale(img, m, bars, st: _Settings, up: int = 1, down: int = 1) ->
                     f"{'s' if tried != 1 else ''} tested, {why}", notes)
 
 
-def _guided_share(strict: bool, n_traces: int) -> float:
-    """Share of the usual significance threshold asked of a family found along one of ``n_traces`` predicted traces."""
-    share = GUIDED_SHARE if strict else GUIDED_RELAXED_SHARE
-    return share * (1.0 + GUIDED_PER_DOUBLING * math.log2(max(n_traces, 4) / 4))
+def _small_region_families(ctx, ridges, wc, found, accept, st: _Settings, up: int) -> tuple[list, int]:
+    """Stages 6b and 6c in small regions (grains of a strain map, grains of ~100 x 100 px of a micrograph).
 
+    6b: families whose bands are too short to fit one by one, by projection. Larger regions give
+    their bands enough pixels for stages 4-6; there the projection's extra families were mostly
+    texture, scan lines and curved bands seen twice (benchmarks/realdata.md). Only bands of the
+    polarity of the region's tail are sought, and none in a region without one: in strain maps
+    the dark "families" were the low-strain gaps between bands, and band-free grains have the
+    least skewed grey levels. 6c: families looked for along the grain's predicted traces only;
+    few directions are tested, so a weaker family passes at the same rate of false families on
+    band-free grains. Returns (families, candidates tried).
+    """
+    tail = _tail_polarity(wc.image, wc.region)
 
-def _checked_traces(traces) -> tuple:
-    """Predicted trace angles as a tuple of axial angles in [0, 180), degrees (checked)."""
-    if traces is None:
-        return ()
-    try:
-        vals = np.asarray(list(traces), dtype=np.float64).ravel()
-    except (TypeError, ValueError):
-        raise TracefitInputError(f"predicted_traces must be a sequence of angles in degrees, got {traces!r}") from None
-    if not np.all(np.isfinite(vals)):
-        raise TracefitInputError("predicted_traces must hold finite angles in degrees")
-    return tuple(float(a) for a in np.mod(vals, 180.0))
+    def rest():
+        return [_without_bands(rp, found, wc.factor) for rp in ridges if rp.polarity == tail]
+
+    more, tried = _projection_families(ctx, rest(), wc.region, found, lambda fm, strict: accept(fm, strict, True),
+                                       st.max_families - len(found), up)
+    found = _distinct_families(found + more)
+    if st.predicted_traces and len(found) < st.max_families:
+        n = len(st.predicted_traces)
+        more, n_more = _guided_families(ctx, rest(), wc.region, found, st.predicted_traces,
+                                        lambda fm, strict: accept(fm, strict, True, _guided_share(strict, n)),
+                                        st.max_families - len(found), up)
+        tried += n_more
+        found = _distinct_families(found + more)
+    return found, tried
 
 
 def _tail_polarity(img, region) -> int:

@@ -11,7 +11,8 @@ import numpy as np
 from tracefit.conventions import FrameSettings
 from tracefit.errors import TracefitInputError
 from tracefit.options import DEFAULT_MODES, check_options, defaults
-from tracefit.pipeline.grainmap import _as_matrix, orientation_table, read_grain_map, read_label_map
+from tracefit.pipeline.grainmap import (_as_matrix, _centroids, _traces_to_seek, orientation_table, read_grain_map,
+                                        read_label_map)
 from tracefit.results import FamilyDetection, GrainStatus, Identification, ImageResult
 
 if TYPE_CHECKING:  # names for the hints only; the chain imports its stages lazily
@@ -168,19 +169,6 @@ def detect_families(image: np.ndarray, *, labels: np.ndarray | None = None,
     return FamilyDetection(observed, bands, grains, notes)
 
 
-def _traces_to_seek(lattice, systems, frame, table, orientation):
-    """Predicted trace angles (image frame, after tilt) of the candidate planes: per grain of
-    ``table`` (a dict), else of the one ``orientation``; planes nearly in the surface left out."""
-    from tracefit.predict import predict_traces
-
-    def angles(g):
-        return sorted({round(t.angle_deg, 6) for t in predict_traces(lattice, g, systems, frame) if not t.near_surface})
-
-    if table is not None:
-        return {gid: angles(o.g) for gid, o in table.items()}
-    return angles(_as_matrix(orientation))
-
-
 def _grain_verdict(det, fams, min_px) -> tuple[str, str]:
     """(status, reason) of one grain (or image) from its detection result: why it has no families."""
     if fams:
@@ -194,16 +182,6 @@ def _grain_verdict(det, fams, min_px) -> tuple[str, str]:
     if verdict == "not_significant":
         return "no families", reason or "nothing significant: every candidate family could arise from texture alone"
     return "no families", reason or "no band family passed the detector's tests"
-
-
-def _centroids(labels: np.ndarray, ids: list[int]) -> dict[int, tuple[float, float]]:
-    """Grain id -> (column, row) of its centroid in pixels."""
-    from scipy import ndimage
-
-    if not ids:
-        return {}
-    rc = ndimage.center_of_mass(np.ones(labels.shape), labels, ids)
-    return {g: (float(c), float(r)) for g, (r, c) in zip(ids, rc)}
 
 
 # --------------------------------------------------------------------------- stage 3: identification

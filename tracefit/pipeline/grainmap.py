@@ -154,3 +154,26 @@ def read_grain_map(labels: str | Path | np.ndarray, orientations: str | Path | d
     if not present & set(table):
         raise TracefitInputError("no grain id of the orientation table occurs in the grain label image")
     return lab, table
+
+
+def _traces_to_seek(lattice, systems, frame, table, orientation):
+    """Predicted trace angles (image frame, after tilt) of the candidate planes: per grain of
+    ``table`` (a dict), else of the one ``orientation``; planes nearly in the surface left out."""
+    from tracefit.predict import predict_traces
+
+    def angles(g):
+        return sorted({round(t.angle_deg, 6) for t in predict_traces(lattice, g, systems, frame) if not t.near_surface})
+
+    if table is not None:
+        return {gid: angles(o.g) for gid, o in table.items()}
+    return angles(_as_matrix(orientation))
+
+
+def _centroids(labels: np.ndarray, ids: list[int]) -> dict[int, tuple[float, float]]:
+    """Grain id -> (column, row) of its centroid in pixels."""
+    from scipy import ndimage
+
+    if not ids:
+        return {}
+    rc = ndimage.center_of_mass(np.ones(labels.shape), labels, ids)
+    return {g: (float(c), float(r)) for g, (r, c) in zip(ids, rc)}
