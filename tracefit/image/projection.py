@@ -306,12 +306,10 @@ def _projection_families(ctx, ridges: Sequence[RidgePixels], region: np.ndarray,
     -------
     (families, tried)
     """
-    reg = _Region(region)
-    if len(reg) > MAX_REGION_PX or max_new <= 0:
+    setup = _search_setup(ctx, region, up) if max_new > 0 else None
+    if setup is None:
         return [], 0
-    half = BAND_HALF_PX * max(1, up)
-    grey = ctx.image[region] if ctx.image.shape == region.shape else ctx.image
-    level = float(np.nanmedian(grey))
+    reg, half, level = setup
     found: list[BandFamily] = []
     tried = 0
     for rp in ridges:
@@ -351,6 +349,22 @@ def _projection_families(ctx, ridges: Sequence[RidgePixels], region: np.ndarray,
     return found, tried
 
 
+def _search_setup(ctx, region: np.ndarray, up: int):
+    """(chords of the region, a band's half width, the region's median grey) for a search; None when
+    the region is too large for one."""
+    reg = _Region(region)
+    if len(reg) > MAX_REGION_PX:
+        return None
+    grey = ctx.image[region] if ctx.image.shape == region.shape else ctx.image
+    return reg, BAND_HALF_PX * max(1, up), float(np.nanmedian(grey))
+
+
+def _too_close(angle: float, others: Sequence[float]) -> bool:
+    """A guided direction too near a family already found or an image axis (scan lines, tile seams)."""
+    return (any(abs(axial_difference(angle, b)) < GUIDED_SEPARATION_DEG for b in others)
+            or min(abs(axial_difference(angle, b)) for b in (0.0, 90.0)) < AXIS_GUARD_DEG)
+
+
 def _guided_share(strict: bool, n_traces: int) -> float:
     """Share of the usual significance threshold asked of a family found along one of ``n_traces`` predicted traces."""
     share = GUIDED_SHARE if strict else GUIDED_RELAXED_SHARE
@@ -380,21 +394,17 @@ def _guided_families(ctx, ridges: Sequence[RidgePixels], region: np.ndarray, kno
     passes than the open search over every direction may accept; each family found here
     carries ``sought_at`` (the trace it was looked for at).
     """
-    reg = _Region(region)
-    if len(reg) > MAX_REGION_PX or max_new <= 0 or not traces:
+    setup = _search_setup(ctx, region, up) if max_new > 0 and traces else None
+    if setup is None:
         return [], 0
-    half = BAND_HALF_PX * max(1, up)
-    grey = ctx.image[region] if ctx.image.shape == region.shape else ctx.image
-    level = float(np.nanmedian(grey))
+    reg, half, level = setup
     found: list[BandFamily] = []
     tried = 0
     for rp in ridges:
         alive = np.ones(len(rp), bool)
         for t in traces:
             exclude = [fm.angle_deg for fm in [*known, *found]]
-            if any(abs(axial_difference(t, b)) < GUIDED_SEPARATION_DEG for b in exclude):
-                continue
-            if min(abs(axial_difference(t, b)) for b in (0.0, 90.0)) < AXIS_GUARD_DEG:
+            if _too_close(t, exclude):
                 continue
             near = _pixels_near_angle(rp, t, WINDOW_DEG)
             idx = near[alive[near]]
@@ -405,11 +415,7 @@ def _guided_families(ctx, ridges: Sequence[RidgePixels], region: np.ndarray, kno
                 continue
             tried += 1
             fam, strict, used = built
-            if abs(axial_difference(fam.angle_deg, t)) > GUIDED_TOL_DEG:
-                continue
-            if any(abs(axial_difference(fam.angle_deg, b)) < GUIDED_SEPARATION_DEG for b in exclude):
-                continue
-            if min(abs(axial_difference(fam.angle_deg, b)) for b in (0.0, 90.0)) < AXIS_GUARD_DEG:
+            if abs(axial_difference(fam.angle_deg, t)) > GUIDED_TOL_DEG or _too_close(fam.angle_deg, exclude):
                 continue
             fam.sought_at = float(fold_axial(t))
             if accept(fam, strict):
