@@ -200,3 +200,29 @@ def test_the_frame_check_leaves_guided_families_out(monkeypatch):
                        {"orientation_sigma_deg": 1.0, "p_none": 0.05}, [])
     assert seen["use"] and all(o.source == "detected" for o in seen["use"])
     assert len(seen["use"]) == 6
+
+
+def test_identify_marks_guided_families_and_can_leave_them_out(tmp_path, run_cli):
+    import json
+
+    import tifffile
+    from PIL import Image
+
+    labels = grain_labels()
+    img = short_band_map(45.0, 3, crossing=(135.0, 0.008))  # the weak 135-deg family only the guided search finds
+    tifffile.imwrite(tmp_path / "map.tif", img)
+    Image.fromarray((labels * 255).astype(np.uint8)).save(tmp_path / "grains.png")
+    (tmp_path / "ori.csv").write_text("grain,phi1,Phi,phi2\n255,0,0,0\n", encoding="utf-8")
+    args = ["identify", str(tmp_path / "map.tif"), "--lattice", "fcc", "--modes", "slip",
+            "--grains", str(tmp_path / "grains.png"), "--orientations", str(tmp_path / "ori.csv")]
+    code, out, err = run_cli(*args)
+    assert code == 0, err
+    assert "[guided: found along a predicted trace]" in out
+    code, js, err = run_cli(*args, "--json")
+    assert code == 0, err
+    fams = json.loads(js)["families"]
+    guided = [f for f in fams if f["source"] == "guided"]
+    assert guided and all(abs(axial_difference(f["angle_deg"], 135.0)) < 2.0 for f in guided)
+    code, out_off, err = run_cli(*args, "--no-guided-search")
+    assert code == 0, err
+    assert "guided" not in out_off
