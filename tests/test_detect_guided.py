@@ -123,7 +123,7 @@ def test_more_traces_ask_more_of_each_family():
 def test_predicted_traces_are_checked():
     img = short_band_map(30.0, 0)
     labels = grain_labels()
-    for bad in (["a"], [float("nan")], 5.0):
+    for bad in (["a"], [float("nan")], 5.0, "45", {1: [30.0]}, [[30.0, 40.0]]):
         with pytest.raises(TracefitInputError, match="predicted_traces"):
             detect_bands(img, predicted_traces=bad)
     with pytest.raises(TracefitInputError, match="predicted_traces"):
@@ -131,14 +131,38 @@ def test_predicted_traces_are_checked():
 
 
 def test_detect_grains_gives_each_grain_its_own_traces():
-    img, second = _second(3, ANGLES[3][1])
+    seed, first = ANGLES[4]  # a map whose second family only the guided search finds
+    img, second = _second(seed, first)
     labels = grain_labels()
-    first = ANGLES[3][1]
     by_grains = detect_grains(img, labels, grains=[1], predicted_traces={1: _traces(first, second)})[1]
     one = detect_bands(img, labels=labels, grain=1, predicted_traces=_traces(first, second))
+    assert any(f.sought_at is not None for f in by_grains.families)
     assert [f.angle_deg for f in by_grains.families] == [f.angle_deg for f in one.families]
     other = detect_grains(img, labels, grains=[1], predicted_traces={0: _traces(first, second)})[1]
     assert all(f.sought_at is None for f in other.families)
+    assert len(other.families) < len(by_grains.families)
+
+
+def test_a_map_enlarged_in_blocks_gives_the_same_guided_family():
+    # a map enlarged 2x by repeating each point (nearest neighbour) is analysed at its own sampling
+    seed, first = ANGLES[4]
+    img, second = _second(seed, first)
+    labels = grain_labels()
+    native = detect_bands(img, labels=labels, grain=1, predicted_traces=_traces(first, second))
+    big = detect_bands(np.repeat(np.repeat(img, 2, 0), 2, 1), labels=np.repeat(np.repeat(labels, 2, 0), 2, 1),
+                       grain=1, predicted_traces=_traces(first, second))
+    want = [(round(f.angle_deg, 3), f.sought_at) for f in native.families]
+    assert any(s is not None for _, s in want)
+    assert [(round(f.angle_deg, 3), f.sought_at) for f in big.families] == want
+
+
+def test_bad_traces_per_grain_are_refused_with_the_grain_named():
+    img, _ = _second(*ANGLES[0])
+    labels = grain_labels()
+    for bad, words in (({"a": [30.0]}, "integer grain ids"), ({None: [30.0]}, "integer grain ids"),
+                       ({1.5: [30.0]}, "integer grain ids"), ({0: "x"}, "of grain 0"), ({1: [[1.0, 2.0]]}, "of grain 1")):
+        with pytest.raises(TracefitInputError, match=words):
+            detect_grains(img, labels, grains=[1], predicted_traces=bad)
 
 
 # --------------------------------------------------------------------------- the chain
@@ -153,28 +177,79 @@ def test_fcc_traces_on_a_cube_surface_lie_along_the_face_diagonals():
     assert got == pytest.approx([45.0, 135.0])
 
 
+def _scipy_traces(euler_deg):
+    """{111} trace angles for Bunge angles, computed with scipy's Rotation (an outside reference): the
+    active rotation Rz(phi1) Rx(Phi) Rz(phi2) takes crystal to sample axes (g = its transpose), and a
+    plane with sample normal n meets the surface along atan2(n_y, n_x) + 90 deg."""
+    from scipy.spatial.transform import Rotation
+
+    rot = Rotation.from_euler("ZXZ", euler_deg, degrees=True).as_matrix()
+    n = np.array([[1, 1, 1], [-1, 1, 1], [1, -1, 1], [1, 1, -1]], float) @ rot.T
+    return sorted(float(a) for a in (np.degrees(np.arctan2(n[:, 1], n[:, 0])) + 90.0) % 180.0)
+
+
+EULER = (10.0, 20.0, 30.0)
+
+
+def test_the_traces_sought_are_the_predicted_ones():
+    from tracefit.crystal import Lattice, catalogue
+    from tracefit.conventions import FrameSettings
+    from tracefit.pipeline.grainmap import _traces_to_seek
+
+    lat = Lattice.fcc()
+    g = tf.Orientation.from_euler(list(EULER))
+    table = {7: type("Row", (), {"g": g.as_matrix()})()}
+    got = _traces_to_seek(lat, catalogue(lat, modes=["slip"]), FrameSettings(), table, None)
+    assert got[7] == pytest.approx(_scipy_traces(EULER), abs=1e-6)
+
+
 def test_the_chain_looks_along_the_predicted_traces_and_says_so():
-    # identity orientation: the {111} traces lie at 45 and 135 deg; a strong family at 45 and a weak one at 135
+    # Bunge (10, 20, 30): {111} traces at 73.3, 99.9, 168.8 and 177.3 deg (no mirror symmetry, so a sign
+    # or y-direction error would send the search elsewhere); a strong family on the first, a weak one on the third
+    strong, weak = _scipy_traces(EULER)[0], _scipy_traces(EULER)[2]
+    g = tf.Orientation.from_euler(list(EULER))
     labels = grain_labels()
     guided_runs, plain_runs = [], []
-    for seed in range(8):
-        img = short_band_map(45.0, seed, crossing=(135.0, 0.008))
-        res = tf.analyse_image(img, "fcc", orientation=np.eye(3), mask=labels == 1, modes=["slip"])
-        off = tf.analyse_image(img, "fcc", orientation=np.eye(3), mask=labels == 1, modes=["slip"], guided_search=False)
+    for seed in range(12):
+        img = short_band_map(strong, seed, crossing=(weak, 0.015))
+        res = tf.analyse_image(img, "fcc", orientation=g, mask=labels == 1, modes=["slip"])
+        off = tf.analyse_image(img, "fcc", orientation=g, mask=labels == 1, modes=["slip"], guided_search=False)
         guided_runs.append(res)
         plain_runs.append(off)
         assert all(o.source == "detected" for o in off.observed)
-    found = sum(bool(_near(r.observed, 135.0)) for r in guided_runs)
-    found_plain = sum(bool(_near(r.observed, 135.0)) for r in plain_runs)
+    found = sum(bool(_near(r.observed, weak)) for r in guided_runs)
+    found_plain = sum(bool(_near(r.observed, weak)) for r in plain_runs)
     assert found >= found_plain + 2, (found_plain, found)
     marked = [(r, o, fid) for r in guided_runs for o, fid in zip(r.observed, r.families) if o.source == "guided"]
     assert marked
     for r, o, fid in marked:
-        assert abs(axial_difference(o.angle_deg, 135.0)) < 2.0
+        assert abs(axial_difference(o.angle_deg, weak)) < 2.0
         assert fid.source == "guided"
-        assert abs(axial_difference(fid.best.predicted_deg, 135.0)) < 1e-6  # the plane whose trace it lies on
+        assert abs(axial_difference(fid.best.predicted_deg, weak)) < 1e-3  # the plane whose trace it lies on
         rec = [x for x in r.family_records() if x["source"] == "guided"]
-        assert rec and all(abs(axial_difference(x["angle_deg"], 135.0)) < 2.0 for x in rec)
+        assert rec and all(abs(axial_difference(x["angle_deg"], weak)) < 2.0 for x in rec)
+        rows = [row for row in r.to_frame().to_dict("records") if row["source"] == "guided"]
+        assert len(rows) == len(rec)
+
+
+def test_an_orientation_table_without_labels_gives_no_traces(monkeypatch):
+    # a table of grains without a label image has no grains to search (its ids are not angles)
+    from tracefit.pipeline import chain
+
+    seen = []
+    real = chain.detect_families
+
+    def spy(*a, **k):
+        seen.append(k.get("predicted_traces"))
+        return real(*a, **k)
+
+    monkeypatch.setattr(chain, "detect_families", spy)
+    img = short_band_map(30.0, 0)
+    tf.analyse_image(img, "fcc", orientations={7: tf.Orientation.from_euler([0, 0, 0]),
+                                               150: tf.Orientation.from_euler([10, 20, 30])}, modes=["slip"])
+    tf.analyse_image(img, "fcc", orientation=np.eye(3), modes=["slip"])
+    assert seen[0] is None
+    assert seen[1] == pytest.approx([45.0, 135.0])
 
 
 def test_the_frame_check_leaves_guided_families_out(monkeypatch):

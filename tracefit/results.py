@@ -25,7 +25,7 @@ __all__ = [
 ]
 
 CSV_COLUMNS = [
-    "image", "status", "grain", "grain_x_px", "grain_y_px", "grain_euler_deg", "family", "angle_deg", "angle_sigma_deg", "n_bands", "spacing_um",
+    "image", "status", "grain", "grain_x_px", "grain_y_px", "grain_euler_deg", "family", "source", "angle_deg", "angle_sigma_deg", "n_bands", "spacing_um",
     "strength", "verdict", "plane", "plane_family", "mode", "predicted_deg", "residual_deg",
     "probability", "schmid_factor", "direction", "second_plane", "second_probability", "p_none", "error",
     "modes", "load", "resolved_shear_mpa", "crss_mpa", "exceeds_crss",
@@ -256,6 +256,7 @@ def family_rows(image_name: str, families: list[dict]) -> list[dict]:
             "grain_y_px": fam.get("grain_y_px"),
             "grain_euler_deg": " ".join(f"{x:g}" for x in fam["grain_euler_deg"]) if fam.get("grain_euler_deg") else "",
             "family": f"F{fam.get('index', len(rows) + 1)}",
+            "source": fam.get("source") or "",
             "angle_deg": fam.get("angle_deg"),
             "angle_sigma_deg": fam.get("angle_sigma_deg"),
             "n_bands": fam.get("n_bands"),

@@ -43,7 +43,8 @@ def detect_grains(image: np.ndarray, labels: np.ndarray, mask: np.ndarray | None
         Options of :func:`detect_bands`: ``find_bar, min_bands, max_families,
         working_size, scales, min_coverage, min_depth, min_significance,
         oversampling, notes``. An ``oversampling`` of 0 (the default) is estimated once,
-        on the whole image.
+        on the whole image. ``predicted_traces`` here is a dict: integer grain id -> that
+        grain's trace angles (degrees, image frame); grains without an entry get none.
 
     Returns
     -------

@@ -9,7 +9,7 @@ neither entry point, so each can call it).
 from __future__ import annotations
 
 import numbers
-from collections.abc import Iterable
+from collections.abc import Iterable, Mapping
 
 import numpy as np
 from scipy import ndimage
@@ -47,12 +47,20 @@ def _grain_ids(lab, grains) -> list[int]:
 
 
 def _traces_by_grain(traces) -> dict:
-    """``predicted_traces`` of detect_grains: grain id -> angles (degrees), or empty."""
+    """``predicted_traces`` of detect_grains: grain id -> angles (degrees), each checked; empty for None."""
+    from tracefit.image.projection import _checked_traces
+
     if traces is None:
         return {}
-    if not isinstance(traces, dict):
+    if not isinstance(traces, Mapping):
         raise TracefitInputError("predicted_traces of detect_grains must be a dict: grain id -> trace angles in degrees")
-    return {int(g): v for g, v in traces.items()}
+    out = {}
+    for g, v in traces.items():
+        whole = isinstance(g, numbers.Integral) or (isinstance(g, numbers.Real) and float(g).is_integer())
+        if isinstance(g, (bool, np.bool_)) or not whole:
+            raise TracefitInputError(f"predicted_traces keys must be integer grain ids, got {g!r}")
+        out[int(g)] = _checked_traces(v, int(g))
+    return out
 
 
 def _grain_boxes(lab, ids):

@@ -31,7 +31,7 @@ are tested, so a weaker family passes (``_guided_share`` of the usual thresholds
 from __future__ import annotations
 
 import math
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Iterable, Mapping, Sequence
 from typing import NamedTuple
 
 import numpy as np
@@ -371,16 +371,22 @@ def _guided_share(strict: bool, n_traces: int) -> float:
     return share * (1.0 + GUIDED_PER_DOUBLING * math.log2(max(n_traces, 4) / 4))
 
 
-def _checked_traces(traces) -> tuple:
+def _checked_traces(traces, grain=None) -> tuple:
     """Predicted trace angles as a tuple of axial angles in [0, 180), degrees (checked)."""
     if traces is None:
         return ()
+    where = "" if grain is None else f" of grain {grain}"
+    bad = f"predicted_traces{where} must be a sequence of angles in degrees, got {traces!r}"
+    if isinstance(traces, (str, bytes, Mapping)) or not isinstance(traces, Iterable):
+        raise TracefitInputError(bad)
     try:
-        vals = np.asarray(list(traces), dtype=np.float64).ravel()
+        vals = np.asarray(list(traces), dtype=np.float64)
     except (TypeError, ValueError):
-        raise TracefitInputError(f"predicted_traces must be a sequence of angles in degrees, got {traces!r}") from None
+        raise TracefitInputError(bad) from None
+    if vals.ndim != 1:
+        raise TracefitInputError(bad)
     if not np.all(np.isfinite(vals)):
-        raise TracefitInputError("predicted_traces must hold finite angles in degrees")
+        raise TracefitInputError(f"predicted_traces{where} must hold finite angles in degrees")
     return tuple(float(a) for a in np.mod(vals, 180.0))
 
 

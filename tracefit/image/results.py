@@ -138,7 +138,8 @@ class BandFamily:
         ----------
         with_lines : bool
             Add ``significance`` (``-log10_nfa``), ``spacing_sigma_px``, ``polarity``,
-            ``contrast`` and the band ``lines``.
+            ``contrast``, ``sought_at_deg`` (the predicted trace a family was looked for at,
+            None for the open search) and the band ``lines``.
 
         Returns
         -------

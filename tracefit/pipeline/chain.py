@@ -451,7 +451,9 @@ def analyse_image(image: str | Path | np.ndarray | None, lattice: Lattice | str,
             notes += list(grain_map.notes)
         detection = None
         if img is not None:
-            traces = _traces_to_seek(lat, cands, frame, table, orientation) if s["guided_search"] else None
+            # per grain on a grain map, one list for a single crystal; a table without labels has no grains to search
+            seek = s["guided_search"] and (lab is not None if table is not None else orientation is not None)
+            traces = _traces_to_seek(lat, cands, frame, table, orientation) if seek else None
             detection = detect_families(img, labels=lab, orientations=table, mask=_read_mask(mask, img.shape),
                                         pixel_size_um=pixel_size_um, min_grain_px=s["min_grain_px"], path=path,
                                         predicted_traces=traces, **det)
