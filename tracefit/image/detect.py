@@ -497,12 +497,8 @@ def detect_bands(
         may have been enlarged by interpolation, which cannot be told from smooth
         content: state the factor for those.
     predicted_traces : sequence of float, optional
-        Trace angles (degrees, image frame) of the candidate planes, when the orientation is
-        known. In small regions (grains of a strain map) families are then also looked for
-        along each of them after the open search (stage 6c): few directions are tested, so
-        a weaker family passes; its angle is measured from its bands and lies within 3 deg of
-        the trace, and ``BandFamily.sought_at`` names the trace. Traces within 1 deg of the
-        image axes are not searched (scan lines and tile seams run there).
+        Candidate planes' trace angles (degrees, image frame): small regions are also searched along
+        each (stage 6c, not within 1 deg of an axis), at a lower threshold; ``BandFamily.sought_at``.
     notes : list of str, optional
         Notes to start the result with (e.g. from :func:`tracefit.image.read_image`).
 

@@ -443,7 +443,7 @@ def write_results_csv(records: list[dict], path: str | Path) -> Path:
     ...     text = write_results_csv([{"name": "coupon-A", "status": "ok", "families": []}],
     ...                              Path(d) / "results.csv").read_text()
     >>> print(text.splitlines()[1])
-    coupon-A,ok,,,,,,,,,,,no bands found,,,,,,,,,,,,,,,,,
+    coupon-A,ok,,,,,,,,,,,,no bands found,,,,,,,,,,,,,,,,,
     """
     buf = io.StringIO()
     w = csv.DictWriter(buf, fieldnames=CSV_COLUMNS, extrasaction="ignore", lineterminator="\n")
