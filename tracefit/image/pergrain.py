@@ -17,6 +17,7 @@ from scipy import ndimage
 from tracefit.errors import TracefitInputError
 from tracefit.image.options import DETECT_OPTIONS, check_detect_options
 from tracefit.image.prepare import MIN_SIDE_PX, _clear_boxes, _exclude_databars, _prepare_input, _working_size_problem
+from tracefit.image.projection import _checked_traces
 from tracefit.image.results import DetectionResult
 from tracefit.image.sampling import _resolved
 
@@ -48,8 +49,6 @@ def _grain_ids(lab, grains) -> list[int]:
 
 def _traces_by_grain(traces) -> dict:
     """``predicted_traces`` of detect_grains: grain id -> angles (degrees), each checked; empty for None."""
-    from tracefit.image.projection import _checked_traces
-
     if traces is None:
         return {}
     if not isinstance(traces, Mapping):

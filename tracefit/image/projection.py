@@ -423,7 +423,7 @@ def _guided_families(ctx, ridges: Sequence[RidgePixels], region: np.ndarray, kno
             fam, strict, used = built
             if abs(axial_difference(fam.angle_deg, t)) > GUIDED_TOL_DEG or _too_close(fam.angle_deg, exclude):
                 continue
-            fam.sought_at = float(fold_axial(t))
+            fam.sought_at = float(t)  # already folded to [0, 180) by _checked_traces
             if accept(fam, strict):
                 found.append(fam)
                 alive[used] = False
