@@ -18,6 +18,7 @@ from tests.test_detect_projection import ANGLES, grain_labels, short_band_map
 from tracefit.conventions import axial_difference
 from tracefit.errors import TracefitInputError
 from tracefit.image import detect_bands, detect_grains
+from tracefit.image.projection import GUIDED_TOL_DEG
 
 WEAK = 0.01  # level of the second family (the first is 0.05): the open search finds it in about half the grains
 SEP = 50.0  # degrees between the two families
@@ -225,6 +226,7 @@ def test_the_chain_looks_along_the_predicted_traces_and_says_so():
     for r, o, fid in marked:
         assert abs(axial_difference(o.angle_deg, weak)) < 2.0
         assert fid.source == "guided"
+        assert o.search_width_deg == 2 * GUIDED_TOL_DEG  # "none" is spread over the window searched
         assert abs(axial_difference(fid.best.predicted_deg, weak)) < 1e-3  # the plane whose trace it lies on
         rec = [x for x in r.family_records() if x["source"] == "guided"]
         assert rec and all(abs(axial_difference(x["angle_deg"], weak)) < 2.0 for x in rec)

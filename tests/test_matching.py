@@ -493,3 +493,44 @@ def test_every_name_exported_before_the_split_still_imports():
     ).split()
     assert [n for n in before if n not in pkg.__all__ or not hasattr(pkg, n)] == []
     assert len(set(pkg.__all__)) == len(pkg.__all__)
+
+
+def test_a_family_sought_near_a_trace_spreads_none_over_the_window_searched():
+    # A family the detector could only find within 3 deg of a predicted trace (ObservedFamily.search_width_deg
+    # 6) is no evidence against "none of these" by lying there: Bayes' rule with the search as the condition
+    # makes "none" uniform over the window, 1/6 per degree. Checked against a direct evaluation with
+    # scipy.stats.vonmises (the axial density is a von Mises on the doubled angle, kappa = 1 / (4 sigma^2);
+    # docs/identify.md) with no orientation or frame error, four {111} planes sharing 0.95 equally.
+    bunge = (10.0, 20.0, 30.0)
+    cat = catalogue(FCC, ("slip",))
+    planes = [(1, 1, 1), (-1, 1, 1), (1, -1, 1), (1, 1, -1)]
+    traces = [scipy_trace(FCC, bunge, p)[0] for p in planes]
+    angle, sigma = (traces[0] + 1.2) % 180.0, 0.6
+
+    def hand_p_none(width):
+        kappa = 1.0 / (4.0 * math.radians(sigma) ** 2)
+        dens = [stats.vonmises.pdf(2.0 * math.radians(angle - t), kappa) * 2.0 * math.pi / 180.0 for t in traces]
+        none = 0.05 / width
+        return none / (none + sum(0.95 / 4.0 * d for d in dens))
+
+    got = {}
+    for width in (180.0, 6.0):
+        fam = ObservedFamily(angle, sigma, source="guided" if width < 180 else "detected", search_width_deg=width)
+        res = identify_families([fam], FCC, from_euler(bunge), cat, orientation_sigma_deg=0.0, frame_sigma_deg=0.0)
+        got[width] = res[0].p_none
+        assert got[width] == pytest.approx(hand_p_none(width), rel=1e-6)
+    assert got[6.0] > 10 * got[180.0]  # the same angle, far less evidence once the search window is counted
+
+
+def test_guided_detections_carry_their_search_window_into_identification():
+    from tracefit.image.results import BandFamily
+    from tracefit.matching import observed_from_detection
+
+    open_fam = BandFamily(30.0, 0.2, 4, 10.0, 1.0, None, 2.0)
+    guided = BandFamily(61.0, 0.4, 3, 12.0, 2.0, None, 1.0, sought_at=60.0, sought_within_deg=3.0)
+    obs = observed_from_detection([open_fam, guided])
+    assert [(o.source, o.search_width_deg) for o in obs] == [("detected", 180.0), ("guided", 6.0)]
+    assert guided.to_dict(with_lines=True)["sought_within_deg"] == 3.0
+    for bad in (0.0, -6.0, 200.0, float("nan")):
+        with pytest.raises(TracefitInputError, match="search width"):
+            ObservedFamily(10.0, 0.5, search_width_deg=bad)

@@ -424,6 +424,7 @@ def _guided_families(ctx, ridges: Sequence[RidgePixels], region: np.ndarray, kno
             if abs(axial_difference(fam.angle_deg, t)) > GUIDED_TOL_DEG or _too_close(fam.angle_deg, exclude):
                 continue
             fam.sought_at = float(t)  # already folded to [0, 180) by _checked_traces
+            fam.sought_within_deg = GUIDED_TOL_DEG
             if accept(fam, strict):
                 found.append(fam)
                 alive[used] = False

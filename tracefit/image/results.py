@@ -104,6 +104,10 @@ class BandFamily:
         None for a family found by the open search over every direction; else the
         predicted trace angle (degrees, image frame) it was looked for at and found near
         (a guided search, see ``predicted_traces`` of :func:`tracefit.image.detect_bands`).
+    sought_within_deg : float or None
+        For a guided family, how far from ``sought_at`` its fitted angle was allowed to lie
+        (degrees): it could only be found in that window, which identification weighs
+        (:attr:`tracefit.matching.ObservedFamily.search_width_deg`). None otherwise.
 
     Examples
     --------
@@ -125,6 +129,7 @@ class BandFamily:
     lines: list[BandLine] = field(default_factory=list)
     log10_nfa: float = float("nan")
     sought_at: float | None = None
+    sought_within_deg: float | None = None
 
     @property
     def significance(self) -> float:
@@ -139,7 +144,7 @@ class BandFamily:
         with_lines : bool
             Add ``significance`` (``-log10_nfa``), ``spacing_sigma_px``, ``polarity``,
             ``contrast``, ``sought_at_deg`` (the predicted trace a family was looked for at,
-            None for the open search) and the band ``lines``.
+            None for the open search), ``sought_within_deg`` and the band ``lines``.
 
         Returns
         -------
@@ -162,6 +167,7 @@ class BandFamily:
             d["contrast"] = _num(self.contrast, 4)
             d["lines"] = [ln.to_dict() for ln in self.lines]
             d["sought_at_deg"] = None if self.sought_at is None else round(float(self.sought_at), 4)
+            d["sought_within_deg"] = None if self.sought_within_deg is None else float(self.sought_within_deg)
         return d
 
 

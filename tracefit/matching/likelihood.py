@@ -295,7 +295,7 @@ def none_log_density(p_none: float, support: float = 180.0) -> float:
 
 def family_log_weights(obs_ang: ArrayLike, obs_sig: ArrayLike, pred_ang: ArrayLike, pred_sig: ArrayLike,
                        log_prior: ArrayLike, p_none: float, frame_sigma: float = 0.0,
-                       slope: ArrayLike = 1.0) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+                       slope: ArrayLike = 1.0, none_support: ArrayLike = 180.0) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Log (prior x likelihood) of every family (F) and candidate (P), plus "none" last.
 
     Parameters
@@ -312,6 +312,13 @@ def family_log_weights(obs_ang: ArrayLike, obs_sig: ArrayLike, pred_ang: ArrayLi
         One-sigma uncertainty of the frame rotation, degrees.
     slope : array_like, shape (P,) or scalar
         Stage-tilt slope d(apparent)/d(true) of every candidate (1 without tilt).
+    none_support : array_like, shape (F,) or scalar
+        Width of the range of angles each family could have been found in, degrees (180; less
+        for a family sought near a predicted trace, :attr:`ObservedFamily.search_width_deg`).
+        "None of these" is uniform over it: given that the family was found in the window,
+        its angle there is no evidence against "none". The candidates' densities are not
+        divided by their chance of landing in the window (at most 1), which leaves ``p_none``
+        on the safe side.
 
     Returns
     -------
@@ -335,7 +342,8 @@ def family_log_weights(obs_ang: ArrayLike, obs_sig: ArrayLike, pred_ang: ArrayLi
     fs = frame_sigma * np.abs(np.asarray(slope, float))
     sig = np.sqrt(obs_sig**2 + np.asarray(pred_sig, float)[None, :] ** 2 + np.asarray(fs)[None, ...] ** 2)
     ll = axial_logpdf(resid, sig) + np.asarray(log_prior, float)[None, :]
-    none = np.full((ll.shape[0], 1), none_log_density(p_none))
+    support = np.broadcast_to(np.asarray(none_support, float), (ll.shape[0],))
+    none = np.array([[none_log_density(p_none, w)] for w in support]).reshape(ll.shape[0], 1)
     return np.concatenate([ll, none], axis=1), resid, sig
 
 

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any, Iterable
 
 import numpy as np
@@ -41,11 +41,16 @@ class ObservedFamily:
         Share of the family's lines that run on straight into a neighbouring grain with the
         same contrast (:func:`tracefit.maps.tables.line_continuation`); reported, not used in the
         probabilities.
+    search_width_deg : float
+        Width of the range of angles the family could have been found in, degrees: 180 for an
+        open search or a measurement, 2 x the tolerance for a guided family (6). The "none of
+        these" hypothesis spreads its weight over this range only: a family that could only be
+        found near a predicted trace gets no credit for lying near it.
 
     Raises
     ------
     TracefitInputError
-        For a non-finite angle or a negative or non-finite sigma.
+        For a non-finite angle, a negative or non-finite sigma, or a search width outside (0, 180].
 
     Examples
     --------
@@ -62,6 +67,7 @@ class ObservedFamily:
     n_bands: int | None = None
     strength: float | None = None
     boundary_continuation: float | None = None
+    search_width_deg: float = 180.0
 
     def __post_init__(self):
         a = real_number(self.angle_deg, "angle_deg", finite=False)
@@ -70,8 +76,12 @@ class ObservedFamily:
             raise TracefitInputError(f"a family angle must be a finite number of degrees, got {self.angle_deg!r}")
         if not (math.isfinite(s) and s >= 0):
             raise TracefitInputError(f"a family angle sigma must be >= 0 degrees, got {self.angle_sigma_deg!r}")
+        w = real_number(self.search_width_deg, "search_width_deg", finite=False)
+        if not (0.0 < w <= 180.0):
+            raise TracefitInputError(f"a family's search width must be in (0, 180] degrees, got {self.search_width_deg!r}")
         self.angle_deg = fold_axial(a)
         self.angle_sigma_deg = s
+        self.search_width_deg = w
 
 
 def observed_from_detection(result: Any, grain: Any = None, min_sigma_deg: float = 0.1) -> list[ObservedFamily]:
@@ -91,7 +101,8 @@ def observed_from_detection(result: Any, grain: Any = None, min_sigma_deg: float
     -------
     list of ObservedFamily
         In detection order, ``source="detected"`` (``"guided"`` for a family with a
-        ``sought_at`` trace), labelled ``F1``, ``F2``, ...
+        ``sought_at`` trace, its ``search_width_deg`` twice the detector's ``sought_within_deg``),
+        labelled ``F1``, ``F2``, ...
 
     Raises
     ------
@@ -108,15 +119,18 @@ def observed_from_detection(result: Any, grain: Any = None, min_sigma_deg: float
     fams = getattr(result, "families", result)
     out = []
     for k, f in enumerate(fams):
+        guided = getattr(f, "sought_at", None) is not None
+        within = getattr(f, "sought_within_deg", None) if guided else None
         out.append(
             ObservedFamily(
                 angle_deg=float(f.angle_deg),
                 angle_sigma_deg=max(float(getattr(f, "angle_sigma_deg", DEFAULT_ANGLE_SIGMA_DEG) or 0.0), min_sigma_deg),
                 grain=grain,
-                source="detected" if getattr(f, "sought_at", None) is None else "guided",
+                source="guided" if guided else "detected",
                 label=f"F{k + 1}" if grain is None else f"G{grain}-F{k + 1}",
                 n_bands=getattr(f, "n_bands", None),
                 strength=getattr(f, "strength", None),
+                search_width_deg=180.0 if within is None else min(2.0 * float(within), 180.0),
             )
         )
     return out
@@ -153,8 +167,7 @@ def as_observed(observed: Iterable[Any], grain: Any = None) -> list[ObservedFami
     for o in observed:
         if isinstance(o, ObservedFamily):
             if grain is not None and o.grain is None:
-                o = ObservedFamily(o.angle_deg, o.angle_sigma_deg, grain, o.source, o.label, o.n_bands, o.strength,
-                                   o.boundary_continuation)
+                o = replace(o, grain=grain)
             out.append(o)
         elif isinstance(o, (int, float, np.floating, np.integer)) and not isinstance(o, bool):
             out.append(ObservedFamily(float(o), DEFAULT_ANGLE_SIGMA_DEG, grain, "measured"))
