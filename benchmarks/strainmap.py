@@ -84,7 +84,10 @@ Predicted traces (``--guided SIGMA``)
     maps' bands are not drawn from orientations, so the traces are simulated: per grain four
     (fcc's {111}), each true family's angle off by a normal error of SIGMA deg (orientation
     and registration error) and random angles for the planes that did not slip; band-free
-    grains get four random angles.
+    grains get four random angles. It also prints how well the guided families' p_none
+    states the share of them that match no true family: p_none as identification weighs a
+    guided family (tracefit.matching.family_log_weights with its window), the four traces
+    standing for four equally likely planes whose predicted-trace spread is SIGMA.
 
 Usage::
 
@@ -614,9 +617,27 @@ def _predicted(truth, ids, seed, sigma, n_traces=4):
     return out
 
 
+def _guided_p_none(fam, traces, sigma):
+    """(p_none as identification computes it, p_none over 180 deg) of a guided family, its grain's simulated traces
+    standing for four equally likely candidate planes whose predicted-trace spread is the simulation's ``sigma``."""
+    from tracefit.matching import observed_from_detection
+    from tracefit.matching.likelihood import DEFAULT_P_NONE, family_log_weights
+
+    obs = observed_from_detection([fam])[0]
+    out = []
+    for width in (obs.search_width_deg, 180.0):
+        logw, _, _ = family_log_weights([obs.angle_deg], [obs.angle_sigma_deg], traces, [sigma] * len(traces),
+                                        np.log(np.full(len(traces), (1 - DEFAULT_P_NONE) / len(traces))),
+                                        DEFAULT_P_NONE, windows=[(obs.sought_at_deg, width)])
+        w = np.exp(logw[0] - logw[0].max())
+        out.append(float(w[-1] / w.sum()))
+    return tuple(out)
+
+
 def run_level(level, seeds, opts, negatives=True, save=None, off=frozenset(), trace=False, smooth=0.0, guided=None):
     n_true = n_found = n_spur = 0
     n_guided = 0
+    guided_calib = []  # (p_none, p_none over 180 deg, matched no true family) per guided family of a scored grain
     by_rank = {1: [0, 0], 2: [0, 0], 3: [0, 0]}
     errs, misses, spurious = [], [], []
     neg_fams, neg_grains, neg_list = 0, 0, []
@@ -634,7 +655,8 @@ def run_level(level, seeds, opts, negatives=True, save=None, off=frozenset(), tr
             with open(os.path.join(save, f"{level}_{seed}_truth.json"), "w") as fh:
                 json.dump({g: [round(f.angle, 2) for f in fs] for g, fs in sm.truth.items()}, fh)
         t0 = time.process_time()
-        g_opts = {} if guided is None else {"predicted_traces": _predicted(sm.truth, np.unique(sm.labels), seed, guided)}
+        traces = None if guided is None else _predicted(sm.truth, np.unique(sm.labels), seed, guided)
+        g_opts = {} if guided is None else {"predicted_traces": traces}
         res = detect_grains(sm.image, sm.labels, min_pixels=min_px, **opts, **g_opts)
         t_det += time.process_time() - t0
         for g in sm.scored:
@@ -668,6 +690,9 @@ def run_level(level, seeds, opts, negatives=True, save=None, off=frozenset(), tr
                     d["stage"] = tr.verdict_for(d["angle"]) if tr.ok else "tracer unavailable (detector internals changed)"
             used = {j for _, j, _ in mt}
             for j, f in enumerate(det.families):
+                if getattr(f, "sought_at", None) is not None:
+                    guided_calib.append((*_guided_p_none(f, traces[int(g)], guided), j not in used))
+            for j, f in enumerate(det.families):
                 if j not in used:
                     n_spur += 1
                     near = min((abs(axial_difference(f.angle_deg, t.angle)) for t in fams), default=float("nan"))
@@ -693,7 +718,8 @@ def run_level(level, seeds, opts, negatives=True, save=None, off=frozenset(), tr
                                          guided=getattr(f, "sought_at", None) is not None))
     return dict(level=level, grains=n_grains, true=n_true, found=n_found, spurious=n_spur, by_rank=by_rank,
                 med_err=float(np.median(errs)) if errs else float("nan"), misses=misses, spurious_list=spurious,
-                neg_grains=neg_grains, neg_fams=neg_fams, neg_list=neg_list, cpu_s=t_det, guided_found=n_guided)
+                neg_grains=neg_grains, neg_fams=neg_fams, neg_list=neg_list, cpu_s=t_det, guided_found=n_guided,
+                guided_calib=guided_calib)
 
 
 def _print_level(r, verbose=True):
@@ -792,6 +818,7 @@ def main(argv=None):
           f"map {SHAPE[0]} x {SHAPE[1]}, scored grains {SCORED_PX[0]}-{SCORED_PX[1]} px, match {MATCH_TOL_DEG:g} deg")
     t0 = time.perf_counter()
     tot = dict(true=0, found=0, spurious=0, neg=0, negg=0)
+    calib = []
     for lv in levels:
         r = run_level(lv, seeds, opts, negatives=not a.no_negatives, save=a.save_maps, off=off, trace=a.trace,
                       smooth=a.smooth, guided=a.guided)
@@ -801,10 +828,27 @@ def main(argv=None):
         tot["spurious"] += r["spurious"]
         tot["neg"] += r["neg_fams"]
         tot["negg"] += r["neg_grains"]
+        calib += r["guided_calib"]
     print(f"\nall levels: recall {tot['found']}/{tot['true']} = {tot['found'] / max(1, tot['true']):.3f}, "
           f"spurious {tot['spurious']}, families on negatives {tot['neg']} in {tot['negg']} grains; "
           f"wall {time.perf_counter() - t0:.0f} s")
+    if calib:
+        _print_guided_calibration(np.array(calib, float))
     return 0
+
+
+def _print_guided_calibration(c):
+    """How well the guided families' p_none states the share of them that match no true family (rows: p_none as
+    identification computes it, p_none over 180 deg, matched no true family)."""
+    print(f"\nguided families of scored grains: {len(c)}; matched no true family: {int(c[:, 2].sum())} "
+          f"({c[:, 2].mean():.3f})")
+    print(f"   mean p_none in the 6-deg window searched (as identify computes it): {c[:, 0].mean():.3f}; "
+          f"as an open search's (before): {c[:, 1].mean():.4f}")
+    for lo, hi in ((0.0, 0.03), (0.03, 0.06), (0.06, 0.1), (0.1, 1.01)):
+        sel = (c[:, 0] >= lo) & (c[:, 0] < hi)
+        if sel.any():
+            print(f"   p_none {lo:.2f}-{min(hi, 1.0):.2f}: {int(sel.sum())} families, mean p_none {c[sel, 0].mean():.3f}, "
+                  f"matched no true family {c[sel, 2].mean():.3f}")
 
 
 if __name__ == "__main__":

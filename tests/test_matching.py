@@ -495,31 +495,60 @@ def test_every_name_exported_before_the_split_still_imports():
     assert len(set(pkg.__all__)) == len(pkg.__all__)
 
 
-def test_a_family_sought_near_a_trace_spreads_none_over_the_window_searched():
-    # A family the detector could only find within 3 deg of a predicted trace (ObservedFamily.search_width_deg
-    # 6) is no evidence against "none of these" by lying there: Bayes' rule with the search as the condition
-    # makes "none" uniform over the window, 1/6 per degree. Checked against a direct evaluation with
-    # scipy.stats.vonmises (the axial density is a von Mises on the doubled angle, kappa = 1 / (4 sigma^2);
-    # docs/identify.md) with no orientation or frame error, four {111} planes sharing 0.95 equally.
+def test_a_family_sought_near_a_trace_is_weighed_as_known_to_lie_in_its_window():
+    # A family the detector could only find within 3 deg of a predicted trace (search width 6 deg) is weighed
+    # by Bayes' rule with that window as the condition: "none" is uniform over the window (1/6 per degree);
+    # under a plane c the density is f_c / P_c and c's prior given the window prior_c P_c / M, so the weight is
+    # prior_c f_c / M, M = sum prior_c P_c (P_c: the mass of c's density in the window). Checked against a
+    # direct evaluation: f_c with scipy.stats.vonmises (the axial density is a von Mises on the doubled angle,
+    # kappa = 1 / (4 sigma^2); docs/identify.md) and P_c by scipy's numerical quadrature of that density, with
+    # no orientation or frame error and four {111} planes sharing 0.95 equally.
     bunge = (10.0, 20.0, 30.0)
     cat = catalogue(FCC, ("slip",))
     planes = [(1, 1, 1), (-1, 1, 1), (1, -1, 1), (1, 1, -1)]
     traces = [scipy_trace(FCC, bunge, p)[0] for p in planes]
     angle, sigma = (traces[0] + 1.2) % 180.0, 0.6
+    sought = (traces[0] - 0.5) % 180.0  # the trace as the chain predicted it (another frame estimate)
+    kappa = 1.0 / (4.0 * math.radians(sigma) ** 2)
+
+    def dens(a, t):  # per degree
+        return stats.vonmises.pdf(2.0 * math.radians(a - t), kappa) * 2.0 * math.pi / 180.0
 
     def hand_p_none(width):
-        kappa = 1.0 / (4.0 * math.radians(sigma) ** 2)
-        dens = [stats.vonmises.pdf(2.0 * math.radians(angle - t), kappa) * 2.0 * math.pi / 180.0 for t in traces]
+        weights = [0.95 / 4.0 * dens(angle, t) for t in traces]
         none = 0.05 / width
-        return none / (none + sum(0.95 / 4.0 * d for d in dens))
+        if width < 180.0:
+            mass = sum(0.25 * quad(dens, sought - width / 2, sought + width / 2, args=(t,), points=[t])[0]
+                       for t in traces)
+            weights = [w / mass for w in weights]
+        return none / (none + sum(weights))
 
     got = {}
     for width in (180.0, 6.0):
-        fam = ObservedFamily(angle, sigma, source="guided" if width < 180 else "detected", search_width_deg=width)
+        fam = ObservedFamily(angle, sigma, source="guided" if width < 180 else "detected", search_width_deg=width,
+                             sought_at_deg=sought)
         res = identify_families([fam], FCC, from_euler(bunge), cat, orientation_sigma_deg=0.0, frame_sigma_deg=0.0)
         got[width] = res[0].p_none
-        assert got[width] == pytest.approx(hand_p_none(width), rel=1e-6)
-    assert got[6.0] > 10 * got[180.0]  # the same angle, far less evidence once the search window is counted
+        assert got[width] == pytest.approx(hand_p_none(width), rel=1e-5)
+    # searched only where one of four planes predicts it: "none" keeps about its prior share instead of falling
+    # by the density ratio a free angle would earn
+    assert 3 * got[180.0] < got[6.0] < 0.1
+
+
+def test_a_window_no_candidate_predicts_counts_no_more_than_an_open_search():
+    # A guided family weighed against another orientation or frame, its window 8 deg from the nearest trace
+    # (candidates land there far less often than a uniform angle would): the window must not make the
+    # candidates look better than the angle alone does in an open search (the floor width / 180 of the mass)
+    bunge = (10.0, 20.0, 30.0)
+    cat = catalogue(FCC, ("slip",))
+    nearest = scipy_trace(FCC, bunge, (1, -1, 1))[0]  # 73.3 deg; the next trace below lies at 177.3 - 180
+    off = (nearest - 8.0) % 180.0
+    kw = dict(orientation_sigma_deg=0.0, frame_sigma_deg=0.0)
+    open_ = identify_families([ObservedFamily(off, 2.0)], FCC, from_euler(bunge), cat, **kw)[0]
+    windowed = identify_families([ObservedFamily(off, 2.0, search_width_deg=6.0, sought_at_deg=off)], FCC,
+                                 from_euler(bunge), cat, **kw)[0]
+    assert 0.5 < open_.p_none < 0.999  # the plane 4 sigma away still holds some weight
+    assert windowed.p_none == pytest.approx(open_.p_none, rel=1e-9)
 
 
 def test_guided_detections_carry_their_search_window_into_identification():
@@ -529,8 +558,13 @@ def test_guided_detections_carry_their_search_window_into_identification():
     open_fam = BandFamily(30.0, 0.2, 4, 10.0, 1.0, None, 2.0)
     guided = BandFamily(61.0, 0.4, 3, 12.0, 2.0, None, 1.0, sought_at=60.0, sought_within_deg=3.0)
     obs = observed_from_detection([open_fam, guided])
-    assert [(o.source, o.search_width_deg) for o in obs] == [("detected", 180.0), ("guided", 6.0)]
+    assert [(o.source, o.search_width_deg, o.sought_at_deg) for o in obs] == [("detected", 180.0, None),
+                                                                              ("guided", 6.0, 60.0)]
     assert guided.to_dict(with_lines=True)["sought_within_deg"] == 3.0
     for bad in (0.0, -6.0, 200.0, float("nan")):
         with pytest.raises(TracefitInputError, match="search width"):
-            ObservedFamily(10.0, 0.5, search_width_deg=bad)
+            ObservedFamily(10.0, 0.5, search_width_deg=bad, sought_at_deg=10.0)
+    with pytest.raises(TracefitInputError, match="sought_at_deg"):
+        ObservedFamily(10.0, 0.5, search_width_deg=6.0)
+    with pytest.raises(TracefitInputError, match="sought_at_deg"):
+        ObservedFamily(10.0, 0.5, search_width_deg=6.0, sought_at_deg=float("inf"))

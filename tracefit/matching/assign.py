@@ -112,8 +112,8 @@ def grain_log_weights(obs: Sequence[ObservedFamily], cands: CandidateSet, g: np.
                                     schmid_weight if use_schmid else 0.0, share)
     oa = np.array([o.angle_deg for o in obs])
     os_ = np.array([o.angle_sigma_deg for o in obs])
-    width = np.array([o.search_width_deg for o in obs])
-    logw, resid, sig = family_log_weights(oa, os_, ang, psig, log_prior, p_none, fsig, slope, width)
+    windows = [(o.sought_at_deg if o.sought_at_deg is not None else 0.0, o.search_width_deg) for o in obs]
+    logw, resid, sig = family_log_weights(oa, os_, ang, psig, log_prior, p_none, fsig, slope, windows)
     return logw, resid, sig, psig, systems_ranked
 
 

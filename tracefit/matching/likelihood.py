@@ -55,6 +55,7 @@ __all__ = [
     "candidate_log_prior",
     "none_log_density",
     "family_log_weights",
+    "window_log_mass",
     "mixture_log_evidence",
 ]
 
@@ -295,7 +296,7 @@ def none_log_density(p_none: float, support: float = 180.0) -> float:
 
 def family_log_weights(obs_ang: ArrayLike, obs_sig: ArrayLike, pred_ang: ArrayLike, pred_sig: ArrayLike,
                        log_prior: ArrayLike, p_none: float, frame_sigma: float = 0.0,
-                       slope: ArrayLike = 1.0, none_support: ArrayLike = 180.0) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+                       slope: ArrayLike = 1.0, windows: ArrayLike | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Log (prior x likelihood) of every family (F) and candidate (P), plus "none" last.
 
     Parameters
@@ -312,15 +313,15 @@ def family_log_weights(obs_ang: ArrayLike, obs_sig: ArrayLike, pred_ang: ArrayLi
         One-sigma uncertainty of the frame rotation, degrees.
     slope : array_like, shape (P,) or scalar
         Stage-tilt slope d(apparent)/d(true) of every candidate (1 without tilt).
-    none_support : array_like, shape (F,) or scalar
-        Width of the range of angles each family could have been found in, degrees (180; less
-        for a family sought near a predicted trace, :attr:`ObservedFamily.search_width_deg`).
-        "None of these" is uniform over it: given that the family was found in the window,
-        its angle there is no evidence against "none". The candidates' densities are not
-        divided by their chance of landing in the window (at most 1), which leaves ``p_none``
-        on the safe side.
+    windows : array_like, shape (F, 2), optional
+        Per family the window of angles it could have been found in, (centre, width) in
+        degrees; width 180 (the default for every family) is an open search. A family
+        sought near a predicted trace (:attr:`ObservedFamily.search_width_deg`) is weighed as
+        known to lie in its window (:func:`window_log_mass`): "none of these" is uniform over
+        the window, and the candidates' weights are divided by the prior chance that a family
+        of the candidates lands there.
 
-    Returns
+        Returns
     -------
     logw : ndarray, shape (F, P + 1)
         Log weights, per degree; the last column is "none" (-inf when p_none = 0).
@@ -342,9 +343,60 @@ def family_log_weights(obs_ang: ArrayLike, obs_sig: ArrayLike, pred_ang: ArrayLi
     fs = frame_sigma * np.abs(np.asarray(slope, float))
     sig = np.sqrt(obs_sig**2 + np.asarray(pred_sig, float)[None, :] ** 2 + np.asarray(fs)[None, ...] ** 2)
     ll = axial_logpdf(resid, sig) + np.asarray(log_prior, float)[None, :]
-    support = np.broadcast_to(np.asarray(none_support, float), (ll.shape[0],))
-    none = np.array([[none_log_density(p_none, w)] for w in support]).reshape(ll.shape[0], 1)
+    none = np.full((ll.shape[0], 1), none_log_density(p_none))
+    if windows is not None:
+        win = np.asarray(windows, float).reshape(ll.shape[0], 2)
+        for f in np.flatnonzero(win[:, 1] < 180.0):
+            ll[f] -= window_log_mass(win[f, 0], win[f, 1], pred_ang, sig[f], log_prior)
+            none[f, 0] = none_log_density(p_none, win[f, 1])
     return np.concatenate([ll, none], axis=1), resid, sig
+
+
+def window_log_mass(centre_deg: float, width_deg: float, pred_ang: ArrayLike, sigma: ArrayLike,
+                    log_prior: ArrayLike) -> float:
+    """Log of the prior chance that a family of the candidates shows up in an angle window.
+
+    A family known to lie in the window (it was only looked for there) has, under candidate
+    c, the density f_c / P_c (P_c: the mass of c's axial density in the window), and c's
+    prior given the window is prior_c P_c / sum_c' prior_c' P_c'. Their product is
+    prior_c f_c / M with M = sum_c' prior_c' P_c' (priors normalised over the candidates):
+    this M. It is kept at least width / 180, the mass a uniform density puts in the window,
+    so that the window never counts as more evidence for the candidates than the angle
+    would in an open search (a window no candidate predicts: another frame or orientation).
+
+    Parameters
+    ----------
+    centre_deg, width_deg : float
+        The window, degrees (axial).
+    pred_ang, sigma : array_like, shape (P,)
+        Predicted trace angles and the family's total sigma against each, degrees.
+    log_prior : array_like, shape (P,)
+        Log prior of every candidate (any common factor cancels).
+
+    Returns
+    -------
+    float
+        log M.
+
+    Examples
+    --------
+    Four equally likely planes, the window centred on one of them (sigma 0.5 deg, far from
+    the others): M is about a quarter.
+
+    >>> round(math.exp(window_log_mass(30.0, 6.0, [30.0, 80.0, 120.0, 160.0], [0.5] * 4, np.zeros(4))), 3)
+    0.25
+    """
+    from scipy.stats import vonmises  # only families sought in a window need it
+
+    pred = np.asarray(pred_ang, float)
+    kappa = von_mises_kappa(np.asarray(sigma, float))
+    d = np.radians(np.asarray(axial_difference(centre_deg, pred), float))
+    half = math.radians(width_deg) / 2.0
+    # the axial density is a von Mises on the doubled angle (axial_logpdf); its cdf counts whole periods
+    inside = vonmises.cdf(2.0 * (d + half), kappa) - vonmises.cdf(2.0 * (d - half), kappa)
+    lp = np.asarray(log_prior, float)
+    share = np.exp(lp - logsumexp(lp))
+    return math.log(max(float(np.sum(share * np.clip(inside, 0.0, 1.0))), width_deg / 180.0))
 
 
 def mixture_log_evidence(log_w: ArrayLike, log_none: float, axis: int = -1) -> float | np.ndarray:

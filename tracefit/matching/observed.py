@@ -43,14 +43,18 @@ class ObservedFamily:
         probabilities.
     search_width_deg : float
         Width of the range of angles the family could have been found in, degrees: 180 for an
-        open search or a measurement, 2 x the tolerance for a guided family (6). The "none of
-        these" hypothesis spreads its weight over this range only: a family that could only be
-        found near a predicted trace gets no credit for lying near it.
+        open search or a measurement, 2 x the tolerance for a guided family (6). Identification
+        weighs the family as one known to lie in that window (see ``docs/identify.md``): lying
+        near the trace it was looked for at is no evidence of its own.
+    sought_at_deg : float or None
+        Centre of that window (the predicted trace a guided family was looked for at), degrees;
+        needed when ``search_width_deg`` is under 180.
 
     Raises
     ------
     TracefitInputError
-        For a non-finite angle, a negative or non-finite sigma, or a search width outside (0, 180].
+        For a non-finite angle, a negative or non-finite sigma, a search width outside (0, 180], or
+        a narrower one without a finite ``sought_at_deg``.
 
     Examples
     --------
@@ -68,6 +72,7 @@ class ObservedFamily:
     strength: float | None = None
     boundary_continuation: float | None = None
     search_width_deg: float = 180.0
+    sought_at_deg: float | None = None
 
     def __post_init__(self):
         a = real_number(self.angle_deg, "angle_deg", finite=False)
@@ -79,6 +84,13 @@ class ObservedFamily:
         w = real_number(self.search_width_deg, "search_width_deg", finite=False)
         if not (0.0 < w <= 180.0):
             raise TracefitInputError(f"a family's search width must be in (0, 180] degrees, got {self.search_width_deg!r}")
+        if self.sought_at_deg is not None:
+            c = real_number(self.sought_at_deg, "sought_at_deg", finite=False)
+            if not math.isfinite(c):
+                raise TracefitInputError(f"a family's sought_at_deg must be a finite angle, got {self.sought_at_deg!r}")
+            self.sought_at_deg = fold_axial(c)
+        elif w < 180.0:
+            raise TracefitInputError("a family with a search width under 180 deg needs sought_at_deg (the window's centre)")
         self.angle_deg = fold_axial(a)
         self.angle_sigma_deg = s
         self.search_width_deg = w
@@ -131,6 +143,7 @@ def observed_from_detection(result: Any, grain: Any = None, min_sigma_deg: float
                 n_bands=getattr(f, "n_bands", None),
                 strength=getattr(f, "strength", None),
                 search_width_deg=180.0 if within is None else min(2.0 * float(within), 180.0),
+                sought_at_deg=float(f.sought_at) if guided else None,
             )
         )
     return out
