@@ -842,7 +842,7 @@ def _print_guided_calibration(c):
     identification computes it, p_none over 180 deg, matched no true family)."""
     print(f"\nguided families of scored grains: {len(c)}; matched no true family: {int(c[:, 2].sum())} "
           f"({c[:, 2].mean():.3f})")
-    print(f"   mean p_none in the 6-deg window searched (as identify computes it): {c[:, 0].mean():.3f}; "
+    print(f"   mean p_none weighed per trace searched (as identify computes it): {c[:, 0].mean():.3f}; "
           f"as an open search's (before): {c[:, 1].mean():.4f}")
     for lo, hi in ((0.0, 0.03), (0.03, 0.06), (0.06, 0.1), (0.1, 1.01)):
         sel = (c[:, 0] >= lo) & (c[:, 0] < hi)

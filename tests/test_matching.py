@@ -535,6 +535,31 @@ def test_a_family_sought_near_a_trace_is_weighed_as_known_to_lie_in_its_window()
     assert 3 * got[180.0] < got[6.0] < 0.1
 
 
+def test_a_guided_family_on_a_plane_of_low_prior_keeps_more_doubt():
+    # Per trace searched, true families turn up in proportion to their plane's prior (a Schmid prior, a user
+    # weight), false ones at the same rate everywhere: "none" weighs p_none M / width (M the mean over planes of
+    # the mass inside the window, by scipy's quadrature of the von Mises density) and a plane prior_c f_c, so
+    # the odds of "none" scale with 1 / prior of the plane whose trace was sought
+    from tracefit.matching.likelihood import family_log_weights
+
+    pred, sigma, angle, window = [30.0, 80.0, 120.0, 160.0], 0.8, 31.0, (30.5, 6.0)
+    kappa = 1.0 / (4.0 * math.radians(sigma) ** 2)
+
+    def dens(a, t):
+        return stats.vonmises.pdf(2.0 * math.radians(a - t), kappa) * 2.0 * math.pi / 180.0
+
+    mass = np.mean([quad(dens, window[0] - 3.0, window[0] + 3.0, args=(t,), points=[t])[0] for t in pred])
+    odds = {}
+    for shares in ([0.5, 0.2, 0.2, 0.1], [0.1, 0.2, 0.2, 0.5]):
+        prior = 0.95 * np.array(shares)
+        logw, _, _ = family_log_weights([angle], [sigma], pred, [0.0] * 4, np.log(prior), 0.05, windows=[window])
+        w = np.exp(logw[0])
+        hand = np.append(prior * [dens(angle, t) for t in pred], 0.05 * mass / 6.0)
+        assert w / w.sum() == pytest.approx(hand / hand.sum(), rel=1e-6)
+        odds[shares[0]] = w[-1] / w[:-1].sum()
+    assert odds[0.1] / odds[0.5] == pytest.approx(5.0, rel=1e-3)
+
+
 def test_a_window_no_candidate_predicts_counts_no_more_than_an_open_search():
     # A guided family weighed against another orientation or frame, its window 8 deg from the nearest trace
     # (candidates land there far less often than a uniform angle would): the window must not make the
@@ -568,3 +593,16 @@ def test_guided_detections_carry_their_search_window_into_identification():
         ObservedFamily(10.0, 0.5, search_width_deg=6.0)
     with pytest.raises(TracefitInputError, match="sought_at_deg"):
         ObservedFamily(10.0, 0.5, search_width_deg=6.0, sought_at_deg=float("inf"))
+
+
+def test_the_window_mass_wraps_at_0_and_180_deg():
+    # a window at 176-182 deg holds a trace at 1.5 deg (axial angles: 181.5 = 1.5); reference: scipy's
+    # quadrature of the von Mises density on the doubled angle, which is periodic
+    from tracefit.matching import window_log_mass
+
+    kappa = 1.0 / (4.0 * math.radians(1.0) ** 2)
+    ref = quad(lambda a: stats.vonmises.pdf(2.0 * math.radians(a - 1.5), kappa) * 2.0 * math.pi / 180.0,
+               176.0, 182.0, points=[181.5])[0]
+    assert ref > 0.6  # 0.69: from -5.5 to +0.5 sigma
+    assert math.exp(window_log_mass(179.0, 6.0, [1.5], [1.0])) == pytest.approx(ref, rel=1e-6)
+    assert math.exp(window_log_mass(179.0, 6.0, [91.5], [1.0])) == pytest.approx(6.0 / 180.0)  # the floor

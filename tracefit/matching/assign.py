@@ -113,7 +113,7 @@ def grain_log_weights(obs: Sequence[ObservedFamily], cands: CandidateSet, g: np.
     oa = np.array([o.angle_deg for o in obs])
     os_ = np.array([o.angle_sigma_deg for o in obs])
     windows = [(o.sought_at_deg if o.sought_at_deg is not None else 0.0, o.search_width_deg) for o in obs]
-    logw, resid, sig = family_log_weights(oa, os_, ang, psig, log_prior, p_none, fsig, slope, windows)
+    logw, resid, sig = family_log_weights(oa, os_, ang, psig, log_prior, p_none, fsig, slope, windows, cands.plane_ids)
     return logw, resid, sig, psig, systems_ranked
 
 

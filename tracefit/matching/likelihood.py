@@ -17,7 +17,8 @@ Per observed family f and candidate c (one plane variant of one mode):
 * "none of these": a uniform density 1/180 per degree with prior weight ``p_none``
   (:func:`none_log_density`; default 0.05: in our experience a few percent of detected
   families are scratches, polishing marks, grain-boundary edges or belong to a wrong
-  orientation; common practice, no source);
+  orientation; common practice, no source); a family looked for only near a predicted trace
+  is weighed per trace searched instead (:func:`window_log_mass`);
 * prior (:func:`candidate_prior`): the remaining 1 - p_none is shared by the system families
   (``"{110}<111> slip"``, ``"basal <a>"``, ...), equally unless the user weighs them, and each
   family's share is spread equally over its planes
@@ -296,7 +297,8 @@ def none_log_density(p_none: float, support: float = 180.0) -> float:
 
 def family_log_weights(obs_ang: ArrayLike, obs_sig: ArrayLike, pred_ang: ArrayLike, pred_sig: ArrayLike,
                        log_prior: ArrayLike, p_none: float, frame_sigma: float = 0.0,
-                       slope: ArrayLike = 1.0, windows: ArrayLike | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+                       slope: ArrayLike = 1.0, windows: ArrayLike | None = None,
+                       plane_ids: ArrayLike | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Log (prior x likelihood) of every family (F) and candidate (P), plus "none" last.
 
     Parameters
@@ -314,14 +316,14 @@ def family_log_weights(obs_ang: ArrayLike, obs_sig: ArrayLike, pred_ang: ArrayLi
     slope : array_like, shape (P,) or scalar
         Stage-tilt slope d(apparent)/d(true) of every candidate (1 without tilt).
     windows : array_like, shape (F, 2), optional
-        Per family the window of angles it could have been found in, (centre, width) in
-        degrees; width 180 (the default for every family) is an open search. A family
-        sought near a predicted trace (:attr:`ObservedFamily.search_width_deg`) is weighed as
-        known to lie in its window (:func:`window_log_mass`): "none of these" is uniform over
-        the window, and the candidates' weights are divided by the prior chance that a family
-        of the candidates lands there.
+        Per family the window of angles it was looked for in, (centre, width) in degrees;
+        width 180 (the default for every family) is an open search. For a family sought near a
+        predicted trace (:attr:`ObservedFamily.search_width_deg`) the "none" weight is
+        multiplied by 180 M / width (:func:`window_log_mass`, at least 1).
+    plane_ids : array_like of int, shape (P,), optional
+        Distinct-plane index of every candidate (for ``windows``; default: each its own plane).
 
-        Returns
+    Returns
     -------
     logw : ndarray, shape (F, P + 1)
         Log weights, per degree; the last column is "none" (-inf when p_none = 0).
@@ -346,23 +348,27 @@ def family_log_weights(obs_ang: ArrayLike, obs_sig: ArrayLike, pred_ang: ArrayLi
     none = np.full((ll.shape[0], 1), none_log_density(p_none))
     if windows is not None:
         win = np.asarray(windows, float).reshape(ll.shape[0], 2)
+        ids = np.arange(ll.shape[1]) if plane_ids is None else np.asarray(plane_ids, int)
         for f in np.flatnonzero(win[:, 1] < 180.0):
-            ll[f] -= window_log_mass(win[f, 0], win[f, 1], pred_ang, sig[f], log_prior)
-            none[f, 0] = none_log_density(p_none, win[f, 1])
+            none[f, 0] = none_log_density(p_none, win[f, 1]) + window_log_mass(win[f, 0], win[f, 1], pred_ang, sig[f], ids)
     return np.concatenate([ll, none], axis=1), resid, sig
 
 
 def window_log_mass(centre_deg: float, width_deg: float, pred_ang: ArrayLike, sigma: ArrayLike,
-                    log_prior: ArrayLike) -> float:
-    """Log of the prior chance that a family of the candidates shows up in an angle window.
+                    plane_ids: ArrayLike | None = None) -> float:
+    """Log of M, the chance that an average candidate plane's trace is measured inside a window.
 
-    A family known to lie in the window (it was only looked for there) has, under candidate
-    c, the density f_c / P_c (P_c: the mass of c's axial density in the window), and c's
-    prior given the window is prior_c P_c / sum_c' prior_c' P_c'. Their product is
-    prior_c f_c / M with M = sum_c' prior_c' P_c' (priors normalised over the candidates):
-    this M. It is kept at least width / 180, the mass a uniform density puts in the window,
-    so that the window never counts as more evidence for the candidates than the angle
-    would in an open search (a window no candidate predicts: another frame or orientation).
+    A family the detector looked for only in an angle window (a guided search at one
+    predicted trace) is weighed per trace searched, not per degree: false families come with
+    each trace the search visits, so ``p_none`` is read as the chance that such a family is
+    none of the candidates when it turned up at a trace of average prior, and the angle's
+    density inside the window is 1 / width under "none", f_c / P_c under candidate c (P_c the
+    share of c's density inside the window). The candidates' prior given the window is then
+    prior_c P_c / M with M = the mean of P over the distinct planes, so that the odds of
+    "none" against the candidates are those of an open search times 180 M / width. M is kept
+    at least width / 180 (what a uniform angle puts in the window): the window never makes
+    the candidates look better than the same angle would in an open search (a window no
+    candidate predicts, a catalogue of so many planes that any angle lies near a trace).
 
     Parameters
     ----------
@@ -370,8 +376,9 @@ def window_log_mass(centre_deg: float, width_deg: float, pred_ang: ArrayLike, si
         The window, degrees (axial).
     pred_ang, sigma : array_like, shape (P,)
         Predicted trace angles and the family's total sigma against each, degrees.
-    log_prior : array_like, shape (P,)
-        Log prior of every candidate (any common factor cancels).
+    plane_ids : array_like of int, shape (P,), optional
+        Distinct-plane index of every candidate (rows of one plane count once); default each
+        its own plane.
 
     Returns
     -------
@@ -380,23 +387,25 @@ def window_log_mass(centre_deg: float, width_deg: float, pred_ang: ArrayLike, si
 
     Examples
     --------
-    Four equally likely planes, the window centred on one of them (sigma 0.5 deg, far from
-    the others): M is about a quarter.
+    Four planes, the window centred on one of them (sigma 0.5 deg, far from the others): M is
+    about a quarter, so "none" weighs 180 x 0.25 / 6 = 7.5 times what it does in an open search.
 
-    >>> round(math.exp(window_log_mass(30.0, 6.0, [30.0, 80.0, 120.0, 160.0], [0.5] * 4, np.zeros(4))), 3)
+    >>> round(math.exp(window_log_mass(30.0, 6.0, [30.0, 80.0, 120.0, 160.0], [0.5] * 4)), 3)
     0.25
     """
     from scipy.stats import vonmises  # only families sought in a window need it
 
-    pred = np.asarray(pred_ang, float)
+    pred = np.asarray(pred_ang, float).reshape(-1)
+    ids = np.arange(len(pred)) if plane_ids is None else np.asarray(plane_ids, int).reshape(-1)
     kappa = von_mises_kappa(np.asarray(sigma, float))
     d = np.radians(np.asarray(axial_difference(centre_deg, pred), float))
     half = math.radians(width_deg) / 2.0
     # the axial density is a von Mises on the doubled angle (axial_logpdf); its cdf counts whole periods
-    inside = vonmises.cdf(2.0 * (d + half), kappa) - vonmises.cdf(2.0 * (d - half), kappa)
-    lp = np.asarray(log_prior, float)
-    share = np.exp(lp - logsumexp(lp))
-    return math.log(max(float(np.sum(share * np.clip(inside, 0.0, 1.0))), width_deg / 180.0))
+    inside = np.clip(vonmises.cdf(2.0 * (d + half), kappa) - vonmises.cdf(2.0 * (d - half), kappa), 0.0, 1.0)
+    _, first, counts = np.unique(ids, return_inverse=True, return_counts=True)
+    per_plane = np.bincount(first, inside / counts[first]) if len(pred) else np.zeros(0)
+    mass = float(np.mean(per_plane)) if len(per_plane) else 0.0
+    return math.log(max(mass, width_deg / 180.0)) if math.isfinite(mass) else math.log(width_deg / 180.0)
 
 
 def mixture_log_evidence(log_w: ArrayLike, log_none: float, axis: int = -1) -> float | np.ndarray:

@@ -255,7 +255,7 @@ def _candidate_table(rec: dict, fam: dict) -> str:
         extra += ('<p class="notes">Found by the search along this grain\'s predicted traces: its angle is measured '
                   "from its bands, but it was looked for within a few degrees of a predicted trace, so its agreement "
                   "with that trace is partly by construction and it does not test the orientation or frame; its "
-                  "probabilities weigh it as known to lie in that window.</p>")
+                  "probability of being none of the candidates is weighed per trace searched.</p>")
     if ident.get("unexplained") and ident.get("nearest"):
         near = ", ".join(f"{_plane(n['plane'])} at {_num(n['predicted_deg'])} deg ({_num(n['n_sigma'], 1)} sigma)"
                          for n in ident["nearest"])
