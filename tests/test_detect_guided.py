@@ -226,7 +226,8 @@ def test_the_chain_looks_along_the_predicted_traces_and_says_so():
     for r, o, fid in marked:
         assert abs(axial_difference(o.angle_deg, weak)) < 2.0
         assert fid.source == "guided"
-        assert o.search_width_deg == 2 * GUIDED_TOL_DEG  # "none" is spread over the window searched
+        assert o.search_width_deg == 2 * GUIDED_TOL_DEG and abs(axial_difference(o.sought_at_deg, weak)) < 0.5
+        assert any(f"{o.sought_at_deg:.2f} deg" in n for n in fid.notes)  # the window is in the JSON's notes
         assert abs(axial_difference(fid.best.predicted_deg, weak)) < 1e-3  # the plane whose trace it lies on
         rec = [x for x in r.family_records() if x["source"] == "guided"]
         assert rec and all(abs(axial_difference(x["angle_deg"], weak)) < 2.0 for x in rec)

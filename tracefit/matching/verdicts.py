@@ -185,6 +185,11 @@ def family_verdict(o: ObservedFamily, f: int, gp: GrainPosterior, g: np.ndarray,
             f"{100 * bc:.0f} % of its line ends run on straight into the neighbouring grain with the same contrast: "
             "typical of a surface scratch (a slip or twin band stops at the boundary or turns); not used in the probabilities"
         )
+    if getattr(o, "sought_at_deg", None) is not None and o.search_width_deg < 180.0:
+        r.notes.append(
+            f"looked for only within {o.search_width_deg / 2:g} deg of the predicted trace at {o.sought_at_deg:.2f} deg "
+            "(a guided search): its nearness to that trace is no evidence, and p_none is weighed per trace searched"
+        )
     r.artefact_angle_deg = None if art_angle is None or pa < threshold else float(art_angle)
     r.nearest = _nearest(gp, f)
     r.margin = _margin(gp, f)
