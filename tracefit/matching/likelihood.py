@@ -360,12 +360,12 @@ def window_log_mass(centre_deg: float, width_deg: float, pred_ang: ArrayLike, si
 
     A family the detector looked for only in an angle window (a guided search at one
     predicted trace) is weighed per trace searched, not per degree: false families come with
-    each trace the search visits, so ``p_none`` is read as the chance that such a family is
-    none of the candidates when it turned up at a trace of average prior, and the angle's
-    density inside the window is 1 / width under "none", f_c / P_c under candidate c (P_c the
-    share of c's density inside the window). The candidates' prior given the window is then
-    prior_c P_c / M with M = the mean of P over the distinct planes, so that the odds of
-    "none" against the candidates are those of an open search times 180 M / width. M is kept
+    each trace the search visits, true ones in proportion to their plane's prior, so
+    ``p_none`` is read as the chance that such a family is none of the candidates when it
+    turned up at the trace of a plane of average prior. Inside the window the angle's density
+    is 1 / width under "none" and f_c / P_c under candidate c (P_c the share of c's density
+    inside the window). Put together, the odds of "none" against the candidates are those of
+    an open search times 180 M / width, M the mean of P_c over the distinct planes. M is kept
     at least width / 180 (what a uniform angle puts in the window): the window never makes
     the candidates look better than the same angle would in an open search (a window no
     candidate predicts, a catalogue of so many planes that any angle lies near a trace).

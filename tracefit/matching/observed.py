@@ -43,9 +43,10 @@ class ObservedFamily:
         probabilities.
     search_width_deg : float
         Width of the range of angles the family could have been found in, degrees: 180 for an
-        open search or a measurement, 2 x the tolerance for a guided family (6). Identification
-        weighs the family as one known to lie in that window (see ``docs/identify.md``): lying
-        near the trace it was looked for at is no evidence of its own.
+        open search or a measurement, 2 x the tolerance for a guided family (6). Lying near the
+        trace it was looked for at is then no evidence of its own: identification weighs its
+        "none of these" per trace searched (:func:`tracefit.matching.window_log_mass`,
+        ``docs/identify.md``).
     sought_at_deg : float or None
         Centre of that window (the predicted trace a guided family was looked for at), degrees;
         needed when ``search_width_deg`` is under 180.
