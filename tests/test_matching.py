@@ -6,6 +6,7 @@ Predictions for the checks are made independently of tracefit.predict.traces: sc
 """
 
 import itertools
+import re
 import math
 
 import numpy as np
@@ -606,3 +607,18 @@ def test_the_window_mass_wraps_at_0_and_180_deg():
     assert ref > 0.6  # 0.69: from -5.5 to +0.5 sigma
     assert math.exp(window_log_mass(179.0, 6.0, [1.5], [1.0])) == pytest.approx(ref, rel=1e-6)
     assert math.exp(window_log_mass(179.0, 6.0, [91.5], [1.0])) == pytest.approx(6.0 / 180.0)  # the floor
+
+
+@pytest.mark.parametrize("windows, word", [
+    ([(30.0, 6.0), (40.0, 6.0)], "one (centre, width) pair per family"),
+    ([(30.0, 0.0)], "widths"),
+    ([(30.0, 200.0)], "widths"),
+    ([(30.0, float("nan"))], "widths"),
+    ([(float("nan"), 6.0)], "finite centre"),
+    ([("a", 6.0)], "(centre, width) pairs"),
+])
+def test_bad_windows_are_refused_at_the_door(windows, word):
+    from tracefit.matching.likelihood import family_log_weights
+
+    with pytest.raises(TracefitInputError, match=re.escape(word)):
+        family_log_weights([30.0], [0.5], [30.0, 80.0], [0.0, 0.0], np.log([0.475, 0.475]), 0.05, windows=windows)

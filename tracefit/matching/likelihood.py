@@ -43,6 +43,7 @@ from numpy.typing import ArrayLike
 from scipy.special import i0e
 
 from tracefit.conventions import axial_difference
+from tracefit.errors import TracefitInputError
 
 __all__ = [
     "DEFAULT_P_NONE",
@@ -347,11 +348,27 @@ def family_log_weights(obs_ang: ArrayLike, obs_sig: ArrayLike, pred_ang: ArrayLi
     ll = axial_logpdf(resid, sig) + np.asarray(log_prior, float)[None, :]
     none = np.full((ll.shape[0], 1), none_log_density(p_none))
     if windows is not None:
-        win = np.asarray(windows, float).reshape(ll.shape[0], 2)
+        win = _checked_windows(windows, ll.shape[0])
         ids = np.arange(ll.shape[1]) if plane_ids is None else np.asarray(plane_ids, int)
         for f in np.flatnonzero(win[:, 1] < 180.0):
             none[f, 0] = none_log_density(p_none, win[f, 1]) + window_log_mass(win[f, 0], win[f, 1], pred_ang, sig[f], ids)
     return np.concatenate([ll, none], axis=1), resid, sig
+
+
+def _checked_windows(windows: ArrayLike, n_families: int) -> np.ndarray:
+    """``windows`` as an (F, 2) float array of (centre, width), or TracefitInputError naming the fault."""
+    try:
+        win = np.asarray(windows, float)
+    except (TypeError, ValueError):
+        raise TracefitInputError(f"windows must be (centre, width) pairs in degrees, got {windows!r}") from None
+    if win.shape != (n_families, 2):
+        raise TracefitInputError(f"windows must hold one (centre, width) pair per family, shape ({n_families}, 2); "
+                                 f"got shape {win.shape}")
+    if not np.all((win[:, 1] > 0.0) & (win[:, 1] <= 180.0)):
+        raise TracefitInputError("window widths must be in (0, 180] degrees")
+    if not np.all(np.isfinite(win[win[:, 1] < 180.0, 0])):
+        raise TracefitInputError("a window narrower than 180 deg needs a finite centre")
+    return win
 
 
 def window_log_mass(centre_deg: float, width_deg: float, pred_ang: ArrayLike, sigma: ArrayLike,
