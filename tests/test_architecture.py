@@ -20,15 +20,16 @@ import tracefit
 PKG = Path(tracefit.__file__).resolve().parent
 
 # docs/architecture.md, "Packages: what each owns and what it may import".
-BASE = {"errors", "options", "conventions", "atomic"}
+BASE = {"errors", "options", "conventions", "atomic", "cores"}
 ALLOWED = {
     "errors": set(),
     "atomic": set(),
+    "cores": set(),
     "options": {"errors"},
     "conventions": {"errors"},
     "crystal": {"errors", "conventions"},
     "predict": {"errors", "conventions", "options", "crystal"},
-    "image": {"errors", "conventions", "options"},
+    "image": {"errors", "conventions", "options", "cores"},
     "maps": {"errors", "conventions", "options", "crystal", "atomic"},
     "matching": {"errors", "conventions", "options", "crystal", "predict"},
     "results": {"errors", "conventions", "crystal"},

@@ -18,6 +18,8 @@ from concurrent.futures import ThreadPoolExecutor
 
 import cv2
 
+from tracefit.cores import available_cores
+
 MAX_THREADS = 4  # the pieces are few (12 orientation sectors): more threads would only wait
 
 _pool: ThreadPoolExecutor | None = None
@@ -37,11 +39,7 @@ if hasattr(os, "register_at_fork"):
 
 
 def _threads() -> int:
-    try:
-        cores = len(os.sched_getaffinity(0))
-    except (AttributeError, OSError):
-        cores = os.cpu_count() or 1
-    return max(1, min(cv2.getNumThreads(), cores, MAX_THREADS))
+    return max(1, min(cv2.getNumThreads(), available_cores(), MAX_THREADS))
 
 
 def ordered_map(fn: Callable, items: Iterable) -> list:

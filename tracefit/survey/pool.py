@@ -14,28 +14,10 @@ from concurrent.futures import ProcessPoolExecutor, as_completed
 from pathlib import Path
 from typing import Any, Callable
 
+from tracefit.cores import available_cores
 from tracefit.crystal.indices import current_index_notation
 
 __all__ = ["available_cores", "default_workers", "run_in_pool", "claim_numba_cache"]
-
-
-def available_cores() -> int:
-    """Cores this process may run on (the affinity mask where the system has one).
-
-    Returns
-    -------
-    int
-        At least 1.
-
-    Examples
-    --------
-    >>> available_cores() >= 1
-    True
-    """
-    try:
-        return max(1, len(os.sched_getaffinity(0)))
-    except (AttributeError, OSError):
-        return os.cpu_count() or 1
 
 
 def default_workers(memory_per_worker_gb: float = 1.2) -> int:
