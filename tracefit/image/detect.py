@@ -26,7 +26,9 @@ label image. The pipeline, one concern per stage and module:
    analysed enlarged, such as the grains of a strain map): families whose bands are too
    short or wavy to be fitted one by one, found by projecting the remaining ridge pixels
    across every direction and tested on whole lines (``PROJECTION_SHARE`` of the usual
-   significance, bands of the polarity of the region's grey-level tail only).
+   significance, bands of the polarity of the region's grey-level tail only). With
+   predicted traces (6c, 6d) families are also sought at those angles only
+   (:mod:`~tracefit.image.traceprofile`: line sums of the band response).
 7. **Selection**: dark and bright "families" at one angle (bands and the gaps between
    them) resolved in favour of the one further from the median grey; strongest first.
 8. **Coarser looks**: when fewer than two families are found on a large image, copies
@@ -76,8 +78,15 @@ from tracefit.image.prepare import (
     _WorkingCopy,
 )
 from tracefit.image.results import BandFamily, BandLine, DetectionResult
-from tracefit.image.projection import _checked_traces, _guided_families, _guided_share, _projection_families
+from tracefit.image.projection import (
+    _checked_traces,
+    _guided_families,
+    _guided_share,
+    _projection_families,
+    _tail_polarity,
+)
 from tracefit.image.ridges import _pixel_noise, flatten_background, ridge_pixels
+from tracefit.image.traceprofile import PROFILE_SHARE, _profile_families
 from tracefit.image.sampling import NATIVE, Oversampling, _resolved
 from tracefit.image.search import SAME_FAMILY_DEG, _distinct_families, _search_rounds, _SearchContext, _without_bands
 from tracefit.image.significance import family_log10_nfa
@@ -100,8 +109,7 @@ MIN_DEPTH_SHARE = 0.3  # ... and at least this share of ``min_depth``
 # benchmarks/synthetic_grains.py: recall 0.964 -> 0.978, no spurious family; 16,000 gave 0.981 but 7 unmatched
 # families on the real regions of benchmarks/realdata.py instead of 3)
 PROJECTION_MAX_AREA_PX = 12_000
-PROJECTION_SHARE = 0.75  # share of the significance thresholds asked of families found by projection (small regions) ...
-TAIL_SKEW = 0.1  # ... which are of the polarity of the region's grey-level tail, where its quantile skew passes this
+PROJECTION_SHARE = 0.75  # share of the significance thresholds asked of families found by projection (small regions)
 
 
 def _effective_min_depth(img, m, pixel_noise: float, min_depth: float) -> float:
@@ -237,7 +245,7 @@ def _detect_at_scale(img, m, bars, st: _Settings, up: int = 1, down: int = 1) ->
 
 
 def _small_region_families(ctx, ridges, wc, found, accept, st: _Settings, up: int) -> tuple[list, int]:
-    """Stages 6b and 6c in small regions (grains of a strain map, grains of ~100 x 100 px of a micrograph).
+    """Stages 6b-6d in small regions (grains of a strain map, grains of ~100 x 100 px of a micrograph).
 
     6b: families whose bands are too short to fit one by one, by projection. Larger regions give
     their bands enough pixels for stages 4-6; there the projection's extra families were mostly
@@ -246,7 +254,8 @@ def _small_region_families(ctx, ridges, wc, found, accept, st: _Settings, up: in
     the dark "families" were the low-strain gaps between bands, and band-free grains have the
     least skewed grey levels. 6c: families looked for along the grain's predicted traces only;
     few directions are tested, so a weaker family passes at the same rate of false families on
-    band-free grains. Returns (families, candidates tried).
+    band-free grains. 6d: the traces still without a family, tested on line sums of the band
+    response (:mod:`tracefit.image.traceprofile`). Returns (families, candidates tried).
     """
     tail = _tail_polarity(wc.image, wc.region)
 
@@ -261,23 +270,12 @@ def _small_region_families(ctx, ridges, wc, found, accept, st: _Settings, up: in
         more, n_more = _guided_families(ctx, rest(), wc.region, found, st.predicted_traces,
                                         lambda fm, strict: accept(fm, strict, True, _guided_share(strict, n)),
                                         st.max_families - len(found), up)
-        tried += n_more
+        found = _distinct_families(found + more)
+        more, n_6d = _profile_families(ctx, wc, tail, found, st.predicted_traces, PROFILE_SHARE * st.min_significance,
+                                       st.max_families - len(found), up, RELAXED_MAX_SPACING)  # 6d: line sums
+        tried += n_more + n_6d
         found = _distinct_families(found + more)
     return found, tried
-
-
-def _tail_polarity(img, region) -> int:
-    """+1 when the region's grey levels have a long bright tail, -1 a long dark one, 0 neither.
-
-    Bands are the rare extreme values of a region: bright slip bands of a strain map give its
-    values a bright tail, dark grooves of an optical micrograph a dark one. The quantile skew
-    ``(q90 + q10 - 2 q50) / (q90 - q10)`` (Kelly's percentile skewness, named from memory) tells which.
-    """
-    q10, q50, q90 = np.nanpercentile(img[region], (10, 50, 90))
-    if not q90 > q10:
-        return 0
-    skew = (q90 + q10 - 2 * q50) / (q90 - q10)
-    return 0 if abs(skew) < TAIL_SKEW else (1 if skew > 0 else -1)
 
 
 def _small_region_factor(shape, m, k: int = 1) -> tuple[int, tuple[slice, slice]]:

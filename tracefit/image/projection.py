@@ -70,6 +70,7 @@ MAX_REGION_PX = 60_000  # larger regions (working px: a whole micrograph) hold e
 GUIDED_SHARE = 0.5
 GUIDED_RELAXED_SHARE = 0.25
 GUIDED_PER_DOUBLING = 0.3
+TAIL_SKEW = 0.1  # bands are sought in the polarity of the region's grey-level tail, where its quantile skew passes this
 
 
 class _BandAt(NamedTuple):
@@ -165,6 +166,14 @@ def _best_directions(x, y, sectors_of, reg: _Region, exclude: Sequence[float], k
     return out
 
 
+def _labels_near(x, y, angle_deg, offsets, half) -> np.ndarray:
+    """For each pixel, the band line (offset across ``angle_deg``) within ``half`` of it, -1 for none."""
+    _, n_vec = _direction_and_normal(angle_deg)
+    dist = np.abs((x * n_vec[0] + y * n_vec[1])[:, None] - np.asarray(offsets)[None, :])
+    near = np.argmin(dist, axis=1)
+    return np.where(dist[np.arange(len(x)), near] <= half, near, -1)
+
+
 def _common_slope(x, y, angle_deg, offsets, half):
     """Common-slope fit of the bands' pixels: (angle_deg, sigma_deg, labels, offsets) or None.
 
@@ -174,10 +183,7 @@ def _common_slope(x, y, angle_deg, offsets, half):
     because neighbouring ridge pixels are correlated.
     """
     for _ in range(3):
-        _, n_vec = _direction_and_normal(angle_deg)
-        dist = np.abs((x * n_vec[0] + y * n_vec[1])[:, None] - offsets[None, :])
-        near = np.argmin(dist, axis=1)
-        labels = np.where(dist[np.arange(len(x)), near] <= half, near, -1)
+        labels = _labels_near(x, y, angle_deg, offsets, half)
         keep = labels >= 0
         if keep.sum() < 2 * _least(MIN_BAND_PX, half):
             return None
@@ -237,6 +243,15 @@ def _family_of(ctx, rp: RidgePixels, idx, reg: _Region, angle0: float, half: flo
             break
     else:
         return None
+    return _family_from_fit(ctx, rp.polarity, x, y, idx, fit, half, level)
+
+
+def _family_from_fit(ctx, polarity: int, x, y, idx, fit, half: float, level: float):
+    """The family of a common-slope ``fit`` of pixels (``x``, ``y``; their indices ``idx``), or None.
+
+    Each band's seen part and its depth at its own pixels (the depth test of stage 6);
+    (family, strict, indices of the bands' pixels) when at least two bands hold.
+    """
     angle, sigma, labels, offsets = fit
     d, n_vec = _direction_and_normal(angle)
     f = ctx.factor
@@ -250,7 +265,7 @@ def _family_of(ctx, rp: RidgePixels, idx, reg: _Region, angle0: float, half: flo
         pa_w, pb_w = offsets[b] * n_vec + t0 * d, offsets[b] * n_vec + t1 * d
         pa, pb = _to_full(pa_w, f), _to_full(pb_w, f)
         # depth at the band's own ridge pixels: a wavy band leaves its straight line here and there
-        depth = float(_median_inplace(rp.polarity * ctx.depth_of(_to_full(np.stack([x[sel], y[sel]], axis=1), f))))
+        depth = float(_median_inplace(polarity * ctx.depth_of(_to_full(np.stack([x[sel], y[sel]], axis=1), f))))
         if depth < ctx.min_depth or t1 - t0 < _least(MIN_BAND_PX, half):
             continue
         snr = depth * level / max(ctx.pixel_noise, 1e-12)
@@ -274,8 +289,8 @@ def _family_of(ctx, rp: RidgePixels, idx, reg: _Region, angle0: float, half: flo
         spacing_sigma_px=spacing_sd,
         spacing_um=None if ctx.pixel_size_um is None or not math.isfinite(spacing) else spacing * ctx.pixel_size_um,
         strength=float(sum(math.hypot(*(pb - pa)) / diag_full * snr for _, pa, pb, _, snr, _ in bands)),
-        polarity="dark" if rp.polarity < 0 else "bright",
-        contrast=float(rp.polarity * np.median([z[3] for z in bands])),
+        polarity="dark" if polarity < 0 else "bright",
+        contrast=float(polarity * np.median([z[3] for z in bands])),
         lines=lines,
     )
     used = idx[np.concatenate([z[5] for z in bands])]
@@ -347,6 +362,20 @@ def _projection_families(ctx, ridges: Sequence[RidgePixels], region: np.ndarray,
             if len(found) >= max_new:
                 return found, tried
     return found, tried
+
+
+def _tail_polarity(img, region) -> int:
+    """+1 when the region's grey levels have a long bright tail, -1 a long dark one, 0 neither.
+
+    Bands are the rare extreme values of a region: bright slip bands of a strain map give its
+    values a bright tail, dark grooves of an optical micrograph a dark one. The quantile skew
+    ``(q90 + q10 - 2 q50) / (q90 - q10)`` (Kelly's percentile skewness, named from memory) tells which.
+    """
+    q10, q50, q90 = np.nanpercentile(img[region], (10, 50, 90))
+    if not q90 > q10:
+        return 0
+    skew = (q90 + q10 - 2 * q50) / (q90 - q10)
+    return 0 if abs(skew) < TAIL_SKEW else (1 if skew > 0 else -1)
 
 
 def _search_setup(ctx, region: np.ndarray, up: int):

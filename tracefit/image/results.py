@@ -99,7 +99,9 @@ class BandFamily:
     log10_nfa : float
         log10 of the family's a contrario number of false alarms: how many families at
         least this strong texture alone would give in a picture of this size (see
-        :mod:`tracefit.image.significance`); nan when not computed.
+        :mod:`tracefit.image.significance`); nan when not computed. A family found on line sums
+        along a predicted trace carries a bound of its own kind there
+        (:mod:`tracefit.image.traceprofile`).
     sought_at : float or None
         None for a family found by the open search over every direction; else the
         predicted trace angle (degrees, image frame) it was looked for at and found near

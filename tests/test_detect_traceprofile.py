@@ -1,0 +1,173 @@
+"""Stage 6d: predicted traces tested on line sums of the band response (tracefit.image.traceprofile).
+
+The maps are the independent numpy renderer of ``tests/test_detect_projection.py`` (short, wavy,
+unevenly bright bands of an HR-DIC max-shear map in a small grain) with a weak second family,
+as in ``tests/test_detect_guided.py``; band-free grains are the negatives there. Here: the
+geometry of the line sums against drawn ridges, the edge guard, the significance bound against a
+direct evaluation, the families the stage adds, and that their angle is measured, not the trace's.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+
+from tests.test_detect_guided import _second, _traces, grain_labels
+from tracefit.conventions import axial_difference
+from tracefit.image import detect_bands
+from tracefit.image import detect as detect_module
+from tracefit.image import traceprofile as tp
+
+
+def _ridge_image(angle_deg, offset, shape=(100, 100), width=1.0, level=1.0, noise=0.0, seed=0):
+    """A straight bright Gaussian ridge at image-frame ``angle_deg`` (x right, y up), ``offset`` px from the centre."""
+    rng = np.random.default_rng(seed)
+    rr, cc = np.mgrid[0:shape[0], 0:shape[1]].astype(float)
+    t = math.radians(angle_deg)
+    x, y = cc - shape[1] / 2, -(rr - shape[0] / 2)  # y up
+    across = -x * math.sin(t) + y * math.cos(t)  # signed distance from the ridge's line through the centre
+    img = 1.0 + level * np.exp(-0.5 * ((across - offset) / width) ** 2) + rng.normal(0, noise, shape)
+    return img.astype(np.float32)
+
+
+def _sums(img, valid, unit=1.0, polarity=1):
+    rows, cols, edge = tp._region_points(valid, unit)
+    return tp._LineSums(tp._response(img, valid, polarity, unit), rows, cols, edge, unit)
+
+
+@pytest.mark.parametrize("angle, polarity, k", [(0.0, 1, 1), (35.0, 1, 1), (90.0, -1, 1), (128.0, -1, 1), (35.0, 1, 2),
+                                                (128.0, -1, 2)])
+def test_line_sums_peak_on_a_ridge_at_its_own_angle(angle, polarity, k):
+    # a ridge drawn in the image frame (y up, counterclockwise from +x: docs/conventions.md) gives its
+    # highest line sum across its own angle, on its own line; bright or dark (polarity), and the same
+    # in an image enlarged k times with the unit of k px per point; common practice, no source
+    img = _ridge_image(angle, 6.0 * k, shape=(100 * k, 100 * k), width=1.0 * k, level=0.3 * polarity, noise=0.02)
+    img[30 * k: 33 * k, 70 * k: 74 * k] = np.nan  # a hole of failed correlation
+    valid = np.zeros(img.shape, bool)
+    valid[10 * k: 90 * k, 10 * k: 90 * k] = True
+    sums = _sums(img, valid & np.isfinite(img), unit=float(k), polarity=polarity)
+    scores = {d: sums.peaks(angle + d)[0][0][0] for d in (-10.0, -4.0, 0.0, 4.0, 10.0)}
+    assert max(scores, key=scores.get) == 0.0, scores
+    (z, s), *rest = sums.peaks(angle)[0]
+    # the line through the ridge: the image centre moved ``offset`` along the ridge's normal (y up)
+    t = math.radians(angle)
+    cx, cy = 50.0 * k - 6.0 * k * math.sin(t), 50.0 * k - 6.0 * k * math.cos(t)  # (col, row)
+    from tracefit.image.geometry import _direction_and_normal
+
+    _, n = _direction_and_normal(angle)
+    assert abs((cx * n[0] + cy * n[1]) - s) <= 1.0 * k
+    assert z > 5.0
+    # one ridge is one peak: the flanks of its response are not a second band (every other peak,
+    # noise, lies a band's width away and far lower)
+    assert all(abs(o - s) >= tp.PEAK_SEPARATION_POINTS * k and v < 0.3 * z for v, o in rest), (z, s, rest[:3])
+
+
+def test_lines_along_the_region_edge_are_not_tried(monkeypatch):
+    # a bright line 2 px inside a straight edge of the region (boundary strain, a groove) is one line
+    # of the region's own shape, not a band
+    img = _ridge_image(0.0, 0.0, level=0.2, noise=0.02)
+    valid = np.zeros(img.shape, bool)
+    valid[48:96, 10:90] = True  # the ridge (row 50; angle 0: the line sums run along rows) lies 2 px inside the top edge
+
+    def at_ridge():
+        z, ok, s0 = _sums(img, valid).at(0.0)
+        k = int(math.floor(50.0 - s0))
+        return z, ok, k
+
+    z, ok, k = at_ridge()
+    assert not ok[k] and not ok[k + 1]
+    monkeypatch.setattr(tp, "EDGE_POINTS", 0.0)
+    z, ok, k = at_ridge()
+    assert ok[k] and int(np.argmax(np.where(ok, z, -np.inf))) == k  # without the guard that line stands out
+
+
+@pytest.mark.parametrize("score, n_lines, n_tests", [(8.0, 40, 52), (12.0, 25, 13), (5.0, 80, 300), (20.0, 3, 1)])
+def test_significance_bound_matches_a_direct_evaluation(score, n_lines, n_tests):
+    # the number of false alarms bounded as in Desolneux, Moisan & Morel, "Meaningful alignments",
+    # IJCV 40 (2000): tests x ways of choosing the 3 peaks x the normal tail of their sum
+    # (Bonferroni's inequality), evaluated directly with math.comb and scipy.stats.norm
+    from scipy.stats import norm
+
+    direct = math.log10(n_tests * math.comb(n_lines, tp.TOP_LINES) * norm.sf(score / math.sqrt(tp.TOP_LINES)))
+    assert tp._log10_nfa(score, n_lines, n_tests) == pytest.approx(direct, abs=1e-6)
+
+
+def test_the_bound_asks_more_of_larger_regions_and_more_traces():
+    base = tp._log10_nfa(10.0, 40, 52)
+    assert tp._log10_nfa(11.0, 40, 52) < base
+    assert tp._log10_nfa(10.0, 80, 52) > base
+    assert tp._log10_nfa(10.0, 40, 156) > base
+
+
+def _six_d(monkeypatch):
+    """Record the families stage 6d builds."""
+    made = set()
+    build = tp._build
+
+    def recording(*args, **kwargs):
+        built = build(*args, **kwargs)
+        if built is not None:
+            made.add(id(built[0]))
+        return built
+
+    monkeypatch.setattr(tp, "_build", recording)
+    return made
+
+
+def test_weak_families_are_found_by_line_sums_along_their_traces(monkeypatch):
+    labels = grain_labels()
+    made = _six_d(monkeypatch)
+    with_6d, without, by_6d = 0, 0, []
+    for seed in range(16):
+        first = (23 + 37 * seed) % 180
+        img, second = _second(seed, first)
+        for off in (-1.5, 1.5):
+            traces = _traces(first, second, off)
+            monkeypatch.setattr(detect_module, "PROFILE_SHARE", math.inf)
+            plain = detect_bands(img, labels=labels, grain=1, predicted_traces=traces)
+            monkeypatch.setattr(detect_module, "PROFILE_SHARE", tp.PROFILE_SHARE)
+            res = detect_bands(img, labels=labels, grain=1, predicted_traces=traces)
+            near = lambda fams: [f for f in fams if abs(axial_difference(f.angle_deg, second)) <= 2.0]  # noqa: E731
+            without += bool(near(plain.families))
+            with_6d += bool(near(res.families))
+            by_6d += [(f, second, (second + off) % 180.0) for f in res.families if id(f) in made]
+    assert with_6d >= without + 3, (without, with_6d)
+    assert by_6d
+    for fam, second, trace in by_6d:
+        assert abs(axial_difference(fam.angle_deg, second)) <= 2.0  # every one is the drawn family
+        assert fam.sought_at == pytest.approx(trace)
+        assert fam.significance >= tp.PROFILE_SHARE * 16.0
+        assert 0.0 < fam.angle_sigma_deg < 2.0
+        assert fam.n_bands >= 2
+
+
+def test_the_angle_is_measured_from_the_bands_not_taken_from_the_trace(monkeypatch):
+    # the same bands sought at traces 3 deg apart give the same measured angle
+    labels = grain_labels()
+    made = _six_d(monkeypatch)
+    seed = 13
+    first = (23 + 37 * seed) % 180
+    img, second = _second(seed, first)
+    angles = []
+    for off in (-1.5, 1.5):
+        res = detect_bands(img, labels=labels, grain=1, predicted_traces=_traces(first, second, off))
+        angles += [f.angle_deg for f in res.families if id(f) in made]
+    assert len(angles) == 2, angles
+    assert abs(axial_difference(*angles)) < 0.3, angles
+    assert all(abs(axial_difference(a, second)) < 1.0 for a in angles), (angles, second)
+
+
+def test_band_free_grains_give_no_family_by_line_sums(monkeypatch):
+    from tests.test_detect_projection import short_band_map
+
+    labels = grain_labels()
+    made = _six_d(monkeypatch)
+    rng = np.random.default_rng(23)
+    found = []
+    for seed in range(24):
+        img = short_band_map(0.0, 100 + seed, with_bands=False)
+        res = detect_bands(img, labels=labels, grain=1, predicted_traces=list(rng.uniform(0.0, 180.0, 4)))
+        found += [(seed, f.angle_deg, f.significance) for f in res.families if id(f) in made]
+    assert found == []
