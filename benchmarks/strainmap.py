@@ -80,7 +80,7 @@ Truth and scoring
 
 Predicted traces (``--guided SIGMA``)
     ``tracefit identify`` knows each grain's orientation and asks the detector to look along
-    the candidate planes' predicted traces as well (``predicted_traces``; stage 6c). The
+    the candidate planes' predicted traces as well (``predicted_traces``; stages 6c and 6d). The
     maps' bands are not drawn from orientations, so the traces are simulated: per grain four
     (fcc's {111}), each true family's angle off by a normal error of SIGMA deg (orientation
     and registration error) and random angles for the planes that did not slip; band-free
