@@ -171,3 +171,18 @@ def test_band_free_grains_give_no_family_by_line_sums(monkeypatch):
         res = detect_bands(img, labels=labels, grain=1, predicted_traces=list(rng.uniform(0.0, 180.0, 4)))
         found += [(seed, f.angle_deg, f.significance) for f in res.families if id(f) in made]
     assert found == []
+
+
+def test_a_trace_whose_best_direction_lies_at_the_window_edge_or_under_a_stronger_one_gives_nothing():
+    # two ridges drawn in the image frame, below the clipping: a strong one at 47 deg and a weaker one at 40 deg
+    img = _ridge_image(47.0, 12.0, level=0.2, noise=0.05) + _ridge_image(40.0, -10.0, level=0.1, seed=1) - 1.0
+    valid = np.zeros(img.shape, bool)
+    valid[8:92, 8:92] = True
+    sums = _sums(img, valid)
+    found = tp._best_near(sums, 46.2)
+    assert found is not None and abs(axial_difference(found[1], 47.0)) <= 1.0
+    # a trace at 43.5 deg: its window (40.5-46.5 deg) rises towards the strong ridge, the maximum is at its edge
+    assert tp._best_near(sums, 43.5) is None
+    # a trace at 40 deg finds its ridge inside its window, but the stronger one 7 deg away scores higher
+    assert tp._best_near(sums, 40.0) is None
+    assert max(sums.peaks(40.0)[0])[0] > tp.MIN_BAND_Z  # the weaker ridge is there
