@@ -108,7 +108,8 @@ def test_textures_left_without_families_mostly_stay_so():
             r0 = int(rng.integers(0, img.shape[0] - labels.shape[0]))
             c0 = int(rng.integers(0, img.shape[1] - labels.shape[1]))
             crop = img[r0:r0 + labels.shape[0], c0:c0 + labels.shape[1]]
-            res = detect_bands(crop, labels=labels, grain=1, predicted_traces=list(rng.uniform(0.0, 180.0, 4)))
+            traces = list(rng.uniform(0.0, 180.0, 4))
+            res = detect_bands(crop, labels=labels, grain=1, predicted_traces=traces)
             if not any(f.sought_at is None for f in res.families):
                 empty += 1
                 turned += [(name, r0, c0, round(f.significance, 1)) for f in res.families]

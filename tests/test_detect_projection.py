@@ -154,7 +154,7 @@ def test_a_band_is_judged_on_the_least_likely_segment_of_its_whole_line():
 def test_tail_polarity_follows_the_rare_extreme_grey_levels():
     # Kelly's percentile skewness (10th, 50th, 90th percentiles; named from memory): bright lines on a
     # dark field skew right, dark grooves on a bright field skew left, plain noise not at all
-    from tracefit.image.detect import _tail_polarity
+    from tracefit.image.projection import _tail_polarity
 
     rng = np.random.default_rng(0)
     region = np.ones((80, 80), bool)

@@ -101,15 +101,22 @@ def test_the_bound_asks_more_of_larger_regions_and_more_traces():
     assert tp._log10_nfa(10.0, 40, 156) > base
 
 
+class _Made(list):
+    """The families stage 6d built (by identity: ids of freed objects are reused)."""
+
+    def __contains__(self, fam):
+        return any(fam is f for f in self)
+
+
 def _six_d(monkeypatch):
     """Record the families stage 6d builds."""
-    made = set()
+    made = _Made()
     build = tp._build
 
     def recording(*args, **kwargs):
         built = build(*args, **kwargs)
         if built is not None:
-            made.add(id(built[0]))
+            made.append(built[0])
         return built
 
     monkeypatch.setattr(tp, "_build", recording)
@@ -132,7 +139,7 @@ def test_weak_families_are_found_by_line_sums_along_their_traces(monkeypatch):
             near = lambda fams: [f for f in fams if abs(axial_difference(f.angle_deg, second)) <= 2.0]  # noqa: E731
             without += bool(near(plain.families))
             with_6d += bool(near(res.families))
-            by_6d += [(f, second, (second + off) % 180.0) for f in res.families if id(f) in made]
+            by_6d += [(f, second, (second + off) % 180.0) for f in res.families if f in made]
     assert with_6d >= without + 3, (without, with_6d)
     assert by_6d
     for fam, second, trace in by_6d:
@@ -153,7 +160,7 @@ def test_the_angle_is_measured_from_the_bands_not_taken_from_the_trace(monkeypat
     angles = []
     for off in (-1.5, 1.5):
         res = detect_bands(img, labels=labels, grain=1, predicted_traces=_traces(first, second, off))
-        angles += [f.angle_deg for f in res.families if id(f) in made]
+        angles += [f.angle_deg for f in res.families if f in made]
     assert len(angles) == 2, angles
     assert abs(axial_difference(*angles)) < 0.3, angles
     assert all(abs(axial_difference(a, second)) < 1.0 for a in angles), (angles, second)
@@ -169,7 +176,7 @@ def test_band_free_grains_give_no_family_by_line_sums(monkeypatch):
     for seed in range(24):
         img = short_band_map(0.0, 100 + seed, with_bands=False)
         res = detect_bands(img, labels=labels, grain=1, predicted_traces=list(rng.uniform(0.0, 180.0, 4)))
-        found += [(seed, f.angle_deg, f.significance) for f in res.families if id(f) in made]
+        found += [(seed, f.angle_deg, f.significance) for f in res.families if f in made]
     assert found == []
 
 
@@ -186,3 +193,34 @@ def test_a_trace_whose_best_direction_lies_at_the_window_edge_or_under_a_stronge
     # a trace at 40 deg finds its ridge inside its window, but the stronger one 7 deg away scores higher
     assert tp._best_near(sums, 40.0) is None
     assert max(sums.peaks(40.0)[0])[0] > tp.MIN_BAND_Z  # the weaker ridge is there
+
+
+def test_two_bands_or_irregular_spacing_are_asked_more():
+    need = 6.4
+    assert tp._passes(True, 6.5, need, 80.0, 30.0)  # a regular family: the significance alone
+    assert not tp._passes(False, 6.5, need, 10.0, 30.0)
+    assert tp._passes(False, tp.NON_STRICT_FACTOR * need, need, 10.0, 30.0)
+    assert not tp._passes(False, 100.0, need, 40.0, 30.0)  # two far-apart lines: edges, not a family
+
+
+def test_the_angle_uncertainty_is_the_bands_standard_error_at_any_enlargement():
+    # three straight bands at 30.0, 30.6 and 31.2 deg: the family angle's standard error is the
+    # spread of the three over the root of three (Student's t for two degrees of freedom, 1.32 for
+    # one sigma; common practice, no source). The detector multiplies a region's angle uncertainties
+    # by the root of its internal enlargement (tracefit.image.detect._rescaled_outcome), so what
+    # _refined_angle returns times that root is what the user sees.
+    from scipy.stats import t as student_t
+
+    angles = (30.0, 30.6, 31.2)
+    expected = float(np.std(angles, ddof=1)) / math.sqrt(3) * float(student_t.ppf(0.8413, 2))
+    for k in (1, 2):
+        img = sum(_ridge_image(a, off * k, shape=(100 * k, 100 * k), width=1.0 * k, level=0.3, seed=i) - 1.0
+                  for i, (a, off) in enumerate(zip(angles, (-20.0, 0.0, 20.0)))) + 1.0
+        img += np.random.default_rng(7).normal(0, 0.01, img.shape).astype(np.float32)
+        valid = np.zeros(img.shape, bool)
+        valid[15 * k: 85 * k, 15 * k: 85 * k] = True
+        sums = _sums(img, valid, unit=float(k))
+        centres = tp._band_centres(sums, 30.6, [p[1] for p in sums.peaks(30.6)[0][:3]])
+        angle, sigma = tp._refined_angle(sums, 30.6, centres)
+        assert abs(axial_difference(angle, 30.6)) < 0.15, (k, angle)
+        assert sigma * math.sqrt(k) == pytest.approx(expected, rel=0.25), (k, sigma)

@@ -496,7 +496,7 @@ def detect_bands(
         content: state the factor for those.
     predicted_traces : sequence of float, optional
         Candidate planes' trace angles (degrees, image frame): small regions are also searched along
-        each (stage 6c, not within 1 deg of an axis), at a lower threshold; ``BandFamily.sought_at``.
+        each (stages 6c and 6d, not within 1 deg of an axis), at a lower threshold; ``BandFamily.sought_at``.
     notes : list of str, optional
         Notes to start the result with (e.g. from :func:`tracefit.image.read_image`).
 

@@ -48,7 +48,7 @@ from collections.abc import Sequence
 import numpy as np
 
 from tracefit.conventions import axial_difference
-from tracefit.image.geometry import _direction_and_normal
+from tracefit.image.geometry import _direction_and_normal, _to_working
 from tracefit.image.projection import GUIDED_TOL_DEG, _family_from_fit, _labels_near, _too_close
 from tracefit.image.ridges import _robust_spread, _steered
 from tracefit.image.results import BandFamily
@@ -99,7 +99,8 @@ def _response(image: np.ndarray, valid: np.ndarray, polarity: int, unit: float):
     x = np.where(valid, image, level).astype(np.float64)
     # the median at the content's own sampling (an enlarged copy holds no more detail), then back
     step = max(1, int(round(unit)))
-    coarse = ndimage.median_filter(x[::step, ::step], size=2 * int(round(BACKGROUND_POINTS)) + 1, mode="nearest")
+    coarse = ndimage.median_filter(x[step // 2:: step, step // 2:: step], size=2 * int(round(BACKGROUND_POINTS)) + 1,
+                                   mode="nearest")
     background = ndimage.zoom(coarse, (x.shape[0] / coarse.shape[0], x.shape[1] / coarse.shape[1]), order=1,
                               mode="nearest", grid_mode=True)[: x.shape[0], : x.shape[1]]
     r = np.where(valid, polarity * (x - background), 0.0)
@@ -254,7 +255,7 @@ def _profile_families(ctx, wc, polarity: int, known: Sequence[BandFamily], trace
         if built is None:
             continue
         fam, strict = built
-        if not strict and (-log10_nfa < NON_STRICT_FACTOR * need or not fam.spacing_px <= max_spacing_share * diag):
+        if not _passes(strict, -log10_nfa, need, fam.spacing_px, max_spacing_share * diag):
             continue
         if _too_close(fam.angle_deg, [f.angle_deg for f in [*known, *found]]):
             continue
@@ -263,6 +264,15 @@ def _profile_families(ctx, wc, polarity: int, known: Sequence[BandFamily], trace
         if len(found) >= max_new:
             break
     return found, tried
+
+
+def _passes(strict: bool, significance: float, need: float, spacing: float, max_spacing: float) -> bool:
+    """A family's significance against ``need``; one of two bands or irregular spacing (not ``strict``) is asked
+    ``NON_STRICT_FACTOR`` times more and a spacing of at most ``max_spacing`` (two far-apart lines are the edges
+    of a tile or a square)."""
+    if strict:
+        return significance >= need
+    return significance >= NON_STRICT_FACTOR * need and spacing <= max_spacing
 
 
 def _band_centres(sums: _LineSums, angle: float, offsets) -> np.ndarray:
@@ -332,6 +342,7 @@ def _refined_angle(sums: _LineSums, angle: float, centres: np.ndarray):
     floor = math.hypot(REFINE_STEP_DEG / math.sqrt(12.0), math.degrees(math.atan(0.1 / max(float(np.sum(length)), 1.0))))
     # measured in the content's points: not to be inflated again for the enlargement
     # (tracefit.image.detect._rescaled_outcome multiplies the angle uncertainty by its root)
+    # (unit is the enlargement itself: a region analysed enlarged is never reduced, wc.factor is then 1)
     return float(np.mod(best, 180.0)), math.hypot(scatter, floor) / math.sqrt(sums.unit)
 
 
@@ -339,11 +350,30 @@ def _build(ctx, sums: _LineSums, angle: float, peaks, trace: float, level: float
     """(family, strict) of the peaks of at least ``MIN_BAND_Z`` at ``angle``, its angle measured; None: not two bands."""
     offsets = [s for v, s in peaks if v >= MIN_BAND_Z]
     centres = _band_centres(sums, angle, offsets) if len(offsets) >= 2 else np.zeros((0, 2))
-    if len(centres) < 2:
+    built = None
+    for _ in range(2):  # once more when the depth test drops bands: the angle is then measured on the others
+        if len(centres) < 2:
+            return None
+        refined = _refined_angle(sums, angle, centres)
+        if refined is None or abs(axial_difference(refined[0], trace)) > GUIDED_TOL_DEG:
+            return None
+        built = _family_at(ctx, sums, refined, centres, level, polarity)
+        if built is None or built[0].n_bands == len(centres):
+            break
+        kept = np.array([[0.5 * (ln.col0 + ln.col1), 0.5 * (ln.row0 + ln.row1)] for ln in built[0].lines])
+        _, n = _direction_and_normal(refined[0])
+        kept = _to_working(kept, ctx.factor)
+        centres = np.array([c for c in centres if np.min(np.abs((kept - c) @ n)) < HALF_POINTS * sums.unit])
+    if built is None:
         return None
-    refined = _refined_angle(sums, angle, centres)
-    if refined is None or abs(axial_difference(refined[0], trace)) > GUIDED_TOL_DEG:
-        return None
+    fam, strict = built
+    fam.sought_at = float(trace)
+    fam.sought_within_deg = GUIDED_TOL_DEG
+    return fam, strict
+
+
+def _family_at(ctx, sums: _LineSums, refined, centres: np.ndarray, level: float, polarity: int):
+    """(family, strict) with bands through ``centres`` at the measured angle, or None (fewer than two pass)."""
     new_angle, sigma = refined
     _, n = _direction_and_normal(new_angle)
     resp = sums.response(new_angle)
@@ -354,9 +384,4 @@ def _build(ctx, sums: _LineSums, angle: float, peaks, trace: float, level: float
     offsets = centres @ n
     labels = _labels_near(x, y, new_angle, offsets, half)
     built = _family_from_fit(ctx, polarity, x, y, np.flatnonzero(keep), (new_angle, sigma, labels, offsets), half, level)
-    if built is None:
-        return None
-    fam, strict, _ = built
-    fam.sought_at = float(trace)
-    fam.sought_within_deg = GUIDED_TOL_DEG
-    return fam, strict
+    return None if built is None else built[:2]
