@@ -61,6 +61,7 @@ def test_weak_second_families_are_found_along_their_predicted_traces():
         assert fam.significance > 0
         assert fam.to_dict(with_lines=True)["sought_at_deg"] == pytest.approx(fam.sought_at, abs=1e-4)
         assert "predicted trace" in _summary(fam)
+        assert fam.sought_on in ("ridge pixels", "line sums")
 
 
 def _summary(fam):

@@ -140,6 +140,8 @@ def test_weak_families_are_found_by_line_sums_along_their_traces(monkeypatch):
             without += bool(near(plain.families))
             with_6d += bool(near(res.families))
             by_6d += [(f, second, (second + off) % 180.0) for f in res.families if f in made]
+            # the other guided families were built from ridge pixels (stage 6c), and say so
+            assert all(f.sought_on == "ridge pixels" for f in res.families if f.sought_at is not None and f not in made)
     assert with_6d >= without + 3, (without, with_6d)
     assert by_6d
     for fam, second, trace in by_6d:
@@ -148,6 +150,7 @@ def test_weak_families_are_found_by_line_sums_along_their_traces(monkeypatch):
         assert fam.significance >= tp.PROFILE_SHARE * 16.0
         assert 0.0 < fam.angle_sigma_deg < 2.0
         assert fam.n_bands >= 2
+        assert fam.sought_on == "line sums" and fam.to_dict(with_lines=True)["sought_on"] == "line sums"
 
 
 def test_the_angle_is_measured_from_the_bands_not_taken_from_the_trace(monkeypatch):

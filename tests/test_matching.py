@@ -596,6 +596,29 @@ def test_guided_detections_carry_their_search_window_into_identification():
         ObservedFamily(10.0, 0.5, search_width_deg=6.0, sought_at_deg=float("inf"))
 
 
+def test_a_family_found_on_line_sums_says_so_in_its_notes():
+    # the detector's two guided searches judge a family on different counts (ridge pixels, line sums
+    # of the band response); the notes of the identification say which, so a reader of the JSON or the
+    # report knows what its significance counts
+    from tracefit.image.results import BandFamily
+    from tracefit.matching import observed_from_detection
+
+    bunge = (10.0, 20.0, 30.0)
+    cat = catalogue(FCC, ("slip",))
+    trace = scipy_trace(FCC, bunge, (1, -1, 1))[0]
+    fams = [BandFamily(trace, 0.4, 3, 12.0, 2.0, None, 1.0, sought_at=trace, sought_within_deg=3.0, sought_on=kind)
+            for kind in ("ridge pixels", "line sums")]
+    assert [f.to_dict(with_lines=True)["sought_on"] for f in fams] == ["ridge pixels", "line sums"]
+    obs = observed_from_detection(fams)
+    assert [o.sought_on for o in obs] == ["ridge pixels", "line sums"]
+    res = identify_families(obs, FCC, from_euler(bunge), cat, orientation_sigma_deg=0.0, frame_sigma_deg=0.0)
+    said = [any("line sums" in n for n in r.notes) for r in res]
+    assert said == [False, True]
+    assert all(any("guided search" in n for n in r.notes) for r in res)
+    with pytest.raises(TracefitInputError, match="sought_on"):
+        ObservedFamily(10.0, 0.5, search_width_deg=6.0, sought_at_deg=10.0, sought_on=3)
+
+
 def test_the_window_mass_wraps_at_0_and_180_deg():
     # a window at 176-182 deg holds a trace at 1.5 deg (axial angles: 181.5 = 1.5); reference: scipy's
     # quadrature of the von Mises density on the doubled angle, which is periodic

@@ -454,6 +454,7 @@ def _guided_families(ctx, ridges: Sequence[RidgePixels], region: np.ndarray, kno
                 continue
             fam.sought_at = float(t)  # already folded to [0, 180) by _checked_traces
             fam.sought_within_deg = GUIDED_TOL_DEG
+            fam.sought_on = "ridge pixels"
             if accept(fam, strict):
                 found.append(fam)
                 alive[used] = False

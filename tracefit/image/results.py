@@ -110,6 +110,11 @@ class BandFamily:
         For a guided family, how far from ``sought_at`` its fitted angle was allowed to lie
         (degrees): it could only be found in that window, which identification weighs
         (:attr:`tracefit.matching.ObservedFamily.search_width_deg`). None otherwise.
+    sought_on : str or None
+        For a guided family, what it was judged on: ``"ridge pixels"`` (the family built along the
+        trace from ridge pixels, as the open search's) or ``"line sums"`` (the trace tested on line
+        sums of the band response, :mod:`tracefit.image.traceprofile`; its ``log10_nfa`` is a bound
+        on those sums, a different count). None otherwise.
 
     Examples
     --------
@@ -132,6 +137,7 @@ class BandFamily:
     log10_nfa: float = float("nan")
     sought_at: float | None = None
     sought_within_deg: float | None = None
+    sought_on: str | None = None
 
     @property
     def significance(self) -> float:
@@ -146,7 +152,7 @@ class BandFamily:
         with_lines : bool
             Add ``significance`` (``-log10_nfa``), ``spacing_sigma_px``, ``polarity``,
             ``contrast``, ``sought_at_deg`` (the predicted trace a family was looked for at,
-            None for the open search), ``sought_within_deg`` and the band ``lines``.
+            None for the open search), ``sought_within_deg``, ``sought_on`` and the band ``lines``.
 
         Returns
         -------
@@ -170,6 +176,7 @@ class BandFamily:
             d["lines"] = [ln.to_dict() for ln in self.lines]
             d["sought_at_deg"] = None if self.sought_at is None else round(float(self.sought_at), 4)
             d["sought_within_deg"] = None if self.sought_within_deg is None else float(self.sought_within_deg)
+            d["sought_on"] = self.sought_on
         return d
 
 

@@ -369,6 +369,7 @@ def _build(ctx, sums: _LineSums, angle: float, peaks, trace: float, level: float
     fam, strict = built
     fam.sought_at = float(trace)
     fam.sought_within_deg = GUIDED_TOL_DEG
+    fam.sought_on = "line sums"
     return fam, strict
 
 

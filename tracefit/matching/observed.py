@@ -50,6 +50,9 @@ class ObservedFamily:
     sought_at_deg : float or None
         Centre of that window (the predicted trace a guided family was looked for at), degrees;
         needed when ``search_width_deg`` is under 180.
+    sought_on : str or None
+        For a guided family, what the detector judged it on (``"ridge pixels"`` or ``"line
+        sums"``, :attr:`tracefit.image.BandFamily.sought_on`); named in its notes.
 
     Raises
     ------
@@ -74,6 +77,7 @@ class ObservedFamily:
     boundary_continuation: float | None = None
     search_width_deg: float = 180.0
     sought_at_deg: float | None = None
+    sought_on: str | None = None
 
     def __post_init__(self):
         a = real_number(self.angle_deg, "angle_deg", finite=False)
@@ -92,6 +96,8 @@ class ObservedFamily:
             self.sought_at_deg = fold_axial(c)
         elif w < 180.0:
             raise TracefitInputError("a family with a search width under 180 deg needs sought_at_deg (the window's centre)")
+        if self.sought_on is not None and not isinstance(self.sought_on, str):
+            raise TracefitInputError(f"a family's sought_on must be text or None, got {self.sought_on!r}")
         self.angle_deg = fold_axial(a)
         self.angle_sigma_deg = s
         self.search_width_deg = w
@@ -145,6 +151,7 @@ def observed_from_detection(result: Any, grain: Any = None, min_sigma_deg: float
                 strength=getattr(f, "strength", None),
                 search_width_deg=180.0 if within is None else min(2.0 * float(within), 180.0),
                 sought_at_deg=float(f.sought_at) if guided else None,
+                sought_on=getattr(f, "sought_on", None) if guided else None,
             )
         )
     return out

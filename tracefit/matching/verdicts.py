@@ -189,6 +189,8 @@ def family_verdict(o: ObservedFamily, f: int, gp: GrainPosterior, g: np.ndarray,
         r.notes.append(
             f"looked for only within {o.search_width_deg / 2:g} deg of the predicted trace at {o.sought_at_deg:.2f} deg "
             "(a guided search): its nearness to that trace is no evidence, and p_none is weighed per trace searched"
+            + ("; found on line sums of the band response, its significance a bound on those sums (not the "
+               "ridge-pixel count of other families)" if getattr(o, "sought_on", None) == "line sums" else "")
         )
     r.artefact_angle_deg = None if art_angle is None or pa < threshold else float(art_angle)
     r.nearest = _nearest(gp, f)
