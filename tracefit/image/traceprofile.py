@@ -171,8 +171,7 @@ def _log10_nfa(score: float, n_lines: int, n_tests: int) -> float:
 
     if n_lines < TOP_LINES:
         return math.inf  # no way to choose the peaks: nothing to report
-
-    ways = (gammaln(n_lines + 1) - gammaln(TOP_LINES + 1) - gammaln(max(n_lines - TOP_LINES, 0) + 1)) / math.log(10)
+    ways = (gammaln(n_lines + 1) - gammaln(TOP_LINES + 1) - gammaln(n_lines - TOP_LINES + 1)) / math.log(10)
     return float(math.log10(max(n_tests, 1)) + ways + norm.logsf(score / math.sqrt(TOP_LINES)) / math.log(10))
 
 
@@ -200,7 +199,7 @@ def _best_near(sums: _LineSums, trace: float):
 
 
 def _profile_families(ctx, wc, polarity: int, known: Sequence[BandFamily], traces: Sequence[float], need: float,
-                      max_new: int, up: int = 1, max_spacing_share: float = 0.3) -> tuple[list[BandFamily], int]:
+                      max_new: int, up: int, max_spacing_share: float) -> tuple[list[BandFamily], int]:
     """Stage 6d: families at the predicted traces that stages 6b and 6c left, from line sums of the band response.
 
     Parameters
@@ -318,18 +317,21 @@ def _refined_angle(sums: _LineSums, angle: float, centres: np.ndarray):
 
     grid = angle + np.arange(-REFINE_SPAN_DEG, REFINE_SPAN_DEG + 1e-9, REFINE_STEP_DEG)
     width = HALF_POINTS * sums.unit
-    per_band = np.zeros((len(grid), len(centres)))
+    # each band's length (points) along the starting direction, for the uncertainty's floor
+    d, n = _direction_and_normal(float(grid[len(grid) // 2]))
     length = np.zeros(len(centres))
+    for b, (cx, cy) in enumerate(centres):
+        near = np.abs((sums.x - cx) * n[0] + (sums.y - cy) * n[1]) <= width
+        if near.any():
+            length[b] = float(np.ptp((sums.x[near] - cx) * d[0] + (sums.y[near] - cy) * d[1])) / sums.unit
+    per_band = np.zeros((len(grid), len(centres)))
     for i, a in enumerate(grid):
-        d, n = _direction_and_normal(float(a))
+        _, n = _direction_and_normal(float(a))
         resp = sums.response(float(a))
         for b, (cx, cy) in enumerate(centres):
             across = (sums.x - cx) * n[0] + (sums.y - cy) * n[1]
             near = np.abs(across) <= width
             per_band[i, b] = float(np.sum(resp[near] * np.exp(-0.5 * (across[near] / (0.5 * width)) ** 2)))
-            if i == len(grid) // 2 and near.any():
-                along = (sums.x[near] - cx) * d[0] + (sums.y[near] - cy) * d[1]
-                length[b] = float(np.ptp(along)) / sums.unit
     total = per_band.sum(axis=1)
     k = int(np.argmax(total))
     if k in (0, len(grid) - 1):
