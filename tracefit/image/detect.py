@@ -88,7 +88,7 @@ from tracefit.image.projection import (
 from tracefit.image.ridges import _pixel_noise, flatten_background, ridge_pixels
 from tracefit.image.traceprofile import PROFILE_SHARE, _profile_families
 from tracefit.image.sampling import NATIVE, Oversampling, _resolved
-from tracefit.image.search import SAME_FAMILY_DEG, _distinct_families, _search_rounds, _SearchContext, _without_bands
+from tracefit.image.search import _distinct_families, _repeats, _search_rounds, _SearchContext, _without_bands
 from tracefit.image.significance import family_log10_nfa
 
 __all__ = ["BandLine", "BandFamily", "DetectionResult", "detect_bands"]
@@ -395,8 +395,8 @@ def _with_coarser_looks(out: _Outcome, img, m, bars, st: _Settings) -> _Outcome:
 
     Bands several pixels wide (an enlarged picture, wide twin lamellae) outgrow the ridge
     filters and the sharpness tests of the full-resolution fits; on a copy reduced to
-    their width they are thin again. Families within ``SAME_FAMILY_DEG`` of one already
-    found are not added.
+    their width they are thin again. Families that repeat one already found (within
+    ``SAME_FAMILY_DEG``, or on the same bands) are not added.
     """
     if len(out.families) >= min(2, st.max_families):
         return out
@@ -406,8 +406,7 @@ def _with_coarser_looks(out: _Outcome, img, m, bars, st: _Settings) -> _Outcome:
             break
         box = (slice(0, h), slice(0, w))
         more = _rescaled_outcome(img, m, bars, st, 1, box, down=down)
-        new = [fm for fm in more.families
-               if not any(abs(axial_difference(fm.angle_deg, g.angle_deg)) < SAME_FAMILY_DEG for g in out.families)]
+        new = [fm for fm in more.families if not _repeats(fm, out.families)]
         if new:
             fams = sorted(out.families + new, key=lambda fm: -fm.strength)[: st.max_families]
             out = _Outcome(fams, "found", _summary_note(fams), out.notes + more.notes[:1])

@@ -36,6 +36,7 @@ MERGE_PX = 2.5  # Hough lines closer than this (working px) are one band
 MAX_RMS_PX = 1.0  # a band's centres scatter less than this about its line
 MAX_SPACING_CV = 0.75  # coefficient of variation of a family's band spacings
 MAX_ANGLE_SIGMA_DEG = 1.0  # a family whose angle is less certain is no family
+FAN_MAX_DEG = 5.0  # bands whose angle turns steadily by more than this across the family are not parallel
 
 
 @dataclass
@@ -193,6 +194,24 @@ def _family_angle(fits, fallback_deg, min_bands):
     return fits, angle, angle_sigma
 
 
+def _fans_out(fits, normal) -> bool:
+    """True when the bands' angles turn steadily across the family, by more than ``FAN_MAX_DEG``.
+
+    The traces of one plane on a flat section seen head-on are parallel (common practice, no
+    source); lines whose angle changes steadily with their offset converge on a point, as
+    ruled lines on a page seen at an angle do. Judged with at least four bands (with three a
+    steady turn comes by chance one time in three): ordered across the family their angles
+    must rise (or fall) from each band to the next, by more than ``FAN_MAX_DEG`` in all.
+    Scatter about a common angle (curved or wavy bands) is not a steady turn.
+    """
+    if len(fits) < 4:
+        return False
+    order = np.argsort([ft.point @ normal for ft in fits])
+    ang = np.array([fits[i].angle for i in order])
+    steps = np.asarray(axial_difference(ang[1:], ang[:-1]))
+    return bool((np.all(steps > 0) or np.all(steps < 0)) and abs(float(np.sum(steps))) > FAN_MAX_DEG)
+
+
 def _family_spacing(fits, normal, max_spacing_cv=MAX_SPACING_CV, check_gaps=True):
     """Mean spacing and its standard deviation (full-resolution px), or None when irregular.
 
@@ -255,6 +274,8 @@ def _build_family(ctx: _FamilyContext, rp: RidgePixels, lines):
     fits, angle, angle_sigma = angle_fit
     strict = len(fits) >= ctx.min_bands
     _, n_f = _direction_and_normal(angle)
+    if _fans_out(fits, n_f):
+        return None
     spacing_fit = _family_spacing(fits, n_f)
     if spacing_fit is None:
         if not ctx.relaxed:

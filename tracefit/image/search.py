@@ -43,6 +43,9 @@ from tracefit.image.ridges import RidgePixels
 SEARCH_ROUNDS = 2  # searches for further families after taking out the bands found
 MAX_RESEARCH_PX = 600_000  # ... in regions of at most this many working pixels
 SAME_FAMILY_DEG = 2.0  # families closer than this are one
+SAME_BAND_DEG = 10.0  # two bands within this angle ...
+SAME_BAND_SHARE = 0.25  # ... whose lines lie within this share of the smaller family spacing ...
+SAME_BAND_MIN_PX = 2.0  # ... (or this many pixels) of each other are one band
 
 
 @dataclass
@@ -135,17 +138,54 @@ def _fit_candidates(try_candidate, cands, max_families, known=()) -> tuple[list[
     return fams, attempts
 
 
+def _on_same_bands(fam: BandFamily, other: BandFamily) -> bool:
+    """True when at least half of ``fam``'s bands (two or more) lie on bands of ``other``.
+
+    Such a family is ``other`` seen again at a nearby angle: lines that fan out a little
+    (a picture taken in perspective, curved bands) give fits a few degrees apart from the
+    same bands, which the angle alone does not tell apart. A band lies on another when its
+    midpoint is within ``SAME_BAND_SHARE`` of the smaller spacing (at least
+    ``SAME_BAND_MIN_PX``) of that band's line, inside its length, and their angles differ
+    by less than ``SAME_BAND_DEG``.
+    """
+    if not fam.lines or not other.lines:
+        return False
+    tol = max(SAME_BAND_MIN_PX, SAME_BAND_SHARE * min(fam.spacing_px, other.spacing_px))
+    shared = 0
+    for ln in fam.lines:
+        mid = np.array([0.5 * (ln.col0 + ln.col1), 0.5 * (ln.row0 + ln.row1)])
+        for o in other.lines:
+            if abs(axial_difference(ln.angle_deg, o.angle_deg)) >= SAME_BAND_DEG:
+                continue
+            p0, d = np.array([o.col0, o.row0]), np.array([o.col1 - o.col0, o.row1 - o.row0])
+            length = float(np.hypot(*d))
+            if length <= 0:
+                continue
+            along = float((mid - p0) @ d) / length
+            across = abs(float((mid - p0) @ np.array([-d[1], d[0]]))) / length
+            if across <= tol and -tol <= along <= length + tol:
+                shared += 1
+                break
+    return shared >= 2 and 2 * shared >= len(fam.lines)
+
+
+def _repeats(fam: BandFamily, kept: Sequence[BandFamily]) -> bool:
+    """True when ``fam`` is one of ``kept`` again: within ``SAME_FAMILY_DEG`` of it, or on the same bands."""
+    return any(abs(axial_difference(fam.angle_deg, g.angle_deg)) < SAME_FAMILY_DEG or _on_same_bands(fam, g)
+               for g in kept)
+
+
 def _distinct_families(fams: list[BandFamily]) -> list[BandFamily]:
-    """Stage 7: one family per angle, strongest first.
+    """Stage 7: one family per angle and per set of bands, strongest first.
 
     Dark and bright "families" at one angle are the bands and the gaps between them; the
-    bands stand further from the median grey than the gaps do.
+    bands stand further from the median grey than the gaps do. A family on the same bands
+    as a stronger one a few degrees away is that family again (:func:`_on_same_bands`).
     """
     final: list[BandFamily] = []
     for fm in sorted(fams, key=lambda fm: -abs(fm.contrast)):
-        if any(abs(axial_difference(fm.angle_deg, g.angle_deg)) < SAME_FAMILY_DEG for g in final):
-            continue
-        final.append(fm)
+        if not _repeats(fm, final):
+            final.append(fm)
     final.sort(key=lambda fm: -fm.strength)
     return final
 
