@@ -134,6 +134,7 @@ def main(argv=None) -> int:
     summary = []  # (image, variant, n_measured, n_found, n_spurious, n_reported)
     region_rows = []  # (family id, confidence, angle, found, spurious, detected)
     neg_rows = []  # (image, region, n_reported)
+    second_rows = []  # (family id, first reading, second reading length-weighted, plain mean, detected)
 
     for im in [i for i in ref["image"] if args.only in (None, i["id"])]:
         path = root / im["file"]
@@ -178,6 +179,8 @@ def main(argv=None) -> int:
             if angles is None or (not angles and note):
                 print(f"  {'':>14}  detector note: {note}")
             region_rows.append((f["id"], f["confidence"], f["angle_deg"], ok, len(spur), angles))
+            if "second_angle_deg" in f:
+                second_rows.append((f["id"], f["angle_deg"], f["second_angle_deg"], f["second_mean_deg"], angles or []))
 
         for neg in [n for n in negatives if n["image"] == im["id"]]:
             full = list(neg["region"]) == [0, 0, gray.shape[1], gray.shape[0]]
@@ -206,9 +209,26 @@ def main(argv=None) -> int:
     if region_rows:
         print(f"all    families: found {k}/{len(region_rows)} (recall {k / len(region_rows):.2f}), spurious families {sum(r[4] for r in region_rows)}")
     print(f"negative regions: {sum(1 for r in neg_rows if r[2] == 0)}/{len(neg_rows)} with 0 families; families reported on negatives: {sum(r[2] for r in neg_rows)}")
+    if second_rows:
+        second_reading_summary(second_rows, tol)
     if args.only is None:
         skimage_negatives(detect_bands)
     return 0
+
+
+def second_reading_summary(rows, tol: float) -> None:
+    """Regions measured twice (a second observer, blind): the readings' difference and recall against each."""
+    print(f"\n=== regions read twice (second reading blind to the first and to the detector; see the TOML header)")
+    print(f"{'family':<7} {'first':>6} {'second':>7} {'(mean)':>7} {'differ':>7}  detected")
+    hits = [0, 0, 0]
+    for fid, first, second, plain, det in rows:
+        print(f"{fid:<7} {first:>6.1f} {second:>7.1f} {plain:>7.1f} {axial_diff(first, second):>7.1f}  {fmt_angles(det)}")
+        for k, ref in enumerate((first, second, plain)):
+            hits[k] += any(axial_diff(a, ref) <= tol for a in det)
+    diffs = sorted(axial_diff(r[1], r[2]) for r in rows)
+    print(f"readings differ by a median {float(np.median(diffs)):.1f} deg (largest {diffs[-1]:.1f}); found within "
+          f"{tol:g} deg of the first reading {hits[0]}/{len(rows)}, of the second {hits[1]}/{len(rows)} "
+          f"(of its plain mean {hits[2]}/{len(rows)})")
 
 
 SKIMAGE_NEGATIVES = ("grass", "gravel", "clock", "camera", "moon", "cell", "text", "page")
