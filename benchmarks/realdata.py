@@ -220,15 +220,17 @@ def second_reading_summary(rows, tol: float) -> None:
     """Regions measured twice (a second observer, blind): the readings' difference and recall against each."""
     print(f"\n=== regions read twice (second reading blind to the first and to the detector; see the TOML header)")
     print(f"{'family':<7} {'first':>6} {'second':>7} {'(mean)':>7} {'differ':>7}  detected")
-    hits = [0, 0, 0]
+    hits, unmatched = [0, 0, 0], [0, 0, 0]
     for fid, first, second, plain, det in rows:
         print(f"{fid:<7} {first:>6.1f} {second:>7.1f} {plain:>7.1f} {axial_diff(first, second):>7.1f}  {fmt_angles(det)}")
         for k, ref in enumerate((first, second, plain)):
             hits[k] += any(axial_diff(a, ref) <= tol for a in det)
+            unmatched[k] += sum(axial_diff(a, ref) > tol for a in det)  # this region's family only
     diffs = sorted(axial_diff(r[1], r[2]) for r in rows)
     print(f"readings differ by a median {float(np.median(diffs)):.1f} deg (largest {diffs[-1]:.1f}); found within "
           f"{tol:g} deg of the first reading {hits[0]}/{len(rows)}, of the second {hits[1]}/{len(rows)} "
-          f"(of its plain mean {hits[2]}/{len(rows)})")
+          f"(of its plain mean {hits[2]}/{len(rows)}); families matching no reading of their region: "
+          f"{unmatched[0]} / {unmatched[1]} / {unmatched[2]}")
 
 
 SKIMAGE_NEGATIVES = ("grass", "gravel", "clock", "camera", "moon", "cell", "text", "page")

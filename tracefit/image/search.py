@@ -17,6 +17,7 @@ content of the pixels they read, so the rounds give what they gave without it.
 from __future__ import annotations
 
 import copy
+import math
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 
@@ -37,14 +38,15 @@ from tracefit.image.hough import (
     _vote_mean_angle,
 )
 from tracefit.image.prepare import _WorkingCopy
-from tracefit.image.results import BandFamily
+from tracefit.image.results import BandFamily, BandLine
 from tracefit.image.ridges import RidgePixels
 
 SEARCH_ROUNDS = 2  # searches for further families after taking out the bands found
 MAX_RESEARCH_PX = 600_000  # ... in regions of at most this many working pixels
 SAME_FAMILY_DEG = 2.0  # families closer than this are one
-SAME_BAND_DEG = 10.0  # two bands within this angle ...
-SAME_BAND_SHARE = 0.25  # ... whose lines lie within this share of the smaller family spacing ...
+SAME_BAND_MIN_DEG = 1.0  # two band lines whose angles agree within this (or SAME_BAND_SIGMAS of their uncertainty) ...
+SAME_BAND_SIGMAS = 2.0
+SAME_BAND_SHARE = 0.25  # ... and lie, end to end, within this share of the smaller family spacing ...
 SAME_BAND_MIN_PX = 2.0  # ... (or this many pixels) of each other are one band
 
 
@@ -139,38 +141,57 @@ def _fit_candidates(try_candidate, cands, max_families, known=()) -> tuple[list[
 
 
 def _on_same_bands(fam: BandFamily, other: BandFamily) -> bool:
-    """True when at least half of ``fam``'s bands (two or more) lie on bands of ``other``.
+    """True when at least half of ``fam``'s bands (two or more) are bands of ``other`` again.
 
     Such a family is ``other`` seen again at a nearby angle: lines that fan out a little
     (a picture taken in perspective, curved bands) give fits a few degrees apart from the
-    same bands, which the angle alone does not tell apart. A band lies on another when its
-    midpoint is within ``SAME_BAND_SHARE`` of the smaller spacing (at least
-    ``SAME_BAND_MIN_PX``) of that band's line, inside its length, and their angles differ
-    by less than ``SAME_BAND_DEG``.
+    same bands, which the family angle alone does not tell apart. Two band lines are one
+    band (:func:`_same_band`) when their angles agree within their uncertainties and the
+    shorter lies, end to end, within ``SAME_BAND_SHARE`` of the smaller family spacing (at
+    least ``SAME_BAND_MIN_PX``) of the longer one's line; each band of ``other`` stands for
+    one band of ``fam`` only.
     """
     if not fam.lines or not other.lines:
         return False
     tol = max(SAME_BAND_MIN_PX, SAME_BAND_SHARE * min(fam.spacing_px, other.spacing_px))
+    free = list(other.lines)
     shared = 0
     for ln in fam.lines:
-        mid = np.array([0.5 * (ln.col0 + ln.col1), 0.5 * (ln.row0 + ln.row1)])
-        for o in other.lines:
-            if abs(axial_difference(ln.angle_deg, o.angle_deg)) >= SAME_BAND_DEG:
-                continue
-            p0, d = np.array([o.col0, o.row0]), np.array([o.col1 - o.col0, o.row1 - o.row0])
-            length = float(np.hypot(*d))
-            if length <= 0:
-                continue
-            along = float((mid - p0) @ d) / length
-            across = abs(float((mid - p0) @ np.array([-d[1], d[0]]))) / length
-            if across <= tol and -tol <= along <= length + tol:
-                shared += 1
-                break
+        k = next((k for k, o in enumerate(free) if _same_band(ln, o, tol)), None)
+        if k is not None:
+            free.pop(k)
+            shared += 1
     return shared >= 2 and 2 * shared >= len(fam.lines)
 
 
+def _same_band(a: BandLine, b: BandLine, tol: float) -> bool:
+    """True when band lines ``a`` and ``b`` are one band (see :func:`_on_same_bands`); pixels (col, row)."""
+    sa, sb = (math.hypot(*_parts(x)[1]) for x in (a, b))
+    if min(sa, sb) <= 0:
+        return False
+    sigmas = [x.angle_sigma_deg for x in (a, b)]
+    spread = math.hypot(*sigmas) if all(map(math.isfinite, sigmas)) else 0.0
+    if abs(axial_difference(a.angle_deg, b.angle_deg)) > max(SAME_BAND_MIN_DEG, SAME_BAND_SIGMAS * spread):
+        return False
+    short, long_ = (a, b) if sa <= sb else (b, a)
+    p0, d = _parts(long_)
+    length = float(np.hypot(*d))
+    for end in ((short.col0, short.row0), (short.col1, short.row1)):
+        rel = np.asarray(end) - p0
+        along = float(rel @ d) / length
+        across = abs(float(rel[0] * d[1] - rel[1] * d[0])) / length
+        if across > tol or not -tol <= along <= length + tol:
+            return False
+    return True
+
+
+def _parts(ln: BandLine) -> tuple[np.ndarray, np.ndarray]:
+    """(first end, end-to-end vector) of a band line, pixels (col, row)."""
+    return np.array([ln.col0, ln.row0]), np.array([ln.col1 - ln.col0, ln.row1 - ln.row0])
+
+
 def _repeats(fam: BandFamily, kept: Sequence[BandFamily]) -> bool:
-    """True when ``fam`` is one of ``kept`` again: within ``SAME_FAMILY_DEG`` of it, or on the same bands."""
+    """True when ``fam`` is one of ``kept`` again: within ``SAME_FAMILY_DEG``, or on its bands (``_on_same_bands``)."""
     return any(abs(axial_difference(fam.angle_deg, g.angle_deg)) < SAME_FAMILY_DEG or _on_same_bands(fam, g)
                for g in kept)
 
@@ -179,8 +200,8 @@ def _distinct_families(fams: list[BandFamily]) -> list[BandFamily]:
     """Stage 7: one family per angle and per set of bands, strongest first.
 
     Dark and bright "families" at one angle are the bands and the gaps between them; the
-    bands stand further from the median grey than the gaps do. A family on the same bands
-    as a stronger one a few degrees away is that family again (:func:`_on_same_bands`).
+    bands stand further from the median grey than the gaps do: families are taken in order
+    of contrast, and one that repeats a family taken before it (:func:`_repeats`) is left out.
     """
     final: list[BandFamily] = []
     for fm in sorted(fams, key=lambda fm: -abs(fm.contrast)):
