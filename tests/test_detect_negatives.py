@@ -10,7 +10,6 @@ measured is in its header; ``benchmarks/realdata.md`` has the figures).
 
 from __future__ import annotations
 
-import os
 import tomllib
 from pathlib import Path
 from types import SimpleNamespace
@@ -20,13 +19,13 @@ import pytest
 from skimage import data
 
 from tracefit.conventions import axial_difference
-from tracefit.image import detect_bands, read_image
+from tests.realdata import real_image
+from tracefit.image import detect_bands
 from tracefit.image.families import FAN_MAX_DEG, _fans_out
 from tracefit.image.results import BandFamily, BandLine
 from tracefit.image.search import _distinct_families
 
 REPO = Path(__file__).resolve().parents[1]
-REAL = Path(os.environ.get("TRACEFIT_REALDATA", REPO.parent / "shared" / "realdata"))
 REFERENCE = REPO / "benchmarks" / "realdata_reference.toml"
 
 
@@ -51,15 +50,9 @@ REAL_NEGATIVES = [  # (file under ../shared/realdata, origin and licence, what i
 ]
 
 
-def _real(name: str, origin: str) -> np.ndarray:
-    if not (REAL / name).is_file():
-        pytest.skip(f"real image {name} ({origin}) not available")
-    return read_image(str(REAL / name))[0]
-
-
 @pytest.mark.parametrize("name, origin, shows", REAL_NEGATIVES, ids=["zircaloy", "in718"])
 def test_real_negatives_give_no_family(name, origin, shows):
-    assert detect_bands(_real(name, origin)).families == []
+    assert detect_bands(real_image(name, origin)).families == []
 
 
 def test_hand_measured_real_regions():
@@ -75,7 +68,7 @@ def test_hand_measured_real_regions():
         negs = [n for n in ref.get("negative", []) if n["image"] == im["id"]]
         if not fams and not negs:
             continue
-        img = _real(im["file"], f"{im['origin']}, {im['licence']}")
+        img = real_image(im["file"], f"{im['origin']}, {im['licence']}")
 
         def angles(region):
             c0, r0, c1, r1 = region

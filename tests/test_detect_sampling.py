@@ -326,14 +326,8 @@ REAL_IMAGES = [  # (file under ../shared/realdata, origin and licence)
 def test_real_micrographs_are_not_taken_as_enlarged(name, origin):
     # real optical and backscatter images at their instruments' own sampling (origins beside
     # each); skipped where the folder of real images is absent
-    import os
-    from pathlib import Path
+    from tests.realdata import real_image
 
-    from tracefit.image import read_image
-
-    root = Path(os.environ.get("TRACEFIT_REALDATA", Path(__file__).resolve().parents[2] / "shared" / "realdata"))
-    if not (root / name).is_file():
-        pytest.skip(f"real image {name} ({origin}) not available")
-    img, _ = read_image(str(root / name))
+    img = real_image(name, origin)
     assert estimate_oversampling(img).factor == 1
     assert estimate_oversampling(enlarge(img[:600, :600], 2, cv2.INTER_NEAREST)).factor == 2

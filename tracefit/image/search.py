@@ -166,16 +166,15 @@ def _on_same_bands(fam: BandFamily, other: BandFamily) -> bool:
 
 def _same_band(a: BandLine, b: BandLine, tol: float) -> bool:
     """True when band lines ``a`` and ``b`` are one band (see :func:`_on_same_bands`); pixels (col, row)."""
-    sa, sb = (math.hypot(*_parts(x)[1]) for x in (a, b))
-    if min(sa, sb) <= 0:
+    if min(a.length_px, b.length_px) <= 0:
         return False
     sigmas = [x.angle_sigma_deg for x in (a, b)]
     spread = math.hypot(*sigmas) if all(map(math.isfinite, sigmas)) else 0.0
     if abs(axial_difference(a.angle_deg, b.angle_deg)) > max(SAME_BAND_MIN_DEG, SAME_BAND_SIGMAS * spread):
         return False
-    short, long_ = (a, b) if sa <= sb else (b, a)
-    p0, d = _parts(long_)
-    length = float(np.hypot(*d))
+    short, long_ = (a, b) if a.length_px <= b.length_px else (b, a)
+    p0, d = np.array([long_.col0, long_.row0]), np.array([long_.col1 - long_.col0, long_.row1 - long_.row0])
+    length = long_.length_px
     for end in ((short.col0, short.row0), (short.col1, short.row1)):
         rel = np.asarray(end) - p0
         along = float(rel @ d) / length
@@ -183,11 +182,6 @@ def _same_band(a: BandLine, b: BandLine, tol: float) -> bool:
         if across > tol or not -tol <= along <= length + tol:
             return False
     return True
-
-
-def _parts(ln: BandLine) -> tuple[np.ndarray, np.ndarray]:
-    """(first end, end-to-end vector) of a band line, pixels (col, row)."""
-    return np.array([ln.col0, ln.row0]), np.array([ln.col1 - ln.col0, ln.row1 - ln.row0])
 
 
 def _repeats(fam: BandFamily, kept: Sequence[BandFamily]) -> bool:
