@@ -154,23 +154,36 @@ def _on_same_bands(fam: BandFamily, other: BandFamily) -> bool:
     if not fam.lines or not other.lines:
         return False
     tol = max(SAME_BAND_MIN_PX, SAME_BAND_SHARE * min(fam.spacing_px, other.spacing_px))
-    free = list(other.lines)
+    # the angle test for every pair at once (families of a hundred bands each: 10,000 pairs), the
+    # end-to-end test only for the pairs that pass it
+    a = np.array([[ln.angle_deg, ln.angle_sigma_deg] for ln in fam.lines], float)
+    b = np.array([[ln.angle_deg, ln.angle_sigma_deg] for ln in other.lines], float)
+    agree = _angles_agree(a[:, :1], a[:, 1:], b[:, 0], b[:, 1])  # (bands of fam, bands of other)
+    free = list(range(len(other.lines)))
     shared = 0
-    for ln in fam.lines:
-        k = next((k for k, o in enumerate(free) if _same_band(ln, o, tol)), None)
+    for i, ln in enumerate(fam.lines):
+        k = next((k for k, j in enumerate(free) if agree[i, j] and _same_band(ln, other.lines[j], tol)), None)
         if k is not None:
             free.pop(k)
             shared += 1
     return shared >= 2 and 2 * shared >= len(fam.lines)
 
 
+def _angles_agree(a_deg, a_sigma, b_deg, b_sigma):
+    """True where band angles agree within ``SAME_BAND_SIGMAS`` combined sigmas (at least ``SAME_BAND_MIN_DEG``).
+
+    A non-finite sigma counts as none. Scalars or arrays (broadcast together), degrees.
+    """
+    a_sigma, b_sigma = np.asarray(a_sigma, float), np.asarray(b_sigma, float)
+    spread = np.where(np.isfinite(a_sigma) & np.isfinite(b_sigma), np.hypot(a_sigma, b_sigma), 0.0)
+    return np.abs(axial_difference(a_deg, b_deg)) <= np.maximum(SAME_BAND_MIN_DEG, SAME_BAND_SIGMAS * spread)
+
+
 def _same_band(a: BandLine, b: BandLine, tol: float) -> bool:
     """True when band lines ``a`` and ``b`` are one band (see :func:`_on_same_bands`); pixels (col, row)."""
     if min(a.length_px, b.length_px) <= 0:
         return False
-    sigmas = [x.angle_sigma_deg for x in (a, b)]
-    spread = math.hypot(*sigmas) if all(map(math.isfinite, sigmas)) else 0.0
-    if abs(axial_difference(a.angle_deg, b.angle_deg)) > max(SAME_BAND_MIN_DEG, SAME_BAND_SIGMAS * spread):
+    if not _angles_agree(a.angle_deg, a.angle_sigma_deg, b.angle_deg, b.angle_sigma_deg):
         return False
     short, long_ = (a, b) if a.length_px <= b.length_px else (b, a)
     p0, d = np.array([long_.col0, long_.row0]), np.array([long_.col1 - long_.col0, long_.row1 - long_.row0])
