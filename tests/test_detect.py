@@ -88,6 +88,37 @@ def test_data_bar_found_and_excluded_scratches_not_families():
         assert max(ln.row0, ln.row1) < r0 + 2
 
 
+def test_a_data_bar_does_not_change_the_depth_of_the_bands():
+    # The bar's black text is the image's darkest percent; once it triggered the level shift meant
+    # for strain maps (background near zero), which halved every band's relative depth. The levels
+    # are judged on the analysed pixels, without the bar: the same bands, the same depth.
+    fams = [BandFamilySpec(30.3, 48, 5, -0.3), BandFamilySpec(100.7, 64, 6, 0.3)]
+    kw = dict(n_scratches=0, illumination=0.3, noise_sigma=0.03, blur_sigma=1.0, seed=2)  # a dark bar
+    plain, _ = render_micrograph((768, 768), fams, databar=False, **kw)
+    barred, truth = render_micrograph((768, 768), fams, databar=True, **kw)
+    assert np.percentile(barred, 1) < 0.1 * np.ptp(np.percentile(barred, [1, 99]))  # the bar is the darkest percent
+    depth = {}
+    for name, img in (("plain", plain), ("barred", barred)):
+        res = detect_bands(img)
+        assert not any("shifted" in n for n in res.notes)
+        depth[name] = {round(f.angle_deg): f.contrast for f in res.families}
+    assert set(depth["plain"]) == set(depth["barred"]) == {30, 101}
+    for a in (30, 101):
+        assert depth["barred"][a] == pytest.approx(depth["plain"][a], rel=0.15)
+    assert depth["plain"][30] < -0.1 and depth["plain"][101] > 0.1  # drawn 30 % deep, blurred
+
+
+def test_a_strain_map_with_its_background_near_zero_is_still_shifted():
+    from tracefit.image.prepare import _positive_levels
+
+    rng = np.random.default_rng(3)
+    strain = np.abs(rng.normal(0.01, 0.004, (200, 300))).astype(np.float32)  # background strain about 1 %
+    strain[:, ::25] += 0.08  # bright bands
+    notes = []
+    out = _positive_levels(strain, None, notes)
+    assert out.min() > np.ptp(np.percentile(strain, [1, 99])) * 0.9 and any("shifted" in n for n in notes)
+
+
 def test_no_bands_gives_empty_list_even_with_scratches():
     img, truth = render_micrograph((512, 512), [], n_scratches=3, noise_sigma=0.03, illumination=0.3, databar=True, seed=5)
     assert len(truth.scratches) == 3

@@ -52,3 +52,20 @@ def test_enlarged_demo_gives_the_same_families(originals, name, factor, interp):
     for a, b in zip(got, base):
         tol = 3.0 * math.hypot(a[1], b[1]) + 0.02
         assert abs(axial_difference(a[0], b[0])) <= tol, (a, b, tol)
+
+
+def test_a_larger_field_of_the_same_thin_bands_keeps_them():
+    # A larger image of the same bands (a montage, a higher-resolution camera) must not lose the thin
+    # ones to the working copy's reduction: it is reduced at most 3x whatever ``working_size`` asks.
+    # Bands 4-6 px wide (the 16-MP benchmark's, benchmarks/detect.py); asking a 256-px copy of a
+    # 1536-px image would reduce it 6x, which lost two of these three families.
+    from tracefit.image import BandFamilySpec, render_micrograph
+
+    fams = [BandFamilySpec(30.3, 48, 5, -0.3), BandFamilySpec(100.7, 64, 6, 0.3), BandFamilySpec(150.2, 40, 4, -0.25)]
+    img, truth = render_micrograph((1536, 1536), fams, n_scratches=0, illumination=0.3, noise_sigma=0.03, blur_sigma=1.0,
+                                   seed=7)
+    res = detect_bands(img, working_size=256)
+    assert any("(1/3)" in n for n in res.notes)
+    found = sorted(f.angle_deg for f in res.families)
+    assert len(found) == 3
+    assert all(abs(axial_difference(a, t)) <= 0.05 for a, t in zip(found, sorted(truth.family_angles)))

@@ -7,8 +7,8 @@ label image. The pipeline, one concern per stage and module:
    mask and the grain combined; instrument data bars (:mod:`~tracefit.image.databar`)
    excluded.
 2. **Working copy** (:mod:`~tracefit.image.prepare`): a copy reduced to at most
-   ``working_size`` px on a side, its mask, and the analysed region (the mask eroded by
-   the ridge filter's reach).
+   ``working_size`` px on a side (at most 3x), its mask, and the analysed region (the mask
+   eroded by the ridge filter's reach).
 3. **Band pixels** (:mod:`~tracefit.image.ridges`, :mod:`~tracefit.image.depth`): the
    background is flattened and oriented ridges enhanced with a multi-scale Hessian, dark
    and bright bands apart; ridge pixels on the wrong side of the local median grey (the
@@ -71,6 +71,7 @@ from tracefit.image.pergrain import _run_grains
 from tracefit.image.prepare import (
     _clear_boxes,
     _exclude_databars,
+    _positive_levels,
     _prepare_input,
     _reduction_factor,
     _working_copy,
@@ -466,7 +467,8 @@ def detect_bands(
         Most families reported (>= 1).
     working_size : int
         Longest side of the reduced copy used for ridge enhancement and Hough, pixels
-        (>= 16, and large enough that the copy keeps 16 pixels on its short side).
+        (>= 16, and large enough that the copy keeps 16 pixels on its short side); reduced
+        at most 3x (``prepare.MAX_REDUCTION``): bands 3 px wide stay resolved at any size.
     scales : sequence of float
         Hessian scales at working resolution, pixels (each > 0 and <= 64; about half the
         band widths looked for).
@@ -562,6 +564,7 @@ def detect_bands(
     bars = _exclude_databars(img, m, opts["find_bar"])  # stage 1
     res.excluded.extend(bars)
     res.notes.extend(b["note"] for b in bars)
+    img = _positive_levels(img, m, res.notes, bars)
     if m is not None:
         if not m.any():
             res.verdict, res.reason = "no_pixels", "no pixels left to analyse after masking; no bands reported"

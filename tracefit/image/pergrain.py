@@ -16,7 +16,8 @@ from scipy import ndimage
 
 from tracefit.errors import TracefitInputError
 from tracefit.image.options import DETECT_OPTIONS, check_detect_options
-from tracefit.image.prepare import MIN_SIDE_PX, _clear_boxes, _exclude_databars, _prepare_input, _working_size_problem
+from tracefit.image.prepare import (MIN_SIDE_PX, _clear_boxes, _exclude_databars, _positive_levels, _prepare_input,
+                                    _working_size_problem)
 from tracefit.image.projection import _checked_traces
 from tracefit.image.results import DetectionResult
 from tracefit.image.sampling import _resolved
@@ -128,6 +129,7 @@ def _run_grains(detect, image, labels, mask, pixel_size_um, path, min_pixels, gr
     ids = _grain_ids(lab, grains)
     h, w = img.shape
     bars = _exclude_databars(img, None, find_bar)
+    img = _positive_levels(img, m, [], bars)  # judged on the whole image without its bars; not noted per grain
     base = np.ones((h, w), bool) if m is None else m.copy()
     _clear_boxes(base, bars)
     # judged once on the whole image (a grain alone holds too few points), then stated to each grain;

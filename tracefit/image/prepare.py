@@ -3,6 +3,7 @@
 - :func:`_prepare_input` -- the image as 2-D float32 grey, checked (size, finite,
   contrast), with the user mask and the grain of a label image combined into one mask;
 - :func:`_exclude_databars` -- instrument data bars found and taken out of the mask;
+- :func:`_positive_levels` -- levels near zero (strain maps) shifted, judged without the bars;
 - :func:`_working_copy` -- a copy reduced by an integer factor to at most
   ``working_size`` px on a side (area averaging), its mask, and the region analysed
   for ridges (the mask eroded by the widest filter's reach).
@@ -24,6 +25,10 @@ from tracefit.image.databar import find_databar
 from tracefit.image.io import to_gray
 
 MIN_SIDE_PX = 16  # smallest image (and working copy) side that is analysed
+# Largest reduction of the working copy: a band 3 px wide stays a working pixel wide. Without it a
+# 64-MP image with the 16-MP benchmark's bands (4-6 px wide) was reduced 6x and lost two of its
+# three families; the coarser looks (detect.COARSER_LOOKS) still see wide bands reduced further.
+MAX_REDUCTION = 3
 
 
 def _size_text(shape) -> str:
@@ -81,17 +86,23 @@ def _as_grey(image):
     return img, holes
 
 
-def _positive_levels(img, m, notes):
+def _positive_levels(img, m, notes, bars=()):
     """Shift grey levels that reach zero or below up by their range (strain maps), in place of ``img``.
 
     The detector measures contrast relative to the local background level; a map whose
     background sits near zero (strain, height, difference images) has no such level.
     Adding the 1-99 % range keeps every contrast ratio finite; micrographs whose darkest
-    percent stays above a tenth of their range are left as they are.
+    percent stays above a tenth of their range are left as they are. The levels are judged
+    on the analysed pixels: the mask ``m`` without the data ``bars`` (boxes, see
+    :func:`_clear_boxes`), whose black text would otherwise pass for the image's darkest percent.
     """
-    sample = img[:: max(1, img.shape[0] // 512), :: max(1, img.shape[1] // 512)]
-    if m is not None:
-        ms = m[:: max(1, img.shape[0] // 512), :: max(1, img.shape[1] // 512)]
+    step_r, step_c = max(1, img.shape[0] // 512), max(1, img.shape[1] // 512)
+    sample = img[::step_r, ::step_c]
+    if m is not None or bars:
+        ms = np.ones(sample.shape, bool) if m is None else m[::step_r, ::step_c].copy()
+        for b in bars:
+            c0, r0, c1, r1 = b["bbox"]
+            ms[-(-r0 // step_r) : -(-r1 // step_r), -(-c0 // step_c) : -(-c1 // step_c)] = False
         sample = sample[ms] if ms.any() else sample
     p1, p99 = (float(v) for v in np.percentile(sample, [1, 99]))
     span = p99 - p1
@@ -122,7 +133,7 @@ def _prepare_input(image, mask, labels, grain, notes=None):
     grain : int or None
         With ``labels``: only this grain's pixels are analysed.
     notes : list of str, optional
-        What was done to the input (NaN masked, levels shifted) is appended here.
+        What was done to the input (NaN masked) is appended here.
 
     Returns
     -------
@@ -161,7 +172,6 @@ def _prepare_input(image, mask, labels, grain, notes=None):
     if holes is not None:
         notes.append(f"{int(holes.sum())} NaN pixels ({100 * holes.mean():.1f} %) masked")
         m = ~holes if m is None else (m & ~holes)
-    img = _positive_levels(img, m, notes)
     return img, m, (None if holes is None else ~holes)
 
 
@@ -181,9 +191,9 @@ def _exclude_databars(img, m, find_bar: bool):
 
 
 def _reduction_factor(shape, working_size: int) -> int:
-    """Integer factor that brings the longest side of ``shape`` to at most ``working_size``."""
+    """Integer factor that brings the longest side of ``shape`` to at most ``working_size``, at most ``MAX_REDUCTION``."""
     h, w = shape[:2]
-    return max(1, int(math.ceil(max(h, w) / working_size)))
+    return max(1, min(MAX_REDUCTION, int(math.ceil(max(h, w) / working_size))))
 
 
 def _working_size_problem(shape, working_size: int) -> str | None:
@@ -210,7 +220,7 @@ class _WorkingCopy:
 
 
 def _working_copy(img, m, bars, working_size: int, scales) -> _WorkingCopy:
-    """Reduce the image (and its mask) to at most ``working_size`` px on a side.
+    """Reduce the image (and its mask) to at most ``working_size`` px on a side, by at most ``MAX_REDUCTION``.
 
     Parameters
     ----------

@@ -160,11 +160,11 @@ def _effective_noise(derivs_one_scale, mask, sn):
     image) respond more than white noise of the pixel sigma ``sn``; bands respond little
     along their own direction. Never below ``sn``.
     """
-    sg, dxx, dyy, dxy, tr = derivs_one_scale
+    sg, dxx, dyy, dxy = derivs_one_scale
     step = max(1, int(math.sqrt(dxx.size / 60000)))
     sel = (slice(None, None, step), slice(None, None, step))
     keep = None if mask is None else mask[sel]
-    half = 0.5 * tr[sel]
+    half = 0.5 * (dxx[sel] + dyy[sel])
     spreads = []
     for k, comp in enumerate((dxx[sel], dyy[sel], half - dxy[sel], half + dxy[sel])):
         if keep is not None:
@@ -351,10 +351,11 @@ def _thin_across(resp, mask, oc, orow):
 def _sector_response(derivs, c, s_, sn, k_noise):
     """Best response over the scales per polarity for bands with unit normal (c, s_), in threshold units."""
     best = {-1: None, 1: None}
-    for sg, dxx, dyy, dxy, tr in derivs:
-        # curvature across the band, and |along| = |trace - across| (trace is invariant)
+    for sg, dxx, dyy, dxy in derivs:
+        # curvature across the band and the magnitude of the curvature along it (no trace array kept: memory)
         dnn = cv2.scaleAdd(dxy, float(2 * c * s_), cv2.addWeighted(dxx, float(c * c), dyy, float(s_ * s_), 0.0))
-        dtt = cv2.absdiff(tr, dnn)
+        dtt = cv2.scaleAdd(dxy, float(-2 * c * s_), cv2.addWeighted(dxx, float(s_ * s_), dyy, float(c * c), 0.0))
+        cv2.absdiff(dtt, 0.0, dst=dtt)
         norm = float(sg * sg / (k_noise * sn[sg] * _white_noise_level(sg)))
         for pol in (-1, 1):
             resp = cv2.addWeighted(dnn, -pol * norm, dtt, -norm, 0.0)
@@ -410,7 +411,7 @@ def ridge_pixels(flat: np.ndarray, mask: np.ndarray | None, sector_deg: float = 
     derivs = []
     for sg in scales:
         dxx, dyy, dxy = _hessian(flat, sg)
-        derivs.append((sg, dxx, dyy, dxy, cv2.add(dxx, dyy)))
+        derivs.append((sg, dxx, dyy, dxy))
     # per-scale noise: the pixel sigma, or more where the image's own response says so
     sn = {d[0]: _effective_noise(d, mask, sn) for d in derivs}
     n_sec = int(round(180.0 / sector_deg))
