@@ -98,25 +98,61 @@ def test_a_data_bar_does_not_change_the_depth_of_the_bands():
     barred, truth = render_micrograph((768, 768), fams, databar=True, **kw)
     assert np.percentile(barred, 1) < 0.1 * np.ptp(np.percentile(barred, [1, 99]))  # the bar is the darkest percent
     depth = {}
+    one_grain = np.ones(plain.shape, np.int32)
     for name, img in (("plain", plain), ("barred", barred)):
-        res = detect_bands(img)
-        assert not any("shifted" in n for n in res.notes)
-        depth[name] = {round(f.angle_deg): f.contrast for f in res.families}
-    assert set(depth["plain"]) == set(depth["barred"]) == {30, 101}
-    for a in (30, 101):
-        assert depth["barred"][a] == pytest.approx(depth["plain"][a], rel=0.15)
-    assert depth["plain"][30] < -0.1 and depth["plain"][101] > 0.1  # drawn 30 % deep, blurred
+        # the image alone, and as the one grain of a label image (detect_grains finds the bar once, on the whole image)
+        for entry, res in (("image", detect_bands(img)), ("grains", detect_grains(img, one_grain)[1])):
+            assert not any("shifted" in n for n in res.notes)
+            depth[name, entry] = {round(f.angle_deg): f.contrast for f in res.families}
+    for entry in ("image", "grains"):
+        assert set(depth["plain", entry]) == set(depth["barred", entry]) == {30, 101}
+        for a in (30, 101):
+            assert depth["barred", entry][a] == pytest.approx(depth["plain", entry][a], rel=0.15)
+        assert depth["plain", entry][30] < -0.1 and depth["plain", entry][101] > 0.1  # drawn 30 % deep, blurred
 
 
 def test_a_strain_map_with_its_background_near_zero_is_still_shifted():
+    # relative depth (I - B) / B needs a background level B away from zero: a strain map's levels are
+    # raised by their range, by every entry point, and said so
     from tracefit.image.prepare import _positive_levels
 
     rng = np.random.default_rng(3)
     strain = np.abs(rng.normal(0.01, 0.004, (200, 300))).astype(np.float32)  # background strain about 1 %
-    strain[:, ::25] += 0.08  # bright bands
+    strain[:, ::25] += 0.08  # bright bands, vertical
     notes = []
     out = _positive_levels(strain, None, notes)
     assert out.min() > np.ptp(np.percentile(strain, [1, 99])) * 0.9 and any("shifted" in n for n in notes)
+    labels = np.ones(strain.shape, np.int32)
+    labels[:, 150:] = 2
+    results = [detect_bands(strain)] + list(detect_grains(strain, labels).values())
+    for res in results:
+        assert any("shifted" in n for n in res.notes)
+        assert [round(f.angle_deg) for f in res.families] == [90]
+        assert res.families[0].contrast < 1.0  # against the raised background; about 3 without the shift
+    # judged once for the whole map: a band-free grain whose own levels sit far from zero is shifted with the rest
+    quiet = strain.copy()
+    quiet[:, 150:] = rng.normal(0.01, 0.0005, (200, 150))
+    alone = []
+    _positive_levels(quiet[:, 150:], None, alone)
+    assert not alone  # alone it would not be shifted
+    assert all(any("shifted" in n for n in r.notes) for r in detect_grains(quiet, labels).values())
+
+
+def test_the_level_sample_leaves_out_exactly_the_bar_boxes():
+    from tracefit.image.prepare import _sampled_mask
+
+    rng = np.random.default_rng(11)
+    for shape in [(1030, 2050), (1537, 1100), (2049, 513), (700, 700)]:
+        for _ in range(20):
+            r0, c0 = (int(rng.integers(0, n - 1)) for n in shape)
+            r1, c1 = int(rng.integers(r0 + 1, shape[0] + 1)), int(rng.integers(c0 + 1, shape[1] + 1))
+            mask = rng.random(shape) > 0.1
+            for m in (None, mask):
+                (sr, sc), got = _sampled_mask(shape, m, [{"bbox": [c0, r0, c1, r1]}])
+                full = np.ones(shape, bool) if m is None else m.copy()
+                full[r0:r1, c0:c1] = False
+                np.testing.assert_array_equal(got, full[::sr, ::sc])
+    assert _sampled_mask((600, 600), None, [])[1] is None
 
 
 def test_no_bands_gives_empty_list_even_with_scratches():

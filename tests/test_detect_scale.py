@@ -58,7 +58,7 @@ def test_a_larger_field_of_the_same_thin_bands_keeps_them():
     # A larger image of the same bands (a montage, a higher-resolution camera) must not lose the thin
     # ones to the working copy's reduction: it is reduced at most 3x whatever ``working_size`` asks.
     # Bands 4-6 px wide (the 16-MP benchmark's, benchmarks/detect.py); asking a 256-px copy of a
-    # 1536-px image would reduce it 6x, which lost two of these three families.
+    # 1536-px image would reduce it 6x, which lost the family of 4-px bands.
     from tracefit.image import BandFamilySpec, render_micrograph
 
     fams = [BandFamilySpec(30.3, 48, 5, -0.3), BandFamilySpec(100.7, 64, 6, 0.3), BandFamilySpec(150.2, 40, 4, -0.25)]

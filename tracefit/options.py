@@ -193,7 +193,7 @@ OPTIONS: tuple[Option, ...] = (
     Option("find_bar", "detect", "bool", True, "look for an instrument data bar and exclude it"),
     Option("min_bands", "detect", "int", 3, "fewest parallel bands that make a family", low=1),
     Option("max_families", "detect", "int", 8, "most families reported per image or grain", low=1),
-    Option("working_size", "detect", "int", 1536, "longest side of the working copy for enhancement and Hough, px (reduced at most 3x)",
+    Option("working_size", "detect", "int", 1536, "longest side of the working copy for enhancement and Hough, px; the image is reduced at most 3x",
            low=16),
     Option("scales", "detect", "floats", (1.0, 1.7, 2.8), "ridge-filter scales at working resolution, px", low=0.0,
            low_open=True, high=64.0),

@@ -129,7 +129,8 @@ def _run_grains(detect, image, labels, mask, pixel_size_um, path, min_pixels, gr
     ids = _grain_ids(lab, grains)
     h, w = img.shape
     bars = _exclude_databars(img, None, find_bar)
-    img = _positive_levels(img, m, [], bars)  # judged on the whole image without its bars; not noted per grain
+    level_notes: list[str] = []
+    img = _positive_levels(img, m, level_notes, bars)  # judged on the whole image without its bars
     base = np.ones((h, w), bool) if m is None else m.copy()
     _clear_boxes(base, bars)
     # judged once on the whole image (a grain alone holds too few points), then stated to each grain;
@@ -139,7 +140,7 @@ def _run_grains(detect, image, labels, mask, pixel_size_um, path, min_pixels, gr
     out: dict[int, DetectionResult] = {}
     for gid, box in _grain_boxes(lab, ids).items():
         res_g = DetectionResult(path=path, width=w, height=h, excluded=list(bars), pixel_size_um=pixel_size_um, grain=gid,
-                                notes=[sampling_note] if sampling_note else [])
+                                notes=level_notes + ([sampling_note] if sampling_note else []))
         kw_g = {**kwargs, "predicted_traces": traces.get(gid)} if traces else kwargs
         out[gid] = _detect_one_grain(detect, img, lab, base, gid, box, res_g, min_pixels * ov.factor**2, working_size, kw_g)
     return out

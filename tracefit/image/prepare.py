@@ -4,9 +4,9 @@
   contrast), with the user mask and the grain of a label image combined into one mask;
 - :func:`_exclude_databars` -- instrument data bars found and taken out of the mask;
 - :func:`_positive_levels` -- levels near zero (strain maps) shifted, judged without the bars;
-- :func:`_working_copy` -- a copy reduced by an integer factor to at most
-  ``working_size`` px on a side (area averaging), its mask, and the region analysed
-  for ridges (the mask eroded by the widest filter's reach).
+- :func:`_working_copy` -- a copy reduced by an integer factor (at most ``MAX_REDUCTION``)
+  to at most ``working_size`` px on a side (area averaging), its mask, and the region
+  analysed for ridges (the mask eroded by the widest filter's reach).
 
 Private to the package; the public entry points are in :mod:`tracefit.image.detect`.
 """
@@ -26,8 +26,8 @@ from tracefit.image.io import to_gray
 
 MIN_SIDE_PX = 16  # smallest image (and working copy) side that is analysed
 # Largest reduction of the working copy: a band 3 px wide stays a working pixel wide. Without it a
-# 64-MP image with the 16-MP benchmark's bands (4-6 px wide) was reduced 6x and lost two of its
-# three families; the coarser looks (detect.COARSER_LOOKS) still see wide bands reduced further.
+# 64-MP image with the 16-MP benchmark's bands (4-6 px wide) was reduced 6x and lost the family of
+# 4-px bands; the coarser looks (detect.COARSER_LOOKS) still see wide bands reduced further.
 MAX_REDUCTION = 3
 
 
@@ -86,6 +86,24 @@ def _as_grey(image):
     return img, holes
 
 
+def _sampled_mask(shape, m, bars):
+    """Steps ``(row, col)`` of a grid of at most about 512 x 512 points and the analysed points on it.
+
+    The mask ``m[::row, ::col]`` with the end-exclusive ``bars`` boxes (full-image pixels)
+    cleared, or None when there is neither a mask nor a bar.
+    """
+    step_r, step_c = max(1, shape[0] // 512), max(1, shape[1] // 512)
+    if m is None and not bars:
+        return (step_r, step_c), None
+    n_r, n_c = -(-shape[0] // step_r), -(-shape[1] // step_c)
+    ms = np.ones((n_r, n_c), bool) if m is None else m[::step_r, ::step_c].copy()
+    for b in bars:
+        c0, r0, c1, r1 = b["bbox"]
+        # grid point k lies at pixel k * step: the first at or after r0, the first at or after r1
+        ms[-(-r0 // step_r) : -(-r1 // step_r), -(-c0 // step_c) : -(-c1 // step_c)] = False
+    return (step_r, step_c), ms
+
+
 def _positive_levels(img, m, notes, bars=()):
     """Shift grey levels that reach zero or below up by their range (strain maps), in place of ``img``.
 
@@ -96,13 +114,9 @@ def _positive_levels(img, m, notes, bars=()):
     on the analysed pixels: the mask ``m`` without the data ``bars`` (boxes, see
     :func:`_clear_boxes`), whose black text would otherwise pass for the image's darkest percent.
     """
-    step_r, step_c = max(1, img.shape[0] // 512), max(1, img.shape[1] // 512)
+    (step_r, step_c), ms = _sampled_mask(img.shape, m, bars)
     sample = img[::step_r, ::step_c]
-    if m is not None or bars:
-        ms = np.ones(sample.shape, bool) if m is None else m[::step_r, ::step_c].copy()
-        for b in bars:
-            c0, r0, c1, r1 = b["bbox"]
-            ms[-(-r0 // step_r) : -(-r1 // step_r), -(-c0 // step_c) : -(-c1 // step_c)] = False
+    if ms is not None:
         sample = sample[ms] if ms.any() else sample
     p1, p99 = (float(v) for v in np.percentile(sample, [1, 99]))
     span = p99 - p1

@@ -172,7 +172,8 @@ def _on_same_bands(fam: BandFamily, other: BandFamily) -> bool:
 def _angles_agree(a_deg, a_sigma, b_deg, b_sigma):
     """True where band angles agree within ``SAME_BAND_SIGMAS`` combined sigmas (at least ``SAME_BAND_MIN_DEG``).
 
-    A non-finite sigma counts as none. Scalars or arrays (broadcast together), degrees.
+    A non-finite sigma counts as none; a NaN angle agrees with nothing (fitted angles are
+    finite). Scalars or arrays (broadcast together), degrees.
     """
     a_sigma, b_sigma = np.asarray(a_sigma, float), np.asarray(b_sigma, float)
     spread = np.where(np.isfinite(a_sigma) & np.isfinite(b_sigma), np.hypot(a_sigma, b_sigma), 0.0)
