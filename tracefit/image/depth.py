@@ -20,7 +20,7 @@ from tracefit.image.ridges import RidgePixels, _pixel_noise
 from tracefit.image.selection import _median_inplace
 
 
-def _depth_map(wk, mw, f, spacing_hint, pixel_noise=None):
+def _depth_map(wk, mw, f, spacing_hint, pixel_noise=None, full=None):
     """Relative depth map ``(I - B) / B`` and a sampler at full-resolution points.
 
     B is the local background level: a median over about ``spacing_hint`` px refined
@@ -38,11 +38,17 @@ def _depth_map(wk, mw, f, spacing_hint, pixel_noise=None):
         Median window, working pixels (several band spacings).
     pixel_noise : float, optional
         ``_pixel_noise(wk, mw)`` when the caller has it already (speed); computed otherwise.
+    full : ndarray of float32, (H, W), optional
+        The full-resolution image of a reduced copy (``f`` > 1), for ``depth_of(..., exact=True)``.
 
     Returns
     -------
     depth_of : callable
-        ``depth_of(points_full)`` -> depth at each (col, row) full-resolution point, (n,).
+        ``depth_of(points_full)`` -> depth at each (col, row) full-resolution point, (n,), read
+        on the working copy. ``depth_of(points_full, exact=True)`` reads the grey level on
+        ``full`` instead, smoothed over one image pixel (as the working copy is at ``f`` = 1):
+        for points on a fitted band centre line, where a band narrower than ``f`` px keeps
+        the depth that the reduction averages away.
     dmap : ndarray of float32, (h, w)
         The depth map itself.
     """
@@ -75,15 +81,38 @@ def _depth_map(wk, mw, f, spacing_hint, pixel_noise=None):
     dmap = cv2.GaussianBlur(wk, (0, 0), 1.0)
     dmap -= med
     dmap /= med
-    del med
+    if full is None or f == 1:
+        del med
 
-    def depth_of(points_full):
+    def depth_of(points_full, exact=False):
         pw = _to_working(np.asarray(points_full, float), f)
+        if exact and full is not None and f > 1:
+            pw32 = pw.astype(np.float32)
+            bg = cv2.remap(med, pw32[:, :1], pw32[:, 1:], cv2.INTER_LINEAR, borderMode=cv2.BORDER_REPLICATE)[:, 0]
+            return (_smoothed_at(full, np.asarray(points_full, float)) - bg) / bg
         c = np.clip(np.rint(pw[:, 0]).astype(int), 0, w - 1)
         r = np.clip(np.rint(pw[:, 1]).astype(int), 0, h - 1)
         return dmap[r, c]
 
     return depth_of, dmap
+
+
+_DIAGONAL_PX = math.sqrt(5.0 / 6.0)  # a bilinear sample's variance is 1/6 px^2 per axis; 5/6 + 1/6 = 1
+
+
+def _smoothed_at(img, points):
+    """Grey level of ``img`` at (col, row) points, smoothed over one pixel (edges repeated).
+
+    The mean of four bilinear samples ``_DIAGONAL_PX`` away diagonally: a kernel of one pixel's
+    variance per axis, as the Gaussian of sigma 1 that smooths the working copy.
+    """
+    p = np.asarray(points, np.float32).reshape(-1, 1, 2)
+    out = np.zeros(len(p), np.float64)
+    for dc in (-_DIAGONAL_PX, _DIAGONAL_PX):
+        for dr in (-_DIAGONAL_PX, _DIAGONAL_PX):
+            q = p + np.float32([dc, dr])
+            out += cv2.remap(img, q[..., 0], q[..., 1], cv2.INTER_LINEAR, borderMode=cv2.BORDER_REPLICATE)[:, 0]
+    return out / 4.0
 
 
 def _keep(rp: RidgePixels, sel) -> RidgePixels:

@@ -129,7 +129,7 @@ def _effective_min_depth(img, m, pixel_noise: float, min_depth: float) -> float:
 # --------------------------------------------------------------------------- stages
 
 
-def _band_pixels(wc: _WorkingCopy, scales, min_depth, working_noise=None):
+def _band_pixels(wc: _WorkingCopy, scales, min_depth, working_noise=None, full=None):
     """Stage 3: ridge pixels (dark, bright) on the band side of the local median grey, and the depth sampler.
 
     ``working_noise`` is the pixel noise of the working copy when the caller knows it already.
@@ -137,7 +137,7 @@ def _band_pixels(wc: _WorkingCopy, scales, min_depth, working_noise=None):
     flat = flatten_background(wc.image, wc.mask, wc.background_px)
     dark, bright = ridge_pixels(flat, wc.region, sector_deg=SECTOR_DEG, scales=scales)
     del flat
-    depth_of, dmap = _depth_map(wc.image, wc.mask, wc.factor, spacing_hint=wc.background_px, pixel_noise=working_noise)
+    depth_of, dmap = _depth_map(wc.image, wc.mask, wc.factor, wc.background_px, working_noise, full)
     # band pixels must lie below (dark) / above (bright) the local median grey: this drops
     # the gaps between bands, which are ridges of the opposite sign at the median level
     ridges = [_on_band_side(rp, dmap, 0.5 * min_depth) for rp in (dark, bright)]
@@ -196,7 +196,7 @@ def _detect_at_scale(img, m, bars, st: _Settings, up: int = 1, down: int = 1) ->
     # the working copy is the image itself (same pixels, same mask) unless reduced or given a
     # data-bar mask of its own: then its noise is the one just measured
     same = wc.factor == 1 and (m is not None or not bars)
-    ridges, depth_of = _band_pixels(wc, st.scales, min_depth, pixel_noise if same else None)  # stage 3
+    ridges, depth_of = _band_pixels(wc, st.scales, min_depth, pixel_noise if same else None, img)  # stage 3
     v_min = max(20.0, 0.06 * min(wc.region.shape))
     if sum(len(rp) for rp in ridges) < v_min:
         return _Outcome([], "low_contrast", "too little contrast: no band-like ridges stand above the noise "

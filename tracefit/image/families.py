@@ -154,12 +154,16 @@ def _fit_family_bands(ctx: _FamilyContext, polarity, fp: _FamilyProfile, uniq, m
 
 
 def _depth_test(ctx: _FamilyContext, polarity, fits):
-    """Set each fit's median relative depth along its seen part; keep those at least ``min_depth`` deep."""
+    """Set each fit's median relative depth along its seen part; keep those at least ``min_depth`` deep.
+
+    Read at full resolution on the fitted centre line (``exact``): a reduced copy averages a
+    band narrower than the reduction down to a fraction of its depth.
+    """
     for ft in fits:
         pa, pb = ft.ends
         tt = np.linspace(0.0, 1.0, max(8, int(ft.seen / (2.0 * ctx.factor))))[:, None]
         pts = pa[None, :] * (1 - tt) + pb[None, :] * tt
-        ft.depth = float(_median_inplace(polarity * ctx.depth_of(pts)))
+        ft.depth = float(_median_inplace(polarity * ctx.depth_of(pts, exact=True)))
     return [ft for ft in fits if ft.depth >= ctx.min_depth]
 
 

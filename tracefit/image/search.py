@@ -101,8 +101,10 @@ def _screen_candidates(cands, depth_of, wc: _WorkingCopy, min_depth, memo: _Roun
     """Stage 5: keep candidates whose strongest Hough lines are deeper than the local median grey, deepest first.
 
     A cheap test before the full-resolution fits (it rejects the gaps between bands), and
-    the order puts a band family before the gaps beside it. ``memo`` (one per image) keeps
-    the depth of each (polarity, lines) for the next round.
+    the order puts a band family before the gaps beside it. On a copy reduced ``f`` times a
+    band 1 px wide is averaged down to about 1/f of its depth, so a 1/f share of the depth is
+    asked here; the fitted bands' depth is then read at full resolution (stage 6). ``memo``
+    (one per image) keeps the depth of each (polarity, lines) for the next round.
     """
     known = {} if memo is None else memo.depth
 
@@ -113,7 +115,7 @@ def _screen_candidates(cands, depth_of, wc: _WorkingCopy, min_depth, memo: _Roun
         return known[key]
 
     scored = [(depth(rp, ln), rp, ln) for rp, ln in cands]
-    scored = [c for c in scored if c[0] >= 0.6 * min_depth]
+    scored = [c for c in scored if c[0] >= 0.6 * min_depth / wc.factor]
     scored.sort(key=lambda c: -c[0])
     return [(rp, ln) for _, rp, ln in scored]
 
