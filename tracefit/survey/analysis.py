@@ -162,8 +162,8 @@ def analyse_image(im: ImageJob) -> ImageAnalysis:
     >>> from tracefit.demo import demo_job_path
     >>> from tracefit.survey import load_job
     >>> a = analyse_image(load_job(demo_job_path()).images[0])
-    >>> [round(f["angle_deg"], 1) for f in a.families], [i["candidates"][0]["plane"] for i in a.identifications]
-    ([21.4, 144.6], [[1, 1, 1], [1, 1, -1]])
+    >>> sorted((round(f["angle_deg"], 1), i["candidates"][0]["plane"]) for f, i in zip(a.families, a.identifications))
+    [(21.4, [1, 1, 1]), (144.6, [1, 1, -1])]
     """
     from tracefit.pipeline import analyse_image as run_chain
 
