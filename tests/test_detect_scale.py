@@ -71,16 +71,20 @@ def test_a_larger_field_of_the_same_thin_bands_keeps_them():
     assert all(abs(axial_difference(a, t)) <= 0.05 for a, t in zip(found, sorted(truth.family_angles)))
 
 
-def test_bands_one_pixel_wide_survive_the_reduction_with_their_depth():
+@pytest.mark.parametrize("angles, blur", [((30.3, 100.7, 150.2), 0.7), ((0.8, 90.0, 45.0), 0.0)],
+                         ids=["oblique-blurred", "along-the-axes-sharp"])
+def test_bands_one_pixel_wide_survive_the_reduction_with_their_depth(angles, blur):
     # Bands narrower than the reduction (1 px wide, reduced 3x) are averaged down to a third of their
     # depth on the working copy: the screen of candidates asks a third of the depth there, and the
-    # fitted bands' depth is read at full resolution. The same bands are found, about as deep, in the
-    # image reduced 3x and in its middle analysed as it is.
+    # fitted bands' depth is read at full resolution, smoothed as at full size (a sharp band along a
+    # pixel row is where a smoothing of another shape would read it otherwise). The same bands are
+    # found, about as deep, in the image reduced 3x and in its middle analysed as it is.
     from tracefit.image import BandFamilySpec, render_micrograph
 
-    fams = [BandFamilySpec(30.3, 30, 1.0, -0.3), BandFamilySpec(100.7, 40, 1.0, 0.3), BandFamilySpec(150.2, 25, 1.0, -0.25)]
+    fams = [BandFamilySpec(angles[0], 30, 1.0, -0.3), BandFamilySpec(angles[1], 40, 1.0, 0.3),
+            BandFamilySpec(angles[2], 25, 1.0, -0.25)]
     img, truth = render_micrograph((3072, 3072), fams, n_scratches=3, databar=True, illumination=0.3, noise_sigma=0.03,
-                                   blur_sigma=0.7, seed=5)
+                                   blur_sigma=blur, seed=5)
     depth = {}
     for name, part, ws in (("reduced", img, 1024), ("as given", img[768:2304, 768:2304], 1536)):
         res = detect_bands(part, working_size=ws)

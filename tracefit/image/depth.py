@@ -97,22 +97,23 @@ def _depth_map(wk, mw, f, spacing_hint, pixel_noise=None, full=None):
     return depth_of, dmap
 
 
-_DIAGONAL_PX = math.sqrt(5.0 / 6.0)  # a bilinear sample's variance is 1/6 px^2 per axis; 5/6 + 1/6 = 1
+_NEAR = np.array([(dr, dc) for dr in range(-3, 4) for dc in range(-3, 4)])
+_GAUSS = np.exp(-0.5 * (_NEAR**2).sum(axis=1)).astype(np.float32)
+_GAUSS /= _GAUSS.sum()
 
 
 def _smoothed_at(img, points):
-    """Grey level of ``img`` at (col, row) points, smoothed over one pixel (edges repeated).
+    """Grey level of ``img`` at (col, row) points (nearest pixel), smoothed by a Gaussian of sigma 1 px.
 
-    The mean of four bilinear samples ``_DIAGONAL_PX`` away diagonally: a kernel of one pixel's
-    variance per axis, as the Gaussian of sigma 1 that smooths the working copy.
+    The 7 x 7 pixels about each point with the Gaussian's weights, edges repeated: the
+    smoothing of the working copy's depth map at ``f`` = 1.
     """
-    p = np.asarray(points, np.float32).reshape(-1, 1, 2)
-    out = np.zeros(len(p), np.float64)
-    for dc in (-_DIAGONAL_PX, _DIAGONAL_PX):
-        for dr in (-_DIAGONAL_PX, _DIAGONAL_PX):
-            q = p + np.float32([dc, dr])
-            out += cv2.remap(img, q[..., 0], q[..., 1], cv2.INTER_LINEAR, borderMode=cv2.BORDER_REPLICATE)[:, 0]
-    return out / 4.0
+    h, w = img.shape
+    c = np.rint(points[:, 0]).astype(np.intp)
+    r = np.rint(points[:, 1]).astype(np.intp)
+    rr = np.clip(r[:, None] + _NEAR[None, :, 0], 0, h - 1)
+    cc = np.clip(c[:, None] + _NEAR[None, :, 1], 0, w - 1)
+    return img[rr, cc] @ _GAUSS
 
 
 def _keep(rp: RidgePixels, sel) -> RidgePixels:

@@ -153,6 +153,9 @@ def _fit_family_bands(ctx: _FamilyContext, polarity, fp: _FamilyProfile, uniq, m
     return dedup
 
 
+EXACT_DEPTH_POINTS = 128  # most points along a band whose depth is read at full resolution
+
+
 def _depth_test(ctx: _FamilyContext, polarity, fits):
     """Set each fit's median relative depth along its seen part; keep those at least ``min_depth`` deep.
 
@@ -161,7 +164,9 @@ def _depth_test(ctx: _FamilyContext, polarity, fits):
     """
     for ft in fits:
         pa, pb = ft.ends
-        tt = np.linspace(0.0, 1.0, max(8, int(ft.seen / (2.0 * ctx.factor))))[:, None]
+        n = max(8, int(ft.seen / (2.0 * ctx.factor)))
+        # read at full resolution (f > 1) each point costs 49 pixels: a median of at most this many is plenty
+        tt = np.linspace(0.0, 1.0, n if ctx.factor == 1 else min(n, EXACT_DEPTH_POINTS))[:, None]
         pts = pa[None, :] * (1 - tt) + pb[None, :] * tt
         ft.depth = float(_median_inplace(polarity * ctx.depth_of(pts, exact=True)))
     return [ft for ft in fits if ft.depth >= ctx.min_depth]
