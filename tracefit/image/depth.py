@@ -85,11 +85,12 @@ def _depth_map(wk, mw, f, spacing_hint, pixel_noise=None, full=None):
         del med
 
     def depth_of(points_full, exact=False):
-        pw = _to_working(np.asarray(points_full, float), f)
+        pf = np.asarray(points_full, float)
+        pw = _to_working(pf, f)
         if exact and full is not None and f > 1:
             pw32 = pw.astype(np.float32)
             bg = cv2.remap(med, pw32[:, :1], pw32[:, 1:], cv2.INTER_LINEAR, borderMode=cv2.BORDER_REPLICATE)[:, 0]
-            return (_smoothed_at(full, np.asarray(points_full, float)) - bg) / bg
+            return (_smoothed_at(full, pf) - bg) / bg
         c = np.clip(np.rint(pw[:, 0]).astype(int), 0, w - 1)
         r = np.clip(np.rint(pw[:, 1]).astype(int), 0, h - 1)
         return dmap[r, c]
