@@ -17,7 +17,6 @@ content of the pixels they read, so the rounds give what they gave without it.
 from __future__ import annotations
 
 import copy
-import math
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 
@@ -183,10 +182,9 @@ def _angles_agree(a_deg, a_sigma, b_deg, b_sigma):
 
 
 def _same_band(a: BandLine, b: BandLine, tol: float) -> bool:
-    """True when band lines ``a`` and ``b`` are one band (see :func:`_on_same_bands`); pixels (col, row)."""
+    """True when band lines ``a`` and ``b``, whose angles agree (:func:`_angles_agree`, tested by the
+    caller for all pairs at once), are one band (see :func:`_on_same_bands`); pixels (col, row)."""
     if min(a.length_px, b.length_px) <= 0:
-        return False
-    if not _angles_agree(a.angle_deg, a.angle_sigma_deg, b.angle_deg, b.angle_sigma_deg):
         return False
     short, long_ = (a, b) if a.length_px <= b.length_px else (b, a)
     p0, d = np.array([long_.col0, long_.row0]), np.array([long_.col1 - long_.col0, long_.row1 - long_.row0])
