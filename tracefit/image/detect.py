@@ -139,8 +139,8 @@ def _band_pixels(wc: _WorkingCopy, scales, min_depth, working_noise=None, full=N
     del flat
     depth_of, dmap = _depth_map(wc.image, wc.mask, wc.factor, wc.background_px, working_noise, full)
     # band pixels must lie below (dark) / above (bright) the local median grey: this drops
-    # the gaps between bands, which are ridges of the opposite sign at the median level
-    ridges = [_on_band_side(rp, dmap, 0.5 * min_depth) for rp in (dark, bright)]
+    # the gaps between bands (ridges of the opposite sign); reduced f times, a thin band keeps 1/f of its depth
+    ridges = [_on_band_side(rp, dmap, 0.5 * min_depth / wc.factor) for rp in (dark, bright)]
     return ridges, depth_of
 
 
