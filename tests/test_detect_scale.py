@@ -118,3 +118,40 @@ def test_faint_thin_bands_keep_their_number_in_the_reduced_copy():
         assert all(abs(axial_difference(f.angle_deg, t)) <= 0.05 for f, t in zip(found, sorted(truth.family_angles)))
         bands[name] = sum(f.n_bands for f in found)
     assert bands["reduced"] >= 0.75 * bands["full"]
+
+
+def _patch_of_bands(size, angle_deg, length, n=10, spacing=22.0, width=5.0, depth=0.2, noise=0.01, seed=0):
+    """``n`` dark bands of an erf profile, each ``length`` px long, side by side in the image's middle.
+
+    Drawn here (not with tracefit's renderer): the bands of one grain of a micrograph, the rest
+    of the image plain. Angles counterclockwise from +x with y up the screen.
+    """
+    import numpy as np
+    from scipy.special import erf
+
+    rng = np.random.default_rng(seed)
+    yy, xx = np.mgrid[0:size, 0:size].astype(np.float64)
+    x, y = xx - size / 2, size / 2 - yy
+    a = math.radians(angle_deg)
+    along, across = x * math.cos(a) + y * math.sin(a), -x * math.sin(a) + y * math.cos(a)
+    img = np.full((size, size), 0.5)
+    for k in range(n):
+        c = (k - (n - 1) / 2) * spacing + rng.uniform(-3, 3)
+        across_band = 0.5 * (erf((across - c + width / 2) / 1.0) - erf((across - c - width / 2) / 1.0))
+        along_band = 0.5 * (erf((along + length / 2) / 2.0) - erf((along - length / 2) / 2.0))
+        img -= 0.5 * depth * across_band * along_band
+    return (img + rng.normal(0, noise, img.shape)).astype(np.float32)
+
+
+@pytest.mark.parametrize("angle", [60.0])
+def test_bands_in_one_part_of_the_image_are_found_as_in_a_crop_around_them(angle):
+    # Bands confined to one grain run across a small part of a large image. A candidate's depth
+    # is read where its ridge pixels lie, not along the whole line across the image, whose
+    # median is the plain background beyond the bands' ends. The same ten bands (300 px long,
+    # 20 % deep) are found in the 1024-px image and in a 400-px crop around them.
+    img = _patch_of_bands(1024, angle, 300)
+    for part in (img, img[312:712, 312:712]):
+        found = detect_bands(part).families
+        assert len(found) == 1
+        assert abs(axial_difference(found[0].angle_deg, angle)) <= 0.05
+        assert found[0].n_bands == 10

@@ -15,9 +15,14 @@ import math
 import cv2
 import numpy as np
 
+from tracefit.conventions import axial_mean
 from tracefit.image.geometry import _hough_line, _segment_in_image, _to_full, _to_working
+from tracefit.image.hough import _pixels_near_angle
 from tracefit.image.ridges import RidgePixels, _pixel_noise
 from tracefit.image.selection import _median_inplace
+
+
+SPAN_PX = 1.5  # ridge pixels this near a Hough line (working px) give the stretch its depth is read on
 
 
 def _depth_map(wk, mw, f, spacing_hint, pixel_noise=None, full=None):
@@ -153,15 +158,30 @@ def _hough_depth(rp: RidgePixels, lines, depth_of, f, region, n_lines=5):
     -------
     float
         Median over the lines of their signed relative depth (0.0 when none could be sampled).
+
+    Notes
+    -----
+    Each line is sampled over the stretch its ridge pixels occupy (those within
+    ``SPAN_PX`` of it, from the first to the last percentile along it), not across the
+    whole region: bands confined to one part of an image (one grain of a micrograph) would
+    otherwise be judged by the background beyond their ends.
     """
     h, w = region.shape
     top = lines[np.argsort(-lines[:, 3])[:n_lines]]
+    near = _pixels_near_angle(rp, float(axial_mean(top[:, 0], top[:, 3])))
+    px = np.column_stack([rp.col[near], rp.row[near]]).astype(np.float64)
     vals = []
     for _, th, rho, _, _ in top:
         nt, dt = _hough_line(th)
         seg = _segment_in_image(rho * nt, dt, w, h)
         if seg is None:
             continue
+        on = np.abs(px @ nt - rho) <= SPAN_PX
+        if on.sum() >= 8:
+            t0, t1 = np.percentile(px[on] @ dt, [1, 99])
+            seg = (max(seg[0], t0 - SPAN_PX), min(seg[1], t1 + SPAN_PX))
+            if seg[1] - seg[0] < 8:
+                continue
         tt = np.linspace(seg[0], seg[1], int(np.clip((seg[1] - seg[0]) / 2, 8, 96)))
         best = None
         for off in (-1.0, 0.0, 1.0):
