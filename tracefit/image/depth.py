@@ -19,7 +19,6 @@ from tracefit.conventions import axial_mean
 from tracefit.image.geometry import _hough_line, _segment_in_image, _to_full, _to_working
 from tracefit.image.hough import _pixels_near_angle
 from tracefit.image.ridges import RidgePixels, _pixel_noise
-from tracefit.image.selection import _median_inplace
 
 
 SPAN_PX = 1.5  # ridge pixels this near a Hough line (working px) give the stretch its depth is read on
@@ -156,15 +155,17 @@ def _hough_depth(rp: RidgePixels, lines, depth_of, f, region, n_lines=5):
 
     Returns
     -------
-    float
-        Median over the lines of their signed relative depth (0.0 when none could be sampled).
+    whole, span : float
+        Median over the lines of their signed relative depth along the whole line across
+        the region, and along the stretch their ridge pixels occupy (0.0 when none could
+        be sampled).
 
     Notes
     -----
-    Each line is sampled over the stretch its ridge pixels occupy (those within
-    ``SPAN_PX`` of it, from the first to the last percentile along it), not across the
-    whole region: bands confined to one part of an image (one grain of a micrograph) would
-    otherwise be judged by the background beyond their ends.
+    The stretch runs from the first to the last percentile, along the line, of the ridge
+    pixels within ``SPAN_PX`` of it (the whole line when fewer than 8 samples fall in it).
+    Bands confined to one part of an image (one grain of a micrograph) are judged by it;
+    along the whole line they would be judged by the background beyond their ends.
     """
     h, w = region.shape
     top = lines[np.argsort(-lines[:, 3])[:n_lines]]
@@ -176,21 +177,22 @@ def _hough_depth(rp: RidgePixels, lines, depth_of, f, region, n_lines=5):
         seg = _segment_in_image(rho * nt, dt, w, h)
         if seg is None:
             continue
+        tt = np.linspace(seg[0], seg[1], int(np.clip((seg[1] - seg[0]) / 2, 8, 96)))
+        in_span = np.ones(len(tt), bool)
         on = np.abs(px @ nt - rho) <= SPAN_PX
         if on.sum() >= 8:
             t0, t1 = np.percentile(px[on] @ dt, [1, 99])
-            seg = (max(seg[0], t0 - SPAN_PX), min(seg[1], t1 + SPAN_PX))
-            if seg[1] - seg[0] < 8:
-                continue
-        tt = np.linspace(seg[0], seg[1], int(np.clip((seg[1] - seg[0]) / 2, 8, 96)))
+            in_span = (tt >= t0 - SPAN_PX) & (tt <= t1 + SPAN_PX)
         best = None
         for off in (-1.0, 0.0, 1.0):
             pw = rho * nt + off * nt + tt[:, None] * dt
             ok = region[np.clip(np.rint(pw[:, 1]).astype(int), 0, h - 1), np.clip(np.rint(pw[:, 0]).astype(int), 0, w - 1)]
             if ok.sum() < 8:
                 continue
-            v = float(_median_inplace(rp.polarity * depth_of(_to_full(pw, f)[ok])))
-            best = v if best is None else max(best, v)
+            d = rp.polarity * depth_of(_to_full(pw[ok], f))
+            whole = float(np.median(d))
+            span = float(np.median(d[in_span[ok]])) if in_span[ok].sum() >= 8 else whole
+            best = (whole, span) if best is None else (max(best[0], whole), max(best[1], span))
         if best is not None:
             vals.append(best)
-    return float(np.median(vals)) if vals else 0.0
+    return tuple(float(v) for v in np.median(vals, axis=0)) if vals else (0.0, 0.0)

@@ -473,7 +473,7 @@ def detect_bands(
         Hessian scales at working resolution, pixels (each > 0 and <= 64; about half the
         band widths looked for).
     min_coverage : float
-        Least fraction of a Hough chord that must lie on ridge pixels (>= 0).
+        Least fraction of a Hough chord that must lie on ridge pixels (0 < c <= 1).
     min_depth : float
         Least relative depth of a band below (dark) or above (bright) the local median
         grey level (>= 0), e.g. 0.035 = 3.5 %; lowered to as little as 0.3 times this

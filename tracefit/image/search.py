@@ -113,9 +113,11 @@ def _screen_candidates(cands, depth_of, wc: _WorkingCopy, min_depth, memo: _Roun
             known[key] = _hough_depth(rp, ln, depth_of, wc.factor, wc.region)
         return known[key]
 
+    # passed on the depth where the lines' ridge pixels lie (bands of one part of the image),
+    # ordered by the depth along the whole lines (a family before the shorter lines crossing it)
     scored = [(depth(rp, ln), rp, ln) for rp, ln in cands]
-    scored = [c for c in scored if c[0] >= 0.6 * min_depth / wc.factor]
-    scored.sort(key=lambda c: -c[0])
+    scored = [c for c in scored if c[0][1] >= 0.6 * min_depth / wc.factor]
+    scored.sort(key=lambda c: (-c[0][0], -c[0][1]))
     return [(rp, ln) for _, rp, ln in scored]
 
 
@@ -124,7 +126,9 @@ def _fit_candidates(try_candidate, cands, max_families, known=()) -> tuple[list[
 
     ``try_candidate(rp, lines)`` builds a family and tests its significance (None when it fails);
     candidates within ``SAME_FAMILY_DEG`` of a family already kept (here or in ``known``) are
-    skipped. Returns the families and the number of candidates tried.
+    skipped, and so is a family of the same polarity built again within it from a later
+    (shallower) candidate: lines crossing a family at a few degrees are refined onto it.
+    Returns the families and the number of candidates tried.
     """
     fams: list[BandFamily] = []
     attempts = 0
@@ -136,7 +140,8 @@ def _fit_candidates(try_candidate, cands, max_families, known=()) -> tuple[list[
             continue  # a split cluster of a family already fitted, or its gaps
         attempts += 1
         fam = try_candidate(rp, ln)
-        if fam is not None:
+        if fam is not None and not any(fm.polarity == fam.polarity and abs(axial_difference(fam.angle_deg, fm.angle_deg))
+                                       < SAME_FAMILY_DEG for fm in [*fams, *known]):
             fams.append(fam)
     return fams, attempts
 
