@@ -72,6 +72,37 @@ def test_spacing_in_micrometres_and_json_shape():
     assert res.to_dict(with_lines=True)["families"][0]["significance"] > 10
 
 
+def test_a_family_built_again_from_a_crossing_candidate_keeps_the_stronger_copy():
+    # Lines crossing a family at a few degrees are refined onto it (stage 6) and give a copy with
+    # a few of its bands; whichever candidate is tried first, the family's own candidate is still
+    # tried and the stronger copy kept, and a copy of a family found in an earlier round is
+    # dropped. (Design rule of the detector, no source.)
+    from types import SimpleNamespace
+
+    from tracefit.image.search import _fit_candidates
+
+    def cand(angle):
+        return (None, np.array([[angle, 0.0, 0.0, 100.0, 0.5]]))
+
+    built = {52.5: SimpleNamespace(angle_deg=59.99, polarity="dark", strength=5.7),
+             60.0: SimpleNamespace(angle_deg=60.00, polarity="dark", strength=150.0),
+             61.0: SimpleNamespace(angle_deg=60.02, polarity="dark", strength=20.0),
+             130.0: SimpleNamespace(angle_deg=130.0, polarity="dark", strength=1.0)}
+
+    def try_candidate(rp, ln):
+        return built[float(ln[0, 0])]
+
+    for order in ([52.5, 60.0, 130.0], [60.0, 52.5, 130.0]):
+        fams, tried = _fit_candidates(try_candidate, [cand(a) for a in order], max_families=8)
+        assert sorted(f.strength for f in fams) == [1.0, 150.0]
+    # a split cluster of the family is skipped once the family's own candidate has been tried
+    fams, tried = _fit_candidates(try_candidate, [cand(60.0), cand(61.0)], max_families=8)
+    assert tried == 1 and [f.strength for f in fams] == [150.0]
+    earlier = [SimpleNamespace(angle_deg=59.5, polarity="dark", strength=1.0)]
+    fams, _ = _fit_candidates(try_candidate, [cand(52.5), cand(130.0)], max_families=8, known=earlier)
+    assert [f.angle_deg for f in fams] == [130.0]
+
+
 def test_data_bar_found_and_excluded_scratches_not_families():
     img, truth = render_micrograph((512, 512), [BandFamilySpec(37.0, 25, 3, -0.3)], databar=True, n_scratches=3,
                                    noise_sigma=0.02, seed=21)

@@ -97,18 +97,21 @@ def _candidate_families(ridges: Sequence[RidgePixels], region, min_bands, min_co
 
 
 def _screen_candidates(cands, depth_of, wc: _WorkingCopy, min_depth, memo: _RoundMemo | None = None):
-    """Stage 5: keep candidates whose strongest Hough lines are deeper than the local median grey, deepest first.
+    """Stage 5: keep candidates whose strongest Hough lines lie deeper than the local median grey.
 
-    A cheap test before the full-resolution fits (it rejects the gaps between bands), and
-    the order puts a band family before the gaps beside it. On a copy reduced ``f`` times a
-    band 1 px wide is averaged down to about 1/f of its depth, so a 1/f share of the depth is
-    asked here; the fitted bands' depth is then read at full resolution (stage 6). ``memo``
-    (one per image) keeps the depth of each (polarity, lines) for the next round.
+    A cheap test before the full-resolution fits (it rejects the gaps between bands). A
+    candidate passes on the depth over the stretch its lines' ridge pixels occupy (bands of
+    one part of the image), and candidates are ordered by the depth along the whole lines:
+    a band family before the gaps beside it and before shorter lines crossing it. On a copy
+    reduced ``f`` times a band 1 px wide is averaged down to about 1/f of its depth, so a
+    1/f share of the depth is asked here; the fitted bands' depth is then read at full
+    resolution (stage 6). ``memo`` (one per image) keeps the depths of each candidate (its
+    polarity, lines and the ridge pixels near their angle) for the next round.
     """
     known = {} if memo is None else memo.depth
 
     def depth(rp, ln):
-        key = (rp.polarity, ln.tobytes())
+        key = (rp.polarity, ln.tobytes()) if memo is None else _candidate_key(rp, ln, memo.digests)
         if key not in known:
             known[key] = _hough_depth(rp, ln, depth_of, wc.factor, wc.region)
         return known[key]
@@ -126,23 +129,43 @@ def _fit_candidates(try_candidate, cands, max_families, known=()) -> tuple[list[
 
     ``try_candidate(rp, lines)`` builds a family and tests its significance (None when it fails);
     candidates within ``SAME_FAMILY_DEG`` of a family already kept (here or in ``known``) are
-    skipped, and so is a family of the same polarity built again within it from a later
-    (shallower) candidate: lines crossing a family at a few degrees are refined onto it.
-    Returns the families and the number of candidates tried.
+    skipped: a split cluster of the family, or its gaps. Lines crossing a family at a few
+    degrees are refined onto it and give a copy with a few of its bands: such a copy (same
+    polarity, within ``SAME_FAMILY_DEG``) does not skip the family's own candidates, the
+    stronger of the two (more and longer bands) is kept, and a copy of a family of ``known``
+    (an earlier round) is dropped. Returns the families and the number of candidates tried.
     """
     fams: list[BandFamily] = []
+    skip_near: list[list[float]] = []  # per kept family: the angles whose candidates are skipped
     attempts = 0
     for rp, ln in cands:
         if attempts >= 3 * max_families:
             break
         a_c = _vote_mean_angle(ln)
-        if any(abs(axial_difference(a_c, fm.angle_deg)) < SAME_FAMILY_DEG for fm in [*fams, *known]):
-            continue  # a split cluster of a family already fitted, or its gaps
+        near = [fm.angle_deg for fm in known] + [a for angles in skip_near for a in angles]
+        if any(abs(axial_difference(a_c, a)) < SAME_FAMILY_DEG for a in near):
+            continue
         attempts += 1
         fam = try_candidate(rp, ln)
-        if fam is not None and not any(fm.polarity == fam.polarity and abs(axial_difference(fam.angle_deg, fm.angle_deg))
-                                       < SAME_FAMILY_DEG for fm in [*fams, *known]):
+        if fam is None:
+            continue
+
+        def again(fm):
+            return fm.polarity == fam.polarity and abs(axial_difference(fam.angle_deg, fm.angle_deg)) < SAME_FAMILY_DEG
+
+        if any(again(fm) for fm in known):
+            continue
+        # a family refined far from its candidate's angle is a copy: its angle skips nothing
+        angles = [a_c] + ([fam.angle_deg] if abs(axial_difference(a_c, fam.angle_deg)) < SAME_FAMILY_DEG else [])
+        twin = next((k for k, fm in enumerate(fams) if again(fm)), None)
+        if twin is None:
             fams.append(fam)
+            skip_near.append(angles)
+        elif fam.strength > fams[twin].strength:
+            fams[twin] = fam
+            skip_near[twin] += angles
+        else:
+            skip_near[twin].append(a_c)
     return fams, attempts
 
 
